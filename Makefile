@@ -1,0 +1,38 @@
+# Two entry points for users: `make demo` and `make test`. `make check` adds lint and types.
+PYTHON ?= python3
+VENV := .venv
+BIN := $(VENV)/bin
+STAMP := $(VENV)/.installed
+
+.PHONY: demo test check lint typecheck browser clean bench
+
+$(STAMP): pyproject.toml
+	$(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -e '.[test,dev]'
+	touch $(STAMP)
+
+demo: $(STAMP)
+	$(BIN)/sitegen build example_project -o _site
+	@echo "Open _site/index.html in a browser."
+
+browser: $(STAMP)
+	bash scripts/ensure-browser.sh
+
+test: $(STAMP) browser
+	$(BIN)/python -m pytest
+
+lint: $(STAMP)
+	$(BIN)/ruff check sitegen tests bench example_project
+	$(BIN)/ruff format --check sitegen tests bench example_project
+
+typecheck: $(STAMP)
+	$(BIN)/mypy
+
+check: lint typecheck test
+
+bench: $(STAMP)
+	$(BIN)/python bench/run.py
+
+clean:
+	rm -rf $(VENV) _site build *.egg-info .pytest_cache .mypy_cache .ruff_cache

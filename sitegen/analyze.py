@@ -1,0 +1,196 @@
+"""Fit one dataset: sidecar → table → design → statistics → :class:`FitReport`.
+
+This is the unit of work the executor runs, possibly in another process, so it
+takes and returns plain picklable data. A :class:`DatasetError` becomes an
+error report for this dataset; any other exception is caught too (so one
+dataset can never stop a build) and reported as an internal error with its
+traceback kept for ``--debug``.
+"""
+
+from __future__ import annotations
+
+import hashlib
+import traceback
+from dataclasses import dataclass, replace
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+
+from sitegen import derive
+from sitegen.derive import Observations
+from sitegen.discover import DatasetSource
+from sitegen.errors import DatasetError, FitError, FormulaError
+from sitegen.formula import Design, assumed_formula, build_design
+from sitegen.load import LoadedTable, read_table
+from sitegen.model import AnovaLine, Coefficient, FitReport, Message, Status
+from sitegen.spec import DatasetSpec, Limits, read_sidecar
+from sitegen.stats.ols import OlsFit, anova_table, fit_ols
+
+
+@dataclass(frozen=True, slots=True)
+class FitTask:
+    """Everything a worker needs to fit one dataset."""
+
+    source: DatasetSource
+    defaults: tuple[tuple[str, Any], ...]
+    limits: Limits
+
+
+@dataclass(frozen=True, slots=True)
+class DatasetResult:
+    """What a worker returns: the report, the per-row table and, on an internal error, a traceback."""
+
+    report: FitReport
+    observations: Observations | None
+    debug_trace: str | None = None
+
+
+def analyze(task: FitTask) -> DatasetResult:
+    """Fit one dataset; never raises."""
+    src = task.source
+    title = Path(src.relpath).stem
+    base = FitReport(dataset=src.slug, source=src.relpath, section=src.section, title=title,
+                     status="error", model="", level=0.95)  # fmt: skip
+    try:
+        raw = src.csv_path.read_bytes()
+    except OSError as exc:
+        msg = f"{src.relpath} cannot be read: {exc.strerror or exc} (it may have been moved or deleted during the build)"
+        return DatasetResult(replace(base, messages=(Message("error", msg),)), None)
+    base = replace(base, input_sha256=hashlib.sha256(raw).hexdigest())
+    spec: DatasetSpec | None = None
+    try:
+        sidecar_name = src.relpath[: -len(".csv")] + ".toml"
+        spec = read_sidecar(src.sidecar_path, dict(task.defaults), sidecar_name)
+        base = replace(base, title=spec.title or title, description=spec.description, tags=spec.tags,
+                       level=spec.level, units=spec.units)  # fmt: skip
+        table = read_table(raw, spec, task.limits, src.relpath)
+        return _fit(base, spec, table)
+    except DatasetError as exc:
+        messages = [*_spec_messages(spec), Message("error", str(exc))]
+        return DatasetResult(replace(base, messages=tuple(messages)), None)
+    except Exception as exc:  # noqa: BLE001 - one dataset must never stop the build
+        text = (f"sitegen could not process {src.relpath} because of an internal error "
+                f"({type(exc).__name__}: {exc}); please report it with the file")  # fmt: skip
+        return DatasetResult(replace(base, messages=(Message("error", text),)), None, traceback.format_exc())
+
+
+def _spec_messages(spec: DatasetSpec | None) -> list[Message]:
+    if spec is None:
+        return []
+    out = []
+    for key, hint in spec.unknown_keys:
+        tip = f"; did you mean '{hint}'?" if hint else ""
+        out.append(Message("warning", f"unknown sidecar key '{key}' was ignored{tip}"))
+    return out
+
+
+def _model_formula(spec: DatasetSpec, table: LoadedTable, name: str) -> tuple[str, bool]:
+    if spec.model:
+        return spec.model, False
+    guess = assumed_formula(table.frame)
+    if guess is None:
+        cols = ", ".join(map(str, table.frame.columns))
+        raise FormulaError(
+            f"{name} has no model: without a sidecar only a table of exactly two numeric columns can be fitted",
+            hint=f'add {Path(name).stem}.toml with e.g. model = "y ~ x"; the columns are {cols}',
+        )
+    return guess, True
+
+
+def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResult:
+    name = base.source
+    formula, assumed = _model_formula(spec, table, name)
+    extra = tuple(c for c in (spec.weights, spec.group) if c)
+    design = build_design(formula, table.frame, name, extra)
+    weights = _weights(design, spec)
+    fit = fit_ols(design.X_ext, design.y_ext, design.terms, has_intercept=design.has_intercept,
+                  level=spec.level, weights=weights)  # fmt: skip
+    messages = _spec_messages(spec)
+    if assumed:
+        messages.append(Message("note", f"There is no sidecar model, so the line {formula} (second column "
+                                        "against the first) was assumed."))  # fmt: skip
+    messages += [Message("warning" if "not UTF-8" in n else "note", n) for n in table.notes]
+    if design.dropped:
+        rows = ", ".join(str(r) for r, _ in design.dropped[:20])
+        more = f" and {len(design.dropped) - 20} more" if len(design.dropped) > 20 else ""
+        reasons = sorted({why for _, why in design.dropped})
+        messages.append(Message("warning", f"{len(design.dropped)} row(s) left out ({'; '.join(reasons)}): "
+                                           f"rows {rows}{more}."))  # fmt: skip
+    pieces = derive.compute(design, fit, spec, weights)
+    messages += pieces.messages
+    status: Status = "warn" if any(m.level in ("warning", "error") for m in messages) else "ok"
+    if any(d.flag for d in pieces.diagnostics):
+        status = "warn"
+    report = replace(
+        base,
+        status=status,
+        model=formula,
+        model_assumed=assumed,
+        response=design.response,
+        terms=design.terms,
+        variables=design.variables,
+        weights=spec.weights,
+        n=fit.n,
+        n_rows=len(table.frame),
+        dropped_rows=design.dropped,
+        df_model=fit.df_model,
+        df_resid=fit.df_resid,
+        r_squared=fit.r_squared,
+        adj_r_squared=fit.adj_r_squared,
+        residual_std_error=fit.sigma,
+        f_stat=fit.f_stat,
+        f_p_value=fit.f_p_value,
+        condition_number=fit.condition,
+        coefficients=_coefficients(fit, pieces.robust_se),
+        anova=tuple(AnovaLine(a.source, a.df, a.sum_sq, a.mean_sq, a.f_stat, a.p_value) for a in anova_table(fit)),
+        messages=tuple(messages),
+        diagnostics=pieces.diagnostics,
+        flagged=pieces.flagged,
+        cutoffs=pieces.cutoffs,
+        lines=pieces.lines,
+        lines_text=pieces.lines_text,
+        calibration=pieces.calibration,
+        limits=pieces.limits,
+        predictions=pieces.predictions,
+        claims=pieces.claims,
+        groups=pieces.groups,
+        compare_term=spec.compare or next((t for t in design.terms if t != "Intercept"), None),
+        chart=pieces.chart,
+        reading=(("delimiter", table.delimiter), ("decimal", table.decimal), ("encoding", table.encoding)),
+    )
+    if report.compare_term and report.coefficient(report.compare_term) is None:
+        raise FormulaError(f"compare = {spec.compare!r} is not a term of the model",
+                           hint=f"choose one of {', '.join(design.terms)}")  # fmt: skip
+    return DatasetResult(report, pieces.observations)
+
+
+def _weights(design: Design, spec: DatasetSpec) -> NDArray[np.float64] | None:
+    if not spec.weights:
+        return None
+    w = pd.to_numeric(design.data[spec.weights], errors="coerce").to_numpy(dtype=float)
+    bad = ~np.isfinite(w) | (w <= 0)
+    if bool(bad.any()):
+        row = int(design.rows[np.flatnonzero(bad)[0]])
+        raise FitError(f"weights column {spec.weights!r} must hold positive numbers; row {row} does not")
+    return w
+
+
+def _coefficients(fit: OlsFit, robust_se: NDArray[np.float64] | None) -> tuple[Coefficient, ...]:
+    from scipy import stats as sps  # noqa: PLC0415
+
+    out = []
+    for i, term in enumerate(fit.terms):
+        c = Coefficient(term, float(fit.beta[i]), float(fit.std_error[i]), float(fit.t_stat[i]),
+                        float(fit.p_value[i]), float(fit.ci_low[i]), float(fit.ci_high[i]))  # fmt: skip
+        if robust_se is not None:
+            se = float(robust_se[i])
+            t = c.estimate / se if se > 0 else float("nan")
+            c = replace(c, robust_std_error=se, robust_ci_low=c.estimate - fit.t_crit * se,
+                        robust_ci_high=c.estimate + fit.t_crit * se,
+                        robust_p_value=float(2 * sps.t.sf(abs(t), fit.df_resid)))  # fmt: skip
+        out.append(c)
+    return tuple(out)
+

@@ -1,0 +1,208 @@
+"""The command line: the only place that prints and picks exit codes.
+
+Exit status of ``sitegen build`` (contract): 0 every dataset fitted (warnings
+allowed); 1 the site was written but at least one dataset failed; 2 nothing was
+written (usage or configuration error, or an unsafe output folder).
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import sys
+import traceback
+from collections.abc import Callable, Sequence
+from pathlib import Path
+from typing import NoReturn, TextIO
+
+from sitegen import __version__
+from sitegen.errors import ConfigError, SitegenError
+
+EXIT_OK, EXIT_DATASET_FAILED, EXIT_NOTHING_WRITTEN = 0, 1, 2
+DEFAULT_MAIL_BUDGET_MB = 20.0
+
+
+class _Printer:
+    """Messages to stderr, with colour and a progress bar only on a terminal."""
+
+    def __init__(self, stream: TextIO, quiet: bool) -> None:
+        self.stream = stream
+        self.quiet = quiet
+        self.tty = stream.isatty()
+        self.color = self.tty and "NO_COLOR" not in os.environ or "FORCE_COLOR" in os.environ
+
+    def _paint(self, text: str, code: str) -> str:
+        return f"\033[{code}m{text}\033[0m" if self.color else text
+
+    def error(self, text: str) -> None:
+        print(f"{self._paint('error', '1;31')}: {text}", file=self.stream)
+
+    def warn(self, text: str) -> None:
+        if not self.quiet:
+            print(f"{self._paint('warning', '1;33')}: {text}", file=self.stream)
+
+    def info(self, text: str) -> None:
+        if not self.quiet:
+            print(text, file=self.stream)
+
+    def progress(self, done: int, total: int, name: str) -> None:
+        if self.quiet or total == 0:
+            return
+        if self.tty:
+            width = 28
+            filled = int(width * done / total)
+            bar = "█" * filled + "·" * (width - filled)
+            print(f"\r[{bar}] {done}/{total} {name[-40:]:<40}", end="", file=self.stream, flush=True)
+            if done == total:
+                print("\r" + " " * (width + 55) + "\r", end="", file=self.stream)
+        elif name:
+            print(f"fitted {done}/{total}: {name}", file=self.stream)
+
+
+def _parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(prog="sitegen", description="Fit straight lines to a folder of CSV datasets and "
+                                                            "publish the results as a static web site.")  # fmt: skip
+    p.add_argument("--version", action="version", version=f"sitegen {__version__}")
+    sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    b = sub.add_parser("build", help="build (or rebuild) a site from a data folder")
+    b.add_argument("data_dir", type=Path, metavar="DATA_DIR")
+    b.add_argument("-o", "--output", type=Path, required=True, metavar="SITE_DIR", dest="out_dir")
+    _common_build_options(b)
+    w = sub.add_parser("watch", help="rebuild whenever files in the data folder change")
+    w.add_argument("data_dir", type=Path, metavar="DATA_DIR")
+    w.add_argument("-o", "--output", type=Path, required=True, metavar="SITE_DIR", dest="out_dir")
+    w.add_argument("--interval", type=float, default=1.0, help="seconds between looks at the folder (default 1)")
+    w.add_argument("--settle", type=float, default=1.5, help="quiet seconds before a rebuild starts (default 1.5)")
+    w.add_argument("--max-builds", type=int, default=None, help=argparse.SUPPRESS)
+    _common_build_options(w)
+    k = sub.add_parser("pack", help="zip a built site for e-mail or a file share")
+    k.add_argument("site_dir", type=Path, metavar="SITE_DIR")
+    k.add_argument("-o", "--output", type=Path, required=True, metavar="FILE.zip", dest="target")
+    k.add_argument("--budget-mb", type=float, default=None,
+                   help="warn when the zip is larger than this many MB (default: site.toml's mail_budget_megabytes, "
+                        f"else {DEFAULT_MAIL_BUDGET_MB:g})")  # fmt: skip
+    v = sub.add_parser("preview", help="serve a built site on http://127.0.0.1 for a quick look")
+    v.add_argument("site_dir", type=Path, metavar="SITE_DIR")
+    v.add_argument("--port", type=int, default=8000, help="port to listen on (default 8000; 0 picks a free one)")
+    return p
+
+
+def _common_build_options(p: argparse.ArgumentParser) -> None:
+    p.add_argument("-j", "--jobs", type=int, default=None, help="worker processes (default: all cores)")
+    p.add_argument("--refit", action="store_true", help="fit every dataset again, ignoring stored results")
+    p.add_argument("-q", "--quiet", action="store_true", help="print only errors")
+    p.add_argument("--debug", action="store_true", help="show tracebacks of internal errors")
+
+
+def _build(args: argparse.Namespace, out: _Printer) -> int:
+    from sitegen.build import BuildOptions, run_build  # noqa: PLC0415 - keeps --help fast
+
+    if args.jobs is not None and args.jobs < 1:
+        raise ConfigError("--jobs must be at least 1")
+    summary = run_build(BuildOptions(args.data_dir, args.out_dir, args.jobs, args.refit), progress=out.progress)
+    for w in summary.warnings:
+        out.warn(w)
+    for r in summary.reports:
+        if r.status == "error":
+            text = next((m.text for m in r.messages if m.level == "error"), "failed")
+            out.error(f"{r.source}: {text}")
+    if args.debug:
+        for name, trace in summary.debug_traces:
+            print(f"--- traceback for {name} ---\n{trace}", file=out.stream)
+    n = len(summary.reports)
+    out.info(
+        f"Built {summary.out_dir}/index.html: {n} dataset{'s' if n != 1 else ''} — {summary.fitted} fitted, "
+        f"{summary.reused} reused, {summary.warned} with warnings, {summary.errors} failed, "
+        f"in {summary.seconds:.1f} s"
+    )
+    return EXIT_DATASET_FAILED if summary.errors else EXIT_OK
+
+
+def _watch(args: argparse.Namespace, out: _Printer) -> int:
+    from sitegen.watch import watch  # noqa: PLC0415
+
+    def once() -> int:
+        try:
+            return _build(args, out)
+        except ConfigError as exc:
+            out.error(str(exc))
+            return EXIT_NOTHING_WRITTEN
+
+    out.info(f"Watching {args.data_dir} (Ctrl+C to stop)")
+    try:
+        watch(args.data_dir, args.out_dir, once, interval=args.interval, settle=args.settle,
+              max_builds=args.max_builds)  # fmt: skip
+    except KeyboardInterrupt:
+        out.info("Stopped watching.")
+    return EXIT_OK
+
+
+def _pack(args: argparse.Namespace, out: _Printer) -> int:
+    import json  # noqa: PLC0415
+
+    from sitegen.publish import pack  # noqa: PLC0415
+
+    size = pack(args.site_dir, args.target)
+    budget = args.budget_mb
+    if budget is None:
+        budget = DEFAULT_MAIL_BUDGET_MB
+        try:
+            meta = json.loads((args.site_dir / "build.json").read_text(encoding="utf-8"))
+            budget = float(meta.get("mail_budget_megabytes", budget))
+        except (OSError, ValueError, TypeError):
+            pass
+    out.info(f"Packed {args.site_dir} into {args.target}: {size / 1e6:.2f} MB")
+    if size > budget * 1e6:
+        out.warn(f"the zip is larger than {budget:g} MB, more than many mail systems accept; "
+                 "share it on a file server instead, or leave large datasets out")  # fmt: skip
+    return EXIT_OK
+
+
+def _preview(args: argparse.Namespace, out: _Printer) -> int:
+    from sitegen.preview import serve  # noqa: PLC0415
+
+    def announce(url: str) -> None:
+        out.info(f"Serving {args.site_dir} at {url} (Ctrl+C to stop)")
+
+    try:
+        serve(args.site_dir, args.port, announce)
+    except KeyboardInterrupt:
+        out.info("Stopped.")
+    return EXIT_OK
+
+
+_COMMANDS: dict[str, Callable[[argparse.Namespace, _Printer], int]] = {
+    "build": _build,
+    "watch": _watch,
+    "pack": _pack,
+    "preview": _preview,
+}
+
+
+def main(argv: Sequence[str] | None = None, stream: TextIO | None = None) -> int:
+    """Run a command; returns the exit status (tests call this directly)."""
+    stream = stream or sys.stderr
+    parser = _parser()
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:  # argparse has printed its usage message
+        return EXIT_NOTHING_WRITTEN if exc.code else EXIT_OK
+    out = _Printer(stream, getattr(args, "quiet", False))
+    try:
+        return _COMMANDS[args.command](args, out)
+    except SitegenError as exc:
+        out.error(str(exc))
+        return EXIT_NOTHING_WRITTEN
+    except OSError as exc:
+        out.error(f"{exc.strerror or exc}: {exc.filename or ''}".rstrip(": "))
+        return EXIT_NOTHING_WRITTEN
+    except Exception:  # noqa: BLE001 - the last line of defence: no traceback unless asked
+        if getattr(args, "debug", False):
+            traceback.print_exc(file=stream)
+        out.error("sitegen hit an internal error and wrote nothing; run again with --debug and report the output")
+        return EXIT_NOTHING_WRITTEN
+
+
+def entrypoint() -> NoReturn:
+    """Console-script entry point."""
+    sys.exit(main())

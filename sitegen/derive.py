@@ -1,0 +1,374 @@
+"""Everything derived from a fitted line besides the coefficients.
+
+Influence measures and model checks, robust standard errors, declared claims,
+alternative lines, inverse prediction, predictions, group comparisons, the
+per-row table and the numbers the charts draw. Each statistic comes from a pure
+function in :mod:`sitegen.stats`; this module only wires them to the sidecar's
+requests and turns the results into the report's plain dataclasses.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from numpy.typing import NDArray
+from scipy import stats as sps
+
+from sitegen.errors import DatasetError, FitError
+from sitegen.formula import Design, design_for
+from sitegen.model import (
+    AltLine,
+    Calibration,
+    ChartData,
+    ClaimTest,
+    DetectionLimits,
+    Diagnostic,
+    FlaggedPoint,
+    GroupComparison,
+    Message,
+    Prediction,
+)
+from sitegen.spec import DatasetSpec
+from sitegen.stats.calibration import detection_limits, inverse_predict
+from sitegen.stats.checks import model_checks
+from sitegen.stats.claims import test_claim
+from sitegen.stats.groups import compare_groups
+from sitegen.stats.influence import Influence, PointFlags, flag_points, influence
+from sitegen.stats.lines import alternative_lines, explain_lines
+from sitegen.stats.ols import OlsFit, bands
+from sitegen.stats.robust import hc3_cov
+
+FloatArray = NDArray[np.float64]
+MAX_CHART_POINTS = 5000  # above this, charts draw a sample plus every flagged point, and a density
+SAMPLE_POINTS = 2000
+BAND_STEPS = 120
+DENSITY_BINS = 60
+
+
+@dataclass(frozen=True, slots=True)
+class Observations:
+    """Per-row results for ``observations.csv``, column by column."""
+
+    columns: tuple[str, ...]
+    values: tuple[NDArray[np.generic], ...]
+
+
+@dataclass(frozen=True, slots=True)
+class Derived:
+    """The derived results of one fit, ready to go into its report."""
+
+    messages: list[Message]
+    diagnostics: tuple[Diagnostic, ...]
+    flagged: tuple[FlaggedPoint, ...]
+    cutoffs: tuple[tuple[str, float], ...]
+    robust_se: FloatArray | None
+    claims: tuple[ClaimTest, ...]
+    lines: tuple[AltLine, ...]
+    lines_text: str
+    calibration: tuple[Calibration, ...]
+    limits: DetectionLimits | None
+    predictions: tuple[Prediction, ...]
+    groups: GroupComparison | None
+    chart: ChartData
+    observations: Observations
+
+
+def single_predictor(design: Design) -> str | None:
+    """The one data column on the right-hand side, if there is exactly one."""
+    response_cols = [v for v in design.variables if v in design.response]
+    rhs = [v for v in design.variables if v not in response_cols or _in_rhs(design, v)]
+    return rhs[0] if len(rhs) == 1 else None
+
+
+def _in_rhs(design: Design, var: str) -> bool:
+    return any(var in t for t in design.terms)
+
+
+def straight_line(design: Design) -> str | None:
+    """The predictor of a plain ``y ~ x`` model (intercept and one untransformed column)."""
+    x = single_predictor(design)
+    if x is not None and design.has_intercept and len(design.terms) == 2 and design.terms[1] in (x, f"Q('{x}')"):
+        return x
+    return None
+
+
+def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray | None) -> Derived:
+    """Derive every requested result; problems with optional extras become warnings."""
+    messages: list[Message] = []
+    infl = influence(fit.q, fit.resid, fit.df_resid, weights=weights)
+    flags = flag_points(infl, fit.n, len(fit.terms))
+    sw = np.ones(fit.n) if weights is None else np.sqrt(weights)
+    Xw = design.X * sw[:, None]
+    checks = model_checks(Xw, design.y * sw, fit.resid * sw, fit.fitted * sw, terms=fit.terms,
+                          has_intercept=fit.has_intercept, infl=infl, alpha=1 - fit.level)  # fmt: skip
+    diagnostics = tuple(
+        Diagnostic(c.check, c.label, c.statistic, c.p_value, c.flag, c.text, c.advice,
+                   tuple(int(design.rows[i]) for i in c.rows))  # fmt: skip
+        for c in checks
+    )
+    for d in diagnostics:
+        if d.flag:
+            messages.append(Message("warning", f"{d.label}: {d.text} {d.advice}".strip()))
+    robust_se = None
+    if spec.robust:
+        cov = hc3_cov(Xw, fit.resid * sw, np.asarray(infl.leverage), fit.xtx_inv)
+        robust_se = np.sqrt(np.clip(np.diag(cov), 0, None))
+    claims = []
+    for claim in spec.claims:
+        try:
+            claims.append(test_claim(fit, design.design_info, claim))
+        except DatasetError as exc:
+            messages.append(Message("warning", str(exc)))
+    line_x = straight_line(design)
+    lines, lines_text = _lines(design, fit, spec, line_x, messages)
+    calibration, limits = _calibration(design, fit, spec, line_x, messages)
+    predictions = _predictions(design, fit, spec, messages)
+    groups = _groups(design, fit, spec, line_x, messages)
+    chart = _chart(design, fit, infl, flags, spec)
+    observations = _observations(design, fit, infl, flags, weights)
+    return Derived(
+        messages=messages,
+        diagnostics=diagnostics,
+        flagged=_flagged(design, infl, flags),
+        cutoffs=(("leverage", flags.leverage_cutoff), ("studentized_residual", flags.residual_cutoff),
+                 ("cooks_distance", flags.cooks_cutoff), ("dffits", flags.dffits_cutoff)),  # fmt: skip
+        robust_se=robust_se,
+        claims=tuple(claims),
+        lines=lines,
+        lines_text=lines_text,
+        calibration=calibration,
+        limits=limits,
+        predictions=predictions,
+        groups=groups,
+        chart=chart,
+        observations=observations,
+    )
+
+
+def _reasons(flags: PointFlags, i: int) -> tuple[str, ...]:
+    out = []
+    if flags.leverage_one[i]:
+        out.append("alone sets a coefficient (leverage 1)")
+    elif flags.high_leverage[i]:
+        out.append("high leverage")
+    if flags.large_residual[i]:
+        out.append("large studentized residual")
+    if flags.large_cooks[i]:
+        out.append("large Cook's distance")
+    if flags.large_dffits[i]:
+        out.append("large DFFITS")
+    return tuple(out)
+
+
+def _flagged(design: Design, infl: Influence, flags: PointFlags) -> tuple[FlaggedPoint, ...]:
+    return tuple(
+        FlaggedPoint(int(design.rows[i]), _reasons(flags, i), infl.leverage[i], infl.studentized_residual[i],
+                     infl.cooks_distance[i], infl.dffits[i])  # fmt: skip
+        for i in flags.rows
+    )
+
+
+def _lines(
+    design: Design, fit: OlsFit, spec: DatasetSpec, x_col: str | None, messages: list[Message]
+) -> tuple[tuple[AltLine, ...], str]:
+    if not spec.lines:
+        return (), ""
+    if x_col is None:
+        messages.append(Message("warning", "alternative lines need a straight-line model such as \"y ~ x\"; "
+                                           "the 'lines' request was skipped"))  # fmt: skip
+        return (), ""
+    x = design.X[:, 1]
+    try:
+        found = alternative_lines(x, design.y, ("ols", *spec.lines), error_ratio=spec.error_ratio, level=fit.level)
+    except (FitError, ValueError) as exc:
+        messages.append(Message("warning", f"alternative lines could not be computed: {exc}"))
+        return (), ""
+    r = float(np.corrcoef(x, design.y)[0, 1])
+    out = tuple(AltLine(ln.method, ln.label, ln.slope, ln.intercept, ln.slope_ci_low, ln.slope_ci_high,
+                        ln.intercept_ci_low, ln.intercept_ci_high, ln.interval_method) for ln in found)  # fmt: skip
+    return out, explain_lines(found, r)
+
+
+def _calibration(
+    design: Design, fit: OlsFit, spec: DatasetSpec, x_col: str | None, messages: list[Message]
+) -> tuple[tuple[Calibration, ...], DetectionLimits | None]:
+    if not spec.calibrate:
+        return (), None
+    if x_col is None or spec.weights:
+        messages.append(Message("warning", "inverse prediction needs an unweighted straight-line model such as "
+                                           "\"y ~ x\"; the 'calibrate' request was skipped"))  # fmt: skip
+        return (), None
+    x = design.X[:, 1]
+    a, b = float(fit.beta[0]), float(fit.beta[1])
+    try:
+        found = inverse_predict(intercept=a, slope=b, residual_sd=fit.sigma, n=fit.n, x_mean=float(x.mean()),
+                                sxx=float(((x - x.mean()) ** 2).sum()), y_mean=a + b * float(x.mean()),
+                                df_resid=fit.df_resid, level=fit.level, responses=spec.calibrate,
+                                readings=spec.readings)  # fmt: skip
+        lim = detection_limits(slope=b, residual_sd=fit.sigma, intercept_se=float(fit.std_error[0]))
+    except (FitError, ValueError) as exc:
+        messages.append(Message("warning", f"inverse prediction could not be computed: {exc}"))
+        return (), None
+    cal = tuple(Calibration(c.response, c.readings, c.estimate, c.std_error, c.ci_low, c.ci_high, c.method,
+                            c.bounded) for c in found)  # fmt: skip
+    if any(not c.bounded for c in cal):
+        messages.append(Message("warning", "the slope is too uncertain to bound some inverse predictions "
+                                           "(Fieller's interval is unbounded)"))  # fmt: skip
+    return cal, DetectionLimits(lim.lod, lim.loq, lim.convention, lim.basis)
+
+
+def _predictions(design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[Message]) -> tuple[Prediction, ...]:
+    if not spec.predict_at:
+        return ()
+    first = spec.predict_at[0]
+    if isinstance(first, tuple):
+        rows = [dict(r) for r in spec.predict_at if isinstance(r, tuple)]
+    else:
+        x_col = single_predictor(design)
+        if x_col is None:
+            messages.append(Message("warning", "predict_at with plain numbers needs a one-predictor model; "
+                                               "give tables such as { flow = 10, head = 30 } instead"))  # fmt: skip
+            return ()
+        rows = [{x_col: float(v)} for v in spec.predict_at if not isinstance(v, tuple)]
+    frame = pd.DataFrame(rows)
+    try:
+        X_new = design_for(design, frame)
+    except DatasetError as exc:
+        messages.append(Message("warning", f"predict_at: {exc}"))
+        return ()
+    b = bands(fit, X_new)
+    return tuple(
+        Prediction(tuple(sorted((k, float(v)) for k, v in row.items())), float(b.fit[i]), float(b.se_mean[i]),
+                   float(b.mean_low[i]), float(b.mean_high[i]), float(b.pred_low[i]), float(b.pred_high[i]))
+        for i, row in enumerate(rows)
+    )  # fmt: skip
+
+
+def _groups(
+    design: Design, fit: OlsFit, spec: DatasetSpec, x_col: str | None, messages: list[Message]
+) -> GroupComparison | None:
+    if not spec.group:
+        return None
+    if x_col is None:
+        messages.append(Message("warning", "one line per group needs a straight-line model such as \"y ~ x\"; "
+                                           "the 'group' request was skipped"))  # fmt: skip
+        return None
+    labels = design.data[spec.group].astype(str).to_numpy()
+    try:
+        return compare_groups(design.X[:, 1], design.y, labels, spec.group, fit.level)
+    except DatasetError as exc:
+        messages.append(Message("warning", f"group comparison skipped: {exc}"))
+        return None
+
+
+def _qq(values: FloatArray) -> FloatArray:
+    """Normal quantiles for each value by rank (Blom's plotting positions; common practice)."""
+    out = np.full(values.shape, np.nan)
+    ok = np.isfinite(values)
+    m = int(ok.sum())
+    if m:
+        ranks = sps.rankdata(values[ok], method="ordinal")
+        out[ok] = sps.norm.ppf((ranks - 0.375) / (m + 0.25))
+    return out
+
+
+def _chart_sample(n: int, flagged_rows: tuple[int, ...]) -> tuple[NDArray[np.intp], bool]:
+    if n <= MAX_CHART_POINTS:
+        return np.arange(n), False
+    rng = np.random.default_rng(20240611)
+    pick = rng.choice(n, size=SAMPLE_POINTS, replace=False)
+    flagged = np.asarray(flagged_rows[:MAX_CHART_POINTS - SAMPLE_POINTS], dtype=np.intp)
+    return np.unique(np.concatenate([pick, flagged])), True
+
+
+def _clean(values: FloatArray) -> tuple[float | None, ...]:
+    return tuple(float(v) if np.isfinite(v) else None for v in values)
+
+
+def _chart(design: Design, fit: OlsFit, infl: Influence, flags: PointFlags, spec: DatasetSpec) -> ChartData:
+    x_col = single_predictor(design)
+    idx, sampled = _chart_sample(fit.n, flags.rows)
+    std = np.asarray(infl.standardized_residual)
+    is_flag = np.zeros(fit.n)
+    is_flag[list(flags.rows)] = 1.0
+    cols: dict[str, FloatArray] = {
+        "row": design.rows.astype(float),
+        "y": design.y,
+        "fitted": fit.fitted,
+        "residual": fit.resid,
+        "studentized": np.asarray(infl.studentized_residual),
+        "leverage": np.asarray(infl.leverage),
+        "cooks": np.asarray(infl.cooks_distance),
+        "root_abs_std": np.sqrt(np.abs(std)),
+        "qq_theory": _qq(std),
+        "std_resid": std,
+        "flag": is_flag,
+    }
+    if x_col is not None:
+        cols["x"] = design.data[x_col].to_numpy(dtype=float)
+    names = tuple(sorted(cols))
+    points = tuple(zip(*(_clean(cols[c][idx]) for c in names), strict=True))
+    groups: tuple[str, ...] = ()
+    if spec.group and x_col is not None:
+        groups = tuple(design.data[spec.group].astype(str).to_numpy()[idx].tolist())
+    band_cols: tuple[str, ...] = ()
+    band: tuple[tuple[float | None, ...], ...] = ()
+    if x_col is not None:
+        xs = cols["x"]
+        grid = np.linspace(float(xs.min()), float(xs.max()), BAND_STEPS)
+        try:
+            Xg = design_for(design, pd.DataFrame({x_col: grid}))
+        except DatasetError:
+            Xg = None
+        if Xg is not None and Xg.shape[1] == len(fit.terms):
+            b = bands(fit, Xg)
+            band_cols = ("x", "fit", "mean_low", "mean_high", "pred_low", "pred_high")
+            band = tuple(zip(*(_clean(v) for v in (grid, b.fit, b.mean_low, b.mean_high, b.pred_low,
+                                                       b.pred_high)), strict=True))  # fmt: skip
+    density_cols: tuple[str, ...] = ()
+    density: tuple[tuple[float | None, ...], ...] = ()
+    if sampled and x_col is not None:
+        density_cols, density = _density(cols["x"], design.y)
+    return ChartData(x=x_col, y=design.response, point_columns=names, points=points, band_columns=band_cols,
+                     band=band, sampled=sampled, n_total=fit.n, density_columns=density_cols, density=density,
+                     point_groups=groups)  # fmt: skip
+
+
+def _density(x: FloatArray, y: FloatArray) -> tuple[tuple[str, ...], tuple[tuple[float | None, ...], ...]]:
+    counts, xe, ye = np.histogram2d(x, y, bins=DENSITY_BINS)
+    ii, jj = np.nonzero(counts)
+    rows = tuple((float(xe[i]), float(xe[i + 1]), float(ye[j]), float(ye[j + 1]), float(counts[i, j]))
+                 for i, j in zip(ii, jj, strict=True))  # fmt: skip
+    return ("x0", "x1", "y0", "y1", "count"), rows
+
+
+def _observations(
+    design: Design, fit: OlsFit, infl: Influence, flags: PointFlags, weights: FloatArray | None
+) -> Observations:
+    b = bands(fit, design.X, weights)
+    cols: dict[str, NDArray[np.generic]] = {"row": design.rows}
+    for v in design.variables:
+        cols[v] = design.data[v].to_numpy(dtype=float)
+    if design.response not in cols:
+        cols[design.response] = design.y
+    if weights is not None:
+        cols["weight"] = weights
+    flag_text = np.full(fit.n, "", dtype=object)
+    for i in flags.rows:
+        flag_text[i] = "; ".join(_reasons(flags, i))
+    cols |= {
+        "fitted": fit.fitted,
+        "residual": fit.resid,
+        "mean_ci_low": b.mean_low,
+        "mean_ci_high": b.mean_high,
+        "pred_low": b.pred_low,
+        "pred_high": b.pred_high,
+        "leverage": np.asarray(infl.leverage),
+        "studentized_residual": np.asarray(infl.studentized_residual),
+        "cooks_distance": np.asarray(infl.cooks_distance),
+        "dffits": np.asarray(infl.dffits),
+        "flags": flag_text,
+    }
+    return Observations(tuple(cols), tuple(cols.values()))

@@ -1,0 +1,87 @@
+"""Find the datasets in a data folder and give each a stable slug.
+
+A dataset is ``NAME.csv`` with an optional sidecar ``NAME.toml`` beside it. Files
+and folders whose names start with ``.`` or ``_`` are ignored. Sub-folders become
+sections of the site. Symbolic links to folders are not followed (a link loop
+must never hang a build); links to files are read like files.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+from dataclasses import dataclass
+from pathlib import Path, PurePosixPath
+
+SITE_CONFIG_NAME = "site.toml"
+
+
+@dataclass(frozen=True, slots=True)
+class DatasetSource:
+    """Where one dataset lives, relative to the data folder."""
+
+    slug: str
+    relpath: str  # POSIX path of the CSV relative to the data folder
+    csv_path: Path
+    sidecar_path: Path | None
+    section: str  # POSIX path of the containing sub-folder ("" at the root)
+
+
+_NON_SLUG = re.compile(r"[^a-z0-9]+")
+
+
+def base_slug(relpath: str) -> str:
+    """The contract's slug: path without ``.csv``, lower-cased, runs of other characters → ``-``."""
+    stem = relpath[: -len(".csv")] if relpath.lower().endswith(".csv") else relpath
+    slug = _NON_SLUG.sub("-", stem.lower()).strip("-")
+    return slug or "dataset"
+
+
+def assign_slugs(relpaths: list[str]) -> dict[str, str]:
+    """Map each relative path to a unique slug; collisions get ``-2``, ``-3``… in sorted path order."""
+    taken: set[str] = set()
+    result: dict[str, str] = {}
+    for rel in sorted(relpaths):
+        base = base_slug(rel)
+        slug, k = base, 1
+        while slug in taken:
+            k += 1
+            slug = f"{base}-{k}"
+        taken.add(slug)
+        result[rel] = slug
+    return result
+
+
+def _hidden(name: str) -> bool:
+    return name.startswith((".", "_"))
+
+
+def discover(data_dir: Path) -> tuple[DatasetSource, ...]:
+    """List every dataset under ``data_dir`` in sorted path order."""
+    found: list[str] = []
+    for dirpath, dirnames, filenames in os.walk(data_dir, followlinks=False):
+        dirnames[:] = sorted(d for d in dirnames if not _hidden(d))
+        base = Path(dirpath)
+        for name in sorted(filenames):
+            if _hidden(name) or not name.lower().endswith(".csv"):
+                continue
+            path = base / name
+            if not path.is_file():  # broken link, fifo, …
+                continue
+            found.append(path.relative_to(data_dir).as_posix())
+    slugs = assign_slugs(found)
+    sources = []
+    for rel in sorted(found):
+        csv_path = data_dir / rel
+        sidecar = csv_path.with_name(csv_path.name[: -len(".csv")] + ".toml")
+        section = str(PurePosixPath(rel).parent)
+        sources.append(
+            DatasetSource(
+                slug=slugs[rel],
+                relpath=rel,
+                csv_path=csv_path,
+                sidecar_path=sidecar if sidecar.is_file() else None,
+                section="" if section == "." else section,
+            )
+        )
+    return tuple(sources)

@@ -1,0 +1,309 @@
+"""The boundary between statistics and presentation: one frozen report per dataset.
+
+A :class:`FitReport` holds plain numbers, strings, tuples and small frozen
+dataclasses — never a statsmodels or pandas object — so it can cross process
+boundaries, be cached as ``fit.json`` and be rendered without refitting.
+:func:`to_json` / :func:`from_json` round-trip it exactly (NaN and ±inf are
+written as ``null``, as the output contract asks).
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import json
+import math
+import types
+import typing
+from dataclasses import dataclass, field
+from typing import Any, Literal
+
+Status = Literal["ok", "warn", "error"]
+Level = Literal["error", "warning", "note"]
+FORMAT_VERSION = 1
+
+
+@dataclass(frozen=True, slots=True)
+class Message:
+    """Something the reader must know about the dataset."""
+
+    level: Level
+    text: str
+
+
+@dataclass(frozen=True, slots=True)
+class Coefficient:
+    """One model term's estimate and its uncertainty."""
+
+    term: str
+    estimate: float
+    std_error: float
+    t_stat: float
+    p_value: float
+    ci_low: float
+    ci_high: float
+    robust_std_error: float | None = None
+    robust_ci_low: float | None = None
+    robust_ci_high: float | None = None
+    robust_p_value: float | None = None
+
+
+@dataclass(frozen=True, slots=True)
+class AnovaLine:
+    """A row of the sequential analysis-of-variance table."""
+
+    source: str
+    df: int
+    sum_sq: float
+    mean_sq: float
+    f_stat: float | None
+    p_value: float | None
+
+
+@dataclass(frozen=True, slots=True)
+class Diagnostic:
+    """The verdict of one model check."""
+
+    check: str
+    label: str
+    statistic: float | None
+    p_value: float | None
+    flag: bool
+    text: str
+    advice: str = ""
+    rows: tuple[int, ...] = ()  # CSV rows concerned
+
+
+@dataclass(frozen=True, slots=True)
+class FlaggedPoint:
+    """An observation past at least one influence cut-off."""
+
+    row: int
+    reasons: tuple[str, ...]
+    leverage: float
+    studentized_residual: float
+    cooks_distance: float
+    dffits: float
+
+
+@dataclass(frozen=True, slots=True)
+class AltLine:
+    """A straight line by another criterion than vertical least squares."""
+
+    method: str
+    label: str
+    slope: float
+    intercept: float
+    slope_ci_low: float
+    slope_ci_high: float
+    intercept_ci_low: float
+    intercept_ci_high: float
+    interval_method: str
+
+
+@dataclass(frozen=True, slots=True)
+class Calibration:
+    """An x value estimated back from a measured response."""
+
+    response: float
+    readings: int
+    estimate: float
+    std_error: float
+    ci_low: float
+    ci_high: float
+    method: str
+    bounded: bool
+
+
+@dataclass(frozen=True, slots=True)
+class DetectionLimits:
+    """Detection and quantitation limits implied by the calibration line."""
+
+    lod: float
+    loq: float
+    convention: str
+    basis: str
+
+
+@dataclass(frozen=True, slots=True)
+class Prediction:
+    """The fitted value and its intervals at chosen predictor values."""
+
+    at: tuple[tuple[str, float], ...]
+    fitted: float
+    std_error: float
+    mean_ci_low: float
+    mean_ci_high: float
+    pred_low: float
+    pred_high: float
+
+
+@dataclass(frozen=True, slots=True)
+class ClaimTest:
+    """A declared linear hypothesis on the coefficients and its test."""
+
+    claim: str
+    statistic: float
+    test: str  # "t" or "F"
+    df_num: int
+    df_den: int
+    p_value: float
+    rejected: bool
+    conclusion: str
+
+
+@dataclass(frozen=True, slots=True)
+class GroupLine:
+    """One group's own line when the sidecar names a grouping column."""
+
+    group: str
+    n: int
+    slope: float
+    intercept: float
+    slope_ci_low: float
+    slope_ci_high: float
+
+
+@dataclass(frozen=True, slots=True)
+class GroupComparison:
+    """Separate lines per group and the test that their slopes are equal."""
+
+    column: str
+    lines: tuple[GroupLine, ...]
+    f_stat: float | None
+    df_num: int
+    df_den: int
+    p_value: float | None
+    conclusion: str
+
+
+@dataclass(frozen=True, slots=True)
+class ChartData:
+    """The numbers the charts draw: observed points (perhaps a sample) and band grids."""
+
+    x: str | None  # the single predictor column, when there is one
+    y: str
+    point_columns: tuple[str, ...] = ()
+    points: tuple[tuple[float | None, ...], ...] = ()
+    band_columns: tuple[str, ...] = ()
+    band: tuple[tuple[float | None, ...], ...] = ()
+    sampled: bool = False
+    n_total: int = 0
+    density_columns: tuple[str, ...] = ()
+    density: tuple[tuple[float | None, ...], ...] = ()
+    point_groups: tuple[str, ...] = ()  # group label of each point, when a group column is set
+
+
+@dataclass(frozen=True, slots=True)
+class FitReport:
+    """Everything known about one dataset after fitting: the contract's ``fit.json``."""
+
+    dataset: str
+    source: str
+    section: str
+    title: str
+    status: Status
+    model: str
+    level: float
+    description: str = ""
+    tags: tuple[str, ...] = ()
+    model_assumed: bool = False
+    response: str = ""
+    terms: tuple[str, ...] = ()
+    variables: tuple[str, ...] = ()
+    units: tuple[tuple[str, str], ...] = ()
+    weights: str | None = None
+    n: int | None = None
+    n_rows: int | None = None
+    dropped_rows: tuple[tuple[int, str], ...] = ()
+    df_model: int | None = None
+    df_resid: int | None = None
+    r_squared: float | None = None
+    adj_r_squared: float | None = None
+    residual_std_error: float | None = None
+    f_stat: float | None = None
+    f_p_value: float | None = None
+    condition_number: float | None = None
+    coefficients: tuple[Coefficient, ...] = ()
+    anova: tuple[AnovaLine, ...] = ()
+    messages: tuple[Message, ...] = ()
+    diagnostics: tuple[Diagnostic, ...] = ()
+    flagged: tuple[FlaggedPoint, ...] = ()
+    cutoffs: tuple[tuple[str, float], ...] = ()
+    lines: tuple[AltLine, ...] = ()
+    lines_text: str = ""
+    calibration: tuple[Calibration, ...] = ()
+    limits: DetectionLimits | None = None
+    predictions: tuple[Prediction, ...] = ()
+    claims: tuple[ClaimTest, ...] = ()
+    groups: GroupComparison | None = None
+    compare_term: str | None = None
+    chart: ChartData | None = None
+    input_sha256: str = ""
+    reading: tuple[tuple[str, str], ...] = field(default=())  # how the CSV was read (delimiter, …)
+
+    def coefficient(self, term: str) -> Coefficient | None:
+        """The named term's coefficient, if the model has it."""
+        return next((c for c in self.coefficients if c.term == term), None)
+
+
+# --- JSON codec -------------------------------------------------------------------------------
+
+
+def _encode(value: object) -> object:
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        return {f.name: _encode(getattr(value, f.name)) for f in dataclasses.fields(value)}
+    if isinstance(value, tuple | list):
+        return [_encode(v) for v in value]
+    if isinstance(value, float):
+        return value if math.isfinite(value) else None
+    return value
+
+
+def to_json(report: FitReport) -> str:
+    """Serialise with sorted keys and shortest round-trip floats."""
+    body = _encode(report)
+    assert isinstance(body, dict)
+    body["format_version"] = FORMAT_VERSION
+    return json.dumps(body, sort_keys=True, ensure_ascii=False, allow_nan=False, separators=(",", ":")) + "\n"
+
+
+def _decode(tp: Any, value: object) -> Any:  # noqa: C901, PLR0912 - one branch per kind of type
+    origin = typing.get_origin(tp)
+    if tp is float:
+        return float("nan") if value is None else float(typing.cast(float, value))
+    if tp in (int, str, bool):
+        return value
+    if origin in (typing.Union, types.UnionType):
+        args = [a for a in typing.get_args(tp) if a is not type(None)]
+        if value is None:
+            return None
+        return _decode(args[0], value)
+    if origin is Literal:
+        return value
+    if origin is tuple:
+        args = typing.get_args(tp)
+        assert isinstance(value, list)
+        if len(args) == 2 and args[1] is Ellipsis:
+            return tuple(_decode(args[0], v) for v in value)
+        return tuple(_decode(a, v) for a, v in zip(args, value, strict=True))
+    if dataclasses.is_dataclass(tp) and isinstance(tp, type):
+        assert isinstance(value, dict)
+        hints = typing.get_type_hints(tp)
+        kwargs = {f.name: _decode(hints[f.name], value[f.name]) for f in dataclasses.fields(tp) if f.name in value}
+        return tp(**kwargs)
+    if tp is typing.Any or tp is object:
+        return value
+    raise TypeError(f"cannot decode {tp!r}")
+
+
+def from_json(text: str) -> FitReport:
+    """Parse ``fit.json`` back into a :class:`FitReport`; raises ``ValueError`` if malformed."""
+    try:
+        body = json.loads(text)
+        if body.get("format_version") != FORMAT_VERSION:
+            raise ValueError("fit.json was written by another format version")
+        report = _decode(FitReport, body)
+    except (KeyError, TypeError, AssertionError, AttributeError) as exc:
+        raise ValueError(f"malformed fit.json: {exc}") from exc
+    assert isinstance(report, FitReport)
+    return report

@@ -1,0 +1,160 @@
+"""Write a site safely: refuse unsafe output folders, build beside, swap in whole.
+
+The site is built in a temporary folder next to the output folder
+(``.NAME.sitegen-build``), whose creation also serves as the build lock. When
+the build is complete the two folders are exchanged atomically (Linux
+``renameat2(RENAME_EXCHANGE)``; elsewhere two renames with recovery), so a
+reader, a crash or ``kill -9`` at any moment sees either the old site or the
+new one, never a mixture. A stale build folder left by a killed build is
+detected by its owner's process id and removed.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import ctypes
+import ctypes.util
+import os
+import shutil
+import zipfile
+from collections.abc import Iterator
+from pathlib import Path
+
+from sitegen.errors import BuildLockedError, OutputFolderError, PackError
+
+MARKER = ".sitegen"
+MARKER_TEXT = "This folder was made by sitegen. Each build replaces it whole; do not keep other files here.\n"
+_OWNER = ".owner"
+
+
+def check_output_folder(data_dir: Path, out_dir: Path) -> None:
+    """Refuse an output folder that overlaps the data folder or holds files sitegen did not make."""
+    data = data_dir.resolve()
+    out = out_dir.resolve()
+    if out == data or out.is_relative_to(data):
+        raise OutputFolderError(
+            f"the output folder {out_dir} is inside the data folder {data_dir}",
+            hint="choose an output folder outside the data folder, e.g. next to it",
+        )
+    if data.is_relative_to(out):
+        raise OutputFolderError(
+            f"the output folder {out_dir} contains the data folder {data_dir}",
+            hint="choose an output folder that does not contain your data",
+        )
+    if out.exists() and not out.is_dir():
+        raise OutputFolderError(f"the output path {out_dir} exists and is not a folder")
+    if out.is_dir() and any(out.iterdir()) and not (out / MARKER).is_file():
+        raise OutputFolderError(
+            f"the output folder {out_dir} is not empty and was not made by sitegen; nothing was touched",
+            hint="choose a new or empty folder; sitegen replaces its output folder whole on every build",
+        )
+
+
+def build_dir_for(out_dir: Path) -> Path:
+    """The temporary build folder that sits beside the output folder."""
+    out = out_dir.resolve()
+    return out.parent / f".{out.name}.sitegen-build"
+
+
+def _pid_alive(pid: int) -> bool:
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
+@contextlib.contextmanager
+def build_folder(out_dir: Path) -> Iterator[Path]:
+    """Create the temporary build folder (the lock); remove it however the build ends."""
+    work = build_dir_for(out_dir)
+    work.parent.mkdir(parents=True, exist_ok=True)
+    for _ in range(2):
+        try:
+            work.mkdir()
+            break
+        except FileExistsError:
+            owner = _read_owner(work)
+            if owner is not None and owner != os.getpid() and _pid_alive(owner):
+                raise BuildLockedError(
+                    f"another sitegen build (process {owner}) is writing {out_dir}",
+                    hint="wait for it to finish, or stop it; the published site is not affected",
+                ) from None
+            shutil.rmtree(work, ignore_errors=True)  # left by a build that was killed
+    else:
+        raise BuildLockedError(f"cannot create the build folder {work}")
+    try:
+        (work / _OWNER).write_text(str(os.getpid()), encoding="utf-8")
+        yield work
+    finally:
+        shutil.rmtree(work, ignore_errors=True)
+
+
+def _read_owner(work: Path) -> int | None:
+    try:
+        return int((work / _OWNER).read_text(encoding="utf-8").strip())
+    except (OSError, ValueError):
+        return None
+
+
+def _exchange(a: Path, b: Path) -> bool:
+    """Atomically exchange two paths with renameat2; False when the system cannot."""
+    libc_name = ctypes.util.find_library("c")
+    if not libc_name:
+        return False
+    try:
+        libc = ctypes.CDLL(libc_name, use_errno=True)
+        renameat2 = libc.renameat2
+    except (OSError, AttributeError):
+        return False
+    at_fdcwd, rename_exchange = -100, 2
+    res = renameat2(at_fdcwd, os.fsencode(a), at_fdcwd, os.fsencode(b), rename_exchange)
+    return bool(res == 0)
+
+
+def swap_in(site: Path, out_dir: Path) -> None:
+    """Replace ``out_dir`` by the finished ``site`` folder in one step; ``site`` ends up holding the old one."""
+    (site / _OWNER).unlink(missing_ok=True)
+    (site / MARKER).write_text(MARKER_TEXT, encoding="utf-8")
+    out = out_dir.resolve()
+    if not out.exists():
+        site.rename(out)
+        site.mkdir()
+        return
+    if _exchange(site, out):
+        return
+    old = out.parent / f".{out.name}.sitegen-old"  # pragma: no cover - systems without renameat2
+    shutil.rmtree(old, ignore_errors=True)
+    out.rename(old)
+    site.rename(out)
+    old.rename(site)
+
+
+def site_files(site: Path) -> list[Path]:
+    """Every file of a built site in sorted order, without sitegen's own marker."""
+    return sorted(p for p in site.rglob("*") if p.is_file() and p.name != MARKER)
+
+
+def pack(site: Path, target: Path) -> int:
+    """Zip a built site (links inside are relative, so it works unzipped anywhere); returns its size."""
+    if not (site / MARKER).is_file() or not (site / "index.html").is_file():
+        raise PackError(f"{site} is not a site built by sitegen", hint="run sitegen build first")
+    if target.resolve().is_relative_to(site.resolve()):
+        raise PackError("the zip file cannot be written inside the site it packs")
+    top = site.resolve().name
+    tmp = target.with_name(f".{target.name}.partial")
+    try:
+        with zipfile.ZipFile(tmp, "w", zipfile.ZIP_DEFLATED, compresslevel=9) as zf:
+            for path in site_files(site):
+                rel = path.relative_to(site).as_posix()
+                info = zipfile.ZipInfo(f"{top}/{rel}", date_time=(2000, 1, 1, 0, 0, 0))
+                info.compress_type = zipfile.ZIP_DEFLATED
+                info.external_attr = 0o644 << 16
+                zf.writestr(info, path.read_bytes())
+        tmp.replace(target)
+    except OSError as exc:
+        tmp.unlink(missing_ok=True)
+        raise PackError(f"cannot write {target}: {exc.strerror or exc}") from exc
+    return target.stat().st_size

@@ -1,0 +1,80 @@
+"""Shared assets: the Vega / Vega-Lite / vega-embed bundle, the theme's stylesheet and scripts.
+
+Producing the JavaScript bundle with vl-convert takes over a second and about
+130 MB the first time in a process, so it is reused from the previous build of
+the same site when the versions match, else from the user's cache folder
+(``$XDG_CACHE_HOME/sitegen`` or ``~/.cache/sitegen``), and made only when neither has it.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+from pathlib import Path
+
+from sitegen.report.theme import Theme
+
+BUNDLE = "assets/vendor/vega-bundle.js"
+BUNDLE_VERSION = "assets/vendor/vega-bundle.version"
+
+
+def bundle_version() -> str:
+    """Versions of the libraries inside the bundle."""
+    import vl_convert as vlc  # noqa: PLC0415
+
+    return (
+        f"vl-convert {getattr(vlc, '__version__', '?')}; vega {vlc.get_vega_version()}; "
+        f"vega-lite {vlc.get_vegalite_versions()[-1]}; vega-embed {vlc.get_vega_embed_version()}\n"
+    )
+
+
+def _cache_dir() -> Path:
+    base = os.environ.get("XDG_CACHE_HOME") or str(Path.home() / ".cache")
+    return Path(base) / "sitegen"
+
+
+def _bundle_text() -> str:
+    import vl_convert as vlc  # noqa: PLC0415
+
+    text: str = vlc.javascript_bundle()
+    return text
+
+
+def write_bundle(out: Path, previous: Path | None) -> None:
+    """Put the chart bundle into ``out`` (the site being built)."""
+    version = bundle_version()
+    target = out / BUNDLE
+    target.parent.mkdir(parents=True, exist_ok=True)
+    (out / BUNDLE_VERSION).write_text(version, encoding="utf-8")
+    if previous is not None:
+        old_version = previous / BUNDLE_VERSION
+        old_bundle = previous / BUNDLE
+        if old_version.is_file() and old_bundle.is_file() and old_version.read_text(encoding="utf-8") == version:
+            shutil.copyfile(old_bundle, target)
+            return
+    key = "".join(c if c.isalnum() else "-" for c in version.strip())
+    cached = _cache_dir() / f"vega-bundle-{key}.js"
+    if cached.is_file():
+        shutil.copyfile(cached, target)
+        return
+    text = _bundle_text()
+    target.write_text(text, encoding="utf-8")
+    try:
+        cached.parent.mkdir(parents=True, exist_ok=True)
+        tmp = cached.with_suffix(f".{os.getpid()}.tmp")
+        tmp.write_text(text, encoding="utf-8")
+        tmp.replace(cached)
+    except OSError:
+        pass  # the cache is an optimisation only
+
+
+def write_static(out: Path, theme: Theme) -> None:
+    """Copy the theme's static files (user theme over default) into ``assets/``."""
+    dest = out / "assets"
+    dest.mkdir(parents=True, exist_ok=True)
+    for folder in reversed(theme.static_dirs):
+        for path in sorted(folder.rglob("*")):
+            if path.is_file() and not path.name.startswith("."):
+                target = dest / path.relative_to(folder)
+                target.parent.mkdir(parents=True, exist_ok=True)
+                shutil.copyfile(path, target)

@@ -1,0 +1,120 @@
+"""The downloadable files of each dataset and of the whole site."""
+
+from __future__ import annotations
+
+import json
+import shutil
+from collections.abc import Sequence
+from dataclasses import asdict
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from sitegen.derive import Observations
+from sitegen.discover import DatasetSource
+from sitegen.model import FitReport, to_json
+from sitegen.report.tables import frame_from_columns, frame_from_rows, to_csv_bytes, to_xlsx_bytes
+
+XLSX_MAX_ROWS = 50_000  # larger observation tables are offered as CSV only
+SUMMARY_COLUMNS = (
+    "dataset", "title", "status", "n", "df_resid", "r_squared", "adj_r_squared", "residual_std_error",
+    "f_stat", "f_p_value", "message",
+    "section", "source", "model", "compare_term", "estimate", "std_error", "ci_low", "ci_high", "level", "tags",
+)  # fmt: skip
+COEFFICIENT_COLUMNS = ("term", "estimate", "std_error", "t_stat", "p_value", "ci_low", "ci_high")
+
+
+def _message(r: FitReport) -> str:
+    for level in ("error", "warning", "note"):
+        for m in r.messages:
+            if m.level == level:
+                return m.text
+    return ""
+
+
+def summary_row(r: FitReport) -> dict[str, Any]:
+    """One dataset's row of summary.csv / summary.json."""
+    c = r.coefficient(r.compare_term) if r.compare_term else None
+    return {
+        "dataset": r.dataset, "title": r.title, "status": r.status, "n": r.n, "df_resid": r.df_resid,
+        "r_squared": r.r_squared, "adj_r_squared": r.adj_r_squared, "residual_std_error": r.residual_std_error,
+        "f_stat": r.f_stat, "f_p_value": r.f_p_value, "message": _message(r), "section": r.section,
+        "source": r.source, "model": r.model, "compare_term": r.compare_term,
+        "estimate": c.estimate if c else None, "std_error": c.std_error if c else None,
+        "ci_low": c.ci_low if c else None, "ci_high": c.ci_high if c else None,
+        "level": r.level, "tags": ";".join(r.tags),
+    }  # fmt: skip
+
+
+def _json_value(v: Any) -> Any:
+    if isinstance(v, float) and not np.isfinite(v):
+        return None
+    return v
+
+
+def summary_files(work: Path, reports: Sequence[FitReport]) -> None:
+    """summary.csv, summary.json and summary.xlsx."""
+    rows = [summary_row(r) for r in reports]
+    frame = frame_from_rows(SUMMARY_COLUMNS, [[row[c] for c in SUMMARY_COLUMNS] for row in rows])
+    (work / "summary.csv").write_bytes(to_csv_bytes(frame))
+    (work / "summary.xlsx").write_bytes(to_xlsx_bytes(frame, "summary"))
+    body = [{k: _json_value(v) for k, v in row.items()} for row in rows]
+    text = json.dumps(body, sort_keys=True, ensure_ascii=False, allow_nan=False, indent=1)
+    (work / "summary.json").write_text(text + "\n", encoding="utf-8")
+
+
+def _table(folder: Path, name: str, columns: Sequence[str], rows: Sequence[Sequence[Any]], xlsx: bool) -> list[str]:
+    frame = frame_from_rows(columns, rows)
+    (folder / f"{name}.csv").write_bytes(to_csv_bytes(frame))
+    out = [f"{name}.csv"]
+    if xlsx:
+        (folder / f"{name}.xlsx").write_bytes(to_xlsx_bytes(frame, name))
+        out.append(f"{name}.xlsx")
+    return out
+
+
+def dataset_files(
+    folder: Path, r: FitReport, obs: Observations | None, src: DatasetSource, offer_source: bool
+) -> list[str]:
+    """Write a dataset's downloads into its folder; returns their names."""
+    files = ["fit.json"]
+    (folder / "fit.json").write_text(to_json(r), encoding="utf-8")
+    if offer_source:
+        name = "source-" + src.csv_path.name
+        try:
+            shutil.copyfile(src.csv_path, folder / name)
+            files.append(name)
+        except OSError:
+            pass
+    if r.status == "error":
+        return sorted(files)
+    coef_rows = [[getattr(c, k) for k in COEFFICIENT_COLUMNS] for c in r.coefficients]
+    extra = ("robust_std_error", "robust_ci_low", "robust_ci_high", "robust_p_value")
+    if r.coefficients and r.coefficients[0].robust_std_error is not None:
+        coef_rows = [row + [getattr(c, k) for k in extra] for row, c in zip(coef_rows, r.coefficients, strict=True)]
+        files += _table(folder, "coefficients", COEFFICIENT_COLUMNS + extra, coef_rows, True)
+    else:
+        files += _table(folder, "coefficients", COEFFICIENT_COLUMNS, coef_rows, True)
+    files += _table(folder, "anova", ("source", "df", "sum_sq", "mean_sq", "f_stat", "p_value"),
+                    [list(asdict(a).values()) for a in r.anova], False)  # fmt: skip
+    if r.lines:
+        cols = ("method", "slope", "intercept", "slope_ci_low", "slope_ci_high", "intercept_ci_low",
+                "intercept_ci_high", "interval_method", "label")  # fmt: skip
+        files += _table(folder, "lines", cols, [[getattr(ln, c) for c in cols] for ln in r.lines], True)
+    if r.calibration:
+        cols = ("response", "estimate", "std_error", "ci_low", "ci_high", "readings", "method", "bounded")
+        files += _table(folder, "calibration", cols, [[getattr(c, k) for k in cols] for c in r.calibration], True)
+    if r.predictions:
+        names = sorted({k for p in r.predictions for k, _ in p.at})
+        cols = ("fitted", "std_error", "mean_ci_low", "mean_ci_high", "pred_low", "pred_high")
+        rows = [[dict(p.at).get(n) for n in names] + [getattr(p, c) for c in cols] for p in r.predictions]
+        files += _table(folder, "predictions", (*names, *cols), rows, True)
+    if obs is not None:
+        frame = frame_from_columns(obs.columns, obs.values)
+        (folder / "observations.csv").write_bytes(to_csv_bytes(frame))
+        files.append("observations.csv")
+        if len(frame) <= XLSX_MAX_ROWS:
+            (folder / "observations.xlsx").write_bytes(to_xlsx_bytes(frame, "observations"))
+            files.append("observations.xlsx")
+    return sorted(files)

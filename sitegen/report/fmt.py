@@ -1,0 +1,82 @@
+"""The one place numbers are rounded for reading. Downloads keep full precision."""
+
+from __future__ import annotations
+
+import math
+
+_SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
+MISSING = "—"
+
+
+def _finite(x: object) -> float | None:
+    if x is None or isinstance(x, bool) or not isinstance(x, int | float):
+        return None
+    v = float(x)
+    return v if math.isfinite(v) else None
+
+
+def num(x: object, digits: int = 4) -> str:
+    """A number with ``digits`` significant digits; scientific notation only when very large or small."""
+    if isinstance(x, float) and math.isinf(x):
+        return "∞" if x > 0 else "−∞"
+    v = _finite(x)
+    if v is None:
+        return MISSING
+    if isinstance(x, int):
+        return f"{x:,}".replace("-", "−")
+    if v == 0:
+        return "0"
+    mag = math.floor(math.log10(abs(v)))
+    if -4 <= mag < 7:
+        decimals = max(digits - 1 - mag, 0)
+        text = f"{v:,.{decimals}f}"
+        if "." in text:
+            text = text.rstrip("0").rstrip(".") if decimals > digits else text
+    else:
+        mantissa, exponent = f"{v:.{digits - 1}e}".split("e")
+        text = f"{mantissa} × 10{str(int(exponent)).translate(_SUPERSCRIPT)}"
+    return text.replace("-", "−")
+
+
+def integer(x: object) -> str:
+    """A count with thousands separators."""
+    v = _finite(x)
+    return MISSING if v is None else f"{int(v):,}"
+
+
+def pvalue(p: object) -> str:
+    """A p-value as readers expect it: three significant digits, or "< 0.0001"."""
+    v = _finite(p)
+    if v is None:
+        return MISSING
+    if v < 1e-4:
+        return "< 0.0001"
+    return f"{v:.3g}" if v < 0.001 else f"{v:.3f}".rstrip("0").rstrip(".") if v < 1 else "1"
+
+
+def percent(x: object, digits: int = 1) -> str:
+    """A proportion as a percentage."""
+    v = _finite(x)
+    return MISSING if v is None else f"{v * 100:.{digits}f}%"
+
+
+def level(x: object) -> str:
+    """A confidence level such as 0.95 as "95%"."""
+    v = _finite(x)
+    return MISSING if v is None else f"{v * 100:g}%"
+
+
+def interval(low: object, high: object, digits: int = 4) -> str:
+    """A confidence interval as "low to high"."""
+    return f"{num(low, digits)} to {num(high, digits)}"
+
+
+def rsquared(x: object) -> str:
+    """R² with enough decimals to tell 0.9999 from 0.99999."""
+    v = _finite(x)
+    if v is None:
+        return MISSING
+    if 0.99 < v < 1:
+        decimals = min(max(3, 1 - math.floor(math.log10(1 - v)) + 1), 8)
+        return f"{v:.{decimals}f}"
+    return f"{v:.4f}".replace("-", "−")

@@ -1,0 +1,213 @@
+"""HTML pages rendered with Jinja2 from :class:`FitReport` objects alone."""
+
+from __future__ import annotations
+
+import json
+import re
+from collections.abc import Sequence
+from dataclasses import dataclass
+from functools import cache
+from typing import Any
+
+import jinja2
+from markdown_it import MarkdownIt
+from markupsafe import Markup
+
+from sitegen import __version__
+from sitegen.model import FitReport
+from sitegen.report import charts, fmt
+from sitegen.report.theme import Theme
+from sitegen.spec import SiteConfig
+
+_SAFE_SCHEMES = ("http:", "https:", "mailto:", "#", "/", "./", "../")
+
+
+def _markdown() -> MarkdownIt:
+    md = MarkdownIt("commonmark", {"html": False, "linkify": False, "typographer": False})
+    default_validate = md.validateLink
+
+    def validate(url: str) -> bool:
+        # Raw HTML is off; links may only use harmless schemes (no javascript:, data:, vbscript:, file:).
+        u = url.strip().lower()
+        has_scheme = re.match(r"^[a-z][a-z0-9+.-]*:", u) is not None
+        return default_validate(url) and (not has_scheme or u.startswith(_SAFE_SCHEMES))
+
+    md.validateLink = validate  # type: ignore[method-assign]
+    return md
+
+
+_MD = _markdown()
+
+
+def render_markdown(text: str) -> Markup:
+    """Markdown to HTML with raw HTML disabled and unsafe links dropped."""
+    return Markup(_MD.render(text or ""))  # noqa: S704 - markdown-it escapes everything; html is off
+
+
+def json_for_script(value: object) -> Markup:
+    """JSON that is safe inside a ``<script>`` element: no ``<``, ``>`` or ``&`` survive unescaped."""
+    text = json.dumps(value, ensure_ascii=False, allow_nan=False, separators=(",", ":"), sort_keys=True)
+    text = text.replace("<", "\\u003c").replace(">", "\\u003e").replace("&", "\\u0026")
+    text = text.replace("\u2028", "\\u2028").replace("\u2029", "\\u2029")
+    return Markup(text)  # noqa: S704 - escaped above
+
+
+def slugify(text: str) -> str:
+    """An id-safe version of a label."""
+    return re.sub(r"[^a-z0-9]+", "-", str(text).lower()).strip("-") or "x"
+
+
+def _show_char(value: str) -> str:
+    return {"\t": "tab", ",": ",", ";": ";", "|": "|"}.get(value, value)
+
+
+@cache
+def environment(theme: Theme) -> jinja2.Environment:
+    """The Jinja2 environment of a theme (user templates first, default after)."""
+    env = jinja2.Environment(
+        loader=jinja2.FileSystemLoader([str(d) for d in theme.template_dirs]),
+        autoescape=True,
+        undefined=jinja2.StrictUndefined,
+        trim_blocks=True,
+        lstrip_blocks=True,
+        keep_trailing_newline=True,
+    )
+    env.filters |= {
+        "num": fmt.num,
+        "integer": fmt.integer,
+        "pvalue": fmt.pvalue,
+        "rsq": fmt.rsquared,
+        "level": fmt.level,
+        "percent": fmt.percent,
+        "markdown": render_markdown,
+        "tojson_safe": json_for_script,
+        "slugify": slugify,
+        "show_char": _show_char,
+    }
+    return env
+
+
+@dataclass(frozen=True, slots=True)
+class SiteContext:
+    """What every page needs to know about the site."""
+
+    config: SiteConfig
+    theme: Theme
+
+
+def _common(ctx: SiteContext, root: str, page: str) -> dict[str, Any]:
+    return {
+        "site": ctx.config,
+        "root": root,
+        "page": page,
+        "version": __version__,
+        "chart_theme": ctx.theme.chart_colors,
+    }
+
+
+def _label(column: str | None, units: dict[str, str]) -> str:
+    if not column:
+        return "x"
+    return f"{column} ({units[column]})" if column in units else column
+
+
+def sentence(r: FitReport) -> str:
+    """The fit stated in one plain sentence."""
+    units = dict(r.units)
+    lvl = fmt.level(r.level)
+    fit_part = (
+        f"the model explains {fmt.percent(r.r_squared)} of the variation in {r.response} (R² = {fmt.rsquared(r.r_squared)}), "
+        f"and the points scatter about it with a residual standard error of {fmt.num(r.residual_std_error)}"
+    )
+    chart = r.chart
+    term = r.compare_term
+    c = r.coefficient(term) if term else None
+    if chart is not None and chart.x is not None and c is not None and term == chart.x:
+        y_unit = f" {units[r.response]}" if r.response in units else ""
+        x_unit = f" {units[chart.x]}" if chart.x in units else ""
+        direction = "rises" if c.estimate > 0 else "falls"
+        return (
+            f"Across {fmt.integer(r.n)} rows, {r.response} {direction} by {fmt.num(abs(c.estimate))}{y_unit} for each "
+            f"1{x_unit} of {chart.x} ({lvl} interval {fmt.num(c.ci_low)} to {fmt.num(c.ci_high)}); {fit_part}."
+        )
+    return f"Across {fmt.integer(r.n)} rows fitted with {r.model}, {fit_part}."
+
+
+def _first_problem(r: FitReport) -> str:
+    for level in ("error", "warning"):
+        for m in r.messages:
+            if m.level == level:
+                return m.text
+    return ""
+
+
+def _downloads(r: FitReport, files: Sequence[str]) -> list[tuple[str, str, str]]:
+    described = {
+        "observations.csv": "every row: data, fitted value, intervals and influence measures",
+        "observations.xlsx": "the same as a workbook",
+        "coefficients.csv": "estimates with standard errors, tests and intervals",
+        "coefficients.xlsx": "the same as a workbook",
+        "fit.json": "every number on this page, at full precision",
+        "lines.csv": "the other lines with their intervals",
+        "calibration.csv": "inverse predictions with their intervals",
+        "predictions.csv": "predicted values with their intervals",
+        "anova.csv": "the analysis of variance table",
+    }
+    out = [(f, f, described.get(f, "")) for f in files if f in described]
+    out += [(f, f"original file ({f.removeprefix('source-')})", "the data file exactly as delivered")
+            for f in files if f.startswith("source-")]  # fmt: skip
+    return out
+
+
+def render_dataset(
+    ctx: SiteContext, r: FitReport, files: Sequence[str], prev: FitReport | None, nxt: FitReport | None
+) -> str:
+    """The page of one dataset."""
+    env = environment(ctx.theme)
+    units = dict(r.units)
+    cutoffs = dict(r.cutoffs)
+    ok = r.status != "error"
+    chart_specs = charts.dataset_charts(r) if ok else {}
+    x_label = _label(r.chart.x if r.chart else None, units)
+    fit_caption = (
+        f"{r.response} against {x_label}: the fitted line, its {fmt.level(r.level)} confidence band for the mean "
+        f"(darker) and prediction band for single readings (lighter)"
+        + (", and the other lines listed below" if r.lines else "")
+        + ("; flagged rows are drawn as triangles." if r.flagged else ".")
+    )
+    return env.get_template("dataset.html").render(
+        **_common(ctx, "../../", "dataset"),
+        r=r,
+        charts=chart_specs,
+        sentence=sentence(r) if ok else "",
+        downloads=_downloads(r, files),
+        prev=prev,
+        next=nxt,
+        cutoffs=cutoffs,
+        x_label=x_label,
+        fit_caption=fit_caption,
+    )
+
+
+def render_index(ctx: SiteContext, reports: Sequence[FitReport], tags: Sequence[dict[str, Any]]) -> str:
+    """The comparison index of every dataset."""
+    env = environment(ctx.theme)
+    sections: dict[str, list[FitReport]] = {}
+    for r in reports:
+        sections.setdefault(r.section, []).append(r)
+    counts = {s: sum(1 for r in reports if r.status == s) for s in ("ok", "warn", "error")}
+    levels = sorted({r.level for r in reports})
+    return env.get_template("index.html").render(
+        **_common(ctx, "", "index"),
+        reports=reports,
+        sections=[{"name": k, "reports": v} for k, v in sorted(sections.items())],
+        counts=counts,
+        tags=tags,
+        first_problem=_first_problem,
+        level_text=fmt.level(levels[0]) if len(levels) == 1 else "stated",
+    )
+
+
+def render_page(ctx: SiteContext, template: str, page: str, **values: Any) -> str:
+    """Any other top-level page (e.g. the change report)."""
+    return environment(ctx.theme).get_template(template).render(**_common(ctx, "", page), **values)

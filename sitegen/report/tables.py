@@ -1,0 +1,110 @@
+"""Downloadable tables: CSV, JSON and XLSX at full precision, safe to open in a spreadsheet.
+
+Text cells a spreadsheet would execute (starting with ``=``, ``+``, ``-``, ``@``,
+tab or carriage return) get a leading single quote (common practice against
+formula injection); numbers stay numbers. NaN and ±inf are empty cells.
+"""
+
+from __future__ import annotations
+
+import io
+import math
+from collections.abc import Sequence
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+_DANGEROUS = ("=", "+", "-", "@", "\t", "\r")
+
+
+def neutralise(text: str) -> str:
+    """Make a text cell inert for spreadsheets."""
+    return "'" + text if text.startswith(_DANGEROUS) else text
+
+
+def _cell(value: Any) -> Any:
+    if isinstance(value, bool) or value is None:
+        return value
+    if isinstance(value, float | np.floating):
+        v = float(value)
+        return v if math.isfinite(v) else None
+    if isinstance(value, int | np.integer):
+        return int(value)
+    if isinstance(value, str):
+        return neutralise(value)
+    return neutralise(str(value))
+
+
+def frame_from_rows(columns: Sequence[str], rows: Sequence[Sequence[Any]]) -> pd.DataFrame:
+    """A frame of cleaned cells (neutralised text, NaN/inf as missing)."""
+    clean = [[_cell(v) for v in row] for row in rows]
+    return pd.DataFrame(clean, columns=[neutralise(str(c)) for c in columns], dtype=object)
+
+
+def frame_from_columns(columns: Sequence[str], values: Sequence[np.ndarray[Any, Any]]) -> pd.DataFrame:
+    """A frame from column arrays (fast path for large observation tables)."""
+    data: dict[str, Any] = {}
+    for name, arr in zip(columns, values, strict=True):
+        key = neutralise(str(name))
+        if arr.dtype.kind == "f":
+            data[key] = np.where(np.isfinite(arr), arr, np.nan)
+        elif arr.dtype.kind in "iub":
+            data[key] = arr
+        else:
+            data[key] = [_cell(v) for v in arr.tolist()]
+    return pd.DataFrame(data)
+
+
+def to_csv_bytes(frame: pd.DataFrame) -> bytes:
+    """CSV with shortest round-trip floats, empty cells for missing values, LF line ends."""
+    buf = io.StringIO()
+    frame.to_csv(buf, index=False, na_rep="", lineterminator="\n")
+    return buf.getvalue().encode("utf-8")
+
+
+def to_xlsx_bytes(frame: pd.DataFrame, sheet: str = "data") -> bytes:
+    """An XLSX workbook of one sheet; text cells are stored as text, never as formulas."""
+    from openpyxl import Workbook  # noqa: PLC0415 - only needed when writing workbooks
+    from openpyxl.cell.cell import TYPE_STRING  # noqa: PLC0415
+
+    wb = Workbook(write_only=True)
+    ws = wb.create_sheet(sheet[:31])
+    ws.append([str(c) for c in frame.columns])
+    for row in frame.itertuples(index=False, name=None):
+        cells = []
+        for v in row:
+            if isinstance(v, float) and not math.isfinite(v):
+                cells.append(None)
+            elif isinstance(v, np.floating | np.integer):
+                cells.append(v.item())
+            else:
+                cells.append(v)
+        ws.append(cells)
+    del TYPE_STRING
+    buf = io.BytesIO()
+    wb.save(buf)
+    return _fix_zip_times(buf.getvalue())
+
+
+def _fix_zip_times(data: bytes) -> bytes:
+    """Rewrite the workbook's zip with fixed timestamps so builds are byte-identical."""
+    import zipfile  # noqa: PLC0415
+
+    src = zipfile.ZipFile(io.BytesIO(data))
+    out = io.BytesIO()
+    with zipfile.ZipFile(out, "w", zipfile.ZIP_DEFLATED) as dst:
+        for info in src.infolist():
+            body = src.read(info.filename)
+            if info.filename == "docProps/core.xml":
+                body = _strip_core_dates(body)
+            fixed = zipfile.ZipInfo(info.filename, date_time=(2000, 1, 1, 0, 0, 0))
+            fixed.compress_type = zipfile.ZIP_DEFLATED
+            dst.writestr(fixed, body)
+    return out.getvalue()
+
+
+def _strip_core_dates(body: bytes) -> bytes:
+    import re  # noqa: PLC0415
+
+    return re.sub(rb"(<dcterms:(created|modified)[^>]*>)[^<]*(</dcterms:\2>)", rb"\g<1>2000-01-01T00:00:00Z\g<3>", body)

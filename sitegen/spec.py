@@ -1,0 +1,357 @@
+"""Read and validate ``site.toml`` and the per-dataset TOML sidecars.
+
+Validation names the exact key and what it expected; unknown keys are reported
+with the closest known key. ``tomllib`` errors are translated here (the one
+boundary for TOML) into :class:`~sitegen.errors.SidecarError` or
+:class:`~sitegen.errors.SiteConfigError`.
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+import tomllib
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field, fields
+from pathlib import Path
+from typing import Any
+
+from sitegen.errors import SidecarError, SiteConfigError
+
+LINE_CHOICES = ("reverse", "orthogonal", "deming", "geometric_mean")
+DEFAULT_LEVEL = 0.95
+
+
+@dataclass(frozen=True, slots=True)
+class DatasetSpec:
+    """Everything a sidecar (merged over the site's defaults) says about one dataset."""
+
+    title: str | None = None
+    description: str = ""
+    tags: tuple[str, ...] = ()
+    model: str | None = None
+    level: float = DEFAULT_LEVEL
+    units: tuple[tuple[str, str], ...] = ()
+    claims: tuple[str, ...] = ()
+    lines: tuple[str, ...] = ()
+    error_ratio: float = 1.0
+    calibrate: tuple[float, ...] = ()
+    readings: int = 1
+    predict_at: tuple[tuple[tuple[str, float], ...], ...] | tuple[float, ...] = ()
+    weights: str | None = None
+    robust: bool = False
+    group: str | None = None
+    compare: str | None = None
+    delimiter: str | None = None
+    decimal: str = "."
+    encoding: str = "utf-8"
+    unknown_keys: tuple[tuple[str, str | None], ...] = field(default=(), compare=False)
+
+
+class _Invalid(Exception):
+    """A value failed validation; carries the expectation text."""
+
+
+def _string(v: object) -> str:
+    if not isinstance(v, str):
+        raise _Invalid("a string")
+    return v
+
+
+def _opt_string(v: object) -> str | None:
+    return _string(v)
+
+
+def _tags(v: object) -> tuple[str, ...]:
+    if not isinstance(v, list) or not all(isinstance(t, str) for t in v):
+        raise _Invalid('a list of strings, e.g. ["calibration", "nutrients"]')
+    return tuple(dict.fromkeys(t.strip() for t in v if t.strip()))
+
+
+def _number(v: object) -> float:
+    if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(float(v)):
+        raise _Invalid("a finite number")
+    return float(v)
+
+
+def _level(v: object) -> float:
+    x = _number(v)
+    if not 0.0 < x < 1.0:
+        raise _Invalid("a number strictly between 0 and 1, e.g. 0.95")
+    return x
+
+
+def _positive(v: object) -> float:
+    x = _number(v)
+    if x <= 0:
+        raise _Invalid("a positive number")
+    return x
+
+
+def _readings(v: object) -> int:
+    if isinstance(v, bool) or not isinstance(v, int) or v < 1:
+        raise _Invalid("a whole number of at least 1")
+    return v
+
+
+def _boolean(v: object) -> bool:
+    if not isinstance(v, bool):
+        raise _Invalid("true or false")
+    return v
+
+
+def _numbers(v: object) -> tuple[float, ...]:
+    if not isinstance(v, list):
+        raise _Invalid("a list of numbers, e.g. [0.5, 1.25]")
+    return tuple(_number(x) for x in v)
+
+
+def _units(v: object) -> tuple[tuple[str, str], ...]:
+    if not isinstance(v, dict) or not all(isinstance(u, str) for u in v.values()):
+        raise _Invalid('a table of column = "unit", e.g. { conc = "mg/L" }')
+    return tuple(sorted((str(k), str(u)) for k, u in v.items()))
+
+
+def _claims(v: object) -> tuple[str, ...]:
+    if isinstance(v, str):
+        v = [v]
+    if not isinstance(v, list) or not all(isinstance(c, str) and c.strip() for c in v):
+        raise _Invalid('a list of hypotheses as strings, e.g. ["x = 1", "Intercept = 0"]')
+    return tuple(c.strip() for c in v)
+
+
+def _lines(v: object) -> tuple[str, ...]:
+    if not isinstance(v, list) or not all(isinstance(c, str) for c in v):
+        raise _Invalid(f"a list chosen from {', '.join(LINE_CHOICES)}")
+    bad = [c for c in v if c not in LINE_CHOICES]
+    if bad:
+        hint = _closest(bad[0], LINE_CHOICES)
+        extra = f" (did you mean {hint!r}?)" if hint else ""
+        raise _Invalid(f"a list chosen from {', '.join(LINE_CHOICES)}; {bad[0]!r} is not one{extra}")
+    return tuple(dict.fromkeys(v))
+
+
+def _predict_at(v: object) -> tuple[tuple[tuple[str, float], ...], ...] | tuple[float, ...]:
+    if not isinstance(v, list):
+        raise _Invalid("a list of x values, or a list of tables such as { flow = 12, head = 30 }")
+    if all(isinstance(x, dict) for x in v):
+        rows = []
+        for row in v:
+            assert isinstance(row, dict)
+            rows.append(tuple(sorted((str(k), _number(x)) for k, x in row.items())))
+        return tuple(rows)
+    return _numbers(v)
+
+
+def _delimiter(v: object) -> str:
+    s = _string(v)
+    if s in ("\\t", "tab"):
+        s = "\t"
+    if len(s) != 1 or s in "\"'\n\r" or s.isalnum():
+        raise _Invalid('one separator character such as ",", ";", "|" or "\\t"')
+    return s
+
+
+def _decimal(v: object) -> str:
+    s = _string(v)
+    if s not in (".", ","):
+        raise _Invalid('"." or ","')
+    return s
+
+
+def _encoding(v: object) -> str:
+    import codecs  # noqa: PLC0415 - only needed when the key is given
+
+    s = _string(v)
+    try:
+        codecs.lookup(s)
+    except LookupError:
+        raise _Invalid('a text encoding name such as "utf-8", "latin-1" or "cp1252"') from None
+    return s
+
+
+_KEYS: Mapping[str, Callable[[object], Any]] = {
+    "title": _opt_string,
+    "description": _string,
+    "tags": _tags,
+    "model": _opt_string,
+    "level": _level,
+    "units": _units,
+    "claims": _claims,
+    "lines": _lines,
+    "error_ratio": _positive,
+    "calibrate": _numbers,
+    "readings": _readings,
+    "predict_at": _predict_at,
+    "weights": _opt_string,
+    "robust": _boolean,
+    "group": _opt_string,
+    "compare": _opt_string,
+    "delimiter": _delimiter,
+    "decimal": _decimal,
+    "encoding": _encoding,
+}
+SIDECAR_KEYS = tuple(sorted(_KEYS))
+assert set(_KEYS) == {f.name for f in fields(DatasetSpec)} - {"unknown_keys"}
+
+
+def _closest(word: str, choices: tuple[str, ...] | list[str]) -> str | None:
+    match = difflib.get_close_matches(word, choices, n=1, cutoff=0.6)
+    return match[0] if match else None
+
+
+def _read_toml(path: Path) -> dict[str, Any]:
+    """Parse a TOML file; raises ``ValueError`` with a readable message."""
+    try:
+        raw = path.read_bytes()
+    except OSError as exc:
+        raise ValueError(f"cannot be read: {exc.strerror or exc}") from exc
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError as exc:
+        raise ValueError(f"is not UTF-8 text (byte {exc.start}); save it as UTF-8") from exc
+    try:
+        return tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise ValueError(f"is not valid TOML: {exc}") from exc
+
+
+def validate_keys(table: Mapping[str, object], where: str) -> tuple[dict[str, Any], list[tuple[str, str | None]]]:
+    """Validate sidecar-style keys; returns (clean values, unknown keys with suggestions)."""
+    clean: dict[str, Any] = {}
+    unknown: list[tuple[str, str | None]] = []
+    for key, value in table.items():
+        check = _KEYS.get(key)
+        if check is None:
+            unknown.append((key, _closest(key, SIDECAR_KEYS)))
+            continue
+        try:
+            clean[key] = check(value)
+        except _Invalid as exc:
+            raise SidecarError(f"{where}: key '{key}' must be {exc}; got {_show(value)}") from None
+    return clean, unknown
+
+
+def _show(value: object) -> str:
+    text = repr(value)
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
+def read_sidecar(path: Path | None, defaults: Mapping[str, Any], display: str) -> DatasetSpec:
+    """Merge a sidecar over the site's validated defaults into a :class:`DatasetSpec`."""
+    values = dict(defaults)
+    unknown: list[tuple[str, str | None]] = []
+    if path is not None:
+        try:
+            table = _read_toml(path)
+        except ValueError as exc:
+            raise SidecarError(f"{display} {exc}") from exc
+        clean, unknown = validate_keys(table, display)
+        values.update(clean)
+    return DatasetSpec(**values, unknown_keys=tuple(unknown))
+
+
+@dataclass(frozen=True, slots=True)
+class Limits:
+    """Resource bounds for one CSV file."""
+
+    max_megabytes: float = 512.0
+    max_rows: int = 5_000_000
+    max_columns: int = 200
+
+
+@dataclass(frozen=True, slots=True)
+class SiteConfig:
+    """Site-wide settings from ``site.toml``."""
+
+    title: str = "Regression reports"
+    description: str = ""
+    theme: str = "default"
+    offer_source: bool = False
+    static_images: bool = False
+    mail_budget_megabytes: float = 20.0
+    defaults: tuple[tuple[str, Any], ...] = ()
+    limits: Limits = Limits()
+
+    @property
+    def default_values(self) -> dict[str, Any]:
+        return dict(self.defaults)
+
+
+_SITE_KEYS = (
+    "title", "description", "theme", "offer_source", "static_images",
+    "mail_budget_megabytes", "defaults", "limits",
+)  # fmt: skip
+_LIMIT_KEYS = ("max_megabytes", "max_rows", "max_columns")
+
+
+def _site_error(msg: str) -> SiteConfigError:
+    return SiteConfigError(f"site.toml: {msg}")
+
+
+def read_site_config(path: Path) -> tuple[SiteConfig, list[str]]:
+    """Read ``site.toml`` (absent → defaults). Returns the config and warnings."""
+    if not path.is_file():
+        return SiteConfig(), []
+    try:
+        table = _read_toml(path)
+    except ValueError as exc:
+        raise _site_error(str(exc)) from exc
+    warnings: list[str] = []
+    for key in table:
+        if key not in _SITE_KEYS:
+            hint = _closest(key, _SITE_KEYS) or _closest(key, SIDECAR_KEYS)
+            tip = f"; did you mean '{hint}'?" if hint else ""
+            warnings.append(f"site.toml: unknown key '{key}' is ignored{tip}")
+    values: dict[str, Any] = {}
+    for key in ("title", "description", "theme"):
+        if key in table:
+            if not isinstance(table[key], str):
+                raise _site_error(f"key '{key}' must be a string; got {_show(table[key])}")
+            values[key] = table[key]
+    for key in ("offer_source", "static_images"):
+        if key in table:
+            if not isinstance(table[key], bool):
+                raise _site_error(f"key '{key}' must be true or false; got {_show(table[key])}")
+            values[key] = table[key]
+    if "mail_budget_megabytes" in table:
+        try:
+            values["mail_budget_megabytes"] = _positive(table["mail_budget_megabytes"])
+        except _Invalid as exc:
+            raise _site_error(f"key 'mail_budget_megabytes' must be {exc}") from None
+    defaults = table.get("defaults", {})
+    if not isinstance(defaults, dict):
+        raise _site_error("[defaults] must be a table of sidecar keys")
+    try:
+        clean, unknown = validate_keys(defaults, "site.toml [defaults]")
+    except SidecarError as exc:
+        raise SiteConfigError(exc.message) from None
+    warnings += [
+        f"site.toml [defaults]: unknown key '{k}' is ignored" + (f"; did you mean '{h}'?" if h else "")
+        for k, h in unknown
+    ]
+    values["defaults"] = tuple(sorted(clean.items()))
+    values["limits"] = _read_limits(table.get("limits", {}))
+    return SiteConfig(**values), warnings
+
+
+def _read_limits(table: object) -> Limits:
+    if not isinstance(table, dict):
+        raise _site_error("[limits] must be a table")
+    for key in table:
+        if key not in _LIMIT_KEYS:
+            hint = _closest(key, _LIMIT_KEYS)
+            raise _site_error(f"[limits] has unknown key '{key}'" + (f"; did you mean '{hint}'?" if hint else ""))
+    out: dict[str, Any] = {}
+    for key in ("max_rows", "max_columns"):
+        if key in table:
+            v = table[key]
+            if isinstance(v, bool) or not isinstance(v, int) or v < 1:
+                raise _site_error(f"[limits] key '{key}' must be a positive whole number; got {_show(v)}")
+            out[key] = v
+    if "max_megabytes" in table:
+        try:
+            out["max_megabytes"] = _positive(table["max_megabytes"])
+        except _Invalid as exc:
+            raise _site_error(f"[limits] key 'max_megabytes' must be {exc}") from None
+    return Limits(**out)

@@ -1,0 +1,451 @@
+"""Plain-language checks of whether a fitted OLS line can be trusted.
+
+Each check returns a :class:`Check`: a machine name, a heading, the test
+statistic and p-value (``None`` when not applicable), a flag, one sentence
+stating the result and, when flagged, one sentence of advice. A check that
+cannot be computed (too few rows, a perfect fit, nothing to test) is not
+flagged and says why; none raises or warns.
+
+Inputs are on the data's scale, as the solver returns them: the design ``X``
+(unweighted), ``y``, ``resid = y − fitted`` and ``fitted``; for a weighted fit
+pass ``weights`` and every check works on the weighted scale (rows times √w),
+where the model's errors have constant variance.
+
+Tests and rules (``alpha`` is the significance level for every p-value):
+
+- constant_variance: Breusch–Pagan in Koenker's studentized form (statsmodels
+  ``het_breuschpagan``), squared residuals against a constant and the predictors.
+- independence: Durbin–Watson d in row order; two-sided p-value from a beta
+  distribution on [0, 4] with d's exact mean and variance under independence
+  (the moment-matched approximation of Durbin and Watson, from memory).
+- normality_shapiro: Shapiro–Wilk (scipy) for 3 to 5000 rows; normality_jarque_bera:
+  Jarque–Bera (scipy), a large-sample test.
+- curvature: Ramsey's RESET, an F test for adding the squared and cubed fitted
+  values (computed here so that weights are respected).
+- lack_of_fit: F test of the model against the means of rows with identical
+  predictor values (pure error), when such repeats exist.
+- collinearity: variance inflation factors (flag above 10, common practice) with an
+  intercept; without one, the condition number of the column-scaled design (flag
+  above 30, common practice).
+- influence: any Cook's distance above the median of F(p, n − p), any leverage ≈ 1,
+  or any |externally studentized residual| above 3 (all common practice) or, when
+  larger, above the Bonferroni outlier-test limit t(1 − α/(2n), n − p − 1), so that
+  among many rows the few ordinary points beyond 3 (about 1 in 370) raise no flag.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
+from functools import partial
+
+import numpy as np
+from numpy.typing import NDArray
+from scipy import stats as sps
+
+from sitegen.stats.influence import LEVERAGE_ONE, Influence
+
+FloatArray = NDArray[np.float64]
+
+SHAPIRO_MAX_ROWS = 5000
+VIF_LIMIT = 10.0
+CONDITION_LIMIT = 30.0
+RESIDUAL_LIMIT = 3.0
+_ZERO = 1e-12  # relative size below which residual scatter counts as zero
+_RANK_TOL = 1e-8  # relative size below which a column counts as dependent
+
+#: name: (heading, sentence when flagged, sentence when not, advice when flagged)
+WORDING: dict[str, tuple[str, str, str, str]] = {
+    "constant_variance": (
+        "Even scatter",
+        "The scatter of the residuals changes with the predictors",
+        "The scatter of the residuals shows no clear change with the predictors",
+        "Intervals assume an even scatter: consider weights, a transformation of y such as a log, "
+        "or standard errors that allow for uneven scatter.",
+    ),
+    "independence": (
+        "Neighbouring rows",
+        "Residuals of neighbouring rows are correlated",
+        "Residuals of neighbouring rows look unrelated",
+        "If the rows are in time or run order, look for drift or carry-over and consider a term for it; "
+        "if the row order means nothing, this check can be ignored.",
+    ),
+    "normality_shapiro": (
+        "Bell-shaped residuals (Shapiro–Wilk)",
+        "The residuals depart from a bell-shaped (normal) distribution",
+        "The residuals are consistent with a bell-shaped (normal) distribution",
+        "Look at the Q–Q plot: skewed or heavy-tailed residuals make intervals and p-values less "
+        "reliable, especially with few rows, and may point to outlying rows or a need to transform y.",
+    ),
+    "curvature": (
+        "Straightness",
+        "Squared and cubed fitted values improve the fit, so the relation bends",
+        "Squared and cubed fitted values do not improve the fit",
+        "Plot the residuals against each predictor; a curved term such as I(x**2), a transformation "
+        "or a narrower range may describe the data better.",
+    ),
+    "lack_of_fit": (
+        "Agreement with repeat measurements",
+        "The line misses the averages of repeated measurements by more than their scatter explains",
+        "The line agrees with the averages of repeated measurements within their scatter",
+        "The model's shape is too simple for these data: try a curved term or a transformation, "
+        "and look at the settings the line misses most.",
+    ),
+    "collinearity": (
+        "Overlapping predictors",
+        "Predictors overlap strongly",
+        "Predictors overlap little",
+        "The separate coefficients are unstable even if the line itself is fine: drop or combine "
+        "overlapping predictors, or centre a predictor before taking its powers.",
+    ),
+    "influence": (
+        "Points that steer the line",
+        "",
+        "No single point steers the line",
+        "Check these rows for recording errors and refit without them to see how much the line "
+        "depends on them; add measurements near any setting that a single point decides.",
+    ),
+}
+WORDING["normality_jarque_bera"] = ("Bell-shaped residuals (Jarque–Bera)", *WORDING["normality_shapiro"][1:])
+
+
+@dataclass(frozen=True, slots=True)
+class Check:
+    """The outcome of one model check, in plain words."""
+
+    check: str  # stable machine name
+    label: str  # short heading
+    statistic: float | None
+    p_value: float | None
+    flag: bool
+    text: str  # one sentence stating the result
+    advice: str  # one sentence on what to do when flagged, else ""
+    rows: tuple[int, ...] = ()  # 0-based indices of the rows concerned
+
+
+@dataclass(frozen=True, slots=True)
+class _Data:
+    X: FloatArray  # design, data scale
+    s: FloatArray  # √weights (ones without weights)
+    yw: FloatArray  # response, weighted scale
+    ew: FloatArray  # residuals, weighted scale
+    fitted: FloatArray  # fitted values, data scale
+    q: FloatArray  # thin QR factors of the weighted design
+    r: FloatArray
+    icol: int | None  # index of the intercept column
+    terms: tuple[str, ...]
+    n: int
+    p: int
+    df: int
+    ssr: float
+    why_not: str | None  # why the residuals cannot be judged, if they cannot
+
+
+#: A test's outcome: (statistic, p-value, the numbers for the sentence), or why it was not computed.
+_Outcome = tuple[float, float, str] | str
+
+
+def _num(v: float) -> str:
+    if math.isnan(v):
+        return "undefined"
+    if math.isinf(v):
+        return "infinite" if v > 0 else "minus infinity"
+    if abs(v) < 1e-9:
+        return "0"
+    if abs(v) >= 1000:
+        return f"{v:,.0f}"
+    return f"{v:.1e}" if abs(v) < 0.001 else f"{v:.3g}"
+
+
+def _p(p: float) -> str:
+    return "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
+
+
+def _check(
+    name: str,
+    flag: bool,
+    text: str,
+    stat: float | None = None,
+    *,
+    p: float | None = None,
+    rows: tuple[int, ...] = (),
+) -> Check:
+    label, _, _, advice = WORDING[name]
+    return Check(name, label, stat, p, flag, text, advice if flag else "", rows)
+
+
+def _judge(name: str, outcome: _Outcome, alpha: float) -> Check:
+    if isinstance(outcome, str):
+        return _check(name, False, outcome)
+    stat, p, nums = outcome
+    flag = p < alpha
+    sentence = WORDING[name][1 if flag else 2]
+    return _check(name, flag, f"{sentence} ({nums}).", stat, p=p)
+
+
+def _predictors(d: _Data) -> list[int]:
+    return [j for j in range(d.p) if j != d.icol]
+
+
+def _prepare(
+    X: FloatArray,
+    y: FloatArray,
+    resid: FloatArray,
+    fitted: FloatArray,
+    *,
+    terms: Sequence[str],
+    has_intercept: bool,
+    weights: FloatArray | None,
+) -> _Data:
+    X = np.asarray(X, dtype=np.float64)
+    y, e, f = (np.asarray(a, dtype=np.float64) for a in (y, resid, fitted))
+    n, p = X.shape
+    if len(terms) != p or not y.shape == e.shape == f.shape == (n,):
+        raise ValueError(f"shapes do not match: X {X.shape}, {len(terms)} terms, y {y.shape}")
+    s = np.ones(n) if weights is None else np.sqrt(np.asarray(weights, dtype=np.float64))
+    q, r = np.linalg.qr(X * s[:, None])
+    icol = None
+    if has_intercept and n > 0:
+        consts = [j for j in range(p) if X[0, j] != 0 and np.all(X[:, j] == X[0, j])]
+        icol = list(terms).index("Intercept") if "Intercept" in terms else (consts[0] if consts else None)
+    ew = e * s
+    ssr = float(ew @ ew)
+    why = None
+    if n <= p:
+        why = f"With {n} rows for {p} coefficients nothing is left over to judge the residuals."
+    elif not math.isfinite(ssr):
+        why = "Some residuals are not finite numbers, so they cannot be judged."
+    elif math.sqrt(ssr) <= _ZERO * float(np.linalg.norm(y * s)):
+        why = "The model passes through every point, so there is no scatter to examine."
+    return _Data(X, s, y * s, ew, f, q, r, icol, tuple(terms), n, p, n - p, ssr, why)
+
+
+def _independent_columns(Z: FloatArray) -> FloatArray:
+    """Drop columns that (nearly) repeat earlier ones, keeping the order."""
+    norms = np.linalg.norm(Z, axis=0)
+    diag = np.abs(np.diag(np.linalg.qr(Z / np.where(norms > 0, norms, 1.0), mode="r")))
+    return Z[:, diag > _RANK_TOL]
+
+
+def _constant_variance(d: _Data) -> _Outcome:
+    Z = _independent_columns(np.column_stack([np.ones(d.n), d.X[:, _predictors(d)]]))
+    if Z.shape[1] < 2:
+        return "There is no predictor for the scatter to change with."
+    if np.ptp(d.ew**2) == 0:
+        return "All residuals have the same size, so their scatter cannot change."
+    from statsmodels.stats.diagnostic import het_breuschpagan  # noqa: PLC0415 (slow import)
+
+    try:
+        with np.errstate(all="ignore"):  # an exact auxiliary fit divides by zero in the unused F value
+            lm, p = (float(v) for v in het_breuschpagan(d.ew, Z)[:2])
+    except (ValueError, np.linalg.LinAlgError) as exc:
+        return f"The Breusch–Pagan test could not be computed ({exc})."
+    if not (math.isfinite(lm) and math.isfinite(p)):
+        return "The Breusch–Pagan test gave no usable result for these data."
+    return lm, p, f"Breusch–Pagan LM = {_num(lm)}, {_p(p)}"
+
+
+def dw_moments(q: FloatArray, df_resid: int) -> tuple[float, float]:
+    """Exact mean and variance of the Durbin–Watson d under independent normal errors.
+
+    ``q`` is the thin Q factor of the design. With A the first-difference
+    matrix D'D and M = I − QQ', d = e'Ae / e'e has mean tr(MA)/ν and variance
+    2(ν tr((MA)²) − tr(MA)²) / (ν²(ν + 2)), ν = n − p; the traces take O(n p²).
+    """
+    n = q.shape[0]
+    dq = np.diff(q, axis=0)  # DQ
+    b = dq.T @ dq  # Q'AQ
+    aq = np.zeros_like(q)  # AQ = D'(DQ)
+    aq[1:] += dq
+    aq[:-1] -= dq
+    tr1 = 2.0 * (n - 1) - float(np.trace(b))
+    tr2 = 6.0 * n - 8.0 - 2.0 * float(np.sum(aq * aq)) + float(np.sum(b * b))
+    nu = float(df_resid)
+    return tr1 / nu, 2.0 * (nu * tr2 - tr1**2) / (nu**2 * (nu + 2.0))
+
+
+def _independence(d: _Data) -> _Outcome:
+    if d.df < 2:
+        return "Too few rows are left over to judge neighbouring residuals."
+    dw = float(np.sum(np.diff(d.ew) ** 2)) / d.ssr
+    lag1 = float(d.ew[1:] @ d.ew[:-1]) / d.ssr
+    mean, var = dw_moments(d.q, d.df)
+    m, v = mean / 4.0, var / 16.0
+    if not (0 < m < 1 and 0 < v < m * (1 - m)):
+        return f"Durbin–Watson d = {_num(dw)}, but no p-value can be given for this design."
+    a, b = m * (m * (1 - m) / v - 1), (1 - m) * (m * (1 - m) / v - 1)
+    tail = min(float(sps.beta.cdf(dw / 4, a, b)), float(sps.beta.sf(dw / 4, a, b)))
+    p = min(1.0, 2.0 * tail)
+    return dw, p, f"Durbin–Watson d = {_num(dw)}, lag-one correlation {_num(lag1)}, {_p(p)}"
+
+
+def _normality(d: _Data, shapiro: bool) -> _Outcome:
+    if np.ptp(d.ew) == 0:
+        return "All residuals are equal, so they have no shape to judge."
+    if not shapiro:
+        stat, p = (float(v) for v in sps.jarque_bera(d.ew))
+        return stat, p, f"Jarque–Bera = {_num(stat)}, {_p(p)}; a large-sample test"
+    if not 3 <= d.n <= SHAPIRO_MAX_ROWS:
+        return f"Shapiro–Wilk is computed for 3 to {SHAPIRO_MAX_ROWS:,} rows only, not {d.n:,}."
+    stat, p = (float(v) for v in sps.shapiro(d.ew))
+    return stat, p, f"Shapiro–Wilk W = {stat:.3f}, {_p(p)}"
+
+
+def _curvature(d: _Data) -> _Outcome:
+    z = d.fitted - np.mean(d.fitted) if d.icol is not None else d.fitted.copy()
+    scale = float(np.max(np.abs(z)))
+    if scale <= _ZERO * float(np.max(np.abs(d.fitted))):
+        return "The fitted values are all equal, so there is no bend to look for."
+    z /= scale  # powers of the centred, scaled fitted values span the same space with the design
+    A = np.column_stack([d.s * z**2, d.s * z**3])
+    W = A - d.q @ (d.q.T @ A)
+    W -= d.q @ (d.q.T @ W)  # second pass for accuracy
+    u, sv, _ = np.linalg.svd(W / np.linalg.norm(A, axis=0), full_matrices=False)
+    basis = u[:, sv > _RANK_TOL]
+    k = basis.shape[1]
+    if k == 0 or d.df - k < 1:
+        why = "too few distinct fitted values" if k == 0 else "too few rows"
+        return f"The curvature test needs more data than this fit has ({why})."
+    extra = float(np.sum((basis.T @ d.ew) ** 2))
+    rest = max(d.ssr - extra, 0.0)
+    stat = math.inf if rest == 0 else (extra / k) / (rest / (d.df - k))
+    p = 0.0 if rest == 0 else float(sps.f.sf(stat, k, d.df - k))
+    return stat, p, f"RESET F = {_num(stat)}, {_p(p)}"
+
+
+def _lack_of_fit(d: _Data) -> _Outcome:
+    pred = d.X[:, _predictors(d)]
+    if pred.shape[1] == 0:
+        return "There are no predictors, so there are no settings to repeat."
+    order = np.lexsort(pred.T[::-1])
+    step = np.any(np.diff(pred[order], axis=0) != 0, axis=1)
+    groups = np.empty(d.n, dtype=np.intp)
+    groups[order] = np.concatenate([[0], np.cumsum(step)])
+    m = int(groups.max()) + 1
+    df_pe, df_lof = d.n - m, m - d.p
+    if df_pe < 1:
+        return "No predictor setting is repeated, so there is no pure error to compare with."
+    if df_lof < 1:
+        return f"The model has as many coefficients as distinct settings ({m}), so there is nothing to test."
+    means = np.bincount(groups, d.s * d.yw, m) / np.bincount(groups, d.s * d.s, m)
+    dev = d.yw - d.s * means[groups]
+    ss_pe = float(dev @ dev)
+    if math.sqrt(ss_pe) <= _ZERO * float(np.linalg.norm(d.yw)):
+        return "Repeated measurements agree exactly, so there is no pure error to compare with."
+    stat = (max(d.ssr - ss_pe, 0.0) / df_lof) / (ss_pe / df_pe)
+    p = float(sps.f.sf(stat, df_lof, df_pe))
+    return stat, p, f"lack-of-fit F = {_num(stat)}, {_p(p)}, {m} distinct settings"
+
+
+def vif(X: FloatArray, intercept: int, weights: FloatArray | None = None) -> FloatArray:
+    """Variance inflation factor of every column but the intercept, in column order.
+
+    VIF_j = 1 / (1 − R_j²), the diagonal of the inverse correlation matrix of the
+    predictors after the intercept is taken out (weighted when weights are given).
+    """
+    s = np.ones(X.shape[0]) if weights is None else np.sqrt(np.asarray(weights, dtype=np.float64))
+    Xw = np.asarray(X, dtype=np.float64) * s[:, None]
+    c = Xw[:, intercept]
+    Z = np.delete(Xw, intercept, axis=1)
+    Z = Z - np.outer(c, (c @ Z) / (c @ c))
+    cross = Z.T @ Z
+    scale = np.sqrt(np.diag(cross))
+    if np.any(scale == 0):
+        return np.full(Z.shape[1], np.inf)
+    try:
+        return np.asarray(np.diag(np.linalg.inv(cross / np.outer(scale, scale))), dtype=np.float64)
+    except np.linalg.LinAlgError:
+        return np.full(Z.shape[1], np.inf)
+
+
+def _collinearity(d: _Data, weights: FloatArray | None) -> Check:
+    name = "collinearity"
+    pred = _predictors(d)
+    if len(pred) < 2:
+        return _check(name, False, "With fewer than two predictors there is nothing to overlap.")
+    norms = np.linalg.norm(d.r, axis=0)
+    sv = np.linalg.svd(d.r / np.where(norms > 0, norms, 1.0), compute_uv=False)
+    cond = float(sv[0] / sv[-1]) if sv[-1] > 0 else math.inf
+    if d.icol is None:
+        flag = cond > CONDITION_LIMIT
+        text = (
+            f"{WORDING[name][1 if flag else 2]}: the condition number of the scaled design is {_num(cond)}."
+        )
+        return _check(name, flag, text, cond)
+    factors = vif(d.X, d.icol, weights)
+    named = sorted(zip(factors.tolist(), (d.terms[j] for j in pred), strict=True), reverse=True)
+    high = [f"{t} {_num(v)}" for v, t in named if v > VIF_LIMIT]
+    vifs = ", ".join(high) if high else f"largest {_num(named[0][0])}"
+    text = f"{WORDING[name][1 if high else 2]} (variance inflation {vifs}; condition number {_num(cond)})."
+    return _check(name, bool(high), text, named[0][0])
+
+
+def _points(k: int, verb: str) -> str:
+    return f"one point {verb}s" if k == 1 else f"{k} points {verb}"
+
+
+def _influence(d: _Data, infl: Influence, alpha: float) -> Check:
+    name = "influence"
+    if len(infl.leverage) != d.n:
+        raise ValueError(f"influence has {len(infl.leverage)} rows, the data {d.n}")
+    if d.df < 1:
+        return _check(name, False, f"With {d.n} rows for {d.p} coefficients every point is fitted exactly.")
+    h, t, cooks = (
+        np.asarray(a, dtype=np.float64)
+        for a in (infl.leverage, infl.studentized_residual, infl.cooks_distance)
+    )
+    cut = float(sps.f.median(d.p, d.df))
+    t_cut = max(RESIDUAL_LIMIT, float(sps.t.isf(alpha / (2 * d.n), d.df - 1)) if d.df > 1 else 0.0)
+    one, far, strong = h > LEVERAGE_ONE, np.abs(t) > t_cut, cooks > cut
+    t_max = float(np.max(np.abs(t), where=~np.isnan(t), initial=0.0))
+    d_max = float(np.max(cooks, where=np.isfinite(cooks), initial=0.0))
+    stat = d_max if np.any(np.isfinite(cooks)) else None
+    limits = f"largest Cook's distance {_num(d_max)}, limit {_num(cut)}; "
+    limits += f"largest |studentized residual| {_num(t_max)}, limit {_num(t_cut)}"
+    parts = []
+    if k := int(one.sum()):
+        them = "it" if k == 1 else "them"
+        parts.append(
+            f"{_points(k, 'set')} a coefficient alone (leverage 1), so no other row can check {them}"
+        )
+    if k := int(far.sum()):
+        parts.append(f"{_points(k, 'lie')} far from the line through the other rows")
+    if k := int(strong.sum()):
+        parts.append(f"{_points(k, 'move')} the coefficients strongly")
+    if not parts:
+        return _check(name, False, f"{WORDING[name][2]} ({limits}).", stat)
+    text = "; ".join(parts)
+    rows = tuple(np.flatnonzero(one | far | strong).tolist())
+    return _check(name, True, f"{text[0].upper()}{text[1:]} ({limits}).", stat, rows=rows)
+
+
+def model_checks(
+    X: FloatArray,
+    y: FloatArray,
+    resid: FloatArray,
+    fitted: FloatArray,
+    *,
+    terms: Sequence[str],
+    has_intercept: bool,
+    infl: Influence,
+    alpha: float,
+    weights: FloatArray | None = None,
+) -> tuple[Check, ...]:
+    """Run every check on one fit, in a fixed order (see the module docstring).
+
+    ``terms`` names the columns of ``X``; the intercept column is the one named
+    ``Intercept`` or else a constant column. Raises ``ValueError`` only on
+    mismatched shapes, a programming error.
+    """
+    d = _prepare(X, y, resid, fitted, terms=terms, has_intercept=has_intercept, weights=weights)
+    tests: list[tuple[str, Callable[[_Data], _Outcome]]] = [
+        ("constant_variance", _constant_variance),
+        ("independence", _independence),
+        ("normality_shapiro", partial(_normality, shapiro=True)),
+        ("normality_jarque_bera", partial(_normality, shapiro=False)),
+        ("curvature", _curvature),
+        ("lack_of_fit", _lack_of_fit),
+    ]
+    judged = tuple(_judge(name, d.why_not or test(d), alpha) for name, test in tests)
+    return (*judged, _collinearity(d, weights), _influence(d, infl, alpha))

@@ -1,0 +1,198 @@
+"""Ordinary (and weighted) least squares with the inference a report needs.
+
+Estimates come from :mod:`sitegen.stats.solver` (extended precision); the
+t and F distributions from scipy. statsmodels is the independent reference in
+the tests, not the engine here, because its default solver loses digits on
+ill-conditioned designs (NIST StRD Filip).
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+from scipy import stats as sps
+
+from sitegen.errors import FitError
+from sitegen.stats.solver import LD, solve
+
+FloatArray = NDArray[np.float64]
+
+
+@dataclass(frozen=True, slots=True)
+class OlsFit:
+    """Estimates, their uncertainty and the per-observation quantities of one fit."""
+
+    terms: tuple[str, ...]
+    beta: FloatArray
+    std_error: FloatArray
+    t_stat: FloatArray
+    p_value: FloatArray
+    ci_low: FloatArray
+    ci_high: FloatArray
+    xtx_inv: FloatArray
+    n: int
+    df_model: int
+    df_resid: int
+    ssr: float
+    tss: float  # centred (uncentred without an intercept), weighted when weights are given
+    r_squared: float
+    adj_r_squared: float
+    sigma: float
+    f_stat: float
+    f_p_value: float
+    fitted: FloatArray
+    resid: FloatArray  # y − fitted, on the response's scale (unweighted)
+    leverage: FloatArray
+    q: FloatArray  # thin Q of the (weighted, scaled) design
+    effects: FloatArray  # Q'y: the sequential sums of squares are their squares
+    condition: float
+    level: float
+    t_crit: float
+    has_intercept: bool
+
+
+def _nan_div(a: float, b: float) -> float:
+    return a / b if b != 0 else float("nan")
+
+
+def fit_ols(
+    X: NDArray[np.longdouble],
+    y: NDArray[np.longdouble],
+    terms: tuple[str, ...],
+    *,
+    has_intercept: bool,
+    level: float,
+    weights: FloatArray | None = None,
+) -> OlsFit:
+    """Fit y = Xb + e by (weighted) least squares and compute the classical inference."""
+    n, p = X.shape
+    if n <= p:
+        raise FitError(
+            f"{n} usable row(s) for {p} coefficient(s): the fit needs more rows than coefficients "
+            "to estimate its uncertainty",
+            hint=f"add data (at least {p + 1} rows with all model columns present) or simplify the model",
+        )
+    if weights is not None:
+        if not bool(np.all(np.isfinite(weights))) or bool(np.any(weights <= 0)):
+            raise FitError("weights must be positive, finite numbers in every used row")
+        sw = np.sqrt(weights.astype(LD))
+        sol = solve(X * sw[:, None], y * sw, terms)
+    else:
+        sol = solve(X, y, terms)
+    beta = sol.beta
+    df_resid = n - p
+    df_model = p - 1 if has_intercept else p
+    yd = y.astype(float)
+    fitted = (X @ beta.astype(LD)).astype(float)
+    resid = (y - X @ beta.astype(LD)).astype(float)
+    ssr = sol.ssr
+    w = np.ones(n) if weights is None else weights
+    if has_intercept:
+        ybar = np.average(y, weights=w.astype(LD))
+        tss = float(np.sum(w.astype(LD) * (y - ybar) ** 2))
+    else:
+        tss = float(np.sum(w.astype(LD) * y * y))
+    sigma2 = ssr / df_resid
+    sigma = float(np.sqrt(sigma2))
+    se = np.sqrt(np.clip(np.diag(sol.xtx_inv) * sigma2, 0, None))
+    with np.errstate(divide="ignore", invalid="ignore"):
+        t_stat = np.where(se > 0, beta / se, np.where(beta == 0, np.nan, np.copysign(np.inf, beta)))
+    p_value = 2 * sps.t.sf(np.abs(t_stat), df_resid)
+    t_crit = float(sps.t.ppf(0.5 + level / 2, df_resid))
+    r2 = 1 - _nan_div(ssr, tss) if tss > 0 else float("nan")
+    dof_total = n - 1 if has_intercept else n
+    adj = 1 - (1 - r2) * dof_total / df_resid if tss > 0 else float("nan")
+    if df_model > 0 and ssr > 0:
+        f_stat = ((tss - ssr) / df_model) / sigma2
+        f_p = float(sps.f.sf(f_stat, df_model, df_resid))
+    elif df_model > 0 and tss > 0:
+        f_stat, f_p = float("inf"), 0.0
+    else:
+        f_stat, f_p = float("nan"), float("nan")
+    leverage = np.sum(sol.q * sol.q, axis=1)
+    return OlsFit(
+        terms=terms,
+        beta=beta,
+        std_error=se,
+        t_stat=t_stat,
+        p_value=p_value,
+        ci_low=beta - t_crit * se,
+        ci_high=beta + t_crit * se,
+        xtx_inv=sol.xtx_inv,
+        n=n,
+        df_model=df_model,
+        df_resid=df_resid,
+        ssr=ssr,
+        tss=tss,
+        r_squared=r2,
+        adj_r_squared=adj,
+        sigma=sigma,
+        f_stat=float(f_stat),
+        f_p_value=f_p,
+        fitted=fitted,
+        resid=resid if weights is None else yd - fitted,
+        leverage=leverage,
+        q=sol.q,
+        effects=sol.effects,
+        condition=sol.condition,
+        level=level,
+        t_crit=t_crit,
+        has_intercept=has_intercept,
+    )
+
+
+@dataclass(frozen=True, slots=True)
+class Bands:
+    """Confidence interval of the mean and prediction interval at given design rows."""
+
+    fit: FloatArray
+    se_mean: FloatArray
+    mean_low: FloatArray
+    mean_high: FloatArray
+    pred_low: FloatArray
+    pred_high: FloatArray
+
+
+def bands(fit: OlsFit, X_new: FloatArray, weights: FloatArray | None = None) -> Bands:
+    """Intervals at new (or observed) rows; ``weights`` scale the prediction variance (σ²/w)."""
+    yhat = X_new @ fit.beta
+    var_mean = np.einsum("ij,jk,ik->i", X_new, fit.xtx_inv, X_new) * fit.sigma**2
+    se_mean = np.sqrt(np.clip(var_mean, 0, None))
+    noise = fit.sigma**2 if weights is None else fit.sigma**2 / weights
+    se_pred = np.sqrt(var_mean + noise)
+    return Bands(
+        fit=yhat,
+        se_mean=se_mean,
+        mean_low=yhat - fit.t_crit * se_mean,
+        mean_high=yhat + fit.t_crit * se_mean,
+        pred_low=yhat - fit.t_crit * se_pred,
+        pred_high=yhat + fit.t_crit * se_pred,
+    )
+
+
+@dataclass(frozen=True, slots=True)
+class AnovaRow:
+    """One line of the sequential (type I) analysis-of-variance table."""
+
+    source: str
+    df: int
+    sum_sq: float
+    mean_sq: float
+    f_stat: float | None
+    p_value: float | None
+
+
+def anova_table(fit: OlsFit) -> tuple[AnovaRow, ...]:
+    """Sequential sums of squares from the QR effects, one row per term, then the residual."""
+    rows: list[AnovaRow] = []
+    sigma2 = fit.ssr / fit.df_resid
+    for term, effect in zip(fit.terms, fit.effects, strict=True):
+        if term == "Intercept" and fit.has_intercept:
+            continue
+        ss = float(effect * effect)
+        f = ss / sigma2 if sigma2 > 0 else float("inf")
+        rows.append(AnovaRow(term, 1, ss, ss, f, float(sps.f.sf(f, 1, fit.df_resid))))
+    rows.append(AnovaRow("Residual", fit.df_resid, fit.ssr, sigma2, None, None))
+    return tuple(rows)
