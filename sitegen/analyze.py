@@ -145,7 +145,9 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         f_p_value=fit.f_p_value,
         condition_number=fit.condition,
         coefficients=_coefficients(fit, pieces.robust_se),
-        anova=tuple(AnovaLine(a.source, a.df, a.sum_sq, a.mean_sq, a.f_stat, a.p_value) for a in anova_table(fit)),
+        anova=tuple(
+            AnovaLine(a.source, a.df, a.sum_sq, a.mean_sq, a.f_stat, a.p_value) for a in anova_table(fit)
+        ),
         messages=tuple(messages),
         diagnostics=pieces.diagnostics,
         flagged=pieces.flagged,
@@ -193,4 +195,3 @@ def _coefficients(fit: OlsFit, robust_se: NDArray[np.float64] | None) -> tuple[C
                         robust_p_value=float(2 * sps.t.sf(abs(t), fit.df_resid)))  # fmt: skip
         out.append(c)
     return tuple(out)
-

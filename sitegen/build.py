@@ -150,7 +150,9 @@ def _site_key(config: SiteConfig, theme_files: list[Path]) -> str:
     return h.hexdigest()
 
 
-def run_build(options: BuildOptions, progress: Progress | None = None, executor: Executor | None = None) -> BuildSummary:
+def run_build(
+    options: BuildOptions, progress: Progress | None = None, executor: Executor | None = None
+) -> BuildSummary:
     """Build the site; raises :class:`~sitegen.errors.ConfigError` when nothing may be written."""
     started = time.perf_counter()
     data_dir, out_dir = options.data_dir, options.out_dir
@@ -161,7 +163,9 @@ def run_build(options: BuildOptions, progress: Progress | None = None, executor:
     check_output_folder(data_dir, out_dir)
     config, warnings = read_site_config(data_dir / SITE_CONFIG_NAME)
     theme = load_theme(config.theme, data_dir.resolve())
-    theme_files = sorted(p for d in (*theme.template_dirs, *theme.static_dirs) for p in d.rglob("*") if p.is_file())
+    theme_files = sorted(
+        p for d in (*theme.template_dirs, *theme.static_dirs) for p in d.rglob("*") if p.is_file()
+    )
     sources = discover(data_dir)
     versions = library_versions(LIBRARIES)
     with build_folder(out_dir) as work:
@@ -190,13 +194,17 @@ def run_build(options: BuildOptions, progress: Progress | None = None, executor:
         ctx = pages.SiteContext(config, theme)
         entries = _render(work, ctx, sources, results, reports, prev, prints, site_key, reused)
         hist_warnings = history.write(work, ctx, reports, prev.site, results)
-        (work / "index.html").write_text(pages.render_index(ctx, reports, tag_blocks(reports)), encoding="utf-8")
+        (work / "index.html").write_text(
+            pages.render_index(ctx, reports, tag_blocks(reports)), encoding="utf-8"
+        )
         summary_files(work, reports)
         assets.write_bundle(work, prev.site)
         assets.write_static(work, theme)
         _write_build_json(work, entries, versions, site_key)
         swap_in(work, out_dir)
-    traces = tuple((s.relpath, results[s.slug].debug_trace or "") for s in sources if results[s.slug].debug_trace)
+    traces = tuple(
+        (s.relpath, results[s.slug].debug_trace or "") for s in sources if results[s.slug].debug_trace
+    )
     return BuildSummary(
         out_dir=out_dir,
         reports=reports,
@@ -237,15 +245,25 @@ def _render(
         prev_r = reports[i - 1] if i > 0 else None
         next_r = reports[i + 1] if i + 1 < len(reports) else None
         page_key = _sha256(
-            json.dumps([prints[src.slug][1], site_key, files, prev_r and [prev_r.dataset, prev_r.title],
-                        next_r and [next_r.dataset, next_r.title], report.status]).encode()  # fmt: skip
+            json.dumps(
+                [
+                    prints[src.slug][1],
+                    site_key,
+                    files,
+                    prev_r and [prev_r.dataset, prev_r.title],
+                    next_r and [next_r.dataset, next_r.title],
+                    report.status,
+                ]
+            ).encode()  # fmt: skip
         )
         old_entry = prev.entries.get(src.slug, {})
         old_page = old_folder / "index.html" if old_folder is not None else None
         if reused and old_page is not None and old_entry.get("page_key") == page_key and old_page.is_file():
             shutil.copyfile(old_page, folder / "index.html")
         else:
-            (folder / "index.html").write_text(pages.render_dataset(ctx, report, files, prev_r, next_r), "utf-8")
+            (folder / "index.html").write_text(
+                pages.render_dataset(ctx, report, files, prev_r, next_r), "utf-8"
+            )
         entries.append({"dataset": src.slug, "source": src.relpath, "input_sha256": prints[src.slug][0],
                         "fingerprint": prints[src.slug][1], "page_key": page_key,
                         "reused": reused,
@@ -262,7 +280,9 @@ def _copy_data_files(old: Path, new: Path) -> list[str]:
     return files
 
 
-def _write_build_json(work: Path, entries: list[dict[str, Any]], versions: dict[str, str], site_key: str) -> None:
+def _write_build_json(
+    work: Path, entries: list[dict[str, Any]], versions: dict[str, str], site_key: str
+) -> None:
     body = {
         "generator": "sitegen",
         "sitegen_version": __version__,

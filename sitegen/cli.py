@@ -71,8 +71,12 @@ def _parser() -> argparse.ArgumentParser:
     w = sub.add_parser("watch", help="rebuild whenever files in the data folder change")
     w.add_argument("data_dir", type=Path, metavar="DATA_DIR")
     w.add_argument("-o", "--output", type=Path, required=True, metavar="SITE_DIR", dest="out_dir")
-    w.add_argument("--interval", type=float, default=1.0, help="seconds between looks at the folder (default 1)")
-    w.add_argument("--settle", type=float, default=1.5, help="quiet seconds before a rebuild starts (default 1.5)")
+    w.add_argument(
+        "--interval", type=float, default=1.0, help="seconds between looks at the folder (default 1)"
+    )
+    w.add_argument(
+        "--settle", type=float, default=1.5, help="quiet seconds before a rebuild starts (default 1.5)"
+    )
     w.add_argument("--max-builds", type=int, default=None, help=argparse.SUPPRESS)
     _common_build_options(w)
     k = sub.add_parser("pack", help="zip a built site for e-mail or a file share")
@@ -83,7 +87,9 @@ def _parser() -> argparse.ArgumentParser:
                         f"else {DEFAULT_MAIL_BUDGET_MB:g})")  # fmt: skip
     v = sub.add_parser("preview", help="serve a built site on http://127.0.0.1 for a quick look")
     v.add_argument("site_dir", type=Path, metavar="SITE_DIR")
-    v.add_argument("--port", type=int, default=8000, help="port to listen on (default 8000; 0 picks a free one)")
+    v.add_argument(
+        "--port", type=int, default=8000, help="port to listen on (default 8000; 0 picks a free one)"
+    )
     return p
 
 
@@ -99,7 +105,9 @@ def _build(args: argparse.Namespace, out: _Printer) -> int:
 
     if args.jobs is not None and args.jobs < 1:
         raise ConfigError("--jobs must be at least 1")
-    summary = run_build(BuildOptions(args.data_dir, args.out_dir, args.jobs, args.refit), progress=out.progress)
+    summary = run_build(
+        BuildOptions(args.data_dir, args.out_dir, args.jobs, args.refit), progress=out.progress
+    )
     for w in summary.warnings:
         out.warn(w)
     for r in summary.reports:
@@ -199,7 +207,9 @@ def main(argv: Sequence[str] | None = None, stream: TextIO | None = None) -> int
     except Exception:  # noqa: BLE001 - the last line of defence: no traceback unless asked
         if getattr(args, "debug", False):
             traceback.print_exc(file=stream)
-        out.error("sitegen hit an internal error and wrote nothing; run again with --debug and report the output")
+        out.error(
+            "sitegen hit an internal error and wrote nothing; run again with --debug and report the output"
+        )
         return EXIT_NOTHING_WRITTEN
 
 

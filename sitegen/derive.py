@@ -89,7 +89,12 @@ def _in_rhs(design: Design, var: str) -> bool:
 def straight_line(design: Design) -> str | None:
     """The predictor of a plain ``y ~ x`` model (intercept and one untransformed column)."""
     x = single_predictor(design)
-    if x is not None and design.has_intercept and len(design.terms) == 2 and design.terms[1] in (x, f"Q('{x}')"):
+    if (
+        x is not None
+        and design.has_intercept
+        and len(design.terms) == 2
+        and design.terms[1] in (x, f"Q('{x}')")
+    ):
         return x
     return None
 
@@ -104,8 +109,16 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
     checks = model_checks(Xw, design.y * sw, fit.resid * sw, fit.fitted * sw, terms=fit.terms,
                           has_intercept=fit.has_intercept, infl=infl, alpha=1 - fit.level)  # fmt: skip
     diagnostics = tuple(
-        Diagnostic(c.check, c.label, c.statistic, c.p_value, c.flag, c.text, c.advice,
-                   tuple(int(design.rows[i]) for i in c.rows))  # fmt: skip
+        Diagnostic(
+            c.check,
+            c.label,
+            c.statistic,
+            c.p_value,
+            c.flag,
+            c.text,
+            c.advice,
+            tuple(int(design.rows[i]) for i in c.rows),
+        )  # fmt: skip
         for c in checks
     )
     for d in diagnostics:
@@ -132,8 +145,12 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
         messages=messages,
         diagnostics=diagnostics,
         flagged=_flagged(design, infl, flags),
-        cutoffs=(("leverage", flags.leverage_cutoff), ("studentized_residual", flags.residual_cutoff),
-                 ("cooks_distance", flags.cooks_cutoff), ("dffits", flags.dffits_cutoff)),  # fmt: skip
+        cutoffs=(
+            ("leverage", flags.leverage_cutoff),
+            ("studentized_residual", flags.residual_cutoff),
+            ("cooks_distance", flags.cooks_cutoff),
+            ("dffits", flags.dffits_cutoff),
+        ),  # fmt: skip
         robust_se=robust_se,
         claims=tuple(claims),
         lines=lines,
@@ -164,8 +181,14 @@ def _reasons(flags: PointFlags, i: int) -> tuple[str, ...]:
 
 def _flagged(design: Design, infl: Influence, flags: PointFlags) -> tuple[FlaggedPoint, ...]:
     return tuple(
-        FlaggedPoint(int(design.rows[i]), _reasons(flags, i), infl.leverage[i], infl.studentized_residual[i],
-                     infl.cooks_distance[i], infl.dffits[i])  # fmt: skip
+        FlaggedPoint(
+            int(design.rows[i]),
+            _reasons(flags, i),
+            infl.leverage[i],
+            infl.studentized_residual[i],
+            infl.cooks_distance[i],
+            infl.dffits[i],
+        )  # fmt: skip
         for i in flags.rows
     )
 
@@ -181,7 +204,9 @@ def _lines(
         return (), ""
     x = design.X[:, 1]
     try:
-        found = alternative_lines(x, design.y, ("ols", *spec.lines), error_ratio=spec.error_ratio, level=fit.level)
+        found = alternative_lines(
+            x, design.y, ("ols", *spec.lines), error_ratio=spec.error_ratio, level=fit.level
+        )
     except (FitError, ValueError) as exc:
         messages.append(Message("warning", f"alternative lines could not be computed: {exc}"))
         return (), ""
@@ -219,7 +244,9 @@ def _calibration(
     return cal, DetectionLimits(lim.lod, lim.loq, lim.convention, lim.basis)
 
 
-def _predictions(design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[Message]) -> tuple[Prediction, ...]:
+def _predictions(
+    design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[Message]
+) -> tuple[Prediction, ...]:
     if not spec.predict_at:
         return ()
     first = spec.predict_at[0]
@@ -279,7 +306,7 @@ def _chart_sample(n: int, flagged_rows: tuple[int, ...]) -> tuple[NDArray[np.int
         return np.arange(n), False
     rng = np.random.default_rng(20240611)
     pick = rng.choice(n, size=SAMPLE_POINTS, replace=False)
-    flagged = np.asarray(flagged_rows[:MAX_CHART_POINTS - SAMPLE_POINTS], dtype=np.intp)
+    flagged = np.asarray(flagged_rows[: MAX_CHART_POINTS - SAMPLE_POINTS], dtype=np.intp)
     return np.unique(np.concatenate([pick, flagged])), True
 
 

@@ -105,7 +105,9 @@ class _FactorChecker(ast.NodeVisitor):
             pass
         else:
             allowed = ", ".join(sorted(f"np.{f}" for f in SAFE_FUNCTIONS))
-            raise FormulaError(f"function '{ast.unparse(func)}' is not allowed in a model formula (use {allowed})")
+            raise FormulaError(
+                f"function '{ast.unparse(func)}' is not allowed in a model formula (use {allowed})"
+            )
         for arg in node.args:
             self.visit(arg)
 
@@ -128,7 +130,9 @@ def _factor_codes(formula: str) -> tuple[list[str], list[str], bool]:
     import patsy  # noqa: PLC0415 - patsy is only needed once a dataset is fitted
 
     if "~" not in formula:
-        raise FormulaError(f"model {formula!r} has no '~'", hint='write it as "response ~ predictors", e.g. "y ~ x"')
+        raise FormulaError(
+            f"model {formula!r} has no '~'", hint='write it as "response ~ predictors", e.g. "y ~ x"'
+        )
     try:
         desc = patsy.ModelDesc.from_formula(formula)
     except patsy.PatsyError as exc:
@@ -195,9 +199,7 @@ def numeric_columns(frame: pd.DataFrame, columns: list[str], name: str) -> tuple
     return pd.DataFrame(out, index=frame.index), notes
 
 
-def build_design(
-    formula: str, frame: pd.DataFrame, name: str, extra: tuple[str, ...] = ()
-) -> Design:
+def build_design(formula: str, frame: pd.DataFrame, name: str, extra: tuple[str, ...] = ()) -> Design:
     """Turn the table into a design matrix, leaving out rows with missing or non-finite values."""
     import patsy  # noqa: PLC0415
 
@@ -207,7 +209,9 @@ def build_design(
     numeric, _ = numeric_columns(frame, list(used), name)
     for col in extra:
         if col not in columns:
-            raise FormulaError(f"column {col!r} is not in the data", hint=f"available columns: {', '.join(columns)}")
+            raise FormulaError(
+                f"column {col!r} is not in the data", hint=f"available columns: {', '.join(columns)}"
+            )
     dropped: list[tuple[int, str]] = []
     finite = np.isfinite(numeric.to_numpy(dtype=float)).all(axis=1)
     extra_ok = frame[list(extra)].notna().all(axis=1).to_numpy() if extra else np.ones(len(frame), bool)
@@ -225,20 +229,26 @@ def build_design(
     env = patsy.EvalEnvironment([{"np": np, "numpy": np} | {f: getattr(np, f) for f in SAFE_FUNCTIONS}])
     try:
         with np.errstate(all="ignore"):
-            y_df, x_df = patsy.dmatrices(formula, data, eval_env=env, return_type="dataframe", NA_action="raise")
+            y_df, x_df = patsy.dmatrices(
+                formula, data, eval_env=env, return_type="dataframe", NA_action="raise"
+            )
     except patsy.PatsyError as exc:
         raise FormulaError(f"model {formula!r} cannot be applied to the data: {_patsy_message(exc)}") from exc
     except (ValueError, TypeError, ArithmeticError) as exc:
         raise FormulaError(f"model {formula!r} cannot be evaluated: {exc}") from exc
     if y_df.shape[1] != 1:
-        raise FormulaError(f"model {formula!r} must have exactly one numeric response column on the left of '~'")
+        raise FormulaError(
+            f"model {formula!r} must have exactly one numeric response column on the left of '~'"
+        )
     y = y_df.to_numpy(dtype=float)[:, 0]
     X = x_df.to_numpy(dtype=float)
     ok = np.isfinite(y) & np.isfinite(X).all(axis=1)
     rows = np.asarray(x_df.index, dtype=np.int64)
     if not bool(ok.all()):
         for row in rows[~ok]:
-            dropped.append((int(row), "the model's transformation is undefined here (e.g. log of a value ≤ 0)"))
+            dropped.append(
+                (int(row), "the model's transformation is undefined here (e.g. log of a value ≤ 0)")
+            )
         X, y, rows = X[ok], y[ok], rows[ok]
         data = data.loc[rows]
     X_ext, y_ext = _extended(x_df.design_info, y_df.design_info, data, X, y)
@@ -289,12 +299,23 @@ def _extended(
     stateful transform, or when the two evaluations disagree beyond rounding.
     """
     fallback = X.astype(np.longdouble), y.astype(np.longdouble)
-    codes = [f.code for t in x_info.terms for f in t.factors] + [f.code for t in y_info.terms for f in t.factors]
+    codes = [f.code for t in x_info.terms for f in t.factors] + [
+        f.code for t in y_info.terms for f in t.factors
+    ]
     if any(s in code for code in codes for s in _STATEFUL) or X.shape[1] != len(x_info.terms):
         return fallback
-    namespace: dict[str, Any] = {c: data[c].to_numpy(dtype=np.longdouble) for c in data.columns
-                                 if pd.api.types.is_numeric_dtype(data[c])}
-    namespace |= {"np": np, "numpy": np, "I": lambda v: v, "Q": lambda name: namespace[name], "__rows__": data.index}
+    namespace: dict[str, Any] = {
+        c: data[c].to_numpy(dtype=np.longdouble)
+        for c in data.columns
+        if pd.api.types.is_numeric_dtype(data[c])
+    }
+    namespace |= {
+        "np": np,
+        "numpy": np,
+        "I": lambda v: v,
+        "Q": lambda name: namespace[name],
+        "__rows__": data.index,
+    }
     namespace |= {f: getattr(np, f) for f in SAFE_FUNCTIONS}
     try:
         with np.errstate(all="ignore"):

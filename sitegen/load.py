@@ -98,7 +98,9 @@ def read_table(raw: bytes, spec: DatasetSpec, limits: Limits, name: str) -> Load
     """Parse CSV bytes into a :class:`LoadedTable` or raise a :class:`DataFileError`."""
     _check_limits(raw, limits, name)
     if not raw.strip():
-        raise DataFileError(f"{name} is empty", hint="export the data again; a header row and data rows are needed")
+        raise DataFileError(
+            f"{name} is empty", hint="export the data again; a header row and data rows are needed"
+        )
     if b"\x00" in raw[:4096]:
         raise DataFileError(
             f"{name} is not a text file (it contains NUL bytes)",
@@ -111,7 +113,9 @@ def read_table(raw: bytes, spec: DatasetSpec, limits: Limits, name: str) -> Load
         notes.append(f"columns are separated by a {_DELIM_NAMES.get(delimiter, repr(delimiter))} (detected)")
     if spec.decimal == "." and _looks_like_decimal_comma(head, delimiter):
         decimal = ","
-        notes.append('numbers use a decimal comma (detected); set decimal = "," in the sidecar to make it explicit')
+        notes.append(
+            'numbers use a decimal comma (detected); set decimal = "," in the sidecar to make it explicit'
+        )
     header = _header(head, delimiter, name)
     _check_header(header, name, limits)
     frame = _parse(raw, delimiter, decimal, encoding, name)
@@ -123,7 +127,9 @@ def read_table(raw: bytes, spec: DatasetSpec, limits: Limits, name: str) -> Load
             hint="raise [limits] max_rows in site.toml if this size is expected",
         )
     frame.index = pd.RangeIndex(1, len(frame) + 1)
-    return LoadedTable(frame=frame, delimiter=delimiter, decimal=decimal, encoding=encoding, notes=tuple(notes))
+    return LoadedTable(
+        frame=frame, delimiter=delimiter, decimal=decimal, encoding=encoding, notes=tuple(notes)
+    )
 
 
 def _header(head: str, delimiter: str, name: str) -> list[str]:
@@ -150,7 +156,9 @@ def _check_header(header: list[str], name: str, limits: Limits) -> None:
         )
     blanks = [i + 1 for i, h in enumerate(cleaned) if not h]
     if blanks:
-        raise DataFileError(f"{name}: column {blanks[0]} of the header has no name", hint="give every column a name")
+        raise DataFileError(
+            f"{name}: column {blanks[0]} of the header has no name", hint="give every column a name"
+        )
     seen: dict[str, int] = {}
     for i, h in enumerate(cleaned, start=1):
         if h in seen:

@@ -289,7 +289,9 @@ def _decode(tp: Any, value: object) -> Any:  # noqa: C901, PLR0912 - one branch 
     if dataclasses.is_dataclass(tp) and isinstance(tp, type):
         assert isinstance(value, dict)
         hints = typing.get_type_hints(tp)
-        kwargs = {f.name: _decode(hints[f.name], value[f.name]) for f in dataclasses.fields(tp) if f.name in value}
+        kwargs = {
+            f.name: _decode(hints[f.name], value[f.name]) for f in dataclasses.fields(tp) if f.name in value
+        }
         return tp(**kwargs)
     if tp is typing.Any or tp is object:
         return value

@@ -216,7 +216,9 @@ def _read_toml(path: Path) -> dict[str, Any]:
         raise ValueError(f"is not valid TOML: {exc}") from exc
 
 
-def validate_keys(table: Mapping[str, object], where: str) -> tuple[dict[str, Any], list[tuple[str, str | None]]]:
+def validate_keys(
+    table: Mapping[str, object], where: str
+) -> tuple[dict[str, Any], list[tuple[str, str | None]]]:
     """Validate sidecar-style keys; returns (clean values, unknown keys with suggestions)."""
     clean: dict[str, Any] = {}
     unknown: list[tuple[str, str | None]] = []
@@ -341,7 +343,9 @@ def _read_limits(table: object) -> Limits:
     for key in table:
         if key not in _LIMIT_KEYS:
             hint = _closest(key, _LIMIT_KEYS)
-            raise _site_error(f"[limits] has unknown key '{key}'" + (f"; did you mean '{hint}'?" if hint else ""))
+            raise _site_error(
+                f"[limits] has unknown key '{key}'" + (f"; did you mean '{hint}'?" if hint else "")
+            )
     out: dict[str, Any] = {}
     for key in ("max_rows", "max_columns"):
         if key in table:

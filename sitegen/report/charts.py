@@ -37,8 +37,11 @@ def _tooltip(alt: Any, fields: Sequence[tuple[str, str]]) -> list[Any]:
 
 def _kind_encodings(alt: Any) -> dict[str, Any]:
     return {
-        "shape": alt.Shape("kind:N", title="Point", scale=alt.Scale(domain=["ordinary", "flagged"],
-                                                                    range=["circle", "triangle-up"])),  # fmt: skip
+        "shape": alt.Shape(
+            "kind:N",
+            title="Point",
+            scale=alt.Scale(domain=["ordinary", "flagged"], range=["circle", "triangle-up"]),
+        ),  # fmt: skip
         "color": alt.Color("series:N", title="Series", legend=alt.Legend(orient="bottom", columns=3)),
     }
 
@@ -157,8 +160,16 @@ def compiled(kind: str) -> Spec:
 
     spec: Spec = _BUILDERS[kind](alt).to_dict(validate=False)
     spec.pop("config", None)
+    _container_width(spec)
     spec["autosize"] = {"type": "fit-x", "contains": "padding"}
     return spec
+
+
+def _container_width(spec: Spec) -> None:
+    """Charts take the width of their figure; heights stay fixed."""
+    for node in (spec, *spec.get("layer", [])):
+        if "width" in node:
+            node["width"] = "container"
 
 
 def _replace_titles(node: Any, titles: dict[str, str]) -> Any:
@@ -171,13 +182,23 @@ def _replace_titles(node: Any, titles: dict[str, str]) -> Any:
     return node
 
 
-def fill(kind: str, datasets: dict[str, list[dict[str, Any]]], *, x_title: str = "", y_title: str = "") -> Spec:
+def fill(
+    kind: str, datasets: dict[str, list[dict[str, Any]]], *, x_title: str = "", y_title: str = ""
+) -> Spec:
     """A copy of a compiled chart with this dataset's numbers and titles."""
     spec = _replace_titles(copy.deepcopy(compiled(kind)), {X_TITLE: x_title, Y_TITLE: y_title})
     assert isinstance(spec, dict)
     names = _data_names(spec)
     spec["datasets"] = {name: datasets.get(name, []) for name in sorted(names)}
+    if "layer" in spec:  # drop layers with nothing to draw (no density, no extra lines, …)
+        spec["layer"] = [ly for ly in spec["layer"] if not _empty_layer(ly, spec["datasets"])]
+        spec["datasets"] = {k: v for k, v in spec["datasets"].items() if k in _data_names(spec["layer"])}
     return spec
+
+
+def _empty_layer(layer: Spec, datasets: dict[str, list[dict[str, Any]]]) -> bool:
+    data = layer.get("data")
+    return isinstance(data, dict) and "name" in data and not datasets.get(str(data["name"]))
 
 
 def _data_names(node: Any) -> set[str]:
@@ -234,13 +255,21 @@ def dataset_charts(report: FitReport) -> dict[str, Spec]:
     return out
 
 
+SHORT_LINE_LABELS = {
+    "reverse": "x on y (reverse)",
+    "orthogonal": "perpendicular (orthogonal)",
+    "deming": "Deming",
+    "geometric_mean": "geometric mean",
+}
+
+
 def _line_records(report: FitReport, chart: ChartData) -> list[dict[str, Any]]:
     xs = [r[0] for r in chart.band if r[0] is not None]
     if not xs:
         return []
     x0, x1 = min(xs), max(xs)
     out = [
-        {"label": ln.label, "x": x, "y": ln.intercept + ln.slope * x}
+        {"label": SHORT_LINE_LABELS.get(ln.method, ln.method), "x": x, "y": ln.intercept + ln.slope * x}
         for ln in report.lines if ln.method != "ols" for x in (x0, x1)
     ]  # fmt: skip
     if report.groups is not None:

@@ -64,7 +64,9 @@ def summary_files(work: Path, reports: Sequence[FitReport]) -> None:
     (work / "summary.json").write_text(text + "\n", encoding="utf-8")
 
 
-def _table(folder: Path, name: str, columns: Sequence[str], rows: Sequence[Sequence[Any]], xlsx: bool) -> list[str]:
+def _table(
+    folder: Path, name: str, columns: Sequence[str], rows: Sequence[Sequence[Any]], xlsx: bool
+) -> list[str]:
     frame = frame_from_rows(columns, rows)
     (folder / f"{name}.csv").write_bytes(to_csv_bytes(frame))
     out = [f"{name}.csv"]
@@ -92,7 +94,9 @@ def dataset_files(
     coef_rows = [[getattr(c, k) for k in COEFFICIENT_COLUMNS] for c in r.coefficients]
     extra = ("robust_std_error", "robust_ci_low", "robust_ci_high", "robust_p_value")
     if r.coefficients and r.coefficients[0].robust_std_error is not None:
-        coef_rows = [row + [getattr(c, k) for k in extra] for row, c in zip(coef_rows, r.coefficients, strict=True)]
+        coef_rows = [
+            row + [getattr(c, k) for k in extra] for row, c in zip(coef_rows, r.coefficients, strict=True)
+        ]
         files += _table(folder, "coefficients", COEFFICIENT_COLUMNS + extra, coef_rows, True)
     else:
         files += _table(folder, "coefficients", COEFFICIENT_COLUMNS, coef_rows, True)
@@ -104,7 +108,9 @@ def dataset_files(
         files += _table(folder, "lines", cols, [[getattr(ln, c) for c in cols] for ln in r.lines], True)
     if r.calibration:
         cols = ("response", "estimate", "std_error", "ci_low", "ci_high", "readings", "method", "bounded")
-        files += _table(folder, "calibration", cols, [[getattr(c, k) for k in cols] for c in r.calibration], True)
+        files += _table(
+            folder, "calibration", cols, [[getattr(c, k) for k in cols] for c in r.calibration], True
+        )
     if r.predictions:
         names = sorted({k for p in r.predictions for k, _ in p.at})
         cols = ("fitted", "std_error", "mean_ci_low", "mean_ci_high", "pred_low", "pred_high")

@@ -107,4 +107,6 @@ def _fix_zip_times(data: bytes) -> bytes:
 def _strip_core_dates(body: bytes) -> bytes:
     import re  # noqa: PLC0415
 
-    return re.sub(rb"(<dcterms:(created|modified)[^>]*>)[^<]*(</dcterms:\2>)", rb"\g<1>2000-01-01T00:00:00Z\g<3>", body)
+    return re.sub(
+        rb"(<dcterms:(created|modified)[^>]*>)[^<]*(</dcterms:\2>)", rb"\g<1>2000-01-01T00:00:00Z\g<3>", body
+    )

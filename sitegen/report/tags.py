@@ -25,7 +25,11 @@ def tag_blocks(reports: Sequence[FitReport]) -> list[dict[str, Any]]:
                 rows.append({"label": r.title, "estimate": c.estimate, "low": c.ci_low, "high": c.ci_high,
                              "status": r.status, "term": c.term, "se": c.std_error})  # fmt: skip
         terms = sorted({row["term"] for row in rows})
-        forest = charts.forest_chart(rows, terms[0] if len(terms) == 1 else "estimate of each dataset's term") if rows else None
+        forest = (
+            charts.forest_chart(rows, terms[0] if len(terms) == 1 else "estimate of each dataset's term")
+            if rows
+            else None
+        )
         test = ""
         if len(rows) >= 2 and len(terms) == 1:
             h = homogeneity([r["estimate"] for r in rows], [r["se"] for r in rows])

@@ -28,7 +28,7 @@ def test_claim(fit: OlsFit, design_info: Any, claim: str) -> ClaimTest:
         names = ", ".join(fit.terms)
         raise FormulaError(
             f"claim {claim!r} cannot be read: {' '.join(str(exc).split())[:200]}",
-            hint=f"write it like \"x = 1\" or \"x = 1, Intercept = 0\" using the terms {names}",
+            hint=f'write it like "x = 1" or "x = 1, Intercept = 0" using the terms {names}',
         ) from exc
     R = np.asarray(constraint.coefs, dtype=float)
     q = np.asarray(constraint.constants, dtype=float).ravel()
@@ -45,7 +45,9 @@ def test_claim(fit: OlsFit, design_info: Any, claim: str) -> ClaimTest:
         try:
             stat = float(diff @ np.linalg.solve(cov, diff) / k)
         except np.linalg.LinAlgError:
-            raise FormulaError(f"claim {claim!r} repeats or contradicts itself; its restrictions are dependent") from None
+            raise FormulaError(
+                f"claim {claim!r} repeats or contradicts itself; its restrictions are dependent"
+            ) from None
         p = float(sps.f.sf(stat, k, fit.df_resid))
         test, df_num = "F", k
     rejected = p < alpha

@@ -26,13 +26,17 @@ def compare_groups(
     if len(names) < 2:
         raise FitError(f"group column {column!r} has only one value, so there is nothing to compare")
     if len(names) > 50:
-        raise FitError(f"group column {column!r} has {len(names)} different values; at most 50 groups are drawn")
+        raise FitError(
+            f"group column {column!r} has {len(names)} different values; at most 50 groups are drawn"
+        )
     lines = []
     for name in names:
         mask = labels == name
         n = int(mask.sum())
         if n < 3 or np.ptp(x[mask]) == 0:
-            raise FitError(f"group {name!r} of column {column!r} needs at least 3 rows with different x values")
+            raise FitError(
+                f"group {name!r} of column {column!r} needs at least 3 rows with different x values"
+            )
         X = np.column_stack([np.ones(n), x[mask]]).astype(LD)
         f = fit_ols(X, y[mask].astype(LD), ("Intercept", "x"), has_intercept=True, level=level)
         lines.append(
@@ -55,7 +59,9 @@ def compare_groups(
     if not np.isfinite(p):
         conclusion = "The lines fit their groups exactly, so the slopes cannot be compared statistically."
     elif p < 1 - level:
-        conclusion = f"The slopes differ between the groups at the {pct} level (p = {p:.3g}): use one line per group."
+        conclusion = (
+            f"The slopes differ between the groups at the {pct} level (p = {p:.3g}): use one line per group."
+        )
     else:
         conclusion = (
             f"The data do not show different slopes at the {pct} level (p = {p:.3g}); "

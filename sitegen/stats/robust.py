@@ -11,7 +11,10 @@ from numpy.typing import NDArray
 
 
 def hc3_cov(
-    X: NDArray[np.float64], resid: NDArray[np.float64], leverage: NDArray[np.float64], xtx_inv: NDArray[np.float64]
+    X: NDArray[np.float64],
+    resid: NDArray[np.float64],
+    leverage: NDArray[np.float64],
+    xtx_inv: NDArray[np.float64],
 ) -> NDArray[np.float64]:
     """HC3 covariance of the coefficients; rows with leverage 1 contribute nothing."""
     with np.errstate(divide="ignore", invalid="ignore"):

@@ -79,7 +79,7 @@ def _forward_substitute_transposed(R: LDArray, g: LDArray) -> LDArray:
     p = R.shape[0]
     h = np.zeros(p, dtype=R.dtype)
     for i in range(p):
-        h[i] = (g[i] - np.dot(R[: i, i], h[: i])) / R[i, i]
+        h[i] = (g[i] - np.dot(R[:i, i], h[:i])) / R[i, i]
     return h
 
 
