@@ -106,8 +106,17 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
     flags = flag_points(infl, fit.n, len(fit.terms))
     sw = np.ones(fit.n) if weights is None else np.sqrt(weights)
     Xw = design.X * sw[:, None]
-    checks = model_checks(Xw, design.y * sw, fit.resid * sw, fit.fitted * sw, terms=fit.terms,
-                          has_intercept=fit.has_intercept, infl=infl, alpha=1 - fit.level)  # fmt: skip
+    checks = model_checks(
+        design.X,
+        design.y,
+        fit.resid,
+        fit.fitted,
+        terms=fit.terms,
+        has_intercept=fit.has_intercept,
+        infl=infl,
+        alpha=1 - fit.level,
+        weights=weights,
+    )
     diagnostics = tuple(
         Diagnostic(
             c.check,
