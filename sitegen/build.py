@@ -4,32 +4,40 @@ Data flows one way. The previous site is read only for what it can save:
 stored results whose fingerprint still matches (no refit), pages whose inputs
 did not change (no re-render), the chart bundle, and the history of estimates.
 A missing or corrupt previous site only means more work, never an error.
+
+Work runs through the executor seam twice: fitting each dataset and writing its
+tables, then rendering the pages whose inputs changed. When nothing at all
+changed, only ``build.json`` is rewritten (atomically).
+
+Heavy libraries are imported inside the functions that need them, so that a
+rebuild with nothing to do stays fast.
 """
 
 from __future__ import annotations
 
 import hashlib
 import json
+import os
 import shutil
 import time
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from importlib import metadata
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from sitegen import __version__
-from sitegen.analyze import DatasetResult, FitTask, analyze
 from sitegen.discover import SITE_CONFIG_NAME, DatasetSource, discover
+from sitegen.errors import ConfigError
 from sitegen.executor import Executor, make_executor
-from sitegen.model import FitReport, from_json, to_json
 from sitegen.publish import build_folder, check_output_folder, swap_in
-from sitegen.report import assets, history, pages
-from sitegen.report.files import dataset_files, summary_files
-from sitegen.report.tags import tag_blocks
-from sitegen.report.theme import load_theme
-from sitegen.spec import SiteConfig, read_site_config
+from sitegen.report.theme import Theme, load_theme
+from sitegen.spec import Limits, SiteConfig, read_site_config
+
+if TYPE_CHECKING:
+    from sitegen.model import FitReport
+    from sitegen.report.pages import SiteContext
 
 LIBRARIES = ("numpy", "scipy", "pandas", "patsy", "statsmodels")
 RENDER_LIBRARIES = ("altair", "jinja2", "markdown-it-py", "vl-convert-python", "openpyxl")
@@ -47,11 +55,21 @@ class BuildOptions:
 
 
 @dataclass(frozen=True, slots=True)
+class Outcome:
+    """One dataset's result as the CLI reports it."""
+
+    dataset: str
+    source: str
+    status: str
+    message: str
+
+
+@dataclass(frozen=True, slots=True)
 class BuildSummary:
     """What a build did, for the CLI's closing line and exit status."""
 
     out_dir: Path
-    reports: tuple[FitReport, ...]
+    outcomes: tuple[Outcome, ...]
     fitted: int
     reused: int
     seconds: float
@@ -60,11 +78,11 @@ class BuildSummary:
 
     @property
     def errors(self) -> int:
-        return sum(1 for r in self.reports if r.status == "error")
+        return sum(1 for o in self.outcomes if o.status == "error")
 
     @property
     def warned(self) -> int:
-        return sum(1 for r in self.reports if r.status == "warn")
+        return sum(1 for o in self.outcomes if o.status == "warn")
 
 
 def library_versions(names: Sequence[str]) -> dict[str, str]:
@@ -101,6 +119,7 @@ def _fingerprint(src: DatasetSource, config: SiteConfig, versions: dict[str, str
             "defaults": [[k, v] for k, v in config.defaults],
             "limits": [config.limits.max_megabytes, config.limits.max_rows, config.limits.max_columns],
             "path": [src.relpath, src.slug, src.section],
+            "offer_source": config.offer_source,
             "sitegen": __version__,
             "libraries": versions,
         },
@@ -110,6 +129,19 @@ def _fingerprint(src: DatasetSource, config: SiteConfig, versions: dict[str, str
     return csv_sha, _sha256(payload.encode())
 
 
+def _site_key(config: SiteConfig, theme: Theme) -> str:
+    """Fingerprint of everything besides a dataset's own inputs that shapes its page."""
+    h = hashlib.sha256(repr(config).encode())
+    h.update(__version__.encode())
+    h.update(json.dumps(library_versions(RENDER_LIBRARIES), sort_keys=True).encode())
+    for folder in (*theme.template_dirs, *theme.static_dirs):
+        for path in sorted(p for p in folder.rglob("*") if p.is_file()):
+            h.update(path.relative_to(folder).as_posix().encode())
+            h.update(path.read_bytes())
+    h.update(theme.charts_json.encode())
+    return h.hexdigest()
+
+
 @dataclass(frozen=True, slots=True)
 class _Previous:
     """What the previous build left that can be reused."""
@@ -117,6 +149,7 @@ class _Previous:
     site: Path | None
     entries: dict[str, dict[str, Any]]
     site_key: str
+    body: dict[str, Any]
 
 
 def _previous(out_dir: Path) -> _Previous:
@@ -124,189 +157,278 @@ def _previous(out_dir: Path) -> _Previous:
     try:
         body = json.loads(path.read_text(encoding="utf-8"))
         entries = {str(e["dataset"]): e for e in body["datasets"] if isinstance(e, dict)}
-        return _Previous(out_dir, entries, str(body.get("site_key", "")))
+        return _Previous(out_dir, entries, str(body.get("site_key", "")), body)
     except (OSError, ValueError, KeyError, TypeError):
-        return _Previous(out_dir if out_dir.is_dir() else None, {}, "")
+        return _Previous(out_dir if out_dir.is_dir() else None, {}, "", {})
 
 
-def _reuse(prev: _Previous, src: DatasetSource, fingerprint: str) -> FitReport | None:
-    entry = prev.entries.get(src.slug)
-    if prev.site is None or entry is None or entry.get("fingerprint") != fingerprint or not fingerprint:
-        return None
-    try:
-        report = from_json((prev.site / "datasets" / src.slug / "fit.json").read_text(encoding="utf-8"))
-    except (OSError, ValueError):
-        return None
-    return report if report.dataset == src.slug and report.status != "error" else None
+# --- work items run by the executor (plain picklable data in and out) ---------------------
 
 
-def _site_key(config: SiteConfig, theme_files: list[Path]) -> str:
-    h = hashlib.sha256(repr(config).encode())
-    h.update(__version__.encode())
-    h.update(json.dumps(library_versions(RENDER_LIBRARIES), sort_keys=True).encode())
-    for path in theme_files:
-        h.update(str(path.name).encode())
-        h.update(path.read_bytes())
-    return h.hexdigest()
+@dataclass(frozen=True, slots=True)
+class FitJob:
+    """Fit one dataset and write its tables into ``folder``."""
+
+    source: DatasetSource
+    defaults: tuple[tuple[str, Any], ...]
+    limits: Limits
+    folder: Path
+    offer_source: bool
 
 
-def run_build(
-    options: BuildOptions, progress: Progress | None = None, executor: Executor | None = None
-) -> BuildSummary:
+@dataclass(frozen=True, slots=True)
+class FitDone:
+    """The report of a fitted dataset and the files written for it."""
+
+    report: FitReport
+    files: tuple[str, ...]
+    debug_trace: str | None
+
+
+def fit_job(job: FitJob) -> FitDone:
+    """Worker: fit one dataset and write its downloads."""
+    from sitegen.analyze import FitTask, analyze  # noqa: PLC0415
+    from sitegen.report.files import dataset_files  # noqa: PLC0415
+
+    result = analyze(FitTask(job.source, job.defaults, job.limits))
+    job.folder.mkdir(parents=True, exist_ok=True)
+    files = dataset_files(job.folder, result.report, result.observations, job.source, job.offer_source)
+    return FitDone(result.report, tuple(files), result.debug_trace)
+
+
+@dataclass(frozen=True, slots=True)
+class PageJob:
+    """Render one dataset page."""
+
+    ctx: SiteContext
+    report: FitReport
+    files: tuple[str, ...]
+    prev: tuple[str, str] | None
+    next: tuple[str, str] | None
+    target: Path
+
+
+def page_job(job: PageJob) -> str:
+    """Worker: render a dataset page to its file."""
+    from sitegen.report.pages import render_dataset  # noqa: PLC0415
+
+    job.target.write_text(render_dataset(job.ctx, job.report, job.files, job.prev, job.next), encoding="utf-8")
+    return job.report.dataset
+
+
+# --- the build --------------------------------------------------------------------------
+
+
+def run_build(options: BuildOptions, progress: Progress | None = None, executor: Executor | None = None) -> BuildSummary:
     """Build the site; raises :class:`~sitegen.errors.ConfigError` when nothing may be written."""
     started = time.perf_counter()
     data_dir, out_dir = options.data_dir, options.out_dir
     if not data_dir.is_dir():
-        from sitegen.errors import ConfigError  # noqa: PLC0415
-
         raise ConfigError(f"the data folder {data_dir} does not exist or is not a folder")
     check_output_folder(data_dir, out_dir)
     config, warnings = read_site_config(data_dir / SITE_CONFIG_NAME)
     theme = load_theme(config.theme, data_dir.resolve())
-    theme_files = sorted(
-        p for d in (*theme.template_dirs, *theme.static_dirs) for p in d.rglob("*") if p.is_file()
-    )
     sources = discover(data_dir)
     versions = library_versions(LIBRARIES)
+    site_key = _site_key(config, theme)
     with build_folder(out_dir) as work:
-        prev = _previous(out_dir) if not options.refit else _Previous(None, {}, "")
+        prev = _previous(out_dir) if not options.refit else _Previous(None, {}, "", {})
         prints = {s.slug: _fingerprint(s, config, versions) for s in sources}
-        results: dict[str, DatasetResult] = {}
-        todo: list[DatasetSource] = []
-        for src in sources:
-            old = _reuse(prev, src, prints[src.slug][1])
-            if old is not None:
-                results[src.slug] = DatasetResult(old, None)
-            else:
-                todo.append(src)
-        reused = {s.slug for s in sources} - {s.slug for s in todo}
-        total, done = len(sources), len(results)
-        if progress:
-            progress(done, total, "")
-        tasks = [FitTask(s, config.defaults, config.limits) for s in todo]
-        for i, res in (executor or make_executor(options.jobs)).run(analyze, tasks):
-            results[todo[i].slug] = res
-            done += 1
-            if progress:
-                progress(done, total, todo[i].relpath)
-        reports = tuple(_with_sha(results[s.slug].report, prints[s.slug][0]) for s in sources)
-        site_key = _site_key(config, theme_files)
-        ctx = pages.SiteContext(config, theme)
-        entries = _render(work, ctx, sources, results, reports, prev, prints, site_key, reused)
-        hist_warnings = history.write(work, ctx, reports, prev.site, results)
-        (work / "index.html").write_text(
-            pages.render_index(ctx, reports, tag_blocks(reports)), encoding="utf-8"
-        )
-        summary_files(work, reports)
-        assets.write_bundle(work, prev.site)
-        assets.write_static(work, theme)
-        _write_build_json(work, entries, versions, site_key)
+        if _nothing_changed(prev, sources, prints, site_key):
+            outcomes = _touch_build_json(out_dir, prev)
+            return BuildSummary(out_dir, outcomes, 0, len(sources), time.perf_counter() - started, tuple(warnings))
+        run = executor or make_executor(options.jobs)
+        state = _Build(work, prev, sources, prints, config, site_key, run, progress)
+        summary = state.execute(theme)
         swap_in(work, out_dir)
-    traces = tuple(
-        (s.relpath, results[s.slug].debug_trace or "") for s in sources if results[s.slug].debug_trace
-    )
     return BuildSummary(
         out_dir=out_dir,
-        reports=reports,
-        fitted=len(todo),
-        reused=len(sources) - len(todo),
+        outcomes=summary[0],
+        fitted=summary[1],
+        reused=len(sources) - summary[1],
         seconds=time.perf_counter() - started,
-        warnings=tuple(warnings + hist_warnings),
-        debug_traces=traces,
+        warnings=tuple(warnings + summary[2]),
+        debug_traces=summary[3],
     )
+
+
+def _nothing_changed(
+    prev: _Previous, sources: Sequence[DatasetSource], prints: dict[str, tuple[str, str]], site_key: str
+) -> bool:
+    if prev.site is None or not prev.entries or prev.site_key != site_key:
+        return False
+    if set(prev.entries) != {s.slug for s in sources}:
+        return False
+    for s in sources:
+        e = prev.entries[s.slug]
+        if e.get("fingerprint") != prints[s.slug][1] or not prints[s.slug][1] or e.get("status") == "error":
+            return False
+        if not (prev.site / "datasets" / s.slug / "index.html").is_file():
+            return False
+    return (prev.site / "index.html").is_file()
+
+
+def _touch_build_json(out_dir: Path, prev: _Previous) -> tuple[Outcome, ...]:
+    """Nothing changed: record this build in build.json (atomically) and leave the rest."""
+    body = dict(prev.body)
+    body["built_at"] = datetime.now(UTC).isoformat(timespec="seconds")
+    body["datasets"] = [dict(e, reused=True) for e in body.get("datasets", [])]
+    tmp = out_dir / f".build.json.{os.getpid()}.tmp"
+    tmp.write_text(json.dumps(body, indent=1, sort_keys=True) + "\n", encoding="utf-8")
+    tmp.replace(out_dir / "build.json")
+    return tuple(
+        Outcome(e["dataset"], e.get("source", ""), e.get("status", "ok"), e.get("message", "")) for e in body["datasets"]
+    )
+
+
+def _link_or_copy(src: Path, dst: Path) -> None:
+    """Hard-link an unchanged file from the previous site (nothing rewrites files in place)."""
+    try:
+        os.link(src, dst)
+    except OSError:
+        shutil.copyfile(src, dst)
+
+
+class _Build:
+    """One full build into the temporary folder."""
+
+    def __init__(
+        self,
+        work: Path,
+        prev: _Previous,
+        sources: Sequence[DatasetSource],
+        prints: dict[str, tuple[str, str]],
+        config: SiteConfig,
+        site_key: str,
+        run: Executor,
+        progress: Progress | None,
+    ) -> None:
+        self.work, self.prev, self.sources, self.prints = work, prev, sources, prints
+        self.config, self.site_key, self.run, self.progress = config, site_key, run, progress
+
+    def _reuse(self, src: DatasetSource) -> tuple[FitReport, tuple[str, ...]] | None:
+        from sitegen.model import from_json  # noqa: PLC0415
+
+        entry = self.prev.entries.get(src.slug)
+        fp = self.prints[src.slug][1]
+        if self.prev.site is None or entry is None or entry.get("fingerprint") != fp or not fp:
+            return None
+        old = self.prev.site / "datasets" / src.slug
+        try:
+            report = from_json((old / "fit.json").read_text(encoding="utf-8"))
+        except (OSError, ValueError):
+            return None
+        if report.dataset != src.slug or report.status == "error":
+            return None
+        new = self.work / "datasets" / src.slug
+        new.mkdir(parents=True, exist_ok=True)
+        files = []
+        for path in sorted(old.iterdir()):
+            if path.is_file() and path.name != "index.html":
+                _link_or_copy(path, new / path.name)
+                files.append(path.name)
+        return report, tuple(files)
+
+    def execute(self, theme: Theme) -> tuple[tuple[Outcome, ...], int, list[str], tuple[tuple[str, str], ...]]:
+        from sitegen.report import assets, history, pages  # noqa: PLC0415
+        from sitegen.report.files import summary_files, summary_row  # noqa: PLC0415
+        from sitegen.report.tags import tag_blocks  # noqa: PLC0415
+
+        done: dict[str, tuple[FitReport, tuple[str, ...]]] = {}
+        traces: list[tuple[str, str]] = []
+        jobs: list[FitJob] = []
+        for src in self.sources:
+            reused = self._reuse(src)
+            if reused is not None:
+                done[src.slug] = reused
+            else:
+                folder = self.work / "datasets" / src.slug
+                jobs.append(FitJob(src, self.config.defaults, self.config.limits, folder, self.config.offer_source))
+        total = len(self.sources)
+        count = len(done)
+        if self.progress:
+            self.progress(count, total, "")
+        for i, res in self.run.run(fit_job, jobs):
+            done[jobs[i].source.slug] = (res.report, res.files)
+            if res.debug_trace:
+                traces.append((jobs[i].source.relpath, res.debug_trace))
+            count += 1
+            if self.progress:
+                self.progress(count, total, jobs[i].source.relpath)
+        refitted = {j.source.slug for j in jobs}
+        reports = [_with_sha(done[s.slug][0], self.prints[s.slug][0]) for s in self.sources]
+        ctx = pages.SiteContext(self.config, theme)
+        entries, page_jobs = self._plan_pages(ctx, reports, done, refitted)
+        for _ in self.run.run(page_job, page_jobs):
+            pass
+        index = pages.render_index(ctx, reports, tag_blocks(reports))
+        (self.work / "index.html").write_text(index, encoding="utf-8")
+        summary_files(self.work, reports)
+        hist_warnings = history.write(self.work, ctx, reports, self.prev.site)
+        assets.write_bundle(self.work, self.prev.site)
+        assets.write_static(self.work, theme)
+        self._write_build_json(entries)
+        outcomes = tuple(
+            Outcome(r.dataset, r.source, r.status, str(summary_row(r)["message"])) for r in reports
+        )
+        return outcomes, len(jobs), hist_warnings, tuple(traces)
+
+    def _plan_pages(
+        self,
+        ctx: SiteContext,
+        reports: Sequence[FitReport],
+        done: dict[str, tuple[FitReport, tuple[str, ...]]],
+        refitted: set[str],
+    ) -> tuple[list[dict[str, Any]], list[PageJob]]:
+        from sitegen.report.files import summary_row  # noqa: PLC0415
+
+        entries: list[dict[str, Any]] = []
+        jobs: list[PageJob] = []
+        for i, (src, report) in enumerate(zip(self.sources, reports, strict=True)):
+            files = done[src.slug][1]
+            prev_r = (reports[i - 1].dataset, reports[i - 1].title) if i > 0 else None
+            next_r = (reports[i + 1].dataset, reports[i + 1].title) if i + 1 < len(reports) else None
+            fp = self.prints[src.slug][1]
+            key = _sha256(json.dumps([fp, self.site_key, list(files), prev_r, next_r, report.status]).encode())
+            target = self.work / "datasets" / src.slug / "index.html"
+            old_entry = self.prev.entries.get(src.slug, {})
+            old_page = self.prev.site / "datasets" / src.slug / "index.html" if self.prev.site else None
+            if src.slug not in refitted and old_page is not None and old_entry.get("page_key") == key and old_page.is_file():
+                _link_or_copy(old_page, target)
+            else:
+                jobs.append(PageJob(ctx, report, files, prev_r, next_r, target))
+            entries.append({
+                "dataset": src.slug, "source": src.relpath, "input_sha256": self.prints[src.slug][0],
+                "fingerprint": fp, "page_key": key, "reused": src.slug not in refitted,
+                "status": report.status, "message": summary_row(report)["message"],
+            })  # fmt: skip
+        return entries, jobs
+
+    def _write_build_json(self, entries: list[dict[str, Any]]) -> None:
+        import platform  # noqa: PLC0415
+
+        body = {
+            "generator": "sitegen",
+            "sitegen_version": __version__,
+            "libraries": library_versions(LIBRARIES) | library_versions(RENDER_LIBRARIES),
+            "python": platform.python_version(),
+            "built_at": datetime.now(UTC).isoformat(timespec="seconds"),
+            "site_key": self.site_key,
+            "mail_budget_megabytes": self.config.mail_budget_megabytes,
+            "datasets": entries,
+        }
+        text = json.dumps(body, indent=1, sort_keys=True) + "\n"
+        (self.work / "build.json").write_text(text, encoding="utf-8")
 
 
 def _with_sha(report: FitReport, sha: str) -> FitReport:
+    from dataclasses import replace  # noqa: PLC0415
+
     return report if report.input_sha256 or not sha else replace(report, input_sha256=sha)
-
-
-def _render(
-    work: Path,
-    ctx: pages.SiteContext,
-    sources: Sequence[DatasetSource],
-    results: dict[str, DatasetResult],
-    reports: Sequence[FitReport],
-    prev: _Previous,
-    prints: dict[str, tuple[str, str]],
-    site_key: str,
-    reused_slugs: set[str],
-) -> list[dict[str, Any]]:
-    entries = []
-    for i, (src, report) in enumerate(zip(sources, reports, strict=True)):
-        folder = work / "datasets" / src.slug
-        folder.mkdir(parents=True, exist_ok=True)
-        res = results[src.slug]
-        old_folder = prev.site / "datasets" / src.slug if prev.site is not None else None
-        reused = src.slug in reused_slugs
-        if reused and old_folder is not None:
-            files = _copy_data_files(old_folder, folder)
-        else:
-            files = dataset_files(folder, report, res.observations, src, ctx.config.offer_source)
-        prev_r = reports[i - 1] if i > 0 else None
-        next_r = reports[i + 1] if i + 1 < len(reports) else None
-        page_key = _sha256(
-            json.dumps(
-                [
-                    prints[src.slug][1],
-                    site_key,
-                    files,
-                    prev_r and [prev_r.dataset, prev_r.title],
-                    next_r and [next_r.dataset, next_r.title],
-                    report.status,
-                ]
-            ).encode()  # fmt: skip
-        )
-        old_entry = prev.entries.get(src.slug, {})
-        old_page = old_folder / "index.html" if old_folder is not None else None
-        if reused and old_page is not None and old_entry.get("page_key") == page_key and old_page.is_file():
-            shutil.copyfile(old_page, folder / "index.html")
-        else:
-            (folder / "index.html").write_text(
-                pages.render_dataset(ctx, report, files, prev_r, next_r), "utf-8"
-            )
-        entries.append({"dataset": src.slug, "source": src.relpath, "input_sha256": prints[src.slug][0],
-                        "fingerprint": prints[src.slug][1], "page_key": page_key,
-                        "reused": reused,
-                        "status": report.status})  # fmt: skip
-    return entries
-
-
-def _copy_data_files(old: Path, new: Path) -> list[str]:
-    files = []
-    for path in sorted(old.iterdir()):
-        if path.is_file() and path.name != "index.html":
-            shutil.copyfile(path, new / path.name)
-            files.append(path.name)
-    return files
-
-
-def _write_build_json(
-    work: Path, entries: list[dict[str, Any]], versions: dict[str, str], site_key: str
-) -> None:
-    body = {
-        "generator": "sitegen",
-        "sitegen_version": __version__,
-        "libraries": versions | library_versions(RENDER_LIBRARIES),
-        "python": _python_version(),
-        "built_at": datetime.now(UTC).isoformat(timespec="seconds"),
-        "site_key": site_key,
-        "datasets": entries,
-    }
-    (work / "build.json").write_text(json.dumps(body, indent=1, sort_keys=True) + "\n", encoding="utf-8")
-
-
-def _python_version() -> str:
-    import platform  # noqa: PLC0415
-
-    return platform.python_version()
 
 
 def load_reports(site: Path) -> list[FitReport]:
     """Every dataset report of a built site (for tools that read a site)."""
-    out = []
-    for path in sorted((site / "datasets").glob("*/fit.json")):
-        out.append(from_json(path.read_text(encoding="utf-8")))
-    return out
+    from sitegen.model import from_json  # noqa: PLC0415
 
-
-__all__ = ["BuildOptions", "BuildSummary", "load_reports", "run_build", "to_json"]
+    return [from_json(p.read_text(encoding="utf-8")) for p in sorted((site / "datasets").glob("*/fit.json"))]

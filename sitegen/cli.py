@@ -110,14 +110,13 @@ def _build(args: argparse.Namespace, out: _Printer) -> int:
     )
     for w in summary.warnings:
         out.warn(w)
-    for r in summary.reports:
-        if r.status == "error":
-            text = next((m.text for m in r.messages if m.level == "error"), "failed")
-            out.error(f"{r.source}: {text}")
+    for o in summary.outcomes:
+        if o.status == "error":
+            out.error(f"{o.source}: {o.message}")
     if args.debug:
         for name, trace in summary.debug_traces:
             print(f"--- traceback for {name} ---\n{trace}", file=out.stream)
-    n = len(summary.reports)
+    n = len(summary.outcomes)
     out.info(
         f"Built {summary.out_dir}/index.html: {n} dataset{'s' if n != 1 else ''} — {summary.fitted} fitted, "
         f"{summary.reused} reused, {summary.warned} with warnings, {summary.errors} failed, "

@@ -9,6 +9,7 @@ requests and turns the results into the report's plain dataclasses.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -33,7 +34,7 @@ from sitegen.model import (
 from sitegen.spec import DatasetSpec
 from sitegen.stats.calibration import detection_limits, inverse_predict
 from sitegen.stats.checks import model_checks
-from sitegen.stats.claims import test_claim
+from sitegen.stats.claims import test_claims
 from sitegen.stats.groups import compare_groups
 from sitegen.stats.influence import Influence, PointFlags, flag_points, influence
 from sitegen.stats.lines import alternative_lines, explain_lines
@@ -138,11 +139,12 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
         cov = hc3_cov(Xw, fit.resid * sw, np.asarray(infl.leverage), fit.xtx_inv)
         robust_se = np.sqrt(np.clip(np.diag(cov), 0, None))
     claims = []
-    for claim in spec.claims:
-        try:
-            claims.append(test_claim(fit, design.design_info, claim))
-        except DatasetError as exc:
-            messages.append(Message("warning", str(exc)))
+    if spec.claims:
+        for found in test_claims(fit, Xw, design.y * sw, list(spec.claims)):
+            if isinstance(found, DatasetError):
+                messages.append(Message("warning", str(found)))
+            else:
+                claims.append(found)
     line_x = straight_line(design)
     lines, lines_text = _lines(design, fit, spec, line_x, messages)
     calibration, limits = _calibration(design, fit, spec, line_x, messages)
@@ -320,7 +322,10 @@ def _chart_sample(n: int, flagged_rows: tuple[int, ...]) -> tuple[NDArray[np.int
 
 
 def _clean(values: FloatArray) -> tuple[float | None, ...]:
-    return tuple(float(v) if np.isfinite(v) else None for v in values)
+    arr = np.asarray(values, dtype=float)
+    if bool(np.isfinite(arr).all()):
+        return tuple(arr.tolist())
+    return tuple(v if math.isfinite(v) else None for v in arr.tolist())
 
 
 def _chart(design: Design, fit: OlsFit, infl: Influence, flags: PointFlags, spec: DatasetSpec) -> ChartData:

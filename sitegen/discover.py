@@ -21,7 +21,7 @@ class DatasetSource:
     """Where one dataset lives, relative to the data folder."""
 
     slug: str
-    relpath: str  # POSIX path of the CSV relative to the data folder
+    relpath: str  # POSIX path of the CSV relative to the data folder (odd bytes shown as U+FFFD)
     csv_path: Path
     sidecar_path: Path | None
     section: str  # POSIX path of the containing sub-folder ("" at the root)
@@ -56,6 +56,27 @@ def _hidden(name: str) -> bool:
     return name.startswith((".", "_"))
 
 
+def printable_path(rel: str) -> str:
+    """A relative path safe to show and to write as UTF-8.
+
+    A file name that is not valid UTF-8 arrives from the operating system with
+    its odd bytes as lone surrogates (PEP 383); they would make every page and
+    table that names the file unwritable, so they are shown as U+FFFD.
+    """
+    try:
+        rel.encode("utf-8")
+    except UnicodeEncodeError:
+        return os.fsencode(rel).decode("utf-8", errors="replace")
+    return rel
+
+
+def _is_file(path: Path) -> bool:
+    try:
+        return path.is_file()
+    except OSError:  # unreadable folder entry, e.g. no permission
+        return False
+
+
 def discover(data_dir: Path) -> tuple[DatasetSource, ...]:
     """List every dataset under ``data_dir`` in sorted path order."""
     found: list[str] = []
@@ -66,7 +87,7 @@ def discover(data_dir: Path) -> tuple[DatasetSource, ...]:
             if _hidden(name) or not name.lower().endswith(".csv"):
                 continue
             path = base / name
-            if not path.is_file():  # broken link, fifo, …
+            if not _is_file(path):  # broken link, fifo, link loop, …
                 continue
             found.append(path.relative_to(data_dir).as_posix())
     slugs = assign_slugs(found)
@@ -74,13 +95,14 @@ def discover(data_dir: Path) -> tuple[DatasetSource, ...]:
     for rel in sorted(found):
         csv_path = data_dir / rel
         sidecar = csv_path.with_name(csv_path.name[: -len(".csv")] + ".toml")
-        section = str(PurePosixPath(rel).parent)
+        shown = printable_path(rel)
+        section = str(PurePosixPath(shown).parent)
         sources.append(
             DatasetSource(
                 slug=slugs[rel],
-                relpath=rel,
+                relpath=shown,
                 csv_path=csv_path,
-                sidecar_path=sidecar if sidecar.is_file() else None,
+                sidecar_path=sidecar if _is_file(sidecar) else None,
                 section="" if section == "." else section,
             )
         )

@@ -7,11 +7,13 @@ import shutil
 from collections.abc import Sequence
 from dataclasses import asdict
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from sitegen.derive import Observations
+if TYPE_CHECKING:
+    from sitegen.derive import Observations
+
 from sitegen.discover import DatasetSource
 from sitegen.model import FitReport, to_json
 from sitegen.report.tables import frame_from_columns, frame_from_rows, to_csv_bytes, to_xlsx_bytes

@@ -80,10 +80,8 @@ def changes(
     }
 
 
-def write(work: Path, ctx: pages.SiteContext, reports: Sequence[FitReport], prev_site: Path | None,
-          results: object) -> list[str]:  # fmt: skip
+def write(work: Path, ctx: pages.SiteContext, reports: Sequence[FitReport], prev_site: Path | None) -> list[str]:
     """Write history.json, changes.json and changes.html; returns warnings."""
-    del results
     warnings: list[str] = []
     hist = _load(prev_site, "history.json")
     builds: list[dict[str, Any]] = hist.get("builds", []) if isinstance(hist, dict) else []

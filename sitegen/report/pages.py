@@ -160,7 +160,11 @@ def _downloads(r: FitReport, files: Sequence[str]) -> list[tuple[str, str, str]]
 
 
 def render_dataset(
-    ctx: SiteContext, r: FitReport, files: Sequence[str], prev: FitReport | None, nxt: FitReport | None
+    ctx: SiteContext,
+    r: FitReport,
+    files: Sequence[str],
+    prev: tuple[str, str] | None,
+    nxt: tuple[str, str] | None,
 ) -> str:
     """The page of one dataset."""
     env = environment(ctx.theme)
@@ -181,8 +185,8 @@ def render_dataset(
         charts=chart_specs,
         sentence=sentence(r) if ok else "",
         downloads=_downloads(r, files),
-        prev=prev,
-        next=nxt,
+        prev={"dataset": prev[0], "title": prev[1]} if prev else None,
+        next={"dataset": nxt[0], "title": nxt[1]} if nxt else None,
         cutoffs=cutoffs,
         x_label=x_label,
         fit_caption=fit_caption,

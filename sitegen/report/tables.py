@@ -65,48 +65,9 @@ def to_csv_bytes(frame: pd.DataFrame) -> bytes:
 
 def to_xlsx_bytes(frame: pd.DataFrame, sheet: str = "data") -> bytes:
     """An XLSX workbook of one sheet; text cells are stored as text, never as formulas."""
-    from openpyxl import Workbook  # noqa: PLC0415 - only needed when writing workbooks
-    from openpyxl.cell.cell import TYPE_STRING  # noqa: PLC0415
+    from sitegen.report.xlsx import workbook_bytes  # noqa: PLC0415
 
-    wb = Workbook(write_only=True)
-    ws = wb.create_sheet(sheet[:31])
-    ws.append([str(c) for c in frame.columns])
-    for row in frame.itertuples(index=False, name=None):
-        cells = []
-        for v in row:
-            if isinstance(v, float) and not math.isfinite(v):
-                cells.append(None)
-            elif isinstance(v, np.floating | np.integer):
-                cells.append(v.item())
-            else:
-                cells.append(v)
-        ws.append(cells)
-    del TYPE_STRING
-    buf = io.BytesIO()
-    wb.save(buf)
-    return _fix_zip_times(buf.getvalue())
-
-
-def _fix_zip_times(data: bytes) -> bytes:
-    """Rewrite the workbook's zip with fixed timestamps so builds are byte-identical."""
-    import zipfile  # noqa: PLC0415
-
-    src = zipfile.ZipFile(io.BytesIO(data))
-    out = io.BytesIO()
-    with zipfile.ZipFile(out, "w", zipfile.ZIP_DEFLATED) as dst:
-        for info in src.infolist():
-            body = src.read(info.filename)
-            if info.filename == "docProps/core.xml":
-                body = _strip_core_dates(body)
-            fixed = zipfile.ZipInfo(info.filename, date_time=(2000, 1, 1, 0, 0, 0))
-            fixed.compress_type = zipfile.ZIP_DEFLATED
-            dst.writestr(fixed, body)
-    return out.getvalue()
-
-
-def _strip_core_dates(body: bytes) -> bytes:
-    import re  # noqa: PLC0415
-
-    return re.sub(
-        rb"(<dcterms:(created|modified)[^>]*>)[^<]*(</dcterms:\2>)", rb"\g<1>2000-01-01T00:00:00Z\g<3>", body
+    rows = (
+        [v.item() if isinstance(v, np.generic) else v for v in row] for row in frame.itertuples(index=False, name=None)
     )
+    return workbook_bytes([str(c) for c in frame.columns], rows, sheet)

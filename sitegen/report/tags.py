@@ -7,11 +7,12 @@ from typing import Any
 
 from sitegen.model import FitReport
 from sitegen.report import charts, fmt
-from sitegen.stats.compare import homogeneity
 
 
 def tag_blocks(reports: Sequence[FitReport]) -> list[dict[str, Any]]:
     """One block per tag: its datasets, a forest chart of the compared term and Cochran's Q."""
+    from sitegen.stats.compare import homogeneity  # noqa: PLC0415 - scipy is slow to import
+
     by_tag: dict[str, list[FitReport]] = {}
     for r in reports:
         for t in r.tags:

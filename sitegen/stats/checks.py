@@ -14,7 +14,7 @@ where the model's errors have constant variance.
 Tests and rules (``alpha`` is the significance level for every p-value):
 
 - constant_variance: Breusch–Pagan in Koenker's studentized form (statsmodels
-  ``het_breuschpagan``), squared residuals against a constant and the predictors.
+  ``het_breuschpagan``, computed in numpy), squared residuals against a constant and the predictors.
 - independence: Durbin–Watson d in row order; two-sided p-value from a beta
   distribution on [0, 4] with d's exact mean and variance under independence
   (the moment-matched approximation of Durbin and Watson, from memory).
@@ -234,16 +234,28 @@ def _constant_variance(d: _Data) -> _Outcome:
         return "There is no predictor for the scatter to change with."
     if np.ptp(d.ew**2) == 0:
         return "All residuals have the same size, so their scatter cannot change."
-    from statsmodels.stats.diagnostic import het_breuschpagan  # noqa: PLC0415 (slow import)
-
     try:
-        with np.errstate(all="ignore"):  # an exact auxiliary fit divides by zero in the unused F value
-            lm, p = (float(v) for v in het_breuschpagan(d.ew, Z)[:2])
-    except (ValueError, np.linalg.LinAlgError) as exc:
+        lm, p = _breusch_pagan(d.ew, Z)
+    except np.linalg.LinAlgError as exc:
         return f"The Breusch–Pagan test could not be computed ({exc})."
     if not (math.isfinite(lm) and math.isfinite(p)):
         return "The Breusch–Pagan test gave no usable result for these data."
     return lm, p, f"Breusch–Pagan LM = {_num(lm)}, {_p(p)}"
+
+
+def _breusch_pagan(e: FloatArray, Z: FloatArray) -> tuple[float, float]:
+    """Koenker's studentized Breusch–Pagan LM = n·R² of e² on Z, χ² on (columns − 1) df.
+
+    The same statistic as statsmodels' ``het_breuschpagan`` (robust form), which the
+    tests use as the reference; computed here to avoid importing statsmodels per build.
+    """
+    u = e**2
+    coef, *_ = np.linalg.lstsq(Z, u, rcond=None)
+    fitted = Z @ coef
+    tss = float(np.sum((u - u.mean()) ** 2))
+    r2 = 1 - float(np.sum((u - fitted) ** 2)) / tss if tss > 0 else 0.0
+    lm = len(u) * r2
+    return lm, float(sps.chi2.sf(lm, Z.shape[1] - 1))
 
 
 def dw_moments(q: FloatArray, df_resid: int) -> tuple[float, float]:

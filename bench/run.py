@@ -1,0 +1,86 @@
+"""Benchmark: sitegen against the straightforward sequential script, side by side.
+
+Prints full build, no-op rebuild, one-changed rebuild, per-dataset cost, peak
+memory and site size for both. Usage: ``python bench/run.py [--datasets N] [--rows R]``.
+Goals (issue 4): full build ≤ 0.10 of the baseline; no-op ≤ 5 % of full; one changed ≤ 10 % of full.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import shutil
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))
+
+from datasets import make_folder, touch_one  # noqa: E402
+
+_PEAK = (
+    "import resource,subprocess,sys,time;t=time.perf_counter();r=subprocess.run(sys.argv[1:]);"
+    "s=time.perf_counter()-t;"
+    "m=max(resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss,0);"
+    "print('%BENCH%',s,m,r.returncode)"
+)
+
+
+def timed(cmd: list[str]) -> tuple[float, float, int]:
+    """(seconds, peak RSS of the largest process in MB, exit status)."""
+    out = subprocess.run([sys.executable, "-c", _PEAK, *cmd], capture_output=True, text=True, check=False)
+    line = next(ln for ln in out.stdout.splitlines() if ln.startswith("%BENCH%"))
+    _, s, m, rc = line.split()
+    return float(s), int(m) / 1024, int(rc)
+
+
+def size_mb(folder: Path) -> float:
+    return sum(p.stat().st_size for p in folder.rglob("*") if p.is_file()) / 1e6
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser()
+    ap.add_argument("--datasets", type=int, default=200)
+    ap.add_argument("--rows", type=int, default=200)
+    ap.add_argument("--skip-baseline", action="store_true")
+    args = ap.parse_args()
+    tmp = Path(tempfile.mkdtemp(prefix="sitegen-bench-"))
+    try:
+        data = make_folder(tmp / "data", args.datasets, args.rows)
+        site = tmp / "site"
+        sitegen = [sys.executable, "-m", "sitegen", "build", str(data), "-o", str(site), "-q"]
+        # Warm the chart-bundle cache so the full build measures steady-state work.
+        timed([sys.executable, "-m", "sitegen", "build", str(data), "-o", str(tmp / "warm"), "-q"])
+        full, full_mem, _ = timed(sitegen)
+        noop, noop_mem, _ = timed(sitegen)
+        touch_one(data)
+        one, one_mem, _ = timed(sitegen)
+        results = {
+            "datasets": args.datasets, "rows": args.rows,
+            "sitegen_full_s": round(full, 2), "sitegen_noop_s": round(noop, 2), "sitegen_one_changed_s": round(one, 2),
+            "sitegen_per_dataset_ms": round(1000 * full / args.datasets, 1),
+            "sitegen_peak_mb": round(max(full_mem, noop_mem, one_mem), 1),
+            "sitegen_site_mb": round(size_mb(site), 1),
+            "noop_fraction_of_full": round(noop / full, 3), "one_changed_fraction_of_full": round(one / full, 3),
+        }  # fmt: skip
+        if not args.skip_baseline:
+            base_out = tmp / "baseline"
+            base, base_mem, _ = timed([sys.executable, str(HERE / "baseline.py"), str(data), str(base_out)])
+            results |= {
+                "baseline_full_s": round(base, 2), "baseline_per_dataset_ms": round(1000 * base / args.datasets, 1),
+                "baseline_peak_mb": round(base_mem, 1), "baseline_site_mb": round(size_mb(base_out), 1),
+                "full_fraction_of_baseline": round(full / base, 3),
+            }  # fmt: skip
+        width = max(len(k) for k in results)
+        for k, v in results.items():
+            print(f"{k:<{width}}  {v}")
+        print(json.dumps(results))
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)
+
+
+if __name__ == "__main__":
+    main()

@@ -1,0 +1,37 @@
+"""Serve a built site on the loopback interface for a quick look in a browser."""
+
+from __future__ import annotations
+
+import functools
+import http.server
+from collections.abc import Callable
+from pathlib import Path
+
+from sitegen.errors import ConfigError
+
+
+class _QuietHandler(http.server.SimpleHTTPRequestHandler):
+    def log_message(self, format: str, *args: object) -> None:  # noqa: A002 - signature of the base class
+        pass
+
+
+def make_server(site: Path, port: int) -> http.server.ThreadingHTTPServer:
+    """A server bound to 127.0.0.1 only; port 0 picks a free port."""
+    if not (site / "index.html").is_file():
+        raise ConfigError(f"{site} has no index.html; build the site first")
+    handler = functools.partial(_QuietHandler, directory=str(site))
+    try:
+        return http.server.ThreadingHTTPServer(("127.0.0.1", port), handler)
+    except OSError as exc:
+        raise ConfigError(f"cannot listen on 127.0.0.1:{port}: {exc.strerror or exc}", hint="try --port 0") from exc
+
+
+def serve(site: Path, port: int, announce: Callable[[str], None]) -> None:
+    """Serve until interrupted."""
+    server = make_server(site, port)
+    host, real_port = server.server_address[:2]
+    announce(f"http://{host!s}:{real_port}/")
+    try:
+        server.serve_forever()
+    finally:
+        server.server_close()

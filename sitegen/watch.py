@@ -1,0 +1,71 @@
+"""Rebuild a site whenever the data folder changes.
+
+Polls the folder (no platform file-watching dependency): a change starts a
+countdown, and the build runs once the folder has been quiet for ``settle``
+seconds, so a file still being copied or saved is not read half-written.
+Editor temporary files (``~`` suffix, ``.swp``, ``#name#``, hidden files) are
+ignored. A failed build never ends the watch.
+"""
+
+from __future__ import annotations
+
+import os
+import time
+from collections.abc import Callable
+from pathlib import Path
+
+Snapshot = dict[str, tuple[int, int]]
+_TEMP_SUFFIXES = ("~", ".swp", ".swx", ".tmp", ".part", ".crdownload")
+
+
+def _ignored(name: str) -> bool:
+    return name.startswith((".", "_", "#", "~$")) or name.endswith(_TEMP_SUFFIXES)
+
+
+def snapshot(data_dir: Path) -> Snapshot:
+    """Size and modification time of every relevant file under the data folder."""
+    state: Snapshot = {}
+    for dirpath, dirnames, filenames in os.walk(data_dir, followlinks=False):
+        dirnames[:] = sorted(d for d in dirnames if not _ignored(d))
+        for name in filenames:
+            if _ignored(name) or not name.lower().endswith((".csv", ".toml")):
+                continue
+            path = Path(dirpath) / name
+            try:
+                st = path.stat()
+            except OSError:
+                continue  # vanished between listing and stat
+            state[path.relative_to(data_dir).as_posix()] = (st.st_size, st.st_mtime_ns)
+    return state
+
+
+def watch(
+    data_dir: Path,
+    out_dir: Path,
+    build: Callable[[], int],
+    *,
+    interval: float = 1.0,
+    settle: float = 1.5,
+    max_builds: int | None = None,
+    clock: Callable[[], float] = time.monotonic,
+    sleep: Callable[[float], None] = time.sleep,
+) -> int:
+    """Build now, then after every settled change; returns the number of builds (for tests)."""
+    del out_dir  # the build callable knows where to write
+    builds = 0
+    build()
+    builds += 1
+    last = snapshot(data_dir)
+    changed_at: float | None = None
+    while max_builds is None or builds < max_builds:
+        sleep(interval)
+        now = snapshot(data_dir)
+        if now != last:
+            last = now
+            changed_at = clock()
+            continue
+        if changed_at is not None and clock() - changed_at >= settle:
+            changed_at = None
+            build()
+            builds += 1
+    return builds
