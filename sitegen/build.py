@@ -201,7 +201,7 @@ class PageJob:
     """Render one dataset page."""
 
     ctx: SiteContext
-    report: FitReport
+    report: FitReport | None  # None: read the full report from the folder's fit.json
     files: tuple[str, ...]
     prev: tuple[str, str] | None
     next: tuple[str, str] | None
@@ -210,10 +210,12 @@ class PageJob:
 
 def page_job(job: PageJob) -> str:
     """Worker: render a dataset page to its file."""
+    from sitegen.model import from_json  # noqa: PLC0415
     from sitegen.report.pages import render_dataset  # noqa: PLC0415
 
-    job.target.write_text(render_dataset(job.ctx, job.report, job.files, job.prev, job.next), encoding="utf-8")
-    return job.report.dataset
+    report = job.report or from_json((job.target.parent / "fit.json").read_text(encoding="utf-8"))
+    job.target.write_text(render_dataset(job.ctx, report, job.files, job.prev, job.next), encoding="utf-8")
+    return report.dataset
 
 
 # --- the build --------------------------------------------------------------------------
@@ -315,7 +317,7 @@ class _Build:
             return None
         old = self.prev.site / "datasets" / src.slug
         try:
-            report = from_json((old / "fit.json").read_text(encoding="utf-8"))
+            report = from_json((old / "fit.json").read_text(encoding="utf-8"), light=True)
         except (OSError, ValueError):
             return None
         if report.dataset != src.slug or report.status == "error":
@@ -396,7 +398,8 @@ class _Build:
             if src.slug not in refitted and old_page is not None and old_entry.get("page_key") == key and old_page.is_file():
                 _link_or_copy(old_page, target)
             else:
-                jobs.append(PageJob(ctx, report, files, prev_r, next_r, target))
+                full = report if src.slug in refitted else None
+                jobs.append(PageJob(ctx, full, files, prev_r, next_r, target))
             entries.append({
                 "dataset": src.slug, "source": src.relpath, "input_sha256": self.prints[src.slug][0],
                 "fingerprint": fp, "page_key": key, "reused": src.slug not in refitted,

@@ -21,7 +21,7 @@ import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
-from sitegen.errors import DataFileError, FormulaError
+from sitegen.errors import DataFileError, FitError, FormulaError
 
 #: numpy functions a formula may call, as ``np.NAME`` or bare ``NAME``.
 SAFE_FUNCTIONS = frozenset(
@@ -29,6 +29,8 @@ SAFE_FUNCTIONS = frozenset(
 )
 #: patsy's own helpers that are safe to call.
 PATSY_FUNCTIONS = frozenset({"I", "Q", "center", "standardize", "scale"})
+#: Longest model formula accepted (a guard against pathological sidecars).
+MAX_FORMULA_CHARS = 10_000
 _ALLOWED_NODES = (
     ast.Expression, ast.Name, ast.Load, ast.Constant, ast.BinOp, ast.UnaryOp, ast.Call, ast.Attribute,
     ast.Add, ast.Sub, ast.Mult, ast.Div, ast.Pow, ast.USub, ast.UAdd, ast.Mod, ast.FloorDiv,
@@ -60,11 +62,25 @@ def quote_name(column: str) -> str:
     return "Q(" + repr(column) + ")"
 
 
+def _mostly_numeric(series: pd.Series) -> bool:
+    """Numeric, or text of which at least half the filled cells are numbers (so a stray word is reported)."""
+    if pd.api.types.is_numeric_dtype(series):
+        return True
+    text = series.astype("string").str.strip()
+    filled = text[text.notna() & (text != "")]
+    if len(filled) == 0:
+        return True
+    return int(pd.to_numeric(filled, errors="coerce").notna().sum()) * 2 >= len(filled)
+
+
 def assumed_formula(frame: pd.DataFrame) -> str | None:
-    """``second ~ first`` when the table has exactly two numeric columns, else None."""
-    numeric = [c for c in frame.columns if pd.api.types.is_numeric_dtype(frame[c])]
-    if len(frame.columns) == 2 and len(numeric) == 2:
-        first, second = numeric
+    """``second ~ first`` when the table has exactly two numeric columns, else None.
+
+    A column that is numeric apart from a few stray cells still counts, so that
+    fitting it reports the offending cells by row instead of "no model".
+    """
+    if len(frame.columns) == 2 and all(_mostly_numeric(frame[c]) for c in frame.columns):
+        first, second = (str(c) for c in frame.columns)
         return f"{quote_name(second)} ~ {quote_name(first)}"
     return None
 
@@ -94,16 +110,14 @@ class _FactorChecker(ast.NodeVisitor):
                 raise FormulaError('Q() takes one quoted column name, e.g. Q("flow rate")')
             self._column(arg.value)
             return
-        if isinstance(func, ast.Name) and (func.id in PATSY_FUNCTIONS or func.id in SAFE_FUNCTIONS):
-            pass
-        elif (
+        plain = isinstance(func, ast.Name) and (func.id in PATSY_FUNCTIONS or func.id in SAFE_FUNCTIONS)
+        dotted = (
             isinstance(func, ast.Attribute)
             and isinstance(func.value, ast.Name)
             and func.value.id in ("np", "numpy")
             and func.attr in SAFE_FUNCTIONS
-        ):
-            pass
-        else:
+        )
+        if not (plain or dotted):
             allowed = ", ".join(sorted(f"np.{f}" for f in SAFE_FUNCTIONS))
             raise FormulaError(
                 f"function '{ast.unparse(func)}' is not allowed in a model formula (use {allowed})"
@@ -129,25 +143,53 @@ def _factor_codes(formula: str) -> tuple[list[str], list[str], bool]:
     """(lhs factor codes, rhs factor codes, has intercept) without evaluating anything."""
     import patsy  # noqa: PLC0415 - patsy is only needed once a dataset is fitted
 
+    if len(formula) > MAX_FORMULA_CHARS:
+        raise FormulaError(
+            f"the model is {len(formula):,} characters long, more than the {MAX_FORMULA_CHARS:,} allowed",
+            hint="write a shorter model formula (key 'model' in the sidecar or in site.toml [defaults])",
+        )
     if "~" not in formula:
         raise FormulaError(
-            f"model {formula!r} has no '~'", hint='write it as "response ~ predictors", e.g. "y ~ x"'
+            f"the model {_show(formula)} has no '~'",
+            hint='write it as "response ~ predictors", e.g. "y ~ x" (key \'model\')',
         )
     try:
         desc = patsy.ModelDesc.from_formula(formula)
     except patsy.PatsyError as exc:
-        raise FormulaError(f"model {formula!r} cannot be parsed: {_patsy_message(exc)}") from exc
+        raise FormulaError(
+            f"the model {_show(formula)} cannot be parsed: {_patsy_message(exc)}",
+            hint='check key \'model\': write it as "response ~ predictors", e.g. "y ~ x + I(x**2)"',
+        ) from exc
+    except (RecursionError, MemoryError) as exc:
+        raise FormulaError(
+            f"the model {_show(formula)} is nested too deeply to be read", hint="simplify key 'model'"
+        ) from exc
     lhs = [f.code for t in desc.lhs_termlist for f in t.factors]
     rhs = [f.code for t in desc.rhs_termlist for f in t.factors]
     intercept = any(not t.factors for t in desc.rhs_termlist)
     if not lhs:
-        raise FormulaError(f"model {formula!r} has no response on the left of '~'")
+        raise FormulaError(
+            f"the model {_show(formula)} has no response on the left of '~'",
+            hint="name the response column first, e.g. \"y ~ x\" (key 'model')",
+        )
     return lhs, rhs, intercept
 
 
+def _show(formula: str) -> str:
+    return repr(formula) if len(formula) <= 80 else repr(formula[:77] + "...")
+
+
 def _patsy_message(exc: Exception) -> str:
-    text = str(exc).splitlines()
-    return " ".join(line.strip() for line in text if line.strip())[:300]
+    """patsy's first line and where in the formula it stopped (its caret drawing needs several lines)."""
+    first = str(exc).splitlines()[0].strip() if str(exc).strip() else "not understood"
+    origin = getattr(exc, "origin", None)
+    start = getattr(origin, "start", None)
+    code = getattr(origin, "code", None)
+    if isinstance(start, int) and isinstance(code, str):
+        near = code[start : start + 20]
+        where = f"at character {start + 1}" + (f" ({near!r})" if near.strip() else " (the end)")
+        return f"{first} {where}"[:300]
+    return first[:300]
 
 
 def check_formula(formula: str, columns: list[str]) -> tuple[str, ...]:
@@ -157,16 +199,23 @@ def check_formula(formula: str, columns: list[str]) -> tuple[str, ...]:
     for code in lhs + rhs:
         try:
             tree = ast.parse(code.strip(), mode="eval")
+            checker.visit(tree)
         except SyntaxError as exc:
-            raise FormulaError(f"model {formula!r}: {code!r} is not a valid expression") from exc
-        checker.visit(tree)
+            raise FormulaError(
+                f"the model {_show(formula)}: {code!r} is not a valid expression",
+                hint="check the brackets and operators in key 'model'",
+            ) from exc
+        except (RecursionError, MemoryError) as exc:
+            raise FormulaError(
+                f"the model {_show(formula)} is nested too deeply to be read", hint="simplify key 'model'"
+            ) from exc
     if checker.missing:
         name = checker.missing[0]
         close = difflib.get_close_matches(name, columns, n=1)
         tip = f"did you mean {close[0]!r}? " if close else ""
         raise FormulaError(
-            f"model {formula!r} names column {name!r}, which the data do not have",
-            hint=f"{tip}available columns: {', '.join(columns)}",
+            f"the model {_show(formula)} names column {name!r}, which the data do not have",
+            hint=f"{tip}fix key 'model'; available columns: {', '.join(map(repr, columns))}",
         )
     return tuple(checker.used)
 
@@ -189,10 +238,14 @@ def numeric_columns(frame: pd.DataFrame, columns: list[str], name: str) -> tuple
             if bool(bad.any()):
                 rows = [int(r) for r in bad[bad].index[:5]]
                 sample = str(text.loc[rows[0]])[:30]
-                more = f" and {int(bad.sum()) - 1} more" if int(bad.sum()) > 1 else ""
+                count = int(bad.sum())
+                where = f"row {rows[0]}" if count == 1 else "rows " + ", ".join(map(str, rows))
+                more = f" and {count - len(rows)} more" if count > len(rows) else ""
                 raise DataFileError(
-                    f"{name}: column {col!r} has text where a number is expected: {sample!r} on row {rows[0]}{more}",
-                    hint="fix or delete those cells; an empty cell counts as a missing value",
+                    f"{name}: column {col!r} has text where a number is expected "
+                    f"({sample!r} on row {rows[0]}); {count} cell(s) in all, on {where}{more}",
+                    hint="fix or delete those cells (an empty cell counts as a missing value), "
+                    "or leave the column out of the model",
                 )
             series = converted
         out[col] = series.astype(float)
@@ -210,18 +263,25 @@ def build_design(formula: str, frame: pd.DataFrame, name: str, extra: tuple[str,
     for col in extra:
         if col not in columns:
             raise FormulaError(
-                f"column {col!r} is not in the data", hint=f"available columns: {', '.join(columns)}"
+                f"{name}: column {col!r} (named by key 'weights' or 'group') is not in the data",
+                hint=f"available columns: {', '.join(map(repr, columns))}",
             )
-    dropped: list[tuple[int, str]] = []
+    for col in numeric.columns:
+        if bool(numeric[col].isna().all()):
+            raise DataFileError(
+                f"{name}: column {col!r}, which the model uses, is empty in every row",
+                hint="fill the column in, or name another column in key 'model'",
+            )
+    dropped = _dropped_rows(numeric, frame, extra)
     finite = np.isfinite(numeric.to_numpy(dtype=float)).all(axis=1)
     extra_ok = frame[list(extra)].notna().all(axis=1).to_numpy() if extra else np.ones(len(frame), bool)
-    for row in numeric.index[~finite]:
-        vals = numeric.loc[row]
-        why = "missing value" if bool(vals.isna().any()) else "infinite value"
-        dropped.append((int(row), why))
-    for row in numeric.index[finite & ~extra_ok]:
-        dropped.append((int(row), "missing value"))
     keep = finite & extra_ok
+    if not bool(keep.any()):
+        raise FitError(
+            f"{name}: no row has a finite value in every column the model uses "
+            f"({', '.join(map(repr, (*used, *extra)))})",
+            hint="fill in the missing values, or check that key 'model' names the right columns",
+        )
     data = numeric[keep]
     for col in extra:
         if col not in data.columns:
@@ -233,17 +293,29 @@ def build_design(formula: str, frame: pd.DataFrame, name: str, extra: tuple[str,
                 formula, data, eval_env=env, return_type="dataframe", NA_action="raise"
             )
     except patsy.PatsyError as exc:
-        raise FormulaError(f"model {formula!r} cannot be applied to the data: {_patsy_message(exc)}") from exc
-    except (ValueError, TypeError, ArithmeticError) as exc:
-        raise FormulaError(f"model {formula!r} cannot be evaluated: {exc}") from exc
+        raise FormulaError(
+            f"{name}: the model {_show(formula)} cannot be applied to the data: {_patsy_message(exc)}",
+            hint="check key 'model'",
+        ) from exc
+    except (ValueError, TypeError, ArithmeticError, MemoryError) as exc:
+        raise FormulaError(
+            f"{name}: the model {_show(formula)} cannot be evaluated: {str(exc)[:200]}",
+            hint="check key 'model'",
+        ) from exc
     if y_df.shape[1] != 1:
         raise FormulaError(
-            f"model {formula!r} must have exactly one numeric response column on the left of '~'"
+            f"{name}: the model {_show(formula)} must have exactly one numeric response on the left of '~'",
+            hint="check key 'model'",
         )
     y = y_df.to_numpy(dtype=float)[:, 0]
     X = x_df.to_numpy(dtype=float)
     ok = np.isfinite(y) & np.isfinite(X).all(axis=1)
     rows = np.asarray(x_df.index, dtype=np.int64)
+    if not bool(ok.any()):
+        raise FitError(
+            f"{name}: the model {_show(formula)} is undefined in every row (e.g. the log of values ≤ 0)",
+            hint="check the transformations in key 'model' against the data",
+        )
     if not bool(ok.all()):
         for row in rows[~ok]:
             dropped.append(
@@ -251,6 +323,7 @@ def build_design(formula: str, frame: pd.DataFrame, name: str, extra: tuple[str,
             )
         X, y, rows = X[ok], y[ok], rows[ok]
         data = data.loc[rows]
+    _check_constant_terms(X, x_df.columns, intercept, name)
     X_ext, y_ext = _extended(x_df.design_info, y_df.design_info, data, X, y)
     return Design(
         X_ext=X_ext,
@@ -266,6 +339,45 @@ def build_design(formula: str, frame: pd.DataFrame, name: str, extra: tuple[str,
         data=data,
         design_info=x_df.design_info,
     )
+
+
+def _dropped_rows(
+    numeric: pd.DataFrame, frame: pd.DataFrame, extra: tuple[str, ...]
+) -> list[tuple[int, str]]:
+    """(CSV row, reason naming the column) of each row with a missing or infinite value the model needs."""
+    values = numeric.to_numpy(dtype=float)
+    missing = np.isnan(values)
+    infinite = np.isinf(values)
+    extra_missing = frame[list(extra)].isna().to_numpy() if extra else np.zeros((len(frame), 0), dtype=bool)
+    out: list[tuple[int, str]] = []
+    names = [str(c) for c in numeric.columns]
+    csv_rows = [int(r) for r in numeric.index]
+    bad_rows = np.flatnonzero(missing.any(axis=1) | infinite.any(axis=1) | extra_missing.any(axis=1))
+    for i in (int(k) for k in bad_rows):
+        j_miss = np.flatnonzero(missing[i])
+        j_inf = np.flatnonzero(infinite[i])
+        if j_miss.size:
+            out.append((csv_rows[i], f"missing value in {names[int(j_miss[0])]!r}"))
+        elif j_inf.size:
+            out.append((csv_rows[i], f"infinite value in {names[int(j_inf[0])]!r}"))
+        else:
+            col = extra[int(np.flatnonzero(extra_missing[i])[0])]
+            out.append((csv_rows[i], f"missing value in {col!r}"))
+    return out
+
+
+def _check_constant_terms(X: NDArray[np.float64], names: Any, intercept: bool, name: str) -> None:
+    """A predictor that never varies cannot be told apart from the intercept."""
+    if not intercept or X.shape[0] < 2:
+        return
+    for j, term in enumerate(str(c) for c in names):
+        if term != "Intercept" and float(np.ptp(X[:, j])) == 0.0:
+            raise FitError(
+                f"{name}: term {term!r} has the same value ({X[0, j]:.6g}) in all {X.shape[0]} rows used, "
+                "so its effect cannot be told apart from the intercept",
+                hint=f"the data need at least two different values of {term}; check that the model names "
+                "the right column",
+            )
 
 
 def design_for(design: Design, new: pd.DataFrame) -> NDArray[np.float64]:

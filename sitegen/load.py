@@ -3,14 +3,34 @@
 pandas is the CSV engine; its exceptions are translated here (the one boundary
 for pandas I/O) into :class:`~sitegen.errors.DataFileError` and chained.
 Row numbers reported anywhere are 1-based data rows (the header is row 0), so
-blank lines are kept as empty rows rather than skipped.
+blank lines inside the data are kept as empty rows rather than skipped; blank
+lines at the very end of the file are not rows.
+
+What the reader does with awkward files (documented for users in the README):
+
+- size, row and column limits from ``[limits]`` in site.toml are checked
+  before the data are parsed (:func:`read_source` checks the size before the
+  file is even read);
+- spreadsheet workbooks, archives and other binary files are refused by name;
+- UTF-16 and UTF-32 text (with a byte-order mark, or plainly recognisable) is
+  converted; a UTF-8 byte-order mark is dropped; text that is not UTF-8 is read
+  as Windows-1252 with a warning unless the sidecar names its ``encoding``;
+- the separator is detected among ``, ; tab |`` (or taken from a first line
+  ``sep=;`` as some spreadsheets write it), and a decimal comma is detected;
+- a first line of numbers (no header), unnamed or duplicate columns and lines
+  with more fields than the header are errors naming the line or column;
+  unnamed empty columns at the end of every line are dropped.
 """
 
 from __future__ import annotations
 
+import codecs
 import csv
 import io
+import re
+import warnings
 from dataclasses import dataclass
+from pathlib import Path
 
 import pandas as pd
 
@@ -19,6 +39,23 @@ from sitegen.spec import DatasetSpec, Limits
 
 _CANDIDATE_DELIMITERS = (",", ";", "\t", "|")
 _DELIM_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "vertical bar"}
+_HEAD_BYTES = 1 << 16
+_LINE_BREAK = re.compile(r"\r\n|\r|\n")
+_SEP_LINE = re.compile(r"^\ufeff?\"?sep=(.)\"?[ \t]*$")
+#: File signatures of things people save with a .csv name by mistake.
+_NOT_CSV = (
+    (b"PK\x03\x04", "a zip archive, for example an Excel (.xlsx) or OpenDocument (.ods) workbook"),
+    (b"\xd0\xcf\x11\xe0\xa1\xb1\x1a\xe1", "an old-style Excel (.xls) workbook"),
+    (b"\x1f\x8b", "a gzip-compressed file"),
+    (b"%PDF-", "a PDF document"),
+    (b"\x89PNG", "a PNG image"),
+)
+_WIDE_BOMS = (
+    (codecs.BOM_UTF32_LE, "utf-32"),
+    (codecs.BOM_UTF32_BE, "utf-32"),
+    (codecs.BOM_UTF16_LE, "utf-16"),
+    (codecs.BOM_UTF16_BE, "utf-16"),
+)
 
 
 @dataclass(frozen=True, slots=True)
@@ -32,40 +69,147 @@ class LoadedTable:
     notes: tuple[str, ...]
 
 
-def _check_limits(raw: bytes, limits: Limits, name: str) -> None:
-    megabytes = len(raw) / 1e6
-    if megabytes > limits.max_megabytes:
+def _megabytes(n_bytes: float) -> str:
+    mb = n_bytes / 1e6
+    return f"{mb:,.1f} MB" if mb >= 10 else f"{mb:.3g} MB"
+
+
+def _max_bytes(limits: Limits) -> int:
+    return int(limits.max_megabytes * 1e6)
+
+
+def _check_size(n_bytes: int, limits: Limits, name: str) -> None:
+    if n_bytes > _max_bytes(limits):
         raise DataLimitError(
-            f"{name} is {megabytes:,.1f} MB, over the limit of {limits.max_megabytes:,.0f} MB",
-            hint="raise [limits] max_megabytes in site.toml if this size is expected",
+            f"{name} is {_megabytes(n_bytes)}, over the limit of {_megabytes(_max_bytes(limits))}",
+            hint="raise [limits] max_megabytes in site.toml if files this large are expected",
         )
 
 
-def _decode_head(raw: bytes, encoding: str) -> tuple[str, str, list[str]]:
+def read_source(path: Path, limits: Limits, name: str) -> bytes:
+    """Read a dataset's file, refusing one over the size limit before reading it.
+
+    ``OSError`` (the file vanished or cannot be opened) is left to the caller,
+    which knows how to word it.
+    """
+    _check_size(path.stat().st_size, limits, name)
+    with path.open("rb") as fh:
+        raw = fh.read(_max_bytes(limits) + 1)  # the file may have grown since it was measured
+    _check_size(len(raw), limits, name)
+    return raw
+
+
+def _codec(encoding: str, name: str) -> str:
+    try:
+        return codecs.lookup(encoding).name
+    except LookupError as exc:
+        raise DataFileError(
+            f"{name}: the encoding {encoding!r} is unknown",
+            hint='set encoding in the sidecar to a text encoding such as "utf-8", "latin-1" or "cp1252"',
+        ) from exc
+
+
+def _refuse_other_formats(raw: bytes, name: str) -> None:
+    for magic, what in _NOT_CSV:
+        if raw.startswith(magic):
+            raise DataFileError(
+                f"{name} is {what}, not CSV text",
+                hint="open it in the program that made it and save or export the table as CSV",
+            )
+
+
+def _looks_utf16(sample: bytes) -> str | None:
+    """``utf-16-le``/``-be`` when the bytes are plainly UTF-16 text without a byte-order mark."""
+    sample = sample[: len(sample) - len(sample) % 2]
+    if len(sample) < 4:
+        return None
+    even, odd = sample[0::2], sample[1::2]
+    if odd.count(0) >= 0.9 * len(odd) and even.count(0) == 0:
+        return "utf-16-le"
+    if even.count(0) >= 0.9 * len(even) and odd.count(0) == 0:
+        return "utf-16-be"
+    return None
+
+
+def _widen(raw: bytes, declared: str, name: str) -> tuple[bytes, str | None, list[str]]:
+    """Convert UTF-16/UTF-32 text to UTF-8; returns (bytes, encoding it was in or None, notes)."""
+    codec = _codec(declared, name)
+    found: str | None = None
+    notes: list[str] = []
+    if codec.startswith(("utf-16", "utf-32")):
+        found = codec
+    elif codec in ("utf-8", "utf-8-sig"):
+        found = next((enc for bom, enc in _WIDE_BOMS if raw.startswith(bom)), None)
+        how = "its byte-order mark"
+        if found is None:
+            found = _looks_utf16(raw[:4096])
+            how = "the pattern of its bytes"
+        if found is not None:
+            notes.append(f"{name} is {found.upper()} text (recognised from {how}); it was converted to UTF-8")
+    if found is None:
+        return raw, None, notes
+    text = raw.decode(found, errors="replace").removeprefix("\ufeff")
+    return text.encode("utf-8"), found, notes
+
+
+def _refuse_binary(raw: bytes, name: str) -> None:
+    nul = raw.find(b"\x00")
+    if nul >= 0:
+        line = raw.count(b"\n", 0, nul) + 1
+        raise DataFileError(
+            f"{name} is not a text file: it contains a NUL byte (line {line}, byte {nul + 1})",
+            hint="export the data as CSV text; workbooks, databases and other binary files cannot be read",
+        )
+
+
+def _drop_trailing_blank_lines(raw: bytes) -> bytes:
+    """Blank lines after the last data line are not rows; keep the last line's own line end."""
+    end = len(raw)
+    while end > 0 and raw[end - 1] in b" \t\r\n":
+        end -= 1
+    tail = raw[end:]
+    cut = min((i for i in (tail.find(b"\n"), tail.find(b"\r")) if i >= 0), default=-1)
+    if cut < 0:
+        return raw
+    return raw[: end + cut] + b"\n"
+
+
+def _decode_head(raw: bytes, encoding: str, name: str) -> tuple[str, str, list[str]]:
     """Decode the start of the file; returns (text, encoding used, notes)."""
-    head = raw[: 1 << 16]
-    if encoding.lower().replace("_", "-") in ("utf-8", "utf8"):
+    head = raw[:_HEAD_BYTES]
+    if codecs.lookup(encoding).name in ("utf-8", "utf-8-sig"):
         try:
             return head.decode("utf-8-sig", errors="strict"), "utf-8-sig", []
         except UnicodeDecodeError as exc:
-            if exc.start >= len(head) - 4:  # a multi-byte character cut by the 64 KiB window
+            if exc.start >= len(head) - 4 and len(raw) > len(head):  # a character cut by the window
                 return head[: exc.start].decode("utf-8-sig"), "utf-8-sig", []
             line = head[: exc.start].count(b"\n") + 1
             note = (
-                f"the file is not UTF-8 (first odd byte on line {line}); it was read as Windows-1252 "
+                f"{name} is not UTF-8 (first odd byte on line {line}); it was read as Windows-1252 "
                 'text — set encoding = "latin-1" or the right encoding in the sidecar to silence this'
             )
             return head.decode("cp1252", errors="replace"), "cp1252", [note]
     return head.decode(encoding, errors="replace"), encoding, []
 
 
+def _lines(text: str, limit: int) -> list[str]:
+    return _LINE_BREAK.split(text, maxsplit=limit)[:limit]
+
+
+def _fields(line: str, delimiter: str) -> list[str]:
+    try:
+        return next(csv.reader([line], delimiter=delimiter), [])
+    except csv.Error:
+        return line.split(delimiter)
+
+
 def _sniff_delimiter(text: str) -> str:
-    lines = [ln for ln in text.splitlines()[:50] if ln.strip()]
+    lines = [ln for ln in _lines(text, 50) if ln.strip()]
     if not lines:
         return ","
     best, best_score = ",", -1
     for d in _CANDIDATE_DELIMITERS:
-        counts = [len(next(csv.reader([ln], delimiter=d))) for ln in lines]
+        counts = [len(_fields(ln, d)) for ln in lines]
         width = counts[0]
         if width < 2:
             continue
@@ -78,7 +222,7 @@ def _sniff_delimiter(text: str) -> str:
 def _looks_like_decimal_comma(text: str, delimiter: str) -> bool:
     if delimiter == ",":
         return False
-    rows = list(csv.reader(text.splitlines()[1:50], delimiter=delimiter))
+    rows = [_fields(ln, delimiter) for ln in _lines(text, 50)[1:]]
     cells = [c.strip() for r in rows for c in r if c.strip()]
     if not cells:
         return False
@@ -96,100 +240,185 @@ def _is_number(text: str) -> bool:
 
 def read_table(raw: bytes, spec: DatasetSpec, limits: Limits, name: str) -> LoadedTable:
     """Parse CSV bytes into a :class:`LoadedTable` or raise a :class:`DataFileError`."""
-    _check_limits(raw, limits, name)
+    _check_size(len(raw), limits, name)
     if not raw.strip():
         raise DataFileError(
-            f"{name} is empty", hint="export the data again; a header row and data rows are needed"
+            f"{name} is empty" if not raw else f"{name} holds only blank lines",
+            hint="export the data again; a header line naming the columns and data rows below it are needed",
         )
-    if b"\x00" in raw[:4096]:
-        raise DataFileError(
-            f"{name} is not a text file (it contains NUL bytes)",
-            hint="export the data as CSV text; spreadsheet workbooks and binaries cannot be read",
-        )
-    head, encoding, notes = _decode_head(raw, spec.encoding)
-    delimiter = spec.delimiter or _sniff_delimiter(head)
+    _refuse_other_formats(raw, name)
+    raw, wide, notes = _widen(raw, spec.encoding, name)
+    if not raw.strip():
+        raise DataFileError(f"{name} holds no text", hint="export the data again with a header and data rows")
+    _refuse_binary(raw, name)
+    raw = _drop_trailing_blank_lines(raw)
+    head, encoding, more = _decode_head(raw, "utf-8" if wide else spec.encoding, name)
+    notes += more
+    skip = 0
+    sep_line = _SEP_LINE.match(_lines(head, 1)[0])
+    delimiter = spec.delimiter
+    if sep_line is not None:
+        skip = 1
+        head = _LINE_BREAK.split(head, maxsplit=1)[1] if _LINE_BREAK.search(head) else ""
+        if delimiter is None:
+            delimiter = sep_line.group(1)
+            notes.append(f"{name}: the separator {_DELIM_NAMES.get(delimiter, repr(delimiter))} was taken "
+                         f"from its first line {sep_line.group(0).strip()!r}")  # fmt: skip
+    if delimiter is None:
+        delimiter = _sniff_delimiter(head)
+        if delimiter != ",":
+            shown = _DELIM_NAMES.get(delimiter, repr(delimiter))
+            notes.append(f"columns are separated by a {shown} (detected)")
     decimal = spec.decimal
-    if spec.delimiter is None and delimiter != ",":
-        notes.append(f"columns are separated by a {_DELIM_NAMES.get(delimiter, repr(delimiter))} (detected)")
     if spec.decimal == "." and _looks_like_decimal_comma(head, delimiter):
         decimal = ","
         notes.append(
             'numbers use a decimal comma (detected); set decimal = "," in the sidecar to make it explicit'
         )
+    if decimal == delimiter:
+        raise DataFileError(
+            f"{name}: the separator and the decimal mark are both {delimiter!r}",
+            hint='set delimiter = ";" (or the separator the file really uses) in the sidecar',
+        )
     header = _header(head, delimiter, name)
-    _check_header(header, name, limits)
-    frame = _parse(raw, delimiter, decimal, encoding, name)
+    trailing_blank = _check_header(header, name, limits, decimal)
+    frame = _parse(raw, delimiter, decimal, encoding, name, skip=skip, max_rows=limits.max_rows)
+    frame, dropped = _drop_unnamed(frame, header, trailing_blank, name)
+    if dropped:
+        notes.append(f"{name}: {dropped} unnamed empty column(s) at the end of each line were ignored")
+    if len(frame.columns) > limits.max_columns:
+        raise DataLimitError(
+            f"{name} has {len(frame.columns):,} columns, over the limit of {limits.max_columns:,}",
+            hint="raise [limits] max_columns in site.toml if tables this wide are expected",
+        )
     if len(frame) == 0:
         raise DataFileError(f"{name} has a header but no data rows", hint="add data rows below the header")
     if len(frame) > limits.max_rows:
         raise DataLimitError(
-            f"{name} has {len(frame):,} rows, over the limit of {limits.max_rows:,}",
-            hint="raise [limits] max_rows in site.toml if this size is expected",
+            f"{name} has more than {limits.max_rows:,} data rows, the limit",
+            hint="raise [limits] max_rows in site.toml if tables this long are expected",
         )
     frame.index = pd.RangeIndex(1, len(frame) + 1)
     return LoadedTable(
-        frame=frame, delimiter=delimiter, decimal=decimal, encoding=encoding, notes=tuple(notes)
+        frame=frame, delimiter=delimiter, decimal=decimal, encoding=wide or encoding, notes=tuple(notes)
     )
 
 
 def _header(head: str, delimiter: str, name: str) -> list[str]:
-    first = head.lstrip("\ufeff").splitlines()[0] if head.strip() else ""
-    try:
-        return next(csv.reader([first], delimiter=delimiter))
-    except (csv.Error, StopIteration) as exc:
-        raise DataFileError(f"{name}: the header line cannot be read ({exc})") from exc
+    first = _lines(head.lstrip("\ufeff"), 1)[0] if head.strip() else ""
+    if not first.strip():
+        raise DataFileError(
+            f"{name}: the first line is blank where the header should be",
+            hint="put the column names on the first line, directly followed by the data rows",
+        )
+    return _fields(first, delimiter)
 
 
-def _check_header(header: list[str], name: str, limits: Limits) -> None:
+def _check_header(header: list[str], name: str, limits: Limits, decimal: str) -> int:
+    """Check the column names; returns how many unnamed columns end the header."""
     cleaned = [h.strip() for h in header]
     if len(cleaned) > limits.max_columns:
         raise DataLimitError(
             f"{name} has {len(cleaned):,} columns, over the limit of {limits.max_columns:,}",
-            hint="raise [limits] max_columns in site.toml if this is expected",
+            hint="raise [limits] max_columns in site.toml if tables this wide are expected",
         )
-    if len(cleaned) < 2:
+    trailing = 0
+    while trailing < len(cleaned) and not cleaned[-1 - trailing]:
+        trailing += 1
+    named = cleaned[: len(cleaned) - trailing]
+    if not named:
         raise DataFileError(
-            f"{name}: the header has only one column ({cleaned[0][:40]!r})"
-            if cleaned
-            else f"{name}: the header line is empty",
-            hint='check the separator; set delimiter = ";" (or the right one) in the sidecar',
+            f"{name}: the header line names no columns", hint="put the column names on the first line"
         )
-    blanks = [i + 1 for i, h in enumerate(cleaned) if not h]
+    if len(named) < 2:
+        shown = named[0][:40]
+        raise DataFileError(
+            f"{name}: the header line has only one column ({shown!r})",
+            hint='check the separator: set delimiter = ";" (or the right one) in the sidecar; '
+            "a table needs at least two columns",
+        )
+    if all(_is_number(h.replace(",", ".", 1) if decimal == "," else h) for h in named):
+        preview = ", ".join(named[:4]) + (", …" if len(named) > 4 else "")
+        raise DataFileError(
+            f"{name}: the first line ({preview}) holds numbers, not column names",
+            hint="add a header line that names each column, e.g. x,y, above the data",
+        )
+    blanks = [i + 1 for i, h in enumerate(named) if not h]
     if blanks:
         raise DataFileError(
             f"{name}: column {blanks[0]} of the header has no name", hint="give every column a name"
         )
     seen: dict[str, int] = {}
-    for i, h in enumerate(cleaned, start=1):
+    for i, h in enumerate(named, start=1):
         if h in seen:
             raise DataFileError(
-                f"{name}: column name {h!r} appears twice (columns {seen[h]} and {i})",
+                f"{name}: column name {h!r} appears twice in the header (columns {seen[h]} and {i})",
                 hint="rename one of them so each column has its own name",
             )
         seen[h] = i
+    return trailing
 
 
-def _parse(raw: bytes, delimiter: str, decimal: str, encoding: str, name: str) -> pd.DataFrame:
+def _drop_unnamed(
+    frame: pd.DataFrame, header: list[str], trailing: int, name: str
+) -> tuple[pd.DataFrame, int]:
+    """Drop unnamed columns at the end of the header when they hold no values."""
+    if not trailing or len(frame.columns) != len(header):
+        return frame, 0
+    first = len(header) - trailing
+    for offset in range(trailing):
+        text = frame.iloc[:, first + offset].astype("string").str.strip()
+        filled = (text.notna() & (text != "")).to_numpy(dtype=bool)
+        if bool(filled.any()):
+            raise DataFileError(
+                f"{name}: column {first + offset + 1} has no name in the header but holds a value "
+                f"(data row {int(filled.argmax()) + 1})",
+                hint="give every column a name in the header line",
+            )
+    return frame.iloc[:, :first], trailing
+
+
+def _parse(
+    raw: bytes, delimiter: str, decimal: str, encoding: str, name: str, *, skip: int, max_rows: int
+) -> pd.DataFrame:
+    comma_hint = (
+        "; a number written with a decimal comma in a comma-separated file counts as two fields — "
+        'quote such numbers, or separate fields with ";" and set delimiter = ";" and decimal = "," '
+        "in the sidecar"
+        if delimiter == ","
+        else ""
+    )
     try:
-        frame = pd.read_csv(
-            io.BytesIO(raw),
-            sep=delimiter,
-            decimal=decimal,
-            encoding=encoding,
-            encoding_errors="replace",
-            skip_blank_lines=False,
-            skipinitialspace=True,
-            engine="c",
-            low_memory=False,
-        )
+        with warnings.catch_warnings():
+            # pandas warns (and drops values) when the first data line has more fields than the header.
+            warnings.simplefilter("error", pd.errors.ParserWarning)
+            frame = pd.read_csv(
+                io.BytesIO(raw),
+                sep=delimiter,
+                decimal=decimal,
+                encoding=encoding,
+                encoding_errors="replace",
+                skip_blank_lines=False,
+                skipinitialspace=True,
+                skiprows=skip,
+                index_col=False,
+                nrows=max_rows + 1,
+                engine="c",
+                low_memory=False,
+            )
     except pd.errors.EmptyDataError as exc:
         raise DataFileError(f"{name} has no columns", hint="export the data again with a header row") from exc
+    except pd.errors.ParserWarning as exc:
+        raise DataFileError(
+            f"{name}: line {2 + skip} has more fields than the header",
+            hint=f"every line needs the same number of separators as the header{comma_hint}",
+        ) from exc
     except pd.errors.ParserError as exc:
         raise DataFileError(
             f"{name} cannot be parsed as a table: {_parser_detail(exc)}",
-            hint="every line needs the same number of separators as the header",
+            hint=f"every line needs the same number of separators as the header{comma_hint}",
         ) from exc
-    except (UnicodeDecodeError, ValueError, OverflowError, MemoryError) as exc:
+    except (UnicodeError, ValueError, OverflowError, MemoryError) as exc:
         raise DataFileError(f"{name} cannot be read: {exc}") from exc
     frame.columns = [str(c).strip() for c in frame.columns]
     return frame
@@ -200,4 +429,4 @@ def _parser_detail(exc: Exception) -> str:
     # pandas says e.g. "Error tokenizing data. C error: Expected 2 fields in line 5, saw 3"
     if "C error:" in text:
         text = text.split("C error:", 1)[1].strip()
-    return text.rstrip(".")
+    return text.rstrip(".")[:300]

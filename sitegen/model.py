@@ -10,6 +10,7 @@ written as ``null``, as the output contract asks).
 from __future__ import annotations
 
 import dataclasses
+import functools
 import json
 import math
 import types
@@ -267,45 +268,73 @@ def to_json(report: FitReport) -> str:
     return json.dumps(body, sort_keys=True, ensure_ascii=False, allow_nan=False, separators=(",", ":")) + "\n"
 
 
-def _decode(tp: Any, value: object) -> Any:  # noqa: C901, PLR0912 - one branch per kind of type
+Decoder = typing.Callable[[Any], Any]
+
+
+def _float(v: Any) -> float:
+    return float("nan") if v is None else float(v)
+
+
+def _opt_float(v: Any) -> float | None:
+    return None if v is None else float(v)
+
+
+def _same(v: Any) -> Any:
+    return v
+
+
+@functools.cache
+def _decoder(tp: Any) -> Decoder:  # noqa: C901, PLR0911 - one branch per kind of type
+    """A function turning parsed JSON into a value of type ``tp`` (built once per type)."""
     origin = typing.get_origin(tp)
     if tp is float:
-        return float("nan") if value is None else float(typing.cast(float, value))
-    if tp in (int, str, bool):
-        return value
+        return _float
+    if tp in (int, str, bool) or origin is Literal or tp is Any or tp is object:
+        return _same
     if origin in (typing.Union, types.UnionType):
         args = [a for a in typing.get_args(tp) if a is not type(None)]
-        if value is None:
-            return None
-        return _decode(args[0], value)
-    if origin is Literal:
-        return value
+        if args == [float]:
+            return _opt_float
+        inner = _decoder(args[0])
+        return lambda v: None if v is None else inner(v)
     if origin is tuple:
         args = typing.get_args(tp)
-        assert isinstance(value, list)
         if len(args) == 2 and args[1] is Ellipsis:
-            return tuple(_decode(args[0], v) for v in value)
-        return tuple(_decode(a, v) for a, v in zip(args, value, strict=True))
+            item = _decoder(args[0])
+            if item is _same:
+                return tuple
+            return lambda v: tuple(map(item, v))
+        items = [_decoder(a) for a in args]
+        return lambda v: tuple(f(x) for f, x in zip(items, v, strict=True))
     if dataclasses.is_dataclass(tp) and isinstance(tp, type):
-        assert isinstance(value, dict)
         hints = typing.get_type_hints(tp)
-        kwargs = {
-            f.name: _decode(hints[f.name], value[f.name]) for f in dataclasses.fields(tp) if f.name in value
-        }
-        return tp(**kwargs)
-    if tp is typing.Any or tp is object:
-        return value
+        fields_ = [(f.name, _decoder(hints[f.name])) for f in dataclasses.fields(tp)]
+        cls = tp
+
+        def build(v: Any) -> Any:
+            return cls(**{name: dec(v[name]) for name, dec in fields_ if name in v})
+
+        return build
     raise TypeError(f"cannot decode {tp!r}")
 
 
-def from_json(text: str) -> FitReport:
-    """Parse ``fit.json`` back into a :class:`FitReport`; raises ``ValueError`` if malformed."""
+def _decode(tp: Any, value: object) -> Any:
+    return _decoder(tp)(value)
+
+
+def from_json(text: str, *, light: bool = False) -> FitReport:
+    """Parse ``fit.json`` back into a :class:`FitReport`; raises ``ValueError`` if malformed.
+
+    ``light`` leaves out the chart numbers (enough for indexes, summaries and history).
+    """
     try:
         body = json.loads(text)
         if body.get("format_version") != FORMAT_VERSION:
             raise ValueError("fit.json was written by another format version")
+        if light:
+            body.pop("chart", None)
         report = _decode(FitReport, body)
-    except (KeyError, TypeError, AssertionError, AttributeError) as exc:
+    except (KeyError, TypeError, AssertionError, AttributeError, ValueError) as exc:
         raise ValueError(f"malformed fit.json: {exc}") from exc
     assert isinstance(report, FitReport)
     return report

@@ -48,13 +48,13 @@ class DatasetSpec:
     unknown_keys: tuple[tuple[str, str | None], ...] = field(default=(), compare=False)
 
 
-class _Invalid(Exception):
+class _BadValueError(Exception):
     """A value failed validation; carries the expectation text."""
 
 
 def _string(v: object) -> str:
     if not isinstance(v, str):
-        raise _Invalid("a string")
+        raise _BadValueError("a string")
     return v
 
 
@@ -64,51 +64,51 @@ def _opt_string(v: object) -> str | None:
 
 def _tags(v: object) -> tuple[str, ...]:
     if not isinstance(v, list) or not all(isinstance(t, str) for t in v):
-        raise _Invalid('a list of strings, e.g. ["calibration", "nutrients"]')
+        raise _BadValueError('a list of strings, e.g. ["calibration", "nutrients"]')
     return tuple(dict.fromkeys(t.strip() for t in v if t.strip()))
 
 
 def _number(v: object) -> float:
     if isinstance(v, bool) or not isinstance(v, int | float) or not math.isfinite(float(v)):
-        raise _Invalid("a finite number")
+        raise _BadValueError("a finite number")
     return float(v)
 
 
 def _level(v: object) -> float:
     x = _number(v)
     if not 0.0 < x < 1.0:
-        raise _Invalid("a number strictly between 0 and 1, e.g. 0.95")
+        raise _BadValueError("a number strictly between 0 and 1, e.g. 0.95")
     return x
 
 
 def _positive(v: object) -> float:
     x = _number(v)
     if x <= 0:
-        raise _Invalid("a positive number")
+        raise _BadValueError("a positive number")
     return x
 
 
 def _readings(v: object) -> int:
     if isinstance(v, bool) or not isinstance(v, int) or v < 1:
-        raise _Invalid("a whole number of at least 1")
+        raise _BadValueError("a whole number of at least 1")
     return v
 
 
 def _boolean(v: object) -> bool:
     if not isinstance(v, bool):
-        raise _Invalid("true or false")
+        raise _BadValueError("true or false")
     return v
 
 
 def _numbers(v: object) -> tuple[float, ...]:
     if not isinstance(v, list):
-        raise _Invalid("a list of numbers, e.g. [0.5, 1.25]")
+        raise _BadValueError("a list of numbers, e.g. [0.5, 1.25]")
     return tuple(_number(x) for x in v)
 
 
 def _units(v: object) -> tuple[tuple[str, str], ...]:
     if not isinstance(v, dict) or not all(isinstance(u, str) for u in v.values()):
-        raise _Invalid('a table of column = "unit", e.g. { conc = "mg/L" }')
+        raise _BadValueError('a table of column = "unit", e.g. { conc = "mg/L" }')
     return tuple(sorted((str(k), str(u)) for k, u in v.items()))
 
 
@@ -116,24 +116,24 @@ def _claims(v: object) -> tuple[str, ...]:
     if isinstance(v, str):
         v = [v]
     if not isinstance(v, list) or not all(isinstance(c, str) and c.strip() for c in v):
-        raise _Invalid('a list of hypotheses as strings, e.g. ["x = 1", "Intercept = 0"]')
+        raise _BadValueError('a list of hypotheses as strings, e.g. ["x = 1", "Intercept = 0"]')
     return tuple(c.strip() for c in v)
 
 
 def _lines(v: object) -> tuple[str, ...]:
     if not isinstance(v, list) or not all(isinstance(c, str) for c in v):
-        raise _Invalid(f"a list chosen from {', '.join(LINE_CHOICES)}")
+        raise _BadValueError(f"a list chosen from {', '.join(LINE_CHOICES)}")
     bad = [c for c in v if c not in LINE_CHOICES]
     if bad:
         hint = _closest(bad[0], LINE_CHOICES)
         extra = f" (did you mean {hint!r}?)" if hint else ""
-        raise _Invalid(f"a list chosen from {', '.join(LINE_CHOICES)}; {bad[0]!r} is not one{extra}")
+        raise _BadValueError(f"a list chosen from {', '.join(LINE_CHOICES)}; {bad[0]!r} is not one{extra}")
     return tuple(dict.fromkeys(v))
 
 
 def _predict_at(v: object) -> tuple[tuple[tuple[str, float], ...], ...] | tuple[float, ...]:
     if not isinstance(v, list):
-        raise _Invalid("a list of x values, or a list of tables such as { flow = 12, head = 30 }")
+        raise _BadValueError("a list of x values, or a list of tables such as { flow = 12, head = 30 }")
     if all(isinstance(x, dict) for x in v):
         rows = []
         for row in v:
@@ -148,14 +148,14 @@ def _delimiter(v: object) -> str:
     if s in ("\\t", "tab"):
         s = "\t"
     if len(s) != 1 or s in "\"'\n\r" or s.isalnum():
-        raise _Invalid('one separator character such as ",", ";", "|" or "\\t"')
+        raise _BadValueError('one separator character such as ",", ";", "|" or "\\t"')
     return s
 
 
 def _decimal(v: object) -> str:
     s = _string(v)
     if s not in (".", ","):
-        raise _Invalid('"." or ","')
+        raise _BadValueError('"." or ","')
     return s
 
 
@@ -165,8 +165,9 @@ def _encoding(v: object) -> str:
     s = _string(v)
     try:
         codecs.lookup(s)
-    except LookupError:
-        raise _Invalid('a text encoding name such as "utf-8", "latin-1" or "cp1252"') from None
+        "x,y\n".encode(s).decode(s)  # rejects codecs that are not text encodings (rot13, base64, …)
+    except (LookupError, ValueError):
+        raise _BadValueError('a text encoding name such as "utf-8", "latin-1" or "cp1252"') from None
     return s
 
 
@@ -200,6 +201,11 @@ def _closest(word: str, choices: tuple[str, ...] | list[str]) -> str | None:
     return match[0] if match else None
 
 
+_TOML_HINT = (
+    'fix the place named; each setting is key = value, with text in double quotes, e.g. title = "Nitrate"'
+)
+
+
 def _read_toml(path: Path) -> dict[str, Any]:
     """Parse a TOML file; raises ``ValueError`` with a readable message."""
     try:
@@ -229,7 +235,7 @@ def validate_keys(
             continue
         try:
             clean[key] = check(value)
-        except _Invalid as exc:
+        except _BadValueError as exc:
             raise SidecarError(f"{where}: key '{key}' must be {exc}; got {_show(value)}") from None
     return clean, unknown
 
@@ -247,7 +253,7 @@ def read_sidecar(path: Path | None, defaults: Mapping[str, Any], display: str) -
         try:
             table = _read_toml(path)
         except ValueError as exc:
-            raise SidecarError(f"{display} {exc}") from exc
+            raise SidecarError(f"{display} {exc}", hint=_TOML_HINT) from exc
         clean, unknown = validate_keys(table, display)
         values.update(clean)
     return DatasetSpec(**values, unknown_keys=tuple(unknown))
@@ -298,7 +304,7 @@ def read_site_config(path: Path) -> tuple[SiteConfig, list[str]]:
     try:
         table = _read_toml(path)
     except ValueError as exc:
-        raise _site_error(str(exc)) from exc
+        raise SiteConfigError(f"site.toml {exc}", hint=_TOML_HINT) from exc
     warnings: list[str] = []
     for key in table:
         if key not in _SITE_KEYS:
@@ -319,7 +325,7 @@ def read_site_config(path: Path) -> tuple[SiteConfig, list[str]]:
     if "mail_budget_megabytes" in table:
         try:
             values["mail_budget_megabytes"] = _positive(table["mail_budget_megabytes"])
-        except _Invalid as exc:
+        except _BadValueError as exc:
             raise _site_error(f"key 'mail_budget_megabytes' must be {exc}") from None
     defaults = table.get("defaults", {})
     if not isinstance(defaults, dict):
@@ -356,6 +362,6 @@ def _read_limits(table: object) -> Limits:
     if "max_megabytes" in table:
         try:
             out["max_megabytes"] = _positive(table["max_megabytes"])
-        except _Invalid as exc:
+        except _BadValueError as exc:
             raise _site_error(f"[limits] key 'max_megabytes' must be {exc}") from None
     return Limits(**out)

@@ -4,8 +4,18 @@ Building and validating an Altair chart costs tens of milliseconds; filling a
 compiled spec costs about as much as ``json.dumps`` of its data. So every chart
 kind is built once per process with named data sources and placeholder titles
 (:func:`compiled`), and :func:`fill` copies that spec, sets its ``datasets`` and
-titles for one dataset. The tests validate every compiled spec against the
-Vega-Lite schema.
+titles for one dataset. The tests validate every compiled spec, and every spec
+of a built example site, against the Vega-Lite schema.
+
+Colours are not written into the specs: the page script passes the theme's
+chart colours (light or dark) as the Vega-Lite ``config``. Flagged points are
+told apart by shape and size as well as colour; the colour of the point kind
+comes from the config's ``ordinal`` range (``[mark, flag]``).
+
+A dataset page draws the same points in several charts. :func:`dataset_charts`
+writes them once, in the first chart, and the other charts name that chart's
+``points`` in ``usermeta.sitegen.borrow``; the page script copies them in before
+drawing. This keeps a page with thousands of sampled points small.
 """
 
 from __future__ import annotations
@@ -22,8 +32,14 @@ Spec = dict[str, Any]
 X_TITLE = "__x_title__"
 Y_TITLE = "__y_title__"
 WIDTH = 560
-HEIGHT = 340
+HEIGHT = 320
 SMALL = 300
+SMALL_HEIGHT = 220
+FACET_WIDTH = 420
+SIGNIFICANT = 6  # digits kept for drawing; the downloads keep full precision
+KINDS = ["ordinary", "flagged"]
+SHARED = "points"
+STATUS_WORDS = "datum.label == 'ok' ? 'sound' : datum.label == 'warn' ? 'check' : datum.label == 'error' ? 'failed' : datum.label"  # noqa: E501
 
 
 def _points(alt: Any) -> Any:
@@ -31,114 +47,245 @@ def _points(alt: Any) -> Any:
 
 
 def _tooltip(alt: Any, fields: Sequence[tuple[str, str]]) -> list[Any]:
-    return [alt.Tooltip(f"{f}:Q", title=t, format=",.4~g") if f != "row" else alt.Tooltip("row:Q", title="CSV row")
-            for f, t in fields]  # fmt: skip
+    return [
+        alt.Tooltip(f"{f}:Q", title=t, format=",.4~g")
+        if f != "row"
+        else alt.Tooltip("row:Q", title="CSV row")
+        for f, t in fields
+    ]
+
+
+def _bottom_legend(alt: Any, title: str) -> Any:
+    return alt.Legend(title=title, orient="bottom", direction="horizontal")
 
 
 def _kind_encodings(alt: Any) -> dict[str, Any]:
+    """Point kind by shape and size (never by colour alone); series by colour.
+
+    :func:`fill` turns the colour over to the point kind when a chart has only one series.
+    """
+    kind = {"domain": KINDS}
     return {
         "shape": alt.Shape(
-            "kind:N",
+            "kind:O",
             title="Point",
-            scale=alt.Scale(domain=["ordinary", "flagged"], range=["circle", "triangle-up"]),
-        ),  # fmt: skip
-        "color": alt.Color("series:N", title="Series", legend=alt.Legend(orient="bottom", columns=3)),
+            scale=alt.Scale(**kind, range=["circle", "triangle-up"]),
+            legend=_bottom_legend(alt, "Point"),
+        ),
+        "size": alt.Size(
+            "kind:O",
+            title="Point",
+            scale=alt.Scale(**kind, range=[34, 90]),
+            legend=_bottom_legend(alt, "Point"),
+        ),
+        "color": alt.Color("series:N", title="Series", legend=_bottom_legend(alt, "Series")),
     }
 
 
+def _point_mark(chart: Any) -> Any:
+    return chart.mark_point(filled=True, opacity=0.8, strokeWidth=0)
+
+
 def _fit_chart(alt: Any) -> Any:
-    x = alt.X("x:Q", title=X_TITLE, scale=alt.Scale(zero=False))
+    x = alt.X("x:Q", title=X_TITLE, scale=alt.Scale(zero=False, nice=False))
     y = alt.Y("y:Q", title=Y_TITLE, scale=alt.Scale(zero=False))
     band = alt.Chart(alt.Data(name="band"))
-    density = alt.Chart(alt.Data(name="density")).mark_rect(color="#7f7f7f").encode(
-        x=alt.X("x0:Q"), x2="x1:Q", y=alt.Y("y0:Q"), y2="y1:Q",
-        opacity=alt.Opacity("count:Q", title="Rows per cell", scale=alt.Scale(type="log", range=[0.08, 0.6])),
-        tooltip=[alt.Tooltip("count:Q", title="rows in this cell")],
-    )  # fmt: skip
-    pred = band.mark_area(opacity=0.14).encode(x=x, y=alt.Y("pred_low:Q"), y2="pred_high:Q",
-                                               tooltip=[alt.Tooltip("pred_low:Q", title="prediction low", format=",.4~g"),
-                                                        alt.Tooltip("pred_high:Q", title="prediction high", format=",.4~g")])  # fmt: skip
-    conf = band.mark_area(opacity=0.32).encode(x=x, y=alt.Y("mean_low:Q"), y2="mean_high:Q")
+    density = (
+        alt.Chart(alt.Data(name="density"))
+        .mark_rect()
+        .encode(
+            x=alt.X("x0:Q"),
+            x2="x1:Q",
+            y=alt.Y("y0:Q"),
+            y2="y1:Q",
+            opacity=alt.Opacity(
+                "count:Q",
+                title="Rows per cell",
+                scale=alt.Scale(type="log", range=[0.1, 0.7]),
+                legend=alt.Legend(orient="bottom", direction="horizontal", gradientLength=120),
+            ),
+            tooltip=[alt.Tooltip("count:Q", title="rows in this cell")],
+        )
+    )
+    pred = band.mark_area(opacity=0.13).encode(
+        x=x,
+        y=alt.Y("pred_low:Q"),
+        y2="pred_high:Q",
+        tooltip=[
+            alt.Tooltip("pred_low:Q", title="prediction low", format=",.4~g"),
+            alt.Tooltip("pred_high:Q", title="prediction high", format=",.4~g"),
+        ],
+    )
+    conf = band.mark_area(opacity=0.3).encode(x=x, y=alt.Y("mean_low:Q"), y2="mean_high:Q")
     fitted = band.mark_line(strokeWidth=2).encode(x=x, y=alt.Y("fit:Q"))
-    alt_lines = alt.Chart(alt.Data(name="lines")).mark_line(strokeWidth=1.6, clip=True).encode(
-        x=x, y=alt.Y("y:Q"), detail="label:N",
-        color=alt.Color("label:N", title="Series"),
-        strokeDash=alt.StrokeDash("label:N", title="Line"),
-    )  # fmt: skip
-    pts = _points(alt).mark_point(filled=True, size=46, opacity=0.85).encode(
-        x=x, y=y, **_kind_encodings(alt),
-        tooltip=_tooltip(alt, [("row", ""), ("x", "x"), ("y", "y"), ("fitted", "fitted"), ("residual", "residual")]),
-    )  # fmt: skip
+    alt_lines = (
+        alt.Chart(alt.Data(name="lines"))
+        .mark_line(strokeWidth=1.6, clip=True)
+        .encode(
+            x=x,
+            y=alt.Y("y:Q"),
+            detail="label:N",
+            color=alt.Color("label:N", title="Series", legend=_bottom_legend(alt, "Series")),
+            strokeDash=alt.StrokeDash(
+                "label:N", title="Other lines", legend=_bottom_legend(alt, "Other lines")
+            ),
+        )
+    )
+    pts = _point_mark(_points(alt)).encode(
+        x=x,
+        y=y,
+        **_kind_encodings(alt),
+        tooltip=_tooltip(
+            alt, [("row", ""), ("x", "x"), ("y", "y"), ("fitted", "fitted"), ("residual", "residual")]
+        ),
+    )
     return alt.layer(density, pred, conf, fitted, alt_lines, pts).properties(width=WIDTH, height=HEIGHT)
+
+
+def _small(chart: Any) -> Any:
+    return chart.properties(width=SMALL, height=SMALL_HEIGHT)
 
 
 def _residual_fitted(alt: Any) -> Any:
     rule = alt.Chart(alt.Data(name="zero")).mark_rule(strokeDash=[4, 3]).encode(y="y:Q")
-    pts = _points(alt).mark_point(filled=True, size=40, opacity=0.85).encode(
+    pts = _point_mark(_points(alt)).encode(
         x=alt.X("fitted:Q", title="Fitted value", scale=alt.Scale(zero=False)),
-        y=alt.Y("residual:Q", title="Residual"), **_kind_encodings(alt),
+        y=alt.Y("residual:Q", title="Residual"),
+        **_kind_encodings(alt),
         tooltip=_tooltip(alt, [("row", ""), ("fitted", "fitted"), ("residual", "residual")]),
-    )  # fmt: skip
-    return alt.layer(rule, pts).properties(width=SMALL, height=SMALL * 0.75)
+    )
+    return _small(alt.layer(rule, pts))
 
 
 def _qq(alt: Any) -> Any:
     ref = alt.Chart(alt.Data(name="reference")).mark_line(strokeDash=[4, 3]).encode(x="x:Q", y="y:Q")
-    pts = _points(alt).mark_point(filled=True, size=40, opacity=0.85).encode(
+    pts = _point_mark(_points(alt)).encode(
         x=alt.X("qq_theory:Q", title="Normal quantile"),
-        y=alt.Y("std_resid:Q", title="Standardized residual"), **_kind_encodings(alt),
-        tooltip=_tooltip(alt, [("row", ""), ("std_resid", "standardized residual"), ("qq_theory", "normal quantile")]),
-    )  # fmt: skip
-    return alt.layer(ref, pts).properties(width=SMALL, height=SMALL * 0.75)
+        y=alt.Y("std_resid:Q", title="Standardized residual"),
+        **_kind_encodings(alt),
+        tooltip=_tooltip(
+            alt, [("row", ""), ("std_resid", "standardized residual"), ("qq_theory", "normal quantile")]
+        ),
+    )
+    return _small(alt.layer(ref, pts))
 
 
 def _scale_location(alt: Any) -> Any:
-    pts = _points(alt).mark_point(filled=True, size=40, opacity=0.85).encode(
+    pts = _point_mark(_points(alt)).encode(
         x=alt.X("fitted:Q", title="Fitted value", scale=alt.Scale(zero=False)),
-        y=alt.Y("root_abs_std:Q", title="√|standardized residual|"), **_kind_encodings(alt),
-        tooltip=_tooltip(alt, [("row", ""), ("fitted", "fitted"), ("root_abs_std", "√|standardized residual|")]),
-    )  # fmt: skip
-    return pts.properties(width=SMALL, height=SMALL * 0.75)
+        y=alt.Y("root_abs_std:Q", title="√|standardized residual|"),
+        **_kind_encodings(alt),
+        tooltip=_tooltip(
+            alt, [("row", ""), ("fitted", "fitted"), ("root_abs_std", "√|standardized residual|")]
+        ),
+    )
+    return _small(pts)
 
 
 def _leverage(alt: Any) -> Any:
-    contour = alt.Chart(alt.Data(name="contours")).mark_line(strokeDash=[2, 3], clip=True).encode(
-        x="h:Q", y="r:Q", detail="branch:N", strokeDash=alt.StrokeDash("label:N", title="Cook's distance"),
-    )  # fmt: skip
-    pts = _points(alt).mark_point(filled=True, size=40, opacity=0.85).encode(
+    contour = (
+        alt.Chart(alt.Data(name="contours"))
+        .mark_line(clip=True, strokeWidth=1.2)
+        .encode(
+            x="h:Q",
+            y="r:Q",
+            detail="branch:N",
+            strokeDash=alt.StrokeDash(
+                "label:N",
+                title="Cook's distance",
+                scale=alt.Scale(range=[[6, 3], [2, 3]]),
+                legend=_bottom_legend(alt, "Cook's distance"),
+            ),
+        )
+    )
+    pts = _point_mark(_points(alt)).encode(
         x=alt.X("leverage:Q", title="Leverage"),
-        y=alt.Y("std_resid:Q", title="Standardized residual"), **_kind_encodings(alt),
-        tooltip=_tooltip(alt, [("row", ""), ("leverage", "leverage"), ("studentized", "studentized residual"),
-                               ("cooks", "Cook's distance")]),
-    )  # fmt: skip
-    return alt.layer(contour, pts).properties(width=SMALL, height=SMALL * 0.75)
+        y=alt.Y("std_resid:Q", title="Standardized residual"),
+        **_kind_encodings(alt),
+        tooltip=_tooltip(
+            alt,
+            [
+                ("row", ""),
+                ("leverage", "leverage"),
+                ("studentized", "studentized residual"),
+                ("cooks", "Cook's distance"),
+            ],
+        ),
+    )
+    return _small(alt.layer(contour, pts))
+
+
+def _forest_layers(alt: Any, y: Any | None, x_title: str) -> list[Any]:
+    base = alt.Chart(alt.Data(name="rows"))
+    on_y = {"y": y} if y is not None else {}
+    whisker = base.mark_rule(strokeWidth=2).encode(
+        x=alt.X("low:Q", title=x_title, scale=alt.Scale(zero=False)), x2="high:Q", **on_y
+    )
+    dot = base.mark_point(filled=True, size=70, opacity=1).encode(
+        x="estimate:Q",
+        **on_y,
+        shape=alt.Shape(
+            "status:N",
+            title="Status",
+            scale=alt.Scale(domain=["ok", "warn"], range=["circle", "diamond"]),
+            legend=alt.Legend(
+                title="Status", orient="bottom", direction="horizontal", labelExpr=STATUS_WORDS
+            ),
+        ),
+        tooltip=[
+            alt.Tooltip("label:N", title="Dataset"),
+            alt.Tooltip("term:N", title="Term"),
+            alt.Tooltip("estimate:Q", format=",.4~g"),
+            alt.Tooltip("low:Q", title="CI low", format=",.4~g"),
+            alt.Tooltip("high:Q", title="CI high", format=",.4~g"),
+        ],
+    )
+    return [whisker, dot]
 
 
 def _forest(alt: Any) -> Any:
-    base = alt.Chart(alt.Data(name="rows"))
-    y = alt.Y("label:N", title=None, sort=None)
-    whisker = base.mark_rule(strokeWidth=2).encode(x=alt.X("low:Q", title=X_TITLE, scale=alt.Scale(zero=False)),
-                                                   x2="high:Q", y=y)  # fmt: skip
-    dot = base.mark_point(filled=True, size=60).encode(
-        x="estimate:Q", y=y, shape=alt.Shape("status:N", title="Status"),
-        tooltip=[alt.Tooltip("label:N", title="Dataset"), alt.Tooltip("estimate:Q", format=",.4~g"),
-                 alt.Tooltip("low:Q", title="CI low", format=",.4~g"),
-                 alt.Tooltip("high:Q", title="CI high", format=",.4~g")],
-    )  # fmt: skip
-    return alt.layer(whisker, dot).properties(width=WIDTH - 160)
+    y = alt.Y("label:N", title=None, sort=None, axis=alt.Axis(labelLimit=260))
+    return alt.layer(*_forest_layers(alt, y, X_TITLE)).properties(width=WIDTH - 160)
+
+
+def _forest_mixed(alt: Any) -> Any:
+    """Datasets estimating different terms: one row each, each on its own scale."""
+    inner = alt.layer(*_forest_layers(alt, None, "")).properties(width=FACET_WIDTH, height=16)
+    header = alt.Header(
+        labelAngle=0,
+        labelOrient="top",
+        labelAnchor="start",
+        labelAlign="left",
+        labelLimit=FACET_WIDTH + 120,
+        labelFontSize=12,
+        labelPadding=4,
+    )
+    return (
+        inner.facet(
+            row=alt.Row("heading:N", title=None, sort=None, header=header), data=alt.Data(name="rows")
+        )
+        .resolve_scale(x="independent")
+        .properties(spacing=10)
+    )
 
 
 def _drift(alt: Any) -> Any:
     base = alt.Chart(alt.Data(name="history"))
-    x = alt.X("build:O", title="Build", axis=alt.Axis(labelAngle=-30))
-    band = base.mark_rule(strokeWidth=2).encode(x=x, y=alt.Y("low:Q", title=Y_TITLE, scale=alt.Scale(zero=False)),
-                                                y2="high:Q")  # fmt: skip
-    line = base.mark_line(point=True).encode(
-        x=x, y="estimate:Q",
-        tooltip=[alt.Tooltip("build:O", title="Build"), alt.Tooltip("estimate:Q", format=",.4~g"),
-                 alt.Tooltip("low:Q", title="CI low", format=",.4~g"), alt.Tooltip("high:Q", title="CI high", format=",.4~g")],
-    )  # fmt: skip
-    return alt.layer(band, line).properties(width=WIDTH, height=220)
+    x = alt.X("build:O", title="Build", sort=None, axis=alt.Axis(labelAngle=0))
+    band = base.mark_rule(strokeWidth=2).encode(
+        x=x, y=alt.Y("low:Q", title=Y_TITLE, scale=alt.Scale(zero=False)), y2="high:Q"
+    )
+    line = base.mark_line(point=alt.OverlayMarkDef(filled=True, size=50)).encode(
+        x=x,
+        y="estimate:Q",
+        tooltip=[
+            alt.Tooltip("build:O", title="Build"),
+            alt.Tooltip("estimate:Q", format=",.4~g"),
+            alt.Tooltip("low:Q", title="CI low", format=",.4~g"),
+            alt.Tooltip("high:Q", title="CI high", format=",.4~g"),
+        ],
+    )
+    return alt.layer(band, line).properties(width=WIDTH, height=200)
 
 
 _BUILDERS: dict[str, Callable[[Any], Any]] = {
@@ -148,6 +295,7 @@ _BUILDERS: dict[str, Callable[[Any], Any]] = {
     "scale_location": _scale_location,
     "leverage": _leverage,
     "forest": _forest,
+    "forest_mixed": _forest_mixed,
     "drift": _drift,
 }
 CHART_KINDS = tuple(_BUILDERS)
@@ -160,16 +308,19 @@ def compiled(kind: str) -> Spec:
 
     spec: Spec = _BUILDERS[kind](alt).to_dict(validate=False)
     spec.pop("config", None)
-    _container_width(spec)
-    spec["autosize"] = {"type": "fit-x", "contains": "padding"}
+    if _container_width(spec):
+        spec["autosize"] = {"type": "fit-x", "contains": "padding"}
     return spec
 
 
-def _container_width(spec: Spec) -> None:
-    """Charts take the width of their figure; heights stay fixed."""
+def _container_width(spec: Spec) -> bool:
+    """Single and layered charts take the width of their figure; heights stay fixed."""
+    changed = False
     for node in (spec, *spec.get("layer", [])):
         if "width" in node:
             node["width"] = "container"
+            changed = True
+    return changed
 
 
 def _replace_titles(node: Any, titles: dict[str, str]) -> Any:
@@ -192,8 +343,35 @@ def fill(
     spec["datasets"] = {name: datasets.get(name, []) for name in sorted(names)}
     if "layer" in spec:  # drop layers with nothing to draw (no density, no extra lines, …)
         spec["layer"] = [ly for ly in spec["layer"] if not _empty_layer(ly, spec["datasets"])]
-        spec["datasets"] = {k: v for k, v in spec["datasets"].items() if k in _data_names(spec["layer"])}
+        used = _data_names({k: v for k, v in spec.items() if k != "datasets"})
+        spec["datasets"] = {k: v for k, v in spec["datasets"].items() if k in used}
+    points = spec["datasets"].get("points")
+    if points is not None:
+        _point_legends(spec, points)
     return spec
+
+
+def _point_legends(spec: Spec, points: list[dict[str, Any]]) -> None:
+    """Colour by series only when there are several; else colour marks the flagged points.
+
+    A legend for the point kind is shown only when some point is flagged.
+    """
+    one_series = len({p.get("series") for p in points}) <= 1
+    any_flagged = any(p.get("kind") == "flagged" for p in points)
+    for layer in spec.get("layer", [spec]):
+        enc = layer.get("encoding", {})
+        if enc.get("color", {}).get("field") == "series" and one_series:
+            enc["color"] = {
+                "field": "kind",
+                "type": "ordinal",
+                "title": "Point",
+                "scale": {"domain": KINDS},
+                "legend": copy.deepcopy(enc["shape"].get("legend")),
+            }
+        if not any_flagged:
+            for channel in ("shape", "size", "color"):
+                if enc.get(channel, {}).get("field") == "kind":
+                    enc[channel]["legend"] = None
 
 
 def _empty_layer(layer: Spec, datasets: dict[str, list[dict[str, Any]]]) -> bool:
@@ -220,13 +398,24 @@ def _label(column: str, units: dict[str, str]) -> str:
     return f"{column} ({unit})" if unit else column
 
 
+def _short(value: Any) -> Any:
+    """A float cut to the digits a chart can show; other values unchanged."""
+    if isinstance(value, float) and math.isfinite(value) and value != 0.0:
+        return float(f"{value:.{SIGNIFICANT}g}")
+    return value
+
+
+def _records(columns: Sequence[str], rows: Sequence[Sequence[Any]]) -> list[dict[str, Any]]:
+    return [{c: _short(v) for c, v in zip(columns, row, strict=True)} for row in rows]
+
+
 def point_records(chart: ChartData) -> list[dict[str, Any]]:
     """The sampled observations as records, with a point kind and series for the legend."""
-    cols = chart.point_columns
     records = []
-    for i, row in enumerate(chart.points):
-        rec: dict[str, Any] = dict(zip(cols, row, strict=True))
-        flagged = rec.get("flag") == 1.0
+    for i, rec in enumerate(_records(chart.point_columns, chart.points)):
+        flagged = rec.pop("flag", None) == 1.0
+        if isinstance(rec.get("row"), float):
+            rec["row"] = int(rec["row"])
         rec["kind"] = "flagged" if flagged else "ordinary"
         rec["series"] = chart.point_groups[i] if chart.point_groups else "observations"
         records.append(rec)
@@ -234,7 +423,7 @@ def point_records(chart: ChartData) -> list[dict[str, Any]]:
 
 
 def dataset_charts(report: FitReport) -> dict[str, Spec]:
-    """Every chart of a dataset page, by kind."""
+    """Every chart of a dataset page, by kind (the first chart carries the points for the others)."""
     chart = report.chart
     if chart is None:
         return {}
@@ -242,17 +431,39 @@ def dataset_charts(report: FitReport) -> dict[str, Spec]:
     points = point_records(chart)
     out: dict[str, Spec] = {}
     if chart.x is not None and chart.band:
-        band = [dict(zip(chart.band_columns, r, strict=True)) for r in chart.band]
-        out["fit"] = fill("fit", {"points": points, "band": band, "lines": _line_records(report, chart),
-                                  "density": [dict(zip(chart.density_columns, r, strict=True)) for r in chart.density]},
-                          x_title=_label(chart.x, units), y_title=_label(chart.y, units))  # fmt: skip
+        out["fit"] = fill(
+            "fit",
+            {
+                "points": points,
+                "band": _records(chart.band_columns, chart.band),
+                "lines": _line_records(report, chart),
+                "density": _records(chart.density_columns, chart.density),
+            },
+            x_title=_label(chart.x, units),
+            y_title=_label(chart.y, units),
+        )
     out["residual_fitted"] = fill("residual_fitted", {"points": points, "zero": [{"y": 0.0}]})
     qq = [v for v in (p.get("qq_theory") for p in points) if v is not None]
     lim = max((abs(v) for v in qq), default=2.0)
     out["qq"] = fill("qq", {"points": points, "reference": [{"x": -lim, "y": -lim}, {"x": lim, "y": lim}]})
     out["scale_location"] = fill("scale_location", {"points": points})
     out["leverage"] = fill("leverage", {"points": points, "contours": _contours(points, len(report.terms))})
+    share_points(out)
     return out
+
+
+def share_points(specs: dict[str, Spec]) -> None:
+    """Keep the shared points in the first spec that has them; the others borrow them by name."""
+    lender = ""
+    for name, spec in specs.items():
+        if SHARED not in spec.get("datasets", {}):
+            continue
+        if not lender:
+            lender = name
+            spec["usermeta"] = {"sitegen": {"lend": {SHARED: name}}}
+        else:
+            spec["datasets"][SHARED] = []
+            spec["usermeta"] = {"sitegen": {"borrow": {SHARED: lender}}}
 
 
 SHORT_LINE_LABELS = {
@@ -269,12 +480,21 @@ def _line_records(report: FitReport, chart: ChartData) -> list[dict[str, Any]]:
         return []
     x0, x1 = min(xs), max(xs)
     out = [
-        {"label": SHORT_LINE_LABELS.get(ln.method, ln.method), "x": x, "y": ln.intercept + ln.slope * x}
-        for ln in report.lines if ln.method != "ols" for x in (x0, x1)
-    ]  # fmt: skip
+        {
+            "label": SHORT_LINE_LABELS.get(ln.method, ln.method),
+            "x": x,
+            "y": _short(ln.intercept + ln.slope * x),
+        }
+        for ln in report.lines
+        if ln.method != "ols"
+        for x in (x0, x1)
+    ]
     if report.groups is not None:
-        out += [{"label": f"{g.group} line", "x": x, "y": g.intercept + g.slope * x}
-                for g in report.groups.lines for x in (x0, x1)]  # fmt: skip
+        out += [
+            {"label": f"{g.group} line", "x": x, "y": _short(g.intercept + g.slope * x)}
+            for g in report.groups.lines
+            for x in (x0, x1)
+        ]
     return out
 
 
@@ -293,14 +513,24 @@ def _contours(points: list[dict[str, Any]], p: int) -> list[dict[str, Any]]:
                 h = h_max * k / 40
                 r = sign * math.sqrt(d * p * (1 - h) / h)
                 if abs(r) <= r_lim:
-                    out.append({"h": h, "r": r, "label": f"D = {d:g}", "branch": f"{d}{branch}"})
+                    out.append(
+                        {"h": _short(h), "r": _short(r), "label": f"D = {d:g}", "branch": f"{d}{branch}"}
+                    )
     return out
 
 
 def forest_chart(rows: list[dict[str, Any]], term: str) -> Spec:
-    """Estimates of one term across datasets with their confidence intervals."""
+    """Estimates of one term across datasets with their confidence intervals.
+
+    When the rows estimate different terms (``term`` of each row), each row gets its own scale:
+    numbers in different units never share an axis.
+    """
+    terms = {row.get("term") for row in rows}
+    if len(terms) > 1:
+        headed = [{**row, "heading": f"{row['label']} — {row.get('term')}"} for row in rows]
+        return fill("forest_mixed", {"rows": headed})
     spec = fill("forest", {"rows": rows}, x_title=term)
-    spec["height"] = max(60, 22 * len(rows))
+    spec["height"] = max(40, 26 * len(rows))
     return spec
 
 
