@@ -151,6 +151,7 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         messages=tuple(messages),
         diagnostics=pieces.diagnostics,
         flagged=pieces.flagged,
+        flagged_total=pieces.flagged_total,
         cutoffs=pieces.cutoffs,
         lines=pieces.lines,
         lines_text=pieces.lines_text,

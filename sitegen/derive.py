@@ -63,6 +63,7 @@ class Derived:
     messages: list[Message]
     diagnostics: tuple[Diagnostic, ...]
     flagged: tuple[FlaggedPoint, ...]
+    flagged_total: int
     cutoffs: tuple[tuple[str, float], ...]
     robust_se: FloatArray | None
     claims: tuple[ClaimTest, ...]
@@ -156,6 +157,7 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
         messages=messages,
         diagnostics=diagnostics,
         flagged=_flagged(design, infl, flags),
+        flagged_total=len(flags.rows),
         cutoffs=(
             ("leverage", flags.leverage_cutoff),
             ("studentized_residual", flags.residual_cutoff),

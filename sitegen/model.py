@@ -228,7 +228,8 @@ class FitReport:
     anova: tuple[AnovaLine, ...] = ()
     messages: tuple[Message, ...] = ()
     diagnostics: tuple[Diagnostic, ...] = ()
-    flagged: tuple[FlaggedPoint, ...] = ()
+    flagged: tuple[FlaggedPoint, ...] = ()  # at most the 500 most influential flagged rows
+    flagged_total: int = 0
     cutoffs: tuple[tuple[str, float], ...] = ()
     lines: tuple[AltLine, ...] = ()
     lines_text: str = ""
