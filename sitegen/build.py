@@ -265,9 +265,33 @@ def _nothing_changed(
         e = prev.entries[s.slug]
         if e.get("fingerprint") != prints[s.slug][1] or not prints[s.slug][1] or e.get("status") == "error":
             return False
-        if not (prev.site / "datasets" / s.slug / "index.html").is_file():
+        if _stored_report(prev.site / "datasets" / s.slug, s.slug) is None:
             return False
-    return (prev.site / "index.html").is_file()
+    # every file the previous build wrote is still there at its size, and nothing else is
+    return prev.body.get("files") == _manifest(prev.site)
+
+
+def _manifest(site: Path) -> dict[str, int]:
+    """Size of every file of a built site, except build.json and sitegen's own top-level dot files."""
+    out: dict[str, int] = {}
+    for path in sorted(site.rglob("*")):
+        rel = path.relative_to(site).as_posix()
+        if rel != "build.json" and not rel.startswith(".") and path.is_file():
+            out[rel] = path.stat().st_size
+    return out
+
+
+def _stored_report(folder: Path, slug: str) -> FitReport | None:
+    """The stored result in ``folder/fit.json`` when it is whole and reusable, else None."""
+    from sitegen.model import from_json  # noqa: PLC0415
+
+    try:
+        report = from_json((folder / "fit.json").read_text(encoding="utf-8"), light=True)
+    except (OSError, ValueError):
+        return None
+    if report.dataset != slug or report.status == "error" or not report.coefficients or report.n is None:
+        return None  # a fit.json that parses but lost its numbers is not a result
+    return report
 
 
 def _touch_build_json(out_dir: Path, prev: _Previous) -> tuple[Outcome, ...]:
@@ -309,19 +333,19 @@ class _Build:
         self.config, self.site_key, self.run, self.progress = config, site_key, run, progress
 
     def _reuse(self, src: DatasetSource) -> tuple[FitReport, tuple[str, ...]] | None:
-        from sitegen.model import from_json  # noqa: PLC0415
-
         entry = self.prev.entries.get(src.slug)
         fp = self.prints[src.slug][1]
         if self.prev.site is None or entry is None or entry.get("fingerprint") != fp or not fp:
             return None
         old = self.prev.site / "datasets" / src.slug
-        try:
-            report = from_json((old / "fit.json").read_text(encoding="utf-8"), light=True)
-        except (OSError, ValueError):
+        report = _stored_report(old, src.slug)
+        if report is None:
             return None
-        if report.dataset != src.slug or report.status == "error":
-            return None
+        prefix = f"datasets/{src.slug}/"
+        then = self.prev.body.get("files")
+        then_here = {k: v for k, v in then.items() if k.startswith(prefix)} if isinstance(then, dict) else {}
+        if not then_here or then_here != {prefix + k: v for k, v in _manifest(old).items()}:
+            return None  # a file of its folder is missing or changed since the previous build wrote it
         new = self.work / "datasets" / src.slug
         new.mkdir(parents=True, exist_ok=True)
         files = []
@@ -419,6 +443,7 @@ class _Build:
             "site_key": self.site_key,
             "mail_budget_megabytes": self.config.mail_budget_megabytes,
             "datasets": entries,
+            "files": _manifest(self.work),  # written last: every other file of the site is in place
         }
         text = json.dumps(body, indent=1, sort_keys=True) + "\n"
         (self.work / "build.json").write_text(text, encoding="utf-8")

@@ -112,7 +112,7 @@ def _build(args: argparse.Namespace, out: _Printer) -> int:
         out.warn(w)
     for o in summary.outcomes:
         if o.status == "error":
-            out.error(f"{o.source}: {o.message}")
+            out.error(o.message if o.source in o.message else f"{o.source}: {o.message}")
     if args.debug:
         for name, trace in summary.debug_traces:
             print(f"--- traceback for {name} ---\n{trace}", file=out.stream)

@@ -1,0 +1,246 @@
+"""Rebuilding a site: reuse what did not change, refit what did, repair what is damaged.
+
+Contract (DESIGN.md): build.json records per dataset whether it was reused or
+refitted; "new data refit only the datasets that changed"; two builds of the
+same input are identical apart from build.json. build.py's own promise: a
+missing or corrupt previous site only means more work, never an error.
+
+The change report (changes.html) is read through the section ids of the default
+theme's template (h-refit, h-new, h-removed).
+"""
+
+from __future__ import annotations
+
+import csv
+import hashlib
+import json
+import re
+from collections.abc import Callable
+from pathlib import Path
+from typing import Any
+
+import pytest
+from conftest import Built, cli, site_bytes, write_csv, write_toml
+
+SLUGS = ["alpha", "beta", "section-gamma"]
+
+
+def build(data: Path, site: Path, *extra: str) -> int:
+    result = cli("build", data, "-o", site, "-j", "1", *extra)
+    assert "Traceback" not in result.output
+    return result.code
+
+
+def build_json(site: Path) -> dict[str, Any]:
+    body = json.loads((site / "build.json").read_text(encoding="utf-8"))
+    assert isinstance(body, dict)
+    return body
+
+
+def reused(site: Path) -> dict[str, bool]:
+    return {e["dataset"]: e["reused"] for e in build_json(site)["datasets"]}
+
+
+def summary_slugs(site: Path) -> list[str]:
+    with (site / "summary.csv").open(newline="", encoding="utf-8") as f:
+        return [r["dataset"] for r in csv.DictReader(f)]
+
+
+def change_section(site: Path, section_id: str) -> str | None:
+    """The HTML of one section of changes.html, or None when the page has no such section."""
+    html = (site / "changes.html").read_text(encoding="utf-8")
+    m = re.search(rf'<section aria-labelledby="{section_id}">(.*?)</section>', html, re.S)
+    return m.group(1) if m else None
+
+
+@pytest.fixture
+def built(small_data: Path, tmp_path: Path) -> tuple[Path, Path]:
+    site = tmp_path / "site"
+    assert build(small_data, site) == 0
+    assert reused(site) == dict.fromkeys(SLUGS, False)
+    return small_data, site
+
+
+def test_unchanged_input_reuses_everything_and_gives_identical_pages(built: tuple[Path, Path]) -> None:
+    data, site = built
+    before = site_bytes(site, skip=("build.json",))
+    assert build(data, site) == 0
+    assert reused(site) == dict.fromkeys(SLUGS, True)
+    assert site_bytes(site, skip=("build.json",)) == before
+
+
+def test_unchanged_example_reuses_everything(example_build: Built, tmp_path: Path) -> None:
+    """The example site, copied, rebuilt in place: every dataset reused, every other file identical."""
+    import shutil  # noqa: PLC0415
+
+    site = tmp_path / "site"
+    shutil.copytree(example_build.site, site)
+    before = site_bytes(site, skip=("build.json",))
+    assert build(example_build.data, site) == 0
+    assert all(reused(site).values())
+    assert len(reused(site)) == 13
+    assert site_bytes(site, skip=("build.json",)) == before
+
+
+def test_changed_csv_is_the_only_one_refitted(built: tuple[Path, Path]) -> None:
+    data, site = built
+    others = {s: (site / "datasets" / s / "fit.json").read_bytes() for s in ("alpha", "section-gamma")}
+    new_bytes = b"dose,response\n0,0.10\n1,0.55\n2,0.91\n3,1.30\n4,1.74\n5,2.02\n6,2.49\n"
+    (data / "beta.csv").write_bytes(new_bytes)
+    assert build(data, site) == 0
+    assert reused(site) == {"alpha": True, "beta": False, "section-gamma": True}
+    entry = next(e for e in build_json(site)["datasets"] if e["dataset"] == "beta")
+    assert entry["input_sha256"] == hashlib.sha256(new_bytes).hexdigest()
+    fit = json.loads((site / "datasets" / "beta" / "fit.json").read_text(encoding="utf-8"))
+    assert fit["n"] == 7
+    for slug, body in others.items():
+        assert (site / "datasets" / slug / "fit.json").read_bytes() == body
+    refit = change_section(site, "h-refit")
+    assert refit is not None, "changes.html lists the refitted dataset"
+    assert "datasets/beta/index.html" in refit
+    assert "datasets/alpha/" not in refit
+    assert "datasets/section-gamma/" not in refit
+
+
+def test_changed_sidecar_refits_that_dataset(built: tuple[Path, Path]) -> None:
+    data, site = built
+    write_toml(data / "alpha.toml", {"title": "Alpha line", "model": "y ~ x", "level": 0.9})
+    assert build(data, site) == 0
+    assert reused(site) == {"alpha": False, "beta": True, "section-gamma": True}
+    fit = json.loads((site / "datasets" / "alpha" / "fit.json").read_text(encoding="utf-8"))
+    assert fit["level"] == 0.9
+
+
+def test_changed_site_defaults_refit_every_dataset(built: tuple[Path, Path]) -> None:
+    data, site = built
+    write_toml(data / "site.toml", "[defaults]\nlevel = 0.99\n")
+    assert build(data, site) == 0
+    assert reused(site) == dict.fromkeys(SLUGS, False)
+
+
+def test_deleted_csv_disappears(built: tuple[Path, Path]) -> None:
+    data, site = built
+    (data / "beta.csv").unlink()
+    assert build(data, site) == 0
+    assert not (site / "datasets" / "beta").exists()
+    assert summary_slugs(site) == ["alpha", "section-gamma"]
+    summary = json.loads((site / "summary.json").read_text(encoding="utf-8"))
+    assert [o["dataset"] for o in summary] == ["alpha", "section-gamma"]
+    assert [e["dataset"] for e in build_json(site)["datasets"]] == ["alpha", "section-gamma"]
+    assert "datasets/beta/" not in (site / "index.html").read_text(encoding="utf-8")
+    for page in site.rglob("*.html"):
+        if page.name != "changes.html":
+            assert "beta/index.html" not in page.read_text(encoding="utf-8"), page
+    removed = change_section(site, "h-removed")
+    assert removed is not None, "changes.html lists the removed dataset"
+    assert "beta" in removed
+
+
+def test_new_csv_is_listed_as_new(built: tuple[Path, Path]) -> None:
+    data, site = built
+    write_csv(data / "delta.csv", "p,q\n1,1.9\n2,4.2\n3,5.8\n4,8.1\n5,9.9\n")
+    assert build(data, site) == 0
+    assert reused(site) == {"alpha": True, "beta": True, "delta": False, "section-gamma": True}
+    new = change_section(site, "h-new")
+    assert new is not None
+    assert "datasets/delta/index.html" in new
+    assert "datasets/alpha/" not in new
+
+
+def test_change_report_of_one_rebuild_lists_new_removed_and_refitted(built: tuple[Path, Path]) -> None:
+    data, site = built
+    (data / "alpha.csv").write_text("x,y\n1,2.0\n2,4.1\n3,5.9\n4,8.2\n5,9.8\n6,12.1\n7,14.0\n", "utf-8")
+    (data / "beta.csv").unlink()
+    write_csv(data / "delta.csv", "p,q\n1,1.9\n2,4.2\n3,5.8\n4,8.1\n5,9.9\n")
+    assert build(data, site) == 0
+    refit, new, removed = (change_section(site, s) for s in ("h-refit", "h-new", "h-removed"))
+    assert refit is not None
+    assert "datasets/alpha/index.html" in refit
+    assert new is not None
+    assert "datasets/delta/index.html" in new
+    assert removed is not None
+    assert "beta" in removed
+    assert "section-gamma" not in refit + new + removed
+
+
+def _stripped(good: bytes) -> bytes:
+    """A well-formed fit.json of the right format version that lost its numbers."""
+    body = json.loads(good)
+    for key in ("coefficients", "n", "df_model", "df_resid", "r_squared", "adj_r_squared",
+                "residual_std_error", "f_stat", "f_p_value", "anova", "chart", "diagnostics"):  # fmt: skip
+        body.pop(key, None)
+    return json.dumps(body).encode()
+
+
+DAMAGES = [
+    pytest.param(lambda good: b"{not json", id="garbage"),
+    pytest.param(lambda good: b"", id="empty"),
+    pytest.param(lambda good: b"{}\n", id="empty-object"),
+    pytest.param(lambda good: good[: len(good) // 2], id="truncated"),
+    pytest.param(_stripped, id="numbers-missing"),
+    pytest.param(lambda good: None, id="deleted"),
+]
+
+
+@pytest.mark.parametrize("damage", DAMAGES)
+@pytest.mark.parametrize("other_change", [False, True], ids=["nothing-else-changed", "another-csv-changed"])
+def test_corrupt_previous_fit_json_is_refitted_without_error(
+    built: tuple[Path, Path], damage: Callable[[bytes], bytes | None], other_change: bool
+) -> None:
+    data, site = built
+    target = site / "datasets" / "alpha" / "fit.json"
+    good = target.read_bytes()
+    bad = damage(good)
+    if bad is None:
+        target.unlink()
+    else:
+        target.write_bytes(bad)
+    if other_change:
+        (data / "beta.csv").write_text("dose,response\n0,0.1\n1,0.5\n2,0.9\n3,1.3\n4,1.7\n", "utf-8")
+    result = cli("build", data, "-o", site, "-j", "1")
+    assert result.code == 0, result.output
+    assert "Traceback" not in result.output
+    assert reused(site) == {"alpha": False, "beta": not other_change, "section-gamma": True}
+    assert target.read_bytes() == good
+
+
+@pytest.mark.parametrize(
+    "name",
+    ["summary.csv", "summary.json", "index.html", "assets/style.css", "datasets/beta/observations.csv",
+     "datasets/beta/coefficients.csv", "datasets/beta/index.html"],
+)  # fmt: skip
+def test_deleted_site_files_are_restored(built: tuple[Path, Path], name: str) -> None:
+    """A missing file of the previous site only means more work (build.py's promise)."""
+    data, site = built
+    expected = site_bytes(site, skip=("build.json",))
+    (site / name).unlink()
+    assert build(data, site) == 0
+    assert site_bytes(site, skip=("build.json",)) == expected
+
+
+def test_corrupt_previous_build_json_means_a_full_build(built: tuple[Path, Path]) -> None:
+    data, site = built
+    (site / "build.json").write_text("[1, 2", encoding="utf-8")
+    assert build(data, site) == 0
+    assert reused(site) == dict.fromkeys(SLUGS, False)
+
+
+def test_refit_option_refits_everything(built: tuple[Path, Path]) -> None:
+    data, site = built
+    before = site_bytes(site, skip=("build.json",))
+    assert build(data, site, "--refit") == 0
+    assert reused(site) == dict.fromkeys(SLUGS, False)
+    assert site_bytes(site, skip=("build.json",)) == before
+
+
+def test_failed_dataset_is_tried_again_and_recovers(built: tuple[Path, Path]) -> None:
+    data, site = built
+    write_csv(data / "broken.csv", "x,y\n1,2\n2,oops\n3,4\n4,5\n")
+    write_toml(data / "broken.toml", {"model": "y ~ x"})
+    assert build(data, site) == 1
+    assert build(data, site) == 1, "an error is never reused as a success"
+    assert reused(site)["broken"] is False
+    write_csv(data / "broken.csv", "x,y\n1,2\n2,3.1\n3,4\n4,5.2\n")
+    assert build(data, site) == 0
+    fit = json.loads((site / "datasets" / "broken" / "fit.json").read_text(encoding="utf-8"))
+    assert fit["status"] in ("ok", "warn")
