@@ -295,7 +295,7 @@ def _groups(
         messages.append(Message("warning", "one line per group needs a straight-line model such as \"y ~ x\"; "
                                            "the 'group' request was skipped"))  # fmt: skip
         return None
-    labels = design.data[spec.group].astype(str).to_numpy()
+    labels = design.data[spec.group].astype(str).to_numpy(dtype=str)
     try:
         return compare_groups(design.X[:, 1], design.y, labels, spec.group, fit.level)
     except DatasetError as exc:

@@ -93,12 +93,18 @@ class _FactorChecker(ast.NodeVisitor):
 
     def generic_visit(self, node: ast.AST) -> None:
         if not isinstance(node, _ALLOWED_NODES):
-            raise FormulaError(f"'{type(node).__name__}' is not allowed in a model formula")
+            raise FormulaError(
+                f"'{type(node).__name__}' is not allowed in a model formula",
+                hint="key 'model' may hold column names, numbers, arithmetic and a few numpy functions",
+            )
         super().generic_visit(node)
 
     def visit_Constant(self, node: ast.Constant) -> None:
         if not isinstance(node.value, int | float) or isinstance(node.value, bool):
-            raise FormulaError(f"only numbers may appear as constants in a model formula, not {node.value!r}")
+            raise FormulaError(
+                f"only numbers may appear as constants in a model formula, not {repr(node.value)[:60]}",
+                hint="quote column names with Q(\"name\") in key 'model'",
+            )
 
     def visit_Call(self, node: ast.Call) -> None:
         func = node.func
@@ -120,13 +126,17 @@ class _FactorChecker(ast.NodeVisitor):
         if not (plain or dotted):
             allowed = ", ".join(sorted(f"np.{f}" for f in SAFE_FUNCTIONS))
             raise FormulaError(
-                f"function '{ast.unparse(func)}' is not allowed in a model formula (use {allowed})"
+                f"function '{ast.unparse(func)[:60]}' is not allowed in a model formula",
+                hint=f"key 'model' may call only {allowed} and I(), Q(), center(), standardize(), scale()",
             )
         for arg in node.args:
             self.visit(arg)
 
     def visit_Attribute(self, node: ast.Attribute) -> None:
-        raise FormulaError(f"'{ast.unparse(node)}' is not allowed in a model formula")
+        raise FormulaError(
+            f"'{ast.unparse(node)[:60]}' is not allowed in a model formula",
+            hint="key 'model' may call np.<function> for a few numpy functions only",
+        )
 
     def visit_Name(self, node: ast.Name) -> None:
         self._column(node.id)
@@ -257,8 +267,11 @@ def build_design(formula: str, frame: pd.DataFrame, name: str, extra: tuple[str,
     import patsy  # noqa: PLC0415
 
     columns = [str(c) for c in frame.columns]
-    used = check_formula(formula, columns)
-    _, _, intercept = _factor_codes(formula)
+    try:
+        used = check_formula(formula, columns)
+        _, _, intercept = _factor_codes(formula)
+    except FormulaError as exc:
+        raise FormulaError(f"{name}: {exc.message}", hint=exc.hint) from exc
     numeric, _ = numeric_columns(frame, list(used), name)
     for col in extra:
         if col not in columns:
@@ -290,7 +303,13 @@ def build_design(formula: str, frame: pd.DataFrame, name: str, extra: tuple[str,
     try:
         with np.errstate(all="ignore"):
             y_df, x_df = patsy.dmatrices(
-                formula, data, eval_env=env, return_type="dataframe", NA_action="raise"
+                formula,
+                data,
+                eval_env=env,
+                return_type="dataframe",
+                # The data hold finite numbers only; a NaN can only come from a transformation
+                # (log of a negative value …) and is left in, to be reported row by row below.
+                NA_action=patsy.NAAction(NA_types=[]),
             )
     except patsy.PatsyError as exc:
         raise FormulaError(

@@ -299,13 +299,13 @@ def _decoder(tp: Any) -> Decoder:  # noqa: C901, PLR0911 - one branch per kind o
         inner = _decoder(args[0])
         return lambda v: None if v is None else inner(v)
     if origin is tuple:
-        args = typing.get_args(tp)
-        if len(args) == 2 and args[1] is Ellipsis:
-            item = _decoder(args[0])
+        targs = typing.get_args(tp)
+        if len(targs) == 2 and targs[1] is Ellipsis:
+            item = _decoder(targs[0])
             if item is _same:
                 return tuple
             return lambda v: tuple(map(item, v))
-        items = [_decoder(a) for a in args]
+        items = [_decoder(a) for a in targs]
         return lambda v: tuple(f(x) for f, x in zip(items, v, strict=True))
     if dataclasses.is_dataclass(tp) and isinstance(tp, type):
         hints = typing.get_type_hints(tp)

@@ -326,7 +326,9 @@ def read_site_config(path: Path) -> tuple[SiteConfig, list[str]]:
         try:
             values["mail_budget_megabytes"] = _positive(table["mail_budget_megabytes"])
         except _BadValueError as exc:
-            raise _site_error(f"key 'mail_budget_megabytes' must be {exc}") from None
+            raise _site_error(
+                f"key 'mail_budget_megabytes' must be {exc}; got {_show(table['mail_budget_megabytes'])}"
+            ) from None
     defaults = table.get("defaults", {})
     if not isinstance(defaults, dict):
         raise _site_error("[defaults] must be a table of sidecar keys")
@@ -363,5 +365,7 @@ def _read_limits(table: object) -> Limits:
         try:
             out["max_megabytes"] = _positive(table["max_megabytes"])
         except _BadValueError as exc:
-            raise _site_error(f"[limits] key 'max_megabytes' must be {exc}") from None
+            raise _site_error(
+                f"[limits] key 'max_megabytes' must be {exc}; got {_show(table['max_megabytes'])}"
+            ) from None
     return Limits(**out)

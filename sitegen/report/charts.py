@@ -9,8 +9,9 @@ of a built example site, against the Vega-Lite schema.
 
 Colours are not written into the specs: the page script passes the theme's
 chart colours (light or dark) as the Vega-Lite ``config``. Flagged points are
-told apart by shape and size as well as colour; the colour of the point kind
-comes from the config's ``ordinal`` range (``[mark, flag]``).
+told apart by shape and size as well as colour; the page script gives the
+point-kind colour scale the theme's ``mark`` and ``flag`` colours (without it,
+the first two category colours are used).
 
 A dataset page draws the same points in several charts. :func:`dataset_charts`
 writes them once, in the first chart, and the other charts name that chart's
@@ -67,7 +68,7 @@ def _kind_encodings(alt: Any) -> dict[str, Any]:
     kind = {"domain": KINDS}
     return {
         "shape": alt.Shape(
-            "kind:O",
+            "kind:N",
             title="Point",
             scale=alt.Scale(**kind, range=["circle", "triangle-up"]),
             legend=_bottom_legend(alt, "Point"),
@@ -125,9 +126,9 @@ def _fit_chart(alt: Any) -> Any:
             x=x,
             y=alt.Y("y:Q"),
             detail="label:N",
-            color=alt.Color("label:N", title="Series", legend=_bottom_legend(alt, "Series")),
+            color=alt.Color("series:N", title="Series", legend=_bottom_legend(alt, "Series")),
             strokeDash=alt.StrokeDash(
-                "label:N", title="Other lines", legend=_bottom_legend(alt, "Other lines")
+                "line:N", title="Other lines", legend=_bottom_legend(alt, "Other lines")
             ),
         )
     )
@@ -215,19 +216,26 @@ def _leverage(alt: Any) -> Any:
     return _small(alt.layer(contour, pts))
 
 
-def _forest_layers(alt: Any, y: Any | None, x_title: str) -> list[Any]:
-    base = alt.Chart(alt.Data(name="rows"))
-    on_y = {"y": y} if y is not None else {}
-    whisker = base.mark_rule(strokeWidth=2).encode(
-        x=alt.X("low:Q", title=x_title, scale=alt.Scale(zero=False)), x2="high:Q", **on_y
+STATUS_SHAPES = {"ok": "circle", "warn": "diamond", "error": "cross"}
+
+
+def _forest(alt: Any, *, shared_axis: bool) -> Any:
+    """One row per dataset, headed by its name: a bar for the interval, a dot for the estimate.
+
+    The dot's shape gives the dataset's status. With ``shared_axis`` every row is drawn on one
+    scale (the datasets estimate the same term); otherwise each row gets its own scale, so that
+    numbers in different units never share an axis.
+    """
+    base = alt.Chart()  # the rows come from the facet
+    whisker = base.mark_rule(strokeWidth=2.5).encode(
+        x=alt.X("low:Q", title=X_TITLE if shared_axis else None, scale=alt.Scale(zero=False)), x2="high:Q"
     )
-    dot = base.mark_point(filled=True, size=70, opacity=1).encode(
+    dot = base.mark_point(filled=True, size=80, opacity=1).encode(
         x="estimate:Q",
-        **on_y,
         shape=alt.Shape(
             "status:N",
             title="Status",
-            scale=alt.Scale(domain=["ok", "warn"], range=["circle", "diamond"]),
+            scale=alt.Scale(domain=list(STATUS_SHAPES), range=list(STATUS_SHAPES.values())),
             legend=alt.Legend(
                 title="Status", orient="bottom", direction="horizontal", labelExpr=STATUS_WORDS
             ),
@@ -240,33 +248,20 @@ def _forest_layers(alt: Any, y: Any | None, x_title: str) -> list[Any]:
             alt.Tooltip("high:Q", title="CI high", format=",.4~g"),
         ],
     )
-    return [whisker, dot]
-
-
-def _forest(alt: Any) -> Any:
-    y = alt.Y("label:N", title=None, sort=None, axis=alt.Axis(labelLimit=260))
-    return alt.layer(*_forest_layers(alt, y, X_TITLE)).properties(width=WIDTH - 160)
-
-
-def _forest_mixed(alt: Any) -> Any:
-    """Datasets estimating different terms: one row each, each on its own scale."""
-    inner = alt.layer(*_forest_layers(alt, None, "")).properties(width=FACET_WIDTH, height=16)
+    inner = alt.layer(whisker, dot).properties(width=FACET_WIDTH, height=14)
     header = alt.Header(
         labelAngle=0,
         labelOrient="top",
         labelAnchor="start",
         labelAlign="left",
-        labelLimit=FACET_WIDTH + 120,
+        labelLimit=FACET_WIDTH,
         labelFontSize=12,
-        labelPadding=4,
+        labelPadding=3,
     )
-    return (
-        inner.facet(
-            row=alt.Row("heading:N", title=None, sort=None, header=header), data=alt.Data(name="rows")
-        )
-        .resolve_scale(x="independent")
-        .properties(spacing=10)
-    )
+    chart = inner.facet(
+        row=alt.Row("heading:N", title=None, sort=None, header=header), data=alt.Data(name="rows")
+    ).properties(spacing=6 if shared_axis else 10)
+    return chart if shared_axis else chart.resolve_scale(x="independent")
 
 
 def _drift(alt: Any) -> Any:
@@ -294,8 +289,8 @@ _BUILDERS: dict[str, Callable[[Any], Any]] = {
     "qq": _qq,
     "scale_location": _scale_location,
     "leverage": _leverage,
-    "forest": _forest,
-    "forest_mixed": _forest_mixed,
+    "forest": lambda alt: _forest(alt, shared_axis=True),
+    "forest_mixed": lambda alt: _forest(alt, shared_axis=False),
     "drift": _drift,
 }
 CHART_KINDS = tuple(_BUILDERS)
@@ -360,10 +355,12 @@ def _point_legends(spec: Spec, points: list[dict[str, Any]]) -> None:
     any_flagged = any(p.get("kind") == "flagged" for p in points)
     for layer in spec.get("layer", [spec]):
         enc = layer.get("encoding", {})
+        if one_series and layer.get("data", {}).get("name") == "lines":
+            enc.pop("color", None)  # told apart by dash; the colour now marks flagged points
         if enc.get("color", {}).get("field") == "series" and one_series:
             enc["color"] = {
                 "field": "kind",
-                "type": "ordinal",
+                "type": "nominal",
                 "title": "Point",
                 "scale": {"domain": KINDS},
                 "legend": copy.deepcopy(enc["shape"].get("legend")),
@@ -479,19 +476,30 @@ def _line_records(report: FitReport, chart: ChartData) -> list[dict[str, Any]]:
     if not xs:
         return []
     x0, x1 = min(xs), max(xs)
-    out = [
-        {
-            "label": SHORT_LINE_LABELS.get(ln.method, ln.method),
-            "x": x,
-            "y": _short(ln.intercept + ln.slope * x),
-        }
-        for ln in report.lines
-        if ln.method != "ols"
-        for x in (x0, x1)
-    ]
+    out = []
+    for ln in report.lines:
+        if ln.method != "ols":
+            name = SHORT_LINE_LABELS.get(ln.method, ln.method)
+            out += [
+                {
+                    "label": name,
+                    "series": name,
+                    "line": name,
+                    "x": x,
+                    "y": _short(ln.intercept + ln.slope * x),
+                }
+                for x in (x0, x1)
+            ]
     if report.groups is not None:
+        own = f"each {report.groups.column}'s own line"
         out += [
-            {"label": f"{g.group} line", "x": x, "y": _short(g.intercept + g.slope * x)}
+            {
+                "label": f"{g.group} line",
+                "series": g.group,
+                "line": own,
+                "x": x,
+                "y": _short(g.intercept + g.slope * x),
+            }
             for g in report.groups.lines
             for x in (x0, x1)
         ]
@@ -522,15 +530,16 @@ def _contours(points: list[dict[str, Any]], p: int) -> list[dict[str, Any]]:
 def forest_chart(rows: list[dict[str, Any]], term: str) -> Spec:
     """Estimates of one term across datasets with their confidence intervals.
 
-    When the rows estimate different terms (``term`` of each row), each row gets its own scale:
-    numbers in different units never share an axis.
+    When the rows estimate different terms (``term`` of each row), each row gets its own scale.
     """
     terms = {row.get("term") for row in rows}
-    if len(terms) > 1:
-        headed = [{**row, "heading": f"{row['label']} — {row.get('term')}"} for row in rows]
-        return fill("forest_mixed", {"rows": headed})
-    spec = fill("forest", {"rows": rows}, x_title=term)
-    spec["height"] = max(40, 26 * len(rows))
+    mixed = len(terms) > 1
+    headed = [
+        {**row, "heading": f"{row['label']} — {row.get('term')}" if mixed else row["label"]} for row in rows
+    ]
+    spec = fill("forest_mixed" if mixed else "forest", {"rows": headed}, x_title=term)
+    present = [s for s in STATUS_SHAPES if any(row.get("status") == s for row in rows)]
+    spec["spec"]["layer"][1]["encoding"]["shape"]["legend"]["values"] = present
     return spec
 
 

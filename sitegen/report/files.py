@@ -105,19 +105,19 @@ def dataset_files(
     files += _table(folder, "anova", ("source", "df", "sum_sq", "mean_sq", "f_stat", "p_value"),
                     [list(asdict(a).values()) for a in r.anova], False)  # fmt: skip
     if r.lines:
-        cols = ("method", "slope", "intercept", "slope_ci_low", "slope_ci_high", "intercept_ci_low",
+        cols: tuple[str, ...] = ("method", "slope", "intercept", "slope_ci_low", "slope_ci_high", "intercept_ci_low",
                 "intercept_ci_high", "interval_method", "label")  # fmt: skip
         files += _table(folder, "lines", cols, [[getattr(ln, c) for c in cols] for ln in r.lines], True)
     if r.calibration:
-        cols = ("response", "estimate", "std_error", "ci_low", "ci_high", "readings", "method", "bounded")
+        cal_cols = ("response", "estimate", "std_error", "ci_low", "ci_high", "readings", "method", "bounded")
         files += _table(
-            folder, "calibration", cols, [[getattr(c, k) for k in cols] for c in r.calibration], True
+            folder, "calibration", cal_cols, [[getattr(c, k) for k in cal_cols] for c in r.calibration], True
         )
     if r.predictions:
         names = sorted({k for p in r.predictions for k, _ in p.at})
-        cols = ("fitted", "std_error", "mean_ci_low", "mean_ci_high", "pred_low", "pred_high")
-        rows = [[dict(p.at).get(n) for n in names] + [getattr(p, c) for c in cols] for p in r.predictions]
-        files += _table(folder, "predictions", (*names, *cols), rows, True)
+        pred_cols = ("fitted", "std_error", "mean_ci_low", "mean_ci_high", "pred_low", "pred_high")
+        rows = [[dict(p.at).get(n) for n in names] + [getattr(p, c) for c in pred_cols] for p in r.predictions]
+        files += _table(folder, "predictions", (*names, *pred_cols), rows, True)
     if obs is not None:
         frame = frame_from_columns(obs.columns, obs.values)
         (folder / "observations.csv").write_bytes(to_csv_bytes(frame))

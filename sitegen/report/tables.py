@@ -15,11 +15,13 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-_DANGEROUS = ("=", "+", "-", "@", "\t", "\r")
+#: First characters that make a spreadsheet read a text cell as a formula (common practice:
+#: = + - @ tab CR), plus their full-width forms, which some spreadsheet input methods convert.
+_DANGEROUS = ("=", "+", "-", "@", "\t", "\r", "\uff1d", "\uff0b", "\uff0d", "\uff20")
 
 
 def neutralise(text: str) -> str:
-    """Make a text cell inert for spreadsheets."""
+    """Make a text cell inert for spreadsheets (a leading single quote)."""
     return "'" + text if text.startswith(_DANGEROUS) else text
 
 
@@ -56,8 +58,22 @@ def frame_from_columns(columns: Sequence[str], values: Sequence[np.ndarray[Any, 
     return pd.DataFrame(data)
 
 
+def _one_line_end(value: Any) -> Any:
+    # With LF line ends the CSV writer quotes a cell holding "\n" but not one holding a bare "\r",
+    # which readers take for a line break: text line ends become "\n" so such cells are quoted.
+    if isinstance(value, str) and "\r" in value:
+        return value.replace("\r\n", "\n").replace("\r", "\n")
+    return value
+
+
 def to_csv_bytes(frame: pd.DataFrame) -> bytes:
     """CSV with shortest round-trip floats, empty cells for missing values, LF line ends."""
+    text_columns = [c for c in frame.columns if not pd.api.types.is_numeric_dtype(frame[c])]
+    if text_columns or any("\r" in str(c) for c in frame.columns):
+        frame = frame.copy()
+        for c in text_columns:
+            frame[c] = frame[c].map(_one_line_end)
+        frame.columns = [_one_line_end(str(c)) for c in frame.columns]
     buf = io.StringIO()
     frame.to_csv(buf, index=False, na_rep="", lineterminator="\n")
     return buf.getvalue().encode("utf-8")
@@ -68,6 +84,7 @@ def to_xlsx_bytes(frame: pd.DataFrame, sheet: str = "data") -> bytes:
     from sitegen.report.xlsx import workbook_bytes  # noqa: PLC0415
 
     rows = (
-        [v.item() if isinstance(v, np.generic) else v for v in row] for row in frame.itertuples(index=False, name=None)
+        [v.item() if isinstance(v, np.generic) else v for v in row]
+        for row in frame.itertuples(index=False, name=None)
     )
     return workbook_bytes([str(c) for c in frame.columns], rows, sheet)

@@ -19,7 +19,7 @@ def tag_blocks(reports: Sequence[FitReport]) -> list[dict[str, Any]]:
             by_tag.setdefault(t, []).append(r)
     blocks = []
     for tag, members in sorted(by_tag.items()):
-        rows = []
+        rows: list[dict[str, Any]] = []
         for r in members:
             c = r.coefficient(r.compare_term) if r.compare_term and r.status != "error" else None
             if c is not None:

@@ -18,9 +18,10 @@ from sitegen.errors import SiteConfigError
 
 def default_theme_dir() -> Path:
     """The packaged default theme (``themes/default``)."""
-    import sitegen.themes  # noqa: PLC0415
+    import importlib  # noqa: PLC0415
 
-    return Path(next(iter(sitegen.themes.__path__))) / "default"
+    themes = importlib.import_module("sitegen.themes")  # the packaged themes/ folder
+    return Path(next(iter(themes.__path__))) / "default"
 
 
 @dataclass(frozen=True, slots=True)
