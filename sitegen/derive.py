@@ -34,7 +34,7 @@ from sitegen.model import (
 from sitegen.spec import DatasetSpec
 from sitegen.stats.calibration import detection_limits, inverse_predict
 from sitegen.stats.checks import model_checks
-from sitegen.stats.claims import test_claims
+from sitegen.stats.claims import check_claims
 from sitegen.stats.groups import compare_groups
 from sitegen.stats.influence import Influence, PointFlags, flag_points, influence
 from sitegen.stats.lines import alternative_lines, explain_lines
@@ -137,11 +137,11 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
             messages.append(Message("warning", f"{d.label}: {d.text} {d.advice}".strip()))
     robust_se = None
     if spec.robust:
-        cov = hc3_cov(Xw, fit.resid * sw, np.asarray(infl.leverage), fit.xtx_inv)
+        cov = hc3_cov(Xw, fit.resid * sw, np.asarray(infl.leverage), fit.xtx_inv, xtx_root=fit.xtx_root)
         robust_se = np.sqrt(np.clip(np.diag(cov), 0, None))
     claims = []
     if spec.claims:
-        for found in test_claims(fit, Xw, design.y * sw, list(spec.claims)):
+        for found in check_claims(fit, Xw, design.y * sw, list(spec.claims)):
             if isinstance(found, DatasetError):
                 messages.append(Message("warning", str(found)))
             else:

@@ -26,7 +26,7 @@ def _results(fit: OlsFit, X: np.ndarray[Any, Any], y: np.ndarray[Any, Any]) -> A
     return RegressionResults(model, fit.beta, normalized_cov_params=fit.xtx_inv, scale=fit.sigma**2)
 
 
-def test_claims(fit: OlsFit, X: np.ndarray[Any, Any], y: np.ndarray[Any, Any], claims: list[str]) -> list[ClaimTest | FormulaError]:
+def check_claims(fit: OlsFit, X: np.ndarray[Any, Any], y: np.ndarray[Any, Any], claims: list[str]) -> list[ClaimTest | FormulaError]:
     """Test each declared claim; an unreadable claim comes back as a :class:`FormulaError`."""
     import patsy  # noqa: PLC0415
 

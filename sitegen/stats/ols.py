@@ -18,6 +18,9 @@ from sitegen.errors import FitError
 from sitegen.stats.solver import LD, solve
 
 FloatArray = NDArray[np.float64]
+#: Residuals below this fraction of the (weighted) response are rounding residue of an exact
+#: fit: float64 data carry nothing below it (NIST StRD Wampler1/2 certify zero residuals).
+EXACT_FIT_RTOL = 64 * float(np.finfo(np.float64).eps)
 
 
 @dataclass(frozen=True, slots=True)
@@ -32,6 +35,7 @@ class OlsFit:
     ci_low: FloatArray
     ci_high: FloatArray
     xtx_inv: FloatArray
+    xtx_root: FloatArray  # W with W W' = xtx_inv, from the QR factor: use it for x'(X'X)^-1 x
     n: int
     df_model: int
     df_resid: int
@@ -88,6 +92,13 @@ def fit_ols(
     fitted = (X @ beta.astype(LD)).astype(float)
     resid = (y - X @ beta.astype(LD)).astype(float)
     ssr = sol.ssr
+    yw = y if weights is None else y * np.sqrt(weights.astype(LD))
+    if np.sqrt(ssr) <= EXACT_FIT_RTOL * float(np.sqrt(np.sum(yw * yw))):
+        # An exact fit: what is left is rounding, not scatter. SE 0, F infinite, and no
+        # influence flags computed on noise (as NIST certifies for Wampler1/2).
+        resid = np.zeros(n)
+        fitted = y.astype(float)
+        ssr = 0.0
     w = np.ones(n) if weights is None else weights
     if has_intercept:
         ybar = np.average(y, weights=w.astype(LD))
@@ -121,6 +132,7 @@ def fit_ols(
         ci_low=beta - t_crit * se,
         ci_high=beta + t_crit * se,
         xtx_inv=sol.xtx_inv,
+        xtx_root=sol.xtx_root,
         n=n,
         df_model=df_model,
         df_resid=df_resid,
@@ -158,8 +170,11 @@ class Bands:
 def bands(fit: OlsFit, X_new: FloatArray, weights: FloatArray | None = None) -> Bands:
     """Intervals at new (or observed) rows; ``weights`` scale the prediction variance (σ²/w)."""
     yhat = X_new @ fit.beta
-    var_mean = np.einsum("ij,jk,ik->i", X_new, fit.xtx_inv, X_new) * fit.sigma**2
-    se_mean = np.sqrt(np.clip(var_mean, 0, None))
+    # x'(X'X)^-1 x as ||x'W||² (W from the QR factor): never negative, and free of the
+    # cancellation that x'(X'X)^-1 x suffers in float64 on ill-conditioned designs (NIST Filip).
+    z = np.asarray(X_new, dtype=float) @ fit.xtx_root
+    var_mean = np.sum(z * z, axis=1) * fit.sigma**2
+    se_mean = np.sqrt(var_mean)
     noise = fit.sigma**2 if weights is None else fit.sigma**2 / weights
     se_pred = np.sqrt(var_mean + noise)
     return Bands(

@@ -15,10 +15,22 @@ def hc3_cov(
     resid: NDArray[np.float64],
     leverage: NDArray[np.float64],
     xtx_inv: NDArray[np.float64],
+    *,
+    xtx_root: NDArray[np.float64] | None = None,
 ) -> NDArray[np.float64]:
-    """HC3 covariance of the coefficients; rows with leverage 1 contribute nothing."""
+    """HC3 covariance of the coefficients; rows with leverage 1 contribute nothing.
+
+    With ``xtx_root`` (W, W W' = (X'X)⁻¹, from the QR factor) the sandwich is formed as
+    W (Z' Ω Z) W' with Z = X W, which keeps its digits on ill-conditioned designs where
+    (X'X)⁻¹ X'ΩX (X'X)⁻¹ in float64 does not (NIST Filip: negative variances).
+    """
     with np.errstate(divide="ignore", invalid="ignore"):
         omega = np.where(leverage < 1 - 1e-12, resid**2 / (1 - leverage) ** 2, 0.0)
+    if xtx_root is not None:
+        z = X @ xtx_root
+        half = xtx_root @ (z * np.sqrt(omega)[:, None]).T  # W Z' Ω^½, so cov = half · half'
+        root_cov: NDArray[np.float64] = half @ half.T
+        return root_cov
     meat = (X * omega[:, None]).T @ X
     cov: NDArray[np.float64] = xtx_inv @ meat @ xtx_inv
     return cov

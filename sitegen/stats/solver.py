@@ -35,6 +35,7 @@ class Solution:
 
     beta: NDArray[np.float64]
     xtx_inv: NDArray[np.float64]  # (X'X)^-1, the unscaled covariance
+    xtx_root: NDArray[np.float64]  # W = S·R⁻¹, so W W' = (X'X)^-1 and x'(X'X)^-1 x = ||x'W||²
     resid: NDArray[np.float64]
     ssr: float  # residual sum of squares, accumulated in extended precision
     effects: NDArray[np.float64]  # first p entries of Q'y (sequential sums of squares)
@@ -170,6 +171,7 @@ def solve(X: LDArray, y: LDArray, terms: tuple[str, ...]) -> Solution:
     return Solution(
         beta=(b * scale).astype(float),
         xtx_inv=unscaled.astype(float),
+        xtx_root=(R_inv * scale[:, None]).astype(float),
         resid=r.astype(float),
         ssr=float(np.dot(r, r)),
         effects=np.asarray(effects, dtype=float),
