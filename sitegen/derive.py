@@ -314,13 +314,24 @@ def _qq(values: FloatArray) -> FloatArray:
     return out
 
 
-def _chart_sample(n: int, flagged_rows: tuple[int, ...]) -> tuple[NDArray[np.intp], bool]:
+def _chart_sample(
+    n: int, flagged_rows: tuple[int, ...], severity: FloatArray | None = None
+) -> tuple[NDArray[np.intp], bool]:
+    """Every row, or above MAX_CHART_POINTS a fixed random sample plus the flagged rows.
+
+    When more rows are flagged than there is room for, the most severe are kept (largest
+    ``severity``, e.g. Cook's distance), not the first in file order.
+    """
     if n <= MAX_CHART_POINTS:
         return np.arange(n), False
     rng = np.random.default_rng(20240611)
     pick = rng.choice(n, size=SAMPLE_POINTS, replace=False)
-    flagged = np.asarray(flagged_rows[: MAX_CHART_POINTS - SAMPLE_POINTS], dtype=np.intp)
-    return np.unique(np.concatenate([pick, flagged])), True
+    room = MAX_CHART_POINTS - SAMPLE_POINTS
+    flagged = np.asarray(flagged_rows, dtype=np.intp)
+    if flagged.size > room and severity is not None:
+        score = np.nan_to_num(np.asarray(severity, dtype=float)[flagged], nan=-np.inf)
+        flagged = flagged[np.argsort(-score, kind="stable")[:room]]
+    return np.unique(np.concatenate([pick, flagged[:room]])), True
 
 
 def _clean(values: FloatArray) -> tuple[float | None, ...]:
@@ -332,7 +343,7 @@ def _clean(values: FloatArray) -> tuple[float | None, ...]:
 
 def _chart(design: Design, fit: OlsFit, infl: Influence, flags: PointFlags, spec: DatasetSpec) -> ChartData:
     x_col = single_predictor(design)
-    idx, sampled = _chart_sample(fit.n, flags.rows)
+    idx, sampled = _chart_sample(fit.n, flags.rows, np.asarray(infl.cooks_distance))
     std = np.asarray(infl.standardized_residual)
     is_flag = np.zeros(fit.n)
     is_flag[list(flags.rows)] = 1.0

@@ -40,6 +40,7 @@ FACET_WIDTH = 420
 SIGNIFICANT = 6  # digits kept for drawing; the downloads keep full precision
 KINDS = ["ordinary", "flagged"]
 SHARED = "points"
+CROWDED = 1000  # above this many points, symbols shrink and lines are drawn over them
 STATUS_WORDS = "datum.label == 'ok' ? 'sound' : datum.label == 'warn' ? 'check' : datum.label == 'error' ? 'failed' : datum.label"  # noqa: E501
 
 
@@ -280,7 +281,7 @@ def _drift(alt: Any) -> Any:
             alt.Tooltip("high:Q", title="CI high", format=",.4~g"),
         ],
     )
-    return alt.layer(band, line).properties(width=WIDTH, height=200)
+    return alt.layer(band, line).properties(width=SMALL, height=140)
 
 
 _BUILDERS: dict[str, Callable[[Any], Any]] = {
@@ -343,7 +344,26 @@ def fill(
     points = spec["datasets"].get("points")
     if points is not None:
         _point_legends(spec, points)
+        if len(points) > CROWDED:
+            _crowded(spec)
     return spec
+
+
+def _crowded(spec: Spec) -> None:
+    """Many points: smaller symbols, and the lines drawn over the points so that they stay visible."""
+    layers = spec.get("layer", [spec])
+    for layer in layers:
+        size = layer.get("encoding", {}).get("size", {})
+        if size.get("field") == "kind":
+            size["scale"]["range"] = [10, 30]
+    if "layer" in spec:
+        lines = [ly for ly in layers if _mark_type(ly) == "line"]
+        spec["layer"] = [ly for ly in layers if _mark_type(ly) != "line"] + lines
+
+
+def _mark_type(layer: Spec) -> str:
+    mark = layer.get("mark")
+    return str(mark.get("type") if isinstance(mark, dict) else mark)
 
 
 def _point_legends(spec: Spec, points: list[dict[str, Any]]) -> None:
@@ -461,6 +481,27 @@ def share_points(specs: dict[str, Spec]) -> None:
         else:
             spec["datasets"][SHARED] = []
             spec["usermeta"] = {"sitegen": {"borrow": {SHARED: lender}}}
+
+
+def standalone(specs: dict[str, Spec]) -> dict[str, Spec]:
+    """Copies of a page's specs with borrowed data put back, each drawable on its own.
+
+    For anything that renders a chart outside the page (static SVG/PNG export, for example).
+    """
+    lent: dict[tuple[str, str], Any] = {}
+    for spec in specs.values():
+        for name, kind in spec.get("usermeta", {}).get("sitegen", {}).get("lend", {}).items():
+            lent[(kind, name)] = spec["datasets"][name]
+    out = {}
+    for kind, spec in specs.items():
+        copied = {k: v for k, v in spec.items() if k != "usermeta"}
+        borrowed = spec.get("usermeta", {}).get("sitegen", {}).get("borrow", {})
+        if borrowed:
+            copied["datasets"] = {**spec["datasets"]}
+            for name, lender in borrowed.items():
+                copied["datasets"][name] = lent.get((lender, name), [])
+        out[kind] = copied
+    return out
 
 
 SHORT_LINE_LABELS = {

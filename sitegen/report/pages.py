@@ -177,7 +177,7 @@ def render_dataset(
         f"{r.response} against {x_label}: the fitted line, its {fmt.level(r.level)} confidence band for the mean "
         f"(darker) and prediction band for single readings (lighter)"
         + (", and the other lines listed below" if r.lines else "")
-        + ("; flagged rows are drawn as triangles." if r.flagged else ".")
+        + ("; flagged rows are drawn as larger triangles." if r.flagged else ".")
     )
     return env.get_template("dataset.html").render(
         **_common(ctx, "../../", "dataset"),

@@ -43,7 +43,8 @@ def tag_blocks(reports: Sequence[FitReport]) -> list[dict[str, Any]]:
         elif len(rows) >= 2:
             test = ("These datasets estimate different terms (" + ", ".join(terms) + "), so no common value is "
                     "tested; set compare in the sidecars to the same term to compare them.")  # fmt: skip
-        caption = (f"Estimates with intervals for the {len(rows)} datasets tagged {tag}"
+        sets = "dataset" if len(rows) == 1 else "datasets"
+        caption = (f"Estimates with intervals for the {len(rows)} {sets} tagged {tag}"
                    + (f" (term {terms[0]})." if len(terms) == 1 else "."))  # fmt: skip
         blocks.append({"name": tag, "reports": members, "forest": forest, "caption": caption, "test": test})
     return blocks

@@ -63,8 +63,9 @@ def load_theme(choice: str, data_dir: Path) -> Theme:
             )
         folders.insert(0, user)
     charts: dict[str, Any] = {}
-    for folder in reversed(folders):
-        charts |= _read_theme_toml(folder).get("charts", {})
+    for folder in reversed(folders):  # per colour scheme, key by key: a user theme may set one colour only
+        for scheme, colours in _read_theme_toml(folder).get("charts", {}).items():
+            charts[scheme] = {**charts.get(scheme, {}), **colours} if isinstance(colours, dict) else colours
     return Theme(
         name=choice or "default",
         template_dirs=tuple(f / "templates" for f in folders if (f / "templates").is_dir()),

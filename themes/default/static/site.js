@@ -1,52 +1,160 @@
-/* sitegen page scripts: draw charts, sort and filter tables. No network, works from file://. */
+/* sitegen page scripts: draw charts in the theme's colours, sort and filter the index table.
+   Plain browser JavaScript: no network, works from file://. Everything stays inside this function
+   because the chart bundle defines many short global names. */
 (function () {
   "use strict";
 
-  function chartConfig() {
+  /* Used when a theme's theme.toml leaves a colour out. */
+  var FALLBACK = {
+    light: { category: ["#b3471d", "#4d7325", "#7a4f9a", "#8a6700", "#a3345f", "#3d3d3d", "#2b6a89"],
+             mark: "#2b6a89", flag: "#b3471d", text: "#1d2733", muted: "#4f5a66", grid: "#e6e3dc", domain: "#7c828a",
+             band: "#2b6a89", density: "#56606b" },
+    dark: { category: ["#f0a070", "#a8d27a", "#c9a6f0", "#e8c85a", "#f08fb5", "#d0d0d0", "#7fc1e0"],
+            mark: "#7fc1e0", flag: "#f0a070", text: "#e6e9ee", muted: "#b3bcc7", grid: "#333b45", domain: "#8a93a0",
+            band: "#7fc1e0", density: "#b8c2cc" }
+  };
+
+  function media(query) {
+    return window.matchMedia ? window.matchMedia(query) : { matches: false, addEventListener: null };
+  }
+  var darkQuery = media("(prefers-color-scheme: dark)");
+  var printQuery = media("print");
+
+  function scheme() {
+    /* Paper is white: print always uses the light colours. */
+    return darkQuery.matches && !printQuery.matches ? "dark" : "light";
+  }
+
+  function colours(name) {
     var el = document.getElementById("chart-theme");
-    var theme = el ? JSON.parse(el.textContent) : {};
-    var dark = window.matchMedia && window.matchMedia("(prefers-color-scheme: dark)").matches;
-    var c = (dark ? theme.dark : theme.light) || {};
+    var theme = {};
+    try { theme = el ? JSON.parse(el.textContent) : {}; } catch (e) { theme = {}; }
+    var given = theme[name] || {};
+    var base = FALLBACK[name];
+    var out = {};
+    Object.keys(base).forEach(function (k) { out[k] = given[k] !== undefined ? given[k] : base[k]; });
+    return out;
+  }
+
+  function chartConfig(name) {
+    var c = colours(name);
+    var axis = { labelColor: c.text, titleColor: c.text, gridColor: c.grid, domainColor: c.domain,
+                 tickColor: c.domain, labelFontSize: 11, titleFontSize: 12, titleFontWeight: 600 };
     return {
       background: null,
       font: "system-ui, -apple-system, 'Segoe UI', Roboto, Arial, sans-serif",
       range: { category: c.category },
       mark: { color: c.mark },
-      area: { color: c.mark }, line: { color: c.mark }, point: { color: c.mark }, rule: { color: c.domain },
-      rect: { color: c.domain },
-      axis: { labelColor: c.text, titleColor: c.text, gridColor: c.grid, domainColor: c.domain, tickColor: c.domain },
-      legend: { labelColor: c.text, titleColor: c.text },
+      area: { color: c.band }, line: { color: c.mark }, point: { color: c.mark }, rule: { color: c.domain },
+      rect: { color: c.density },
+      axis: axis,
+      legend: { labelColor: c.text, titleColor: c.text, symbolFillColor: c.muted,
+                labelFontSize: 11, titleFontSize: 11, titleFontWeight: 600, symbolSize: 60, columnPadding: 14 },
+      header: { labelColor: c.text, titleColor: c.text },
       title: { color: c.text },
       view: { stroke: c.grid }
     };
   }
 
-  function drawCharts() {
-    var specs = document.querySelectorAll("script.vl-spec");
-    if (!specs.length) { return; }
-    if (typeof window.vegaEmbed !== "function") {
-      specs.forEach(function (s) {
-        var t = document.getElementById(s.getAttribute("data-target"));
-        if (t) { t.querySelector(".vis-fallback").textContent = "The chart library could not be loaded; the numbers are in the downloads."; }
-      });
-      return;
+  /* Flagged points get the theme's flag colour (they also differ by shape and size). */
+  function kindColours(spec, c) {
+    (spec.layer || [spec]).forEach(function (layer) {
+      var colour = layer.encoding && layer.encoding.color;
+      if (colour && colour.field === "kind") {
+        colour.scale = colour.scale || {};
+        colour.scale.range = [c.mark, c.flag];
+      }
+    });
+    return spec;
+  }
+
+  /* Faceted charts cannot take the container's width by themselves; give them its width here. */
+  function fitFacet(spec, target) {
+    if (spec.facet && spec.spec && typeof spec.spec.width === "number" && target.clientWidth > 0) {
+      spec.spec.width = Math.max(200, Math.min(640, target.clientWidth - 24));
     }
-    var config = chartConfig();
-    specs.forEach(function (s) {
+    return spec;
+  }
+
+  /* Charts that borrow the points of another chart on the page (see charts.py). */
+  function meta(spec, key) {
+    return spec.usermeta && spec.usermeta.sitegen ? spec.usermeta.sitegen[key] : undefined;
+  }
+
+  var charts = [];  /* { target, spec, view, label } */
+  var drawnScheme = null;
+  var generation = 0;
+
+  function collect() {
+    var lent = {};
+    document.querySelectorAll("script.vl-spec").forEach(function (s) {
       var target = document.getElementById(s.getAttribute("data-target"));
       if (!target) { return; }
-      var spec = JSON.parse(s.textContent);
-      window.vegaEmbed(target, spec, { actions: false, renderer: "svg", config: config, tooltip: { theme: "custom" } })
-        .then(function (res) {
-          var svg = target.querySelector("svg");
-          if (svg) { svg.setAttribute("aria-hidden", "true"); svg.setAttribute("focusable", "false"); }
-          return res;
-        })
-        .catch(function (err) {
-          target.textContent = "This chart could not be drawn: " + err.message;
+      var spec;
+      try { spec = JSON.parse(s.textContent); } catch (e) { fail(target, "its description is damaged"); return; }
+      var lend = meta(spec, "lend");
+      if (lend) {
+        Object.keys(lend).forEach(function (name) {
+          lent[lend[name] + "/" + name] = JSON.stringify((spec.datasets || {})[name] || []);
         });
+      }
+      charts.push({ target: target, spec: spec, view: null, label: target.getAttribute("aria-label") || "Chart" });
+    });
+    charts.forEach(function (c) {
+      var borrow = meta(c.spec, "borrow");
+      if (!borrow) { return; }
+      Object.keys(borrow).forEach(function (name) {
+        var text = lent[borrow[name] + "/" + name];
+        if (text !== undefined) { c.spec.datasets[name] = JSON.parse(text); }
+      });
     });
   }
+
+  function fail(target, why) {
+    target.textContent = "";
+    var p = document.createElement("p");
+    p.className = "vis-fallback";
+    p.textContent = "This chart could not be drawn (" + why + "); the numbers are in the linked file.";
+    target.appendChild(p);
+  }
+
+  function draw() {
+    if (!charts.length) { return; }
+    if (typeof window.vegaEmbed !== "function") {
+      charts.forEach(function (c) { fail(c.target, "the chart library did not load"); });
+      return;
+    }
+    var name = scheme();
+    if (name === drawnScheme) { return; }
+    drawnScheme = name;
+    generation += 1;
+    var mine = generation;
+    var config = chartConfig(name);
+    var cs = colours(name);
+    charts.forEach(function (c) {
+      if (c.view) { c.view.finalize(); c.view = null; }
+      window.vegaEmbed(c.target, fitFacet(kindColours(c.spec, cs), c.target), { actions: false, renderer: "svg", config: config })
+        .then(function (res) {
+          if (mine !== generation) { res.view.finalize(); return; }  /* a newer drawing has started */
+          c.view = res.view;
+          /* The chart keeps its own text alternative (vega-embed puts a generic one in its place);
+             the drawing inside is hidden from assistive technology. */
+          c.target.setAttribute("role", "img");
+          c.target.setAttribute("aria-label", c.label);
+          c.target.removeAttribute("aria-roledescription");
+          var svg = c.target.querySelector("svg");
+          if (svg) { svg.setAttribute("aria-hidden", "true"); svg.setAttribute("focusable", "false"); }
+          c.target.classList.add("drawn");
+        })
+        .catch(function (err) { if (mine === generation) { fail(c.target, err && err.message ? err.message : "unknown error"); } });
+    });
+  }
+
+  function watch(query) {
+    if (query.addEventListener) { query.addEventListener("change", draw); }
+  }
+
+  /* ---- the index table: sort ---- */
 
   function cellValue(row, index, type) {
     var cell = row.children[index];
@@ -58,37 +166,51 @@
     return raw.trim().toLowerCase();
   }
 
-  function sortTable(table, index, type, button) {
-    var th = button.closest("th");
-    var ascending = th.getAttribute("aria-sort") !== "ascending";
-    table.querySelectorAll("thead th").forEach(function (h) { if (h.hasAttribute("aria-sort")) { h.setAttribute("aria-sort", "none"); } });
-    th.setAttribute("aria-sort", ascending ? "ascending" : "descending");
-    var bodies = Array.prototype.slice.call(table.tBodies);
+  function dataRows(table) {
     var rows = [];
-    bodies.forEach(function (b) { Array.prototype.forEach.call(b.rows, function (r) { if (!r.classList.contains("group-row")) { rows.push(r); } }); });
+    Array.prototype.forEach.call(table.tBodies, function (b) {
+      Array.prototype.forEach.call(b.rows, function (r) { if (!r.classList.contains("group-row")) { rows.push(r); } });
+    });
+    return rows;
+  }
+
+  function sortTable(table, th, type) {
+    var index = Array.prototype.indexOf.call(th.parentNode.children, th);
+    var ascending = th.getAttribute("aria-sort") !== "ascending";
+    table.querySelectorAll("thead th[aria-sort]").forEach(function (h) { h.setAttribute("aria-sort", "none"); });
+    th.setAttribute("aria-sort", ascending ? "ascending" : "descending");
+    var rows = dataRows(table);
+    rows.forEach(function (r, i) { if (!r.hasAttribute("data-order")) { r.setAttribute("data-order", String(i)); } });
     rows.sort(function (a, b) {
       var x = cellValue(a, index, type), y = cellValue(b, index, type);
       if (x === null && y === null) { return 0; }
-      if (x === null) { return 1; }
+      if (x === null) { return 1; }   /* empty cells last in either direction */
       if (y === null) { return -1; }
       var c = x < y ? -1 : x > y ? 1 : 0;
+      if (c === 0) { c = Number(a.getAttribute("data-order")) - Number(b.getAttribute("data-order")); return c; }
       return ascending ? c : -c;
     });
+    /* Sorted rows leave their folder groups; the folder stays visible in its own column. */
     table.classList.add("sorted");
     table.querySelectorAll("tr.group-row").forEach(function (g) { g.hidden = true; });
-    var first = bodies[0];
+    var first = table.tBodies[0];
     rows.forEach(function (r) { first.appendChild(r); });
+    var status = document.getElementById(table.id + "-sort-status");
+    if (status) {
+      status.textContent = "Sorted by " + th.textContent.trim() + (ascending ? ", ascending." : ", descending.");
+    }
   }
 
   function setupSorting() {
     document.querySelectorAll("table.sortable").forEach(function (table) {
       table.querySelectorAll("thead th button").forEach(function (button) {
         var th = button.closest("th");
-        var index = Array.prototype.indexOf.call(th.parentNode.children, th);
-        button.addEventListener("click", function () { sortTable(table, index, button.getAttribute("data-type"), button); });
+        button.addEventListener("click", function () { sortTable(table, th, button.getAttribute("data-type")); });
       });
     });
   }
+
+  /* ---- the index table: filter ---- */
 
   function setupFilters() {
     document.querySelectorAll("form.filters").forEach(function (form) {
@@ -96,14 +218,17 @@
       if (!table) { return; }
       var params = new URLSearchParams(window.location.search);
       ["q", "status", "tag", "folder"].forEach(function (k) {
-        if (params.has(k) && form.elements[k]) { form.elements[k].value = params.get(k); }
+        var el = form.elements[k];
+        if (!el || !params.has(k)) { return; }
+        var value = params.get(k);
+        if (el.tagName === "SELECT" && !Array.prototype.some.call(el.options, function (o) { return o.value === value; })) { return; }
+        el.value = value;
       });
       function apply() {
         var q = form.elements.q.value.trim().toLowerCase();
         var status = form.elements.status.value, tag = form.elements.tag.value, folder = form.elements.folder.value;
         var shown = 0, total = 0;
-        table.querySelectorAll("tbody tr").forEach(function (r) {
-          if (r.classList.contains("group-row")) { return; }
+        dataRows(table).forEach(function (r) {
           total += 1;
           var ok = (!q || (r.getAttribute("data-search") || "").indexOf(q) >= 0) &&
             (!status || r.getAttribute("data-status") === status) &&
@@ -112,24 +237,35 @@
           r.hidden = !ok;
           if (ok) { shown += 1; }
         });
-        var filtering = q || status || tag || folder;
         if (!table.classList.contains("sorted")) {
-          table.querySelectorAll("tbody").forEach(function (b) {
+          Array.prototype.forEach.call(table.tBodies, function (b) {
             var g = b.querySelector("tr.group-row");
             if (g) { g.hidden = !Array.prototype.some.call(b.rows, function (r) { return !r.classList.contains("group-row") && !r.hidden; }); }
           });
         }
-        form.elements.shown.value = filtering ? shown + " of " + total + " datasets shown" : "";
+        var empty = document.getElementById(table.id + "-empty");
+        if (empty) { empty.hidden = shown > 0; }
+        var filtering = q || status || tag || folder;
+        form.elements.shown.value = filtering ? shown + " of " + total + " datasets shown" : total + " datasets";
       }
       form.addEventListener("input", apply);
+      form.addEventListener("change", apply);
+      form.addEventListener("reset", function () { window.setTimeout(apply, 0); });
       form.addEventListener("submit", function (e) { e.preventDefault(); });
       apply();
     });
   }
 
-  document.addEventListener("DOMContentLoaded", function () {
+  function start() {
     setupSorting();
     setupFilters();
-    drawCharts();
-  });
+    collect();
+    draw();
+    watch(darkQuery);
+    watch(printQuery);
+    window.addEventListener("beforeprint", draw);
+    window.addEventListener("afterprint", draw);
+  }
+
+  if (document.readyState === "loading") { document.addEventListener("DOMContentLoaded", start); } else { start(); }
 })();
