@@ -197,10 +197,10 @@ def _flagged(design: Design, infl: Influence, flags: PointFlags) -> tuple[Flagge
         FlaggedPoint(
             int(design.rows[i]),
             _reasons(flags, i),
-            infl.leverage[i],
-            infl.studentized_residual[i],
-            infl.cooks_distance[i],
-            infl.dffits[i],
+            float(infl.leverage[i]),
+            float(infl.studentized_residual[i]),
+            float(infl.cooks_distance[i]),
+            float(infl.dffits[i]),
         )  # fmt: skip
         for i in flags.rows
     )

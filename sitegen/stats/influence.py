@@ -41,13 +41,16 @@ _DELETED_SSR_FLOOR = 1e-13
 
 @dataclass(frozen=True, slots=True)
 class Influence:
-    """Per-observation influence measures, in row order (NaN where undefined)."""
+    """Per-observation influence measures, in row order (NaN where undefined).
 
-    leverage: tuple[float, ...]  # hat diagonal
-    studentized_residual: tuple[float, ...]  # externally studentized
-    standardized_residual: tuple[float, ...]  # internally studentized
-    cooks_distance: tuple[float, ...]
-    dffits: tuple[float, ...]
+    Arrays rather than tuples: a million rows would otherwise cost a float object each.
+    """
+
+    leverage: FloatArray  # hat diagonal
+    studentized_residual: FloatArray  # externally studentized
+    standardized_residual: FloatArray  # internally studentized
+    cooks_distance: FloatArray
+    dffits: FloatArray
 
 
 def whitened_residuals(resid: FloatArray, weights: FloatArray | None) -> FloatArray:
@@ -97,11 +100,11 @@ def influence(
         else:
             studentized, dffits = nan, nan
     return Influence(
-        leverage=tuple(h.tolist()),
-        studentized_residual=tuple(studentized.tolist()),
-        standardized_residual=tuple(standardized.tolist()),
-        cooks_distance=tuple(cooks.tolist()),
-        dffits=tuple(dffits.tolist()),
+        leverage=np.asarray(h, dtype=np.float64),
+        studentized_residual=np.asarray(studentized, dtype=np.float64),
+        standardized_residual=np.asarray(standardized, dtype=np.float64),
+        cooks_distance=np.asarray(cooks, dtype=np.float64),
+        dffits=np.asarray(dffits, dtype=np.float64),
     )
 
 
