@@ -24,7 +24,7 @@ from sitegen.derive import Observations
 from sitegen.discover import DatasetSource
 from sitegen.errors import DatasetError, FitError, FormulaError
 from sitegen.formula import Design, assumed_formula, build_design
-from sitegen.load import LoadedTable, read_table
+from sitegen.load import LoadedTable, read_source, read_table
 from sitegen.model import AnovaLine, Coefficient, FitReport, Message, Status
 from sitegen.spec import DatasetSpec, Limits, read_sidecar
 from sitegen.stats.ols import OlsFit, anova_table, fit_ols
@@ -55,21 +55,23 @@ def analyze(task: FitTask) -> DatasetResult:
     base = FitReport(dataset=src.slug, source=src.relpath, section=src.section, title=title,
                      status="error", model="", level=0.95)  # fmt: skip
     try:
-        raw = src.csv_path.read_bytes()
+        raw = read_source(src.csv_path, task.limits, src.relpath)  # refuses a file over the size limit unread
     except OSError as exc:
         msg = f"{src.relpath} cannot be read: {exc.strerror or exc} (it may have been moved or deleted during the build)"
         return DatasetResult(replace(base, messages=(Message("error", msg),)), None)
+    except DatasetError as exc:
+        return DatasetResult(replace(base, messages=(Message("error", str(exc)),)), None)
     base = replace(base, input_sha256=hashlib.sha256(raw).hexdigest())
     spec: DatasetSpec | None = None
+    sidecar_name = src.relpath[: -len(".csv")] + ".toml"
     try:
-        sidecar_name = src.relpath[: -len(".csv")] + ".toml"
         spec = read_sidecar(src.sidecar_path, dict(task.defaults), sidecar_name)
         base = replace(base, title=spec.title or title, description=spec.description, tags=spec.tags,
                        level=spec.level, units=spec.units)  # fmt: skip
         table = read_table(raw, spec, task.limits, src.relpath)
         return _fit(base, spec, table)
     except DatasetError as exc:
-        messages = [*_spec_messages(spec), Message("error", str(exc))]
+        messages = [*_spec_messages(spec, sidecar_name), Message("error", str(exc))]
         return DatasetResult(replace(base, messages=tuple(messages)), None)
     except Exception as exc:  # noqa: BLE001 - one dataset must never stop the build
         text = (f"sitegen could not process {src.relpath} because of an internal error "
@@ -77,13 +79,13 @@ def analyze(task: FitTask) -> DatasetResult:
         return DatasetResult(replace(base, messages=(Message("error", text),)), None, traceback.format_exc())
 
 
-def _spec_messages(spec: DatasetSpec | None) -> list[Message]:
+def _spec_messages(spec: DatasetSpec | None, sidecar_name: str) -> list[Message]:
     if spec is None:
         return []
     out = []
     for key, hint in spec.unknown_keys:
-        tip = f"; did you mean '{hint}'?" if hint else ""
-        out.append(Message("warning", f"unknown sidecar key '{key}' was ignored{tip}"))
+        tip = f"; did you mean '{hint}'?" if hint else "; see the README for the keys a sidecar may hold"
+        out.append(Message("warning", f"{sidecar_name}: unknown sidecar key '{key}' was ignored{tip}"))
     return out
 
 
@@ -108,7 +110,7 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
     weights = _weights(design, spec)
     fit = fit_ols(design.X_ext, design.y_ext, design.terms, has_intercept=design.has_intercept,
                   level=spec.level, weights=weights)  # fmt: skip
-    messages = _spec_messages(spec)
+    messages = _spec_messages(spec, base.source[: -len(".csv")] + ".toml")
     if assumed:
         messages.append(Message("note", f"There is no sidecar model, so the line {formula} (second column "
                                         "against the first) was assumed."))  # fmt: skip

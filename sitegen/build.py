@@ -100,10 +100,16 @@ def _sha256(data: bytes) -> str:
     return hashlib.sha256(data).hexdigest()
 
 
+def _file_sha256(path: Path) -> str:
+    """SHA-256 of a file read in chunks (a file far over the size limit is never held in memory)."""
+    with path.open("rb") as fh:
+        return hashlib.file_digest(fh, "sha256").hexdigest()
+
+
 def _fingerprint(src: DatasetSource, config: SiteConfig, versions: dict[str, str]) -> tuple[str, str]:
     """(input sha256, fingerprint of everything that shapes the dataset's numbers)."""
     try:
-        csv_sha = _sha256(src.csv_path.read_bytes())
+        csv_sha = _file_sha256(src.csv_path)
     except OSError:
         return "", ""
     sidecar = b""
@@ -174,6 +180,7 @@ class FitJob:
     limits: Limits
     folder: Path
     offer_source: bool
+    input_sha256: str = ""  # of the file when the build started, to notice a change during the build
 
 
 @dataclass(frozen=True, slots=True)
@@ -191,6 +198,19 @@ def fit_job(job: FitJob) -> FitDone:
     from sitegen.report.files import dataset_files  # noqa: PLC0415
 
     result = analyze(FitTask(job.source, job.defaults, job.limits))
+    report = result.report
+    if job.input_sha256 and report.input_sha256 and report.input_sha256 != job.input_sha256:
+        from dataclasses import replace  # noqa: PLC0415
+
+        from sitegen.model import Message  # noqa: PLC0415
+
+        text = (
+            f"{job.source.relpath} changed while the build was running; this page shows the file as it was "
+            "read for fitting — build again once the file is complete"
+        )
+        status = "warn" if report.status == "ok" else report.status
+        report = replace(report, messages=(Message("warning", text), *report.messages), status=status)
+        result = replace(result, report=report)
     job.folder.mkdir(parents=True, exist_ok=True)
     files = dataset_files(job.folder, result.report, result.observations, job.source, job.offer_source)
     return FitDone(result.report, tuple(files), result.debug_trace)
@@ -369,7 +389,9 @@ class _Build:
                 done[src.slug] = reused
             else:
                 folder = self.work / "datasets" / src.slug
-                jobs.append(FitJob(src, self.config.defaults, self.config.limits, folder, self.config.offer_source))
+                sha = self.prints[src.slug][0]
+                config = self.config
+                jobs.append(FitJob(src, config.defaults, config.limits, folder, config.offer_source, sha))
         total = len(self.sources)
         count = len(done)
         if self.progress:

@@ -220,7 +220,7 @@ def _lines(
         found = alternative_lines(
             x, design.y, ("ols", *spec.lines), error_ratio=spec.error_ratio, level=fit.level
         )
-    except (FitError, ValueError) as exc:
+    except (FitError, ValueError, ArithmeticError) as exc:  # e.g. overflow for responses near 1e308
         messages.append(Message("warning", f"alternative lines could not be computed: {exc}"))
         return (), ""
     r = float(np.corrcoef(x, design.y)[0, 1])
@@ -246,7 +246,7 @@ def _calibration(
                                 df_resid=fit.df_resid, level=fit.level, responses=spec.calibrate,
                                 readings=spec.readings)  # fmt: skip
         lim = detection_limits(slope=b, residual_sd=fit.sigma, intercept_se=float(fit.std_error[0]))
-    except (FitError, ValueError) as exc:
+    except (FitError, ValueError, ArithmeticError) as exc:  # e.g. overflow for responses near 1e308
         messages.append(Message("warning", f"inverse prediction could not be computed: {exc}"))
         return (), None
     cal = tuple(Calibration(c.response, c.readings, c.estimate, c.std_error, c.ci_low, c.ci_high, c.method,

@@ -219,6 +219,11 @@ def check_formula(formula: str, columns: list[str]) -> tuple[str, ...]:
             raise FormulaError(
                 f"the model {_show(formula)} is nested too deeply to be read", hint="simplify key 'model'"
             ) from exc
+    if "Intercept" in checker.used:
+        raise FormulaError(
+            "a column named 'Intercept' cannot be used in a model: the name is taken by the intercept term",
+            hint="rename the column in the CSV header",
+        )
     if checker.missing:
         name = checker.missing[0]
         close = difflib.get_close_matches(name, columns, n=1)
@@ -376,7 +381,8 @@ def _dropped_rows(
         j_miss = np.flatnonzero(missing[i])
         j_inf = np.flatnonzero(infinite[i])
         if j_miss.size:
-            out.append((csv_rows[i], f"missing value in {names[int(j_miss[0])]!r}"))
+            cols = " and ".join(repr(names[int(j)]) for j in j_miss[:3]) + (" …" if j_miss.size > 3 else "")
+            out.append((csv_rows[i], f"missing value in {cols}"))
         elif j_inf.size:
             out.append((csv_rows[i], f"infinite value in {names[int(j_inf[0])]!r}"))
         else:

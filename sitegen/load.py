@@ -69,6 +69,10 @@ class LoadedTable:
     notes: tuple[str, ...]
 
 
+def _show_char(ch: str) -> str:
+    return '"\\t"' if ch == "\t" else f'"{ch}"'
+
+
 def _megabytes(n_bytes: float) -> str:
     mb = n_bytes / 1e6
     return f"{mb:,.1f} MB" if mb >= 10 else f"{mb:.3g} MB"
@@ -138,6 +142,13 @@ def _widen(raw: bytes, declared: str, name: str) -> tuple[bytes, str | None, lis
     notes: list[str] = []
     if codec.startswith(("utf-16", "utf-32")):
         found = codec
+        marked = raw.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE))
+        if codec.startswith("utf-16") and not marked and _looks_utf16(raw[:4096]) is None:
+            raise DataFileError(
+                f'{name}: the sidecar sets encoding = "{declared}", but the file is not UTF-16 text '
+                "(it has no byte-order mark and its bytes do not look like UTF-16)",
+                hint='remove key \'encoding\' or set it to the file\'s encoding, e.g. "utf-8" or "latin-1"',
+            )
     elif codec in ("utf-8", "utf-8-sig"):
         found = next((enc for bom, enc in _WIDE_BOMS if raw.startswith(bom)), None)
         how = "its byte-order mark"
@@ -281,6 +292,13 @@ def read_table(raw: bytes, spec: DatasetSpec, limits: Limits, name: str) -> Load
             hint='set delimiter = ";" (or the separator the file really uses) in the sidecar',
         )
     header = _header(head, delimiter, name)
+    if len([h for h in header if h.strip()]) < 2 and spec.delimiter is not None:
+        found = _sniff_delimiter(head)
+        raise DataFileError(
+            f"{name}: the sidecar sets delimiter = {_show_char(spec.delimiter)}, "
+            f"but the header line has no such separator ({_lines(head, 1)[0][:40]!r})",
+            hint=f"remove key 'delimiter' or set it to {_show_char(found)}",
+        )
     trailing_blank = _check_header(header, name, limits, decimal)
     frame = _parse(raw, delimiter, decimal, encoding, name, skip=skip, max_rows=limits.max_rows)
     frame, dropped = _drop_unnamed(frame, header, trailing_blank, name)
@@ -305,13 +323,16 @@ def read_table(raw: bytes, spec: DatasetSpec, limits: Limits, name: str) -> Load
 
 
 def _header(head: str, delimiter: str, name: str) -> list[str]:
-    first = _lines(head.lstrip("\ufeff"), 1)[0] if head.strip() else ""
-    if not first.strip():
+    text = head.lstrip("\ufeff")
+    if not _lines(text, 1)[0].strip():
         raise DataFileError(
             f"{name}: the first line is blank where the header should be",
             hint="put the column names on the first line, directly followed by the data rows",
         )
-    return _fields(first, delimiter)
+    try:  # the first record, which may run over several lines when a quoted name holds a line break
+        return next(csv.reader(_lines(text, 50), delimiter=delimiter))
+    except (csv.Error, StopIteration):
+        return _fields(_lines(text, 1)[0], delimiter)
 
 
 def _check_header(header: list[str], name: str, limits: Limits, decimal: str) -> int:
@@ -414,10 +435,13 @@ def _parse(
             hint=f"every line needs the same number of separators as the header{comma_hint}",
         ) from exc
     except pd.errors.ParserError as exc:
-        raise DataFileError(
-            f"{name} cannot be parsed as a table: {_parser_detail(exc)}",
-            hint=f"every line needs the same number of separators as the header{comma_hint}",
-        ) from exc
+        detail = _parser_detail(exc)
+        hint = (
+            'a quotation mark (") opened there is never closed: close it or remove it'
+            if "inside string" in detail
+            else f"every line needs the same number of separators as the header{comma_hint}"
+        )
+        raise DataFileError(f"{name} cannot be parsed as a table: {detail}", hint=hint) from exc
     except (UnicodeError, ValueError, OverflowError, MemoryError) as exc:
         raise DataFileError(f"{name} cannot be read: {exc}") from exc
     frame.columns = [str(c).strip() for c in frame.columns]

@@ -138,6 +138,8 @@ def _predict_at(v: object) -> tuple[tuple[tuple[str, float], ...], ...] | tuple[
         rows = []
         for row in v:
             assert isinstance(row, dict)
+            if not row:
+                raise _BadValueError("a list of x values, or of tables such as { flow = 12 }; {} is empty")
             rows.append(tuple(sorted((str(k), _number(x)) for k, x in row.items())))
         return tuple(rows)
     return _numbers(v)
@@ -206,6 +208,10 @@ _TOML_HINT = (
 )
 
 
+def _toml_hint(exc: ValueError) -> str | None:
+    return _TOML_HINT if isinstance(exc.__cause__, tomllib.TOMLDecodeError) else None
+
+
 def _read_toml(path: Path) -> dict[str, Any]:
     """Parse a TOML file; raises ``ValueError`` with a readable message."""
     try:
@@ -253,7 +259,7 @@ def read_sidecar(path: Path | None, defaults: Mapping[str, Any], display: str) -
         try:
             table = _read_toml(path)
         except ValueError as exc:
-            raise SidecarError(f"{display} {exc}", hint=_TOML_HINT) from exc
+            raise SidecarError(f"{display} {exc}", hint=_toml_hint(exc)) from exc
         clean, unknown = validate_keys(table, display)
         values.update(clean)
     return DatasetSpec(**values, unknown_keys=tuple(unknown))
@@ -304,7 +310,7 @@ def read_site_config(path: Path) -> tuple[SiteConfig, list[str]]:
     try:
         table = _read_toml(path)
     except ValueError as exc:
-        raise SiteConfigError(f"site.toml {exc}", hint=_TOML_HINT) from exc
+        raise SiteConfigError(f"site.toml {exc}", hint=_toml_hint(exc)) from exc
     warnings: list[str] = []
     for key in table:
         if key not in _SITE_KEYS:

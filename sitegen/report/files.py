@@ -85,7 +85,9 @@ def dataset_files(
     files = ["fit.json"]
     (folder / "fit.json").write_text(to_json(r), encoding="utf-8")
     if offer_source:
-        name = "source-" + src.csv_path.name
+        # Named by slug: the original name may hold '#', '?' or bytes that are not UTF-8, which
+        # would break the link on the page (the page shows the original name as the link text).
+        name = f"source-{src.slug}.csv"
         try:
             shutil.copyfile(src.csv_path, folder / name)
             files.append(name)

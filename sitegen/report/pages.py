@@ -154,7 +154,8 @@ def _downloads(r: FitReport, files: Sequence[str]) -> list[tuple[str, str, str]]
         "anova.csv": "the analysis of variance table",
     }
     out = [(f, f, described.get(f, "")) for f in files if f in described]
-    out += [(f, f"original file ({f.removeprefix('source-')})", "the data file exactly as delivered")
+    original = r.source.rsplit("/", 1)[-1]
+    out += [(f, f"original file ({original})", "the data file exactly as delivered")
             for f in files if f.startswith("source-")]  # fmt: skip
     return out
 

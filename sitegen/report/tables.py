@@ -68,11 +68,18 @@ def _one_line_end(value: Any) -> Any:
 
 def to_csv_bytes(frame: pd.DataFrame) -> bytes:
     """CSV with shortest round-trip floats, empty cells for missing values, LF line ends."""
-    text_columns = [c for c in frame.columns if not pd.api.types.is_numeric_dtype(frame[c])]
-    if text_columns or any("\r" in str(c) for c in frame.columns):
+    fixed: dict[int, list[Any]] = {}
+    for i in range(frame.shape[1]):
+        col = frame.iloc[:, i]
+        if pd.api.types.is_numeric_dtype(col):
+            continue
+        values = col.tolist()
+        if any(isinstance(v, str) and "\r" in v for v in values):
+            fixed[i] = [_one_line_end(v) for v in values]
+    if fixed or any("\r" in str(c) for c in frame.columns):
         frame = frame.copy()
-        for c in text_columns:
-            frame[c] = frame[c].map(_one_line_end)
+        for i, values in fixed.items():
+            frame.isetitem(i, values)
         frame.columns = [_one_line_end(str(c)) for c in frame.columns]
     buf = io.StringIO()
     frame.to_csv(buf, index=False, na_rep="", lineterminator="\n")
