@@ -13,13 +13,12 @@ import shutil
 import subprocess
 import sys
 import tempfile
-import time
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 
-from datasets import make_folder, touch_one  # noqa: E402
+from datasets import make_folder, touch_one  # type: ignore[import-not-found]  # noqa: E402
 
 _PEAK = (
     "import resource,subprocess,sys,time;t=time.perf_counter();r=subprocess.run(sys.argv[1:]);"
@@ -59,21 +58,27 @@ def main() -> None:
         touch_one(data)
         one, one_mem, _ = timed(sitegen)
         results = {
-            "datasets": args.datasets, "rows": args.rows,
-            "sitegen_full_s": round(full, 2), "sitegen_noop_s": round(noop, 2), "sitegen_one_changed_s": round(one, 2),
+            "datasets": args.datasets,
+            "rows": args.rows,
+            "sitegen_full_s": round(full, 2),
+            "sitegen_noop_s": round(noop, 2),
+            "sitegen_one_changed_s": round(one, 2),
             "sitegen_per_dataset_ms": round(1000 * full / args.datasets, 1),
             "sitegen_peak_mb": round(max(full_mem, noop_mem, one_mem), 1),
             "sitegen_site_mb": round(size_mb(site), 1),
-            "noop_fraction_of_full": round(noop / full, 3), "one_changed_fraction_of_full": round(one / full, 3),
-        }  # fmt: skip
+            "noop_fraction_of_full": round(noop / full, 3),
+            "one_changed_fraction_of_full": round(one / full, 3),
+        }
         if not args.skip_baseline:
             base_out = tmp / "baseline"
             base, base_mem, _ = timed([sys.executable, str(HERE / "baseline.py"), str(data), str(base_out)])
             results |= {
-                "baseline_full_s": round(base, 2), "baseline_per_dataset_ms": round(1000 * base / args.datasets, 1),
-                "baseline_peak_mb": round(base_mem, 1), "baseline_site_mb": round(size_mb(base_out), 1),
+                "baseline_full_s": round(base, 2),
+                "baseline_per_dataset_ms": round(1000 * base / args.datasets, 1),
+                "baseline_peak_mb": round(base_mem, 1),
+                "baseline_site_mb": round(size_mb(base_out), 1),
                 "full_fraction_of_baseline": round(full / base, 3),
-            }  # fmt: skip
+            }
         width = max(len(k) for k in results)
         for k, v in results.items():
             print(f"{k:<{width}}  {v}")

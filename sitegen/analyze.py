@@ -52,12 +52,21 @@ def analyze(task: FitTask) -> DatasetResult:
     """Fit one dataset; never raises."""
     src = task.source
     title = Path(src.relpath).stem
-    base = FitReport(dataset=src.slug, source=src.relpath, section=src.section, title=title,
-                     status="error", model="", level=0.95)  # fmt: skip
+    base = FitReport(
+        dataset=src.slug,
+        source=src.relpath,
+        section=src.section,
+        title=title,
+        status="error",
+        model="",
+        level=0.95,
+    )
     try:
         raw = read_source(src.csv_path, task.limits, src.relpath)  # refuses a file over the size limit unread
     except OSError as exc:
-        msg = f"{src.relpath} cannot be read: {exc.strerror or exc} (it may have been moved or deleted during the build)"
+        msg = (
+            f"{src.relpath} cannot be read: {exc.strerror or exc} (it may have been moved or deleted during the build)"
+        )
         return DatasetResult(replace(base, messages=(Message("error", msg),)), None)
     except DatasetError as exc:
         return DatasetResult(replace(base, messages=(Message("error", str(exc)),)), None)
@@ -66,16 +75,24 @@ def analyze(task: FitTask) -> DatasetResult:
     sidecar_name = src.relpath[: -len(".csv")] + ".toml"
     try:
         spec = read_sidecar(src.sidecar_path, dict(task.defaults), sidecar_name)
-        base = replace(base, title=spec.title or title, description=spec.description, tags=spec.tags,
-                       level=spec.level, units=spec.units)  # fmt: skip
+        base = replace(
+            base,
+            title=spec.title or title,
+            description=spec.description,
+            tags=spec.tags,
+            level=spec.level,
+            units=spec.units,
+        )
         table = read_table(raw, spec, task.limits, src.relpath)
         return _fit(base, spec, table)
     except DatasetError as exc:
         messages = [*_spec_messages(spec, sidecar_name), Message("error", str(exc))]
         return DatasetResult(replace(base, messages=tuple(messages)), None)
-    except Exception as exc:  # noqa: BLE001 - one dataset must never stop the build
-        text = (f"sitegen could not process {src.relpath} because of an internal error "
-                f"({type(exc).__name__}: {exc}); please report it with the file")  # fmt: skip
+    except Exception as exc:
+        text = (
+            f"sitegen could not process {src.relpath} because of an internal error "
+            f"({type(exc).__name__}: {exc}); please report it with the file"
+        )
         return DatasetResult(replace(base, messages=(Message("error", text),)), None, traceback.format_exc())
 
 
@@ -108,19 +125,30 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
     extra = tuple(c for c in (spec.weights, spec.group) if c)
     design = build_design(formula, table.frame, name, extra)
     weights = _weights(design, spec)
-    fit = fit_ols(design.X_ext, design.y_ext, design.terms, has_intercept=design.has_intercept,
-                  level=spec.level, weights=weights)  # fmt: skip
+    fit = fit_ols(
+        design.X_ext,
+        design.y_ext,
+        design.terms,
+        has_intercept=design.has_intercept,
+        level=spec.level,
+        weights=weights,
+    )
     messages = _spec_messages(spec, base.source[: -len(".csv")] + ".toml")
     if assumed:
-        messages.append(Message("note", f"There is no sidecar model, so the line {formula} (second column "
-                                        "against the first) was assumed."))  # fmt: skip
+        messages.append(
+            Message(
+                "note",
+                f"There is no sidecar model, so the line {formula} (second column against the first) was assumed.",
+            )
+        )
     messages += [Message("warning" if "not UTF-8" in n else "note", n) for n in table.notes]
     if design.dropped:
         rows = ", ".join(str(r) for r, _ in design.dropped[:20])
         more = f" and {len(design.dropped) - 20} more" if len(design.dropped) > 20 else ""
         reasons = sorted({why for _, why in design.dropped})
-        messages.append(Message("warning", f"{len(design.dropped)} row(s) left out ({'; '.join(reasons)}): "
-                                           f"rows {rows}{more}."))  # fmt: skip
+        messages.append(
+            Message("warning", f"{len(design.dropped)} row(s) left out ({'; '.join(reasons)}): rows {rows}{more}.")
+        )
     pieces = derive.compute(design, fit, spec, weights)
     messages += pieces.messages
     status: Status = "warn" if any(m.level in ("warning", "error") for m in messages) else "ok"
@@ -147,9 +175,7 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         f_p_value=fit.f_p_value,
         condition_number=fit.condition,
         coefficients=_coefficients(fit, pieces.robust_se),
-        anova=tuple(
-            AnovaLine(a.source, a.df, a.sum_sq, a.mean_sq, a.f_stat, a.p_value) for a in anova_table(fit)
-        ),
+        anova=tuple(AnovaLine(a.source, a.df, a.sum_sq, a.mean_sq, a.f_stat, a.p_value) for a in anova_table(fit)),
         messages=tuple(messages),
         diagnostics=pieces.diagnostics,
         flagged=pieces.flagged,
@@ -167,8 +193,10 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         reading=(("delimiter", table.delimiter), ("decimal", table.decimal), ("encoding", table.encoding)),
     )
     if report.compare_term and report.coefficient(report.compare_term) is None:
-        raise FormulaError(f"compare = {spec.compare!r} is not a term of the model",
-                           hint=f"choose one of {', '.join(design.terms)}")  # fmt: skip
+        raise FormulaError(
+            f"compare = {spec.compare!r} is not a term of the model",
+            hint=f"choose one of {', '.join(design.terms)}",
+        )
     return DatasetResult(report, pieces.observations)
 
 
@@ -188,13 +216,24 @@ def _coefficients(fit: OlsFit, robust_se: NDArray[np.float64] | None) -> tuple[C
 
     out = []
     for i, term in enumerate(fit.terms):
-        c = Coefficient(term, float(fit.beta[i]), float(fit.std_error[i]), float(fit.t_stat[i]),
-                        float(fit.p_value[i]), float(fit.ci_low[i]), float(fit.ci_high[i]))  # fmt: skip
+        c = Coefficient(
+            term,
+            float(fit.beta[i]),
+            float(fit.std_error[i]),
+            float(fit.t_stat[i]),
+            float(fit.p_value[i]),
+            float(fit.ci_low[i]),
+            float(fit.ci_high[i]),
+        )
         if robust_se is not None:
             se = float(robust_se[i])
             t = c.estimate / se if se > 0 else float("nan")
-            c = replace(c, robust_std_error=se, robust_ci_low=c.estimate - fit.t_crit * se,
-                        robust_ci_high=c.estimate + fit.t_crit * se,
-                        robust_p_value=float(2 * sps.t.sf(abs(t), fit.df_resid)))  # fmt: skip
+            c = replace(
+                c,
+                robust_std_error=se,
+                robust_ci_low=c.estimate - fit.t_crit * se,
+                robust_ci_high=c.estimate + fit.t_crit * se,
+                robust_p_value=float(2 * sps.t.sf(abs(t), fit.df_resid)),
+            )
         out.append(c)
     return tuple(out)

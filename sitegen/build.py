@@ -241,7 +241,9 @@ def page_job(job: PageJob) -> str:
 # --- the build --------------------------------------------------------------------------
 
 
-def run_build(options: BuildOptions, progress: Progress | None = None, executor: Executor | None = None) -> BuildSummary:
+def run_build(
+    options: BuildOptions, progress: Progress | None = None, executor: Executor | None = None
+) -> BuildSummary:
     """Build the site; raises :class:`~sitegen.errors.ConfigError` when nothing may be written."""
     started = time.perf_counter()
     data_dir, out_dir = options.data_dir, options.out_dir
@@ -260,7 +262,16 @@ def run_build(options: BuildOptions, progress: Progress | None = None, executor:
             outcomes = _touch_build_json(out_dir, prev)
             return BuildSummary(out_dir, outcomes, 0, len(sources), time.perf_counter() - started, tuple(warnings))
         run = executor or make_executor(options.jobs)
-        state = _Build(work, prev, sources, prints, config, site_key, run, progress)
+        state = _Build(
+            work=work,
+            prev=prev,
+            sources=sources,
+            prints=prints,
+            config=config,
+            site_key=site_key,
+            run=run,
+            progress=progress,
+        )
         summary = state.execute(theme)
         swap_in(work, out_dir)
     return BuildSummary(
@@ -323,7 +334,8 @@ def _touch_build_json(out_dir: Path, prev: _Previous) -> tuple[Outcome, ...]:
     tmp.write_text(json.dumps(body, indent=1, sort_keys=True) + "\n", encoding="utf-8")
     tmp.replace(out_dir / "build.json")
     return tuple(
-        Outcome(e["dataset"], e.get("source", ""), e.get("status", "ok"), e.get("message", "")) for e in body["datasets"]
+        Outcome(e["dataset"], e.get("source", ""), e.get("status", "ok"), e.get("message", ""))
+        for e in body["datasets"]
     )
 
 
@@ -340,6 +352,7 @@ class _Build:
 
     def __init__(
         self,
+        *,
         work: Path,
         prev: _Previous,
         sources: Sequence[DatasetSource],
@@ -416,9 +429,7 @@ class _Build:
         assets.write_bundle(self.work, self.prev.site)
         assets.write_static(self.work, theme)
         self._write_build_json(entries)
-        outcomes = tuple(
-            Outcome(r.dataset, r.source, r.status, str(summary_row(r)["message"])) for r in reports
-        )
+        outcomes = tuple(Outcome(r.dataset, r.source, r.status, str(summary_row(r)["message"])) for r in reports)
         return outcomes, len(jobs), hist_warnings, tuple(traces)
 
     def _plan_pages(
@@ -441,16 +452,28 @@ class _Build:
             target = self.work / "datasets" / src.slug / "index.html"
             old_entry = self.prev.entries.get(src.slug, {})
             old_page = self.prev.site / "datasets" / src.slug / "index.html" if self.prev.site else None
-            if src.slug not in refitted and old_page is not None and old_entry.get("page_key") == key and old_page.is_file():
+            if (
+                src.slug not in refitted
+                and old_page is not None
+                and old_entry.get("page_key") == key
+                and old_page.is_file()
+            ):
                 _link_or_copy(old_page, target)
             else:
                 full = report if src.slug in refitted else None
                 jobs.append(PageJob(ctx, full, files, prev_r, next_r, target))
-            entries.append({
-                "dataset": src.slug, "source": src.relpath, "input_sha256": self.prints[src.slug][0],
-                "fingerprint": fp, "page_key": key, "reused": src.slug not in refitted,
-                "status": report.status, "message": summary_row(report)["message"],
-            })  # fmt: skip
+            entries.append(
+                {
+                    "dataset": src.slug,
+                    "source": src.relpath,
+                    "input_sha256": self.prints[src.slug][0],
+                    "fingerprint": fp,
+                    "page_key": key,
+                    "reused": src.slug not in refitted,
+                    "status": report.status,
+                    "message": summary_row(report)["message"],
+                }
+            )
         return entries, jobs
 
     def _write_build_json(self, entries: list[dict[str, Any]]) -> None:

@@ -29,7 +29,7 @@ class _Printer:
         self.stream = stream
         self.quiet = quiet
         self.tty = stream.isatty()
-        self.color = self.tty and "NO_COLOR" not in os.environ or "FORCE_COLOR" in os.environ
+        self.color = (self.tty and "NO_COLOR" not in os.environ) or "FORCE_COLOR" in os.environ
 
     def _paint(self, text: str, code: str) -> str:
         return f"\033[{code}m{text}\033[0m" if self.color else text
@@ -60,8 +60,10 @@ class _Printer:
 
 
 def _parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(prog="sitegen", description="Fit straight lines to a folder of CSV datasets and "
-                                                            "publish the results as a static web site.")  # fmt: skip
+    p = argparse.ArgumentParser(
+        prog="sitegen",
+        description="Fit straight lines to a folder of CSV datasets and publish the results as a static web site.",
+    )
     p.add_argument("--version", action="version", version=f"sitegen {__version__}")
     sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
     b = sub.add_parser("build", help="build (or rebuild) a site from a data folder")
@@ -71,25 +73,23 @@ def _parser() -> argparse.ArgumentParser:
     w = sub.add_parser("watch", help="rebuild whenever files in the data folder change")
     w.add_argument("data_dir", type=Path, metavar="DATA_DIR")
     w.add_argument("-o", "--output", type=Path, required=True, metavar="SITE_DIR", dest="out_dir")
-    w.add_argument(
-        "--interval", type=float, default=1.0, help="seconds between looks at the folder (default 1)"
-    )
-    w.add_argument(
-        "--settle", type=float, default=1.5, help="quiet seconds before a rebuild starts (default 1.5)"
-    )
+    w.add_argument("--interval", type=float, default=1.0, help="seconds between looks at the folder (default 1)")
+    w.add_argument("--settle", type=float, default=1.5, help="quiet seconds before a rebuild starts (default 1.5)")
     w.add_argument("--max-builds", type=int, default=None, help=argparse.SUPPRESS)
     _common_build_options(w)
     k = sub.add_parser("pack", help="zip a built site for e-mail or a file share")
     k.add_argument("site_dir", type=Path, metavar="SITE_DIR")
     k.add_argument("-o", "--output", type=Path, required=True, metavar="FILE.zip", dest="target")
-    k.add_argument("--budget-mb", type=float, default=None,
-                   help="warn when the zip is larger than this many MB (default: site.toml's mail_budget_megabytes, "
-                        f"else {DEFAULT_MAIL_BUDGET_MB:g})")  # fmt: skip
+    k.add_argument(
+        "--budget-mb",
+        type=float,
+        default=None,
+        help="warn when the zip is larger than this many MB (default: site.toml's mail_budget_megabytes, "
+        f"else {DEFAULT_MAIL_BUDGET_MB:g})",
+    )
     v = sub.add_parser("preview", help="serve a built site on http://127.0.0.1 for a quick look")
     v.add_argument("site_dir", type=Path, metavar="SITE_DIR")
-    v.add_argument(
-        "--port", type=int, default=8000, help="port to listen on (default 8000; 0 picks a free one)"
-    )
+    v.add_argument("--port", type=int, default=8000, help="port to listen on (default 8000; 0 picks a free one)")
     return p
 
 
@@ -105,9 +105,7 @@ def _build(args: argparse.Namespace, out: _Printer) -> int:
 
     if args.jobs is not None and args.jobs < 1:
         raise ConfigError("--jobs must be at least 1")
-    summary = run_build(
-        BuildOptions(args.data_dir, args.out_dir, args.jobs, args.refit), progress=out.progress
-    )
+    summary = run_build(BuildOptions(args.data_dir, args.out_dir, args.jobs, args.refit), progress=out.progress)
     for w in summary.warnings:
         out.warn(w)
     for o in summary.outcomes:
@@ -137,8 +135,14 @@ def _watch(args: argparse.Namespace, out: _Printer) -> int:
 
     out.info(f"Watching {args.data_dir} (Ctrl+C to stop)")
     try:
-        watch(args.data_dir, args.out_dir, once, interval=args.interval, settle=args.settle,
-              max_builds=args.max_builds)  # fmt: skip
+        watch(
+            args.data_dir,
+            args.out_dir,
+            once,
+            interval=args.interval,
+            settle=args.settle,
+            max_builds=args.max_builds,
+        )
     except KeyboardInterrupt:
         out.info("Stopped watching.")
     return EXIT_OK
@@ -160,8 +164,10 @@ def _pack(args: argparse.Namespace, out: _Printer) -> int:
             pass
     out.info(f"Packed {args.site_dir} into {args.target}: {size / 1e6:.2f} MB")
     if size > budget * 1e6:
-        out.warn(f"the zip is larger than {budget:g} MB, more than many mail systems accept; "
-                 "share it on a file server instead, or leave large datasets out")  # fmt: skip
+        out.warn(
+            f"the zip is larger than {budget:g} MB, more than many mail systems accept; "
+            "share it on a file server instead, or leave large datasets out"
+        )
     return EXIT_OK
 
 
@@ -203,12 +209,10 @@ def main(argv: Sequence[str] | None = None, stream: TextIO | None = None) -> int
     except OSError as exc:
         out.error(f"{exc.strerror or exc}: {exc.filename or ''}".rstrip(": "))
         return EXIT_NOTHING_WRITTEN
-    except Exception:  # noqa: BLE001 - the last line of defence: no traceback unless asked
+    except Exception:
         if getattr(args, "debug", False):
             traceback.print_exc(file=stream)
-        out.error(
-            "sitegen hit an internal error and wrote nothing; run again with --debug and report the output"
-        )
+        out.error("sitegen hit an internal error and wrote nothing; run again with --debug and report the output")
         return EXIT_NOTHING_WRITTEN
 
 

@@ -91,12 +91,7 @@ def _in_rhs(design: Design, var: str) -> bool:
 def straight_line(design: Design) -> str | None:
     """The predictor of a plain ``y ~ x`` model (intercept and one untransformed column)."""
     x = single_predictor(design)
-    if (
-        x is not None
-        and design.has_intercept
-        and len(design.terms) == 2
-        and design.terms[1] in (x, f"Q('{x}')")
-    ):
+    if x is not None and design.has_intercept and len(design.terms) == 2 and design.terms[1] in (x, f"Q('{x}')"):
         return x
     return None
 
@@ -129,7 +124,7 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
             c.text,
             c.advice,
             tuple(int(design.rows[i]) for i in c.rows),
-        )  # fmt: skip
+        )
         for c in checks
     )
     for d in diagnostics:
@@ -163,7 +158,7 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
             ("studentized_residual", flags.residual_cutoff),
             ("cooks_distance", flags.cooks_cutoff),
             ("dffits", flags.dffits_cutoff),
-        ),  # fmt: skip
+        ),
         robust_se=robust_se,
         claims=tuple(claims),
         lines=lines,
@@ -201,7 +196,7 @@ def _flagged(design: Design, infl: Influence, flags: PointFlags) -> tuple[Flagge
             float(infl.studentized_residual[i]),
             float(infl.cooks_distance[i]),
             float(infl.dffits[i]),
-        )  # fmt: skip
+        )
         for i in flags.rows
     )
 
@@ -212,20 +207,34 @@ def _lines(
     if not spec.lines:
         return (), ""
     if x_col is None:
-        messages.append(Message("warning", "alternative lines need a straight-line model such as \"y ~ x\"; "
-                                           "the 'lines' request was skipped"))  # fmt: skip
+        messages.append(
+            Message(
+                "warning",
+                "alternative lines need a straight-line model such as \"y ~ x\"; the 'lines' request was skipped",
+            )
+        )
         return (), ""
     x = design.X[:, 1]
     try:
-        found = alternative_lines(
-            x, design.y, ("ols", *spec.lines), error_ratio=spec.error_ratio, level=fit.level
-        )
+        found = alternative_lines(x, design.y, ("ols", *spec.lines), error_ratio=spec.error_ratio, level=fit.level)
     except (FitError, ValueError, ArithmeticError) as exc:  # e.g. overflow for responses near 1e308
         messages.append(Message("warning", f"alternative lines could not be computed: {exc}"))
         return (), ""
     r = float(np.corrcoef(x, design.y)[0, 1])
-    out = tuple(AltLine(ln.method, ln.label, ln.slope, ln.intercept, ln.slope_ci_low, ln.slope_ci_high,
-                        ln.intercept_ci_low, ln.intercept_ci_high, ln.interval_method) for ln in found)  # fmt: skip
+    out = tuple(
+        AltLine(
+            ln.method,
+            ln.label,
+            ln.slope,
+            ln.intercept,
+            ln.slope_ci_low,
+            ln.slope_ci_high,
+            ln.intercept_ci_low,
+            ln.intercept_ci_high,
+            ln.interval_method,
+        )
+        for ln in found
+    )
     return out, explain_lines(found, r)
 
 
@@ -235,31 +244,49 @@ def _calibration(
     if not spec.calibrate:
         return (), None
     if x_col is None or spec.weights:
-        messages.append(Message("warning", "inverse prediction needs an unweighted straight-line model such as "
-                                           "\"y ~ x\"; the 'calibrate' request was skipped"))  # fmt: skip
+        messages.append(
+            Message(
+                "warning",
+                "inverse prediction needs an unweighted straight-line model such as "
+                "\"y ~ x\"; the 'calibrate' request was skipped",
+            )
+        )
         return (), None
     x = design.X[:, 1]
     a, b = float(fit.beta[0]), float(fit.beta[1])
     try:
-        found = inverse_predict(intercept=a, slope=b, residual_sd=fit.sigma, n=fit.n, x_mean=float(x.mean()),
-                                sxx=float(((x - x.mean()) ** 2).sum()), y_mean=a + b * float(x.mean()),
-                                df_resid=fit.df_resid, level=fit.level, responses=spec.calibrate,
-                                readings=spec.readings)  # fmt: skip
+        found = inverse_predict(
+            intercept=a,
+            slope=b,
+            residual_sd=fit.sigma,
+            n=fit.n,
+            x_mean=float(x.mean()),
+            sxx=float(((x - x.mean()) ** 2).sum()),
+            y_mean=a + b * float(x.mean()),
+            df_resid=fit.df_resid,
+            level=fit.level,
+            responses=spec.calibrate,
+            readings=spec.readings,
+        )
         lim = detection_limits(slope=b, residual_sd=fit.sigma, intercept_se=float(fit.std_error[0]))
     except (FitError, ValueError, ArithmeticError) as exc:  # e.g. overflow for responses near 1e308
         messages.append(Message("warning", f"inverse prediction could not be computed: {exc}"))
         return (), None
-    cal = tuple(Calibration(c.response, c.readings, c.estimate, c.std_error, c.ci_low, c.ci_high, c.method,
-                            c.bounded) for c in found)  # fmt: skip
+    cal = tuple(
+        Calibration(c.response, c.readings, c.estimate, c.std_error, c.ci_low, c.ci_high, c.method, c.bounded)
+        for c in found
+    )
     if any(not c.bounded for c in cal):
-        messages.append(Message("warning", "the slope is too uncertain to bound some inverse predictions "
-                                           "(Fieller's interval is unbounded)"))  # fmt: skip
+        messages.append(
+            Message(
+                "warning",
+                "the slope is too uncertain to bound some inverse predictions (Fieller's interval is unbounded)",
+            )
+        )
     return cal, DetectionLimits(lim.lod, lim.loq, lim.convention, lim.basis)
 
 
-def _predictions(
-    design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[Message]
-) -> tuple[Prediction, ...]:
+def _predictions(design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[Message]) -> tuple[Prediction, ...]:
     if not spec.predict_at:
         return ()
     first = spec.predict_at[0]
@@ -268,8 +295,13 @@ def _predictions(
     else:
         x_col = single_predictor(design)
         if x_col is None:
-            messages.append(Message("warning", "predict_at with plain numbers needs a one-predictor model; "
-                                               "give tables such as { flow = 10, head = 30 } instead"))  # fmt: skip
+            messages.append(
+                Message(
+                    "warning",
+                    "predict_at with plain numbers needs a one-predictor model; "
+                    "give tables such as { flow = 10, head = 30 } instead",
+                )
+            )
             return ()
         rows = [{x_col: float(v)} for v in spec.predict_at if not isinstance(v, tuple)]
     frame = pd.DataFrame(rows)
@@ -280,10 +312,17 @@ def _predictions(
         return ()
     b = bands(fit, X_new)
     return tuple(
-        Prediction(tuple(sorted((k, float(v)) for k, v in row.items())), float(b.fit[i]), float(b.se_mean[i]),
-                   float(b.mean_low[i]), float(b.mean_high[i]), float(b.pred_low[i]), float(b.pred_high[i]))
+        Prediction(
+            tuple(sorted((k, float(v)) for k, v in row.items())),
+            float(b.fit[i]),
+            float(b.se_mean[i]),
+            float(b.mean_low[i]),
+            float(b.mean_high[i]),
+            float(b.pred_low[i]),
+            float(b.pred_high[i]),
+        )
         for i, row in enumerate(rows)
-    )  # fmt: skip
+    )
 
 
 def _groups(
@@ -292,8 +331,12 @@ def _groups(
     if not spec.group:
         return None
     if x_col is None:
-        messages.append(Message("warning", "one line per group needs a straight-line model such as \"y ~ x\"; "
-                                           "the 'group' request was skipped"))  # fmt: skip
+        messages.append(
+            Message(
+                "warning",
+                "one line per group needs a straight-line model such as \"y ~ x\"; the 'group' request was skipped",
+            )
+        )
         return None
     labels = design.data[spec.group].astype(str).to_numpy(dtype=str)
     try:
@@ -379,22 +422,38 @@ def _chart(design: Design, fit: OlsFit, infl: Influence, flags: PointFlags, spec
         if Xg is not None and Xg.shape[1] == len(fit.terms):
             b = bands(fit, Xg)
             band_cols = ("x", "fit", "mean_low", "mean_high", "pred_low", "pred_high")
-            band = tuple(zip(*(_clean(v) for v in (grid, b.fit, b.mean_low, b.mean_high, b.pred_low,
-                                                       b.pred_high)), strict=True))  # fmt: skip
+            band = tuple(
+                zip(
+                    *(_clean(v) for v in (grid, b.fit, b.mean_low, b.mean_high, b.pred_low, b.pred_high)),
+                    strict=True,
+                )
+            )
     density_cols: tuple[str, ...] = ()
     density: tuple[tuple[float | None, ...], ...] = ()
     if sampled and x_col is not None:
         density_cols, density = _density(cols["x"], design.y)
-    return ChartData(x=x_col, y=design.response, point_columns=names, points=points, band_columns=band_cols,
-                     band=band, sampled=sampled, n_total=fit.n, density_columns=density_cols, density=density,
-                     point_groups=groups)  # fmt: skip
+    return ChartData(
+        x=x_col,
+        y=design.response,
+        point_columns=names,
+        points=points,
+        band_columns=band_cols,
+        band=band,
+        sampled=sampled,
+        n_total=fit.n,
+        density_columns=density_cols,
+        density=density,
+        point_groups=groups,
+    )
 
 
 def _density(x: FloatArray, y: FloatArray) -> tuple[tuple[str, ...], tuple[tuple[float | None, ...], ...]]:
     counts, xe, ye = np.histogram2d(x, y, bins=DENSITY_BINS)
     ii, jj = np.nonzero(counts)
-    rows = tuple((float(xe[i]), float(xe[i + 1]), float(ye[j]), float(ye[j + 1]), float(counts[i, j]))
-                 for i, j in zip(ii, jj, strict=True))  # fmt: skip
+    rows = tuple(
+        (float(xe[i]), float(xe[i + 1]), float(ye[j]), float(ye[j + 1]), float(counts[i, j]))
+        for i, j in zip(ii, jj, strict=True)
+    )
     return ("x0", "x1", "y0", "y1", "count"), rows
 
 

@@ -32,9 +32,24 @@ PATSY_FUNCTIONS = frozenset({"I", "Q", "center", "standardize", "scale"})
 #: Longest model formula accepted (a guard against pathological sidecars).
 MAX_FORMULA_CHARS = 10_000
 _ALLOWED_NODES = (
-    ast.Expression, ast.Name, ast.Load, ast.Constant, ast.BinOp, ast.UnaryOp, ast.Call, ast.Attribute,
-    ast.Add, ast.Sub, ast.Mult, ast.Div, ast.Pow, ast.USub, ast.UAdd, ast.Mod, ast.FloorDiv,
-)  # fmt: skip
+    ast.Expression,
+    ast.Name,
+    ast.Load,
+    ast.Constant,
+    ast.BinOp,
+    ast.UnaryOp,
+    ast.Call,
+    ast.Attribute,
+    ast.Add,
+    ast.Sub,
+    ast.Mult,
+    ast.Div,
+    ast.Pow,
+    ast.USub,
+    ast.UAdd,
+    ast.Mod,
+    ast.FloorDiv,
+)
 
 
 @dataclass(frozen=True, slots=True)
@@ -342,9 +357,7 @@ def build_design(formula: str, frame: pd.DataFrame, name: str, extra: tuple[str,
         )
     if not bool(ok.all()):
         for row in rows[~ok]:
-            dropped.append(
-                (int(row), "the model's transformation is undefined here (e.g. log of a value ≤ 0)")
-            )
+            dropped.append((int(row), "the model's transformation is undefined here (e.g. log of a value ≤ 0)"))
         X, y, rows = X[ok], y[ok], rows[ok]
         data = data.loc[rows]
     _check_constant_terms(X, x_df.columns, intercept, name)
@@ -365,9 +378,7 @@ def build_design(formula: str, frame: pd.DataFrame, name: str, extra: tuple[str,
     )
 
 
-def _dropped_rows(
-    numeric: pd.DataFrame, frame: pd.DataFrame, extra: tuple[str, ...]
-) -> list[tuple[int, str]]:
+def _dropped_rows(numeric: pd.DataFrame, frame: pd.DataFrame, extra: tuple[str, ...]) -> list[tuple[int, str]]:
     """(CSV row, reason naming the column) of each row with a missing or infinite value the model needs."""
     values = numeric.to_numpy(dtype=float)
     missing = np.isnan(values)
@@ -436,15 +447,11 @@ def _extended(
     stateful transform, or when the two evaluations disagree beyond rounding.
     """
     fallback = X.astype(np.longdouble), y.astype(np.longdouble)
-    codes = [f.code for t in x_info.terms for f in t.factors] + [
-        f.code for t in y_info.terms for f in t.factors
-    ]
+    codes = [f.code for t in x_info.terms for f in t.factors] + [f.code for t in y_info.terms for f in t.factors]
     if any(s in code for code in codes for s in _STATEFUL) or X.shape[1] != len(x_info.terms):
         return fallback
     namespace: dict[str, Any] = {
-        c: data[c].to_numpy(dtype=np.longdouble)
-        for c in data.columns
-        if pd.api.types.is_numeric_dtype(data[c])
+        c: data[c].to_numpy(dtype=np.longdouble) for c in data.columns if pd.api.types.is_numeric_dtype(data[c])
     }
     namespace |= {
         "np": np,

@@ -273,8 +273,10 @@ def read_table(raw: bytes, spec: DatasetSpec, limits: Limits, name: str) -> Load
         head = _LINE_BREAK.split(head, maxsplit=1)[1] if _LINE_BREAK.search(head) else ""
         if delimiter is None:
             delimiter = sep_line.group(1)
-            notes.append(f"{name}: the separator {_DELIM_NAMES.get(delimiter, repr(delimiter))} was taken "
-                         f"from its first line {sep_line.group(0).strip()!r}")  # fmt: skip
+            notes.append(
+                f"{name}: the separator {_DELIM_NAMES.get(delimiter, repr(delimiter))} was taken "
+                f"from its first line {sep_line.group(0).strip()!r}"
+            )
     if delimiter is None:
         delimiter = _sniff_delimiter(head)
         if delimiter != ",":
@@ -283,9 +285,7 @@ def read_table(raw: bytes, spec: DatasetSpec, limits: Limits, name: str) -> Load
     decimal = spec.decimal
     if spec.decimal == "." and _looks_like_decimal_comma(head, delimiter):
         decimal = ","
-        notes.append(
-            'numbers use a decimal comma (detected); set decimal = "," in the sidecar to make it explicit'
-        )
+        notes.append('numbers use a decimal comma (detected); set decimal = "," in the sidecar to make it explicit')
     if decimal == delimiter:
         raise DataFileError(
             f"{name}: the separator and the decimal mark are both {delimiter!r}",
@@ -317,9 +317,7 @@ def read_table(raw: bytes, spec: DatasetSpec, limits: Limits, name: str) -> Load
             hint="raise [limits] max_rows in site.toml if tables this long are expected",
         )
     frame.index = pd.RangeIndex(1, len(frame) + 1)
-    return LoadedTable(
-        frame=frame, delimiter=delimiter, decimal=decimal, encoding=wide or encoding, notes=tuple(notes)
-    )
+    return LoadedTable(frame=frame, delimiter=delimiter, decimal=decimal, encoding=wide or encoding, notes=tuple(notes))
 
 
 def _header(head: str, delimiter: str, name: str) -> list[str]:
@@ -348,9 +346,7 @@ def _check_header(header: list[str], name: str, limits: Limits, decimal: str) ->
         trailing += 1
     named = cleaned[: len(cleaned) - trailing]
     if not named:
-        raise DataFileError(
-            f"{name}: the header line names no columns", hint="put the column names on the first line"
-        )
+        raise DataFileError(f"{name}: the header line names no columns", hint="put the column names on the first line")
     if len(named) < 2:
         shown = named[0][:40]
         raise DataFileError(
@@ -366,9 +362,7 @@ def _check_header(header: list[str], name: str, limits: Limits, decimal: str) ->
         )
     blanks = [i + 1 for i, h in enumerate(named) if not h]
     if blanks:
-        raise DataFileError(
-            f"{name}: column {blanks[0]} of the header has no name", hint="give every column a name"
-        )
+        raise DataFileError(f"{name}: column {blanks[0]} of the header has no name", hint="give every column a name")
     seen: dict[str, int] = {}
     for i, h in enumerate(named, start=1):
         if h in seen:
@@ -380,9 +374,7 @@ def _check_header(header: list[str], name: str, limits: Limits, decimal: str) ->
     return trailing
 
 
-def _drop_unnamed(
-    frame: pd.DataFrame, header: list[str], trailing: int, name: str
-) -> tuple[pd.DataFrame, int]:
+def _drop_unnamed(frame: pd.DataFrame, header: list[str], trailing: int, name: str) -> tuple[pd.DataFrame, int]:
     """Drop unnamed columns at the end of the header when they hold no values."""
     if not trailing or len(frame.columns) != len(header):
         return frame, 0

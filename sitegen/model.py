@@ -285,7 +285,7 @@ def _same(v: Any) -> Any:
 
 
 @functools.cache
-def _decoder(tp: Any) -> Decoder:  # noqa: C901, PLR0911 - one branch per kind of type
+def _decoder(tp: Any) -> Decoder:
     """A function turning parsed JSON into a value of type ``tp`` (built once per type)."""
     origin = typing.get_origin(tp)
     if tp is float:

@@ -11,7 +11,7 @@ from sitegen.errors import ConfigError
 
 
 class _QuietHandler(http.server.SimpleHTTPRequestHandler):
-    def log_message(self, format: str, *args: object) -> None:  # noqa: A002 - signature of the base class
+    def log_message(self, format: str, *args: object) -> None:
         pass
 
 

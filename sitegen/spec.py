@@ -203,9 +203,7 @@ def _closest(word: str, choices: tuple[str, ...] | list[str]) -> str | None:
     return match[0] if match else None
 
 
-_TOML_HINT = (
-    'fix the place named; each setting is key = value, with text in double quotes, e.g. title = "Nitrate"'
-)
+_TOML_HINT = 'fix the place named; each setting is key = value, with text in double quotes, e.g. title = "Nitrate"'
 
 
 def _toml_hint(exc: ValueError) -> str | None:
@@ -228,9 +226,7 @@ def _read_toml(path: Path) -> dict[str, Any]:
         raise ValueError(f"is not valid TOML: {exc}") from exc
 
 
-def validate_keys(
-    table: Mapping[str, object], where: str
-) -> tuple[dict[str, Any], list[tuple[str, str | None]]]:
+def validate_keys(table: Mapping[str, object], where: str) -> tuple[dict[str, Any], list[tuple[str, str | None]]]:
     """Validate sidecar-style keys; returns (clean values, unknown keys with suggestions)."""
     clean: dict[str, Any] = {}
     unknown: list[tuple[str, str | None]] = []
@@ -293,9 +289,15 @@ class SiteConfig:
 
 
 _SITE_KEYS = (
-    "title", "description", "theme", "offer_source", "static_images",
-    "mail_budget_megabytes", "defaults", "limits",
-)  # fmt: skip
+    "title",
+    "description",
+    "theme",
+    "offer_source",
+    "static_images",
+    "mail_budget_megabytes",
+    "defaults",
+    "limits",
+)
 _LIMIT_KEYS = ("max_megabytes", "max_rows", "max_columns")
 
 
@@ -357,9 +359,7 @@ def _read_limits(table: object) -> Limits:
     for key in table:
         if key not in _LIMIT_KEYS:
             hint = _closest(key, _LIMIT_KEYS)
-            raise _site_error(
-                f"[limits] has unknown key '{key}'" + (f"; did you mean '{hint}'?" if hint else "")
-            )
+            raise _site_error(f"[limits] has unknown key '{key}'" + (f"; did you mean '{hint}'?" if hint else ""))
     out: dict[str, Any] = {}
     for key in ("max_rows", "max_columns"):
         if key in table:

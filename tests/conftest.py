@@ -32,16 +32,38 @@ EXAMPLE = ROOT / "example_project"
 
 # The contract's column lists (DESIGN.md, "Output layout").
 SUMMARY_COLUMNS = [
-    "dataset", "title", "status", "n", "df_resid", "r_squared", "adj_r_squared", "residual_std_error",
-    "f_stat", "f_p_value", "message",
-]  # fmt: skip
+    "dataset",
+    "title",
+    "status",
+    "n",
+    "df_resid",
+    "r_squared",
+    "adj_r_squared",
+    "residual_std_error",
+    "f_stat",
+    "f_p_value",
+    "message",
+]
 COEFFICIENT_COLUMNS = ("term", "estimate", "std_error", "t_stat", "p_value", "ci_low", "ci_high")
 OBSERVATION_COLUMNS = ("fitted", "residual", "mean_ci_low", "mean_ci_high", "pred_low", "pred_high")
 DIAGNOSTIC_COLUMNS = ("leverage", "studentized_residual", "cooks_distance", "dffits")
 FIT_JSON_KEYS = (
-    "dataset", "title", "model", "status", "level", "n", "df_model", "df_resid", "r_squared",
-    "adj_r_squared", "residual_std_error", "f_stat", "f_p_value", "coefficients", "messages",
-)  # fmt: skip
+    "dataset",
+    "title",
+    "model",
+    "status",
+    "level",
+    "n",
+    "df_model",
+    "df_resid",
+    "r_squared",
+    "adj_r_squared",
+    "residual_std_error",
+    "f_stat",
+    "f_p_value",
+    "coefficients",
+    "messages",
+)
 
 # A small straight-line dataset (invented): y ≈ 2x with a little scatter.
 LINE_CSV = "x,y\n1,2.1\n2,3.9\n3,6.2\n4,7.8\n5,10.1\n6,11.8\n"

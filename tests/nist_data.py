@@ -75,9 +75,7 @@ def _float(entry: dict[str, Any], key: str, name: str) -> float:
 
 def _floats(entry: dict[str, Any], key: str, name: str) -> tuple[float, ...]:
     values = entry.get(key)
-    if not isinstance(values, list) or not all(
-        isinstance(v, int | float) and not isinstance(v, bool) for v in values
-    ):
+    if not isinstance(values, list) or not all(isinstance(v, int | float) and not isinstance(v, bool) for v in values):
         raise ValueError(f"NIST set {name}: {key!r} should be a list of numbers, found {values!r}")
     return tuple(float(v) for v in values)
 

@@ -297,8 +297,14 @@ def test_index_table_sorts_by_every_column(browser: Any, site: Path) -> None:
         assert _numbers(_column(page, 6)) == sorted(float(r["r_squared"]) for r in summary)
 
         # Every other sortable column gives a monotone order with empty cells last.
-        for index, name in ((1, "Folder"), (3, "Term"), (4, "Estimate"), (5, "Interval"), (7, "Residual SE"),
-                            (8, "Status")):  # fmt: skip
+        for index, name in (
+            (1, "Folder"),
+            (3, "Term"),
+            (4, "Estimate"),
+            (5, "Interval"),
+            (7, "Residual SE"),
+            (8, "Status"),
+        ):
             for _ in range(2):
                 click(name)
                 direction = header.nth(index).get_attribute("aria-sort")
@@ -326,9 +332,7 @@ def test_index_table_filters_by_text_status_tag_and_folder(browser: Any, site: P
         assert sorted(_shown(page)) == everyone
 
         form.get_by_label("Find").fill("Chlorine")
-        want = expected(
-            lambda f: "chlorine" in " ".join([f["title"], f["source"], f["model"], *f["tags"]]).lower()
-        )
+        want = expected(lambda f: "chlorine" in " ".join([f["title"], f["source"], f["model"], *f["tags"]]).lower())
         assert 0 < len(want) < len(everyone)
         assert sorted(_shown(page)) == want
         assert form.locator("output").inner_text() == f"{len(want)} of {len(everyone)} datasets shown"
@@ -418,7 +422,7 @@ def test_keyboard_reaches_every_control_of_the_index_in_order(browser: Any, site
 
 
 def _chart_colours() -> dict[str, Any]:
-    import tomllib  # noqa: PLC0415
+    import tomllib
 
     charts: dict[str, Any] = tomllib.loads(THEME_TOML.read_text("utf-8"))["charts"]
     return charts
@@ -449,9 +453,7 @@ def test_dark_scheme_renders_and_charts_follow_the_theme(browser: Any, site: Pat
 
         # The reader switches to light: the charts are drawn again in light colours.
         page.emulate_media(color_scheme="light")
-        page.wait_for_function(
-            f"() => ({AXIS_LABEL.removeprefix('() => ')}) === '{colours['light']['text']}'"
-        )
+        page.wait_for_function(f"() => ({AXIS_LABEL.removeprefix('() => ')}) === '{colours['light']['text']}'")
         assert _luma(page.evaluate(BACKGROUND)) > 0.8
         assert _chart_problems(page) == []
         assert problems == []
@@ -463,9 +465,7 @@ def test_print_media_gives_black_on_white_without_controls(browser: Any, site: P
         _open(page, site, f"datasets/{SHOWCASE}/index.html")
         page.emulate_media(media="print")
         # Paper is white: charts drawn for the dark screen are drawn again in light colours.
-        page.wait_for_function(
-            f"() => ({AXIS_LABEL.removeprefix('() => ')}) === '{colours['light']['text']}'"
-        )
+        page.wait_for_function(f"() => ({AXIS_LABEL.removeprefix('() => ')}) === '{colours['light']['text']}'")
         assert _luma(page.evaluate(BACKGROUND)) > 0.95
         assert not page.locator(".masthead nav").is_visible()
         assert not page.locator(".prevnext").is_visible()

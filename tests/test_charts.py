@@ -22,18 +22,14 @@ import pytest
 from sitegen.report import charts
 
 ROOT = Path(__file__).resolve().parents[1]
-SPEC_RE = re.compile(
-    r'<script type="application/json" class="vl-spec" data-target="([^"]+)">(.*?)</script>', re.S
-)
+SPEC_RE = re.compile(r'<script type="application/json" class="vl-spec" data-target="([^"]+)">(.*?)</script>', re.S)
 
 
 @pytest.fixture(scope="module")
 def validator() -> jsonschema.protocols.Validator:
     """A validator for the Vega-Lite version Altair writes (``alt.SCHEMA_VERSION``)."""
     major = alt.SCHEMA_VERSION.lstrip("v").split(".")[0]
-    text = (
-        importlib.resources.files(f"altair.vegalite.v{major}.schema") / "vega-lite-schema.json"
-    ).read_text("utf-8")
+    text = (importlib.resources.files(f"altair.vegalite.v{major}.schema") / "vega-lite-schema.json").read_text("utf-8")
     schema = json.loads(text)
     cls = jsonschema.validators.validator_for(schema)
     cls.check_schema(schema)
@@ -80,9 +76,7 @@ def test_every_chart_of_the_example_site_is_valid_vega_lite(
     specs = _page_specs(example_site)
     kinds = {target.split("-")[1] for _, target, _ in specs}
     assert {"fit", "residual_fitted", "qq", "scale_location", "leverage", "forest"} <= kinds
-    problems = {
-        f"{page}#{target}": errs for page, target, spec in specs if (errs := _errors(validator, spec))
-    }
+    problems = {f"{page}#{target}": errs for page, target, spec in specs if (errs := _errors(validator, spec))}
     assert problems == {}
 
 
@@ -166,9 +160,7 @@ def _encodings(spec: dict[str, Any], data: str) -> dict[str, Any]:
 
 
 def test_one_series_colours_the_flagged_points_and_keeps_shape_and_size() -> None:
-    spec = charts.fill(
-        "residual_fitted", {"points": _points(["observations"] * 4, {2}), "zero": [{"y": 0.0}]}
-    )
+    spec = charts.fill("residual_fitted", {"points": _points(["observations"] * 4, {2}), "zero": [{"y": 0.0}]})
     enc = _encodings(spec, "points")
     assert enc["color"]["field"] == "kind"
     assert enc["shape"]["field"] == "kind"
@@ -187,9 +179,7 @@ def test_several_series_keep_their_colours_and_no_flag_legend_without_flags() ->
 
 def test_empty_layers_are_dropped_with_their_data() -> None:
     band = [{"x": 0.0, "fit": 0.0, "mean_low": -1.0, "mean_high": 1.0, "pred_low": -2.0, "pred_high": 2.0}]
-    spec = charts.fill(
-        "fit", {"points": _points(["observations"], set()), "band": band}, x_title="a", y_title="b"
-    )
+    spec = charts.fill("fit", {"points": _points(["observations"], set()), "band": band}, x_title="a", y_title="b")
     names = {ly.get("data", {}).get("name") for ly in spec["layer"]}
     assert names == {"band", "points"}
     assert set(spec["datasets"]) == {"band", "points"}

@@ -120,9 +120,7 @@ def test_anscombe_iii_outlier_is_caught_by_the_influence_check() -> None:
     assert check.rows == (2,)  # CSV data row 3: x = 13, y = 12.74
     assert "far from the line" in check.text
     assert "|studentized residual| 1,204" in check.text
-    assert check.statistic == pytest.approx(
-        1.39, abs=0.005
-    )  # Cook's distance, from memory (see test_influence)
+    assert check.statistic == pytest.approx(1.39, abs=0.005)  # Cook's distance, from memory (see test_influence)
 
 
 def test_anscombe_iv_single_deciding_point_is_caught_with_the_leverage_explanation() -> None:
@@ -227,9 +225,7 @@ def test_durbin_watson_moments_equal_dense_matrix_traces(seed: int) -> None:
     nu = n - 3
     mean, var = dw_moments(q, nu)
     assert mean == pytest.approx(np.trace(MA) / nu, rel=1e-12)
-    assert var == pytest.approx(
-        2 * (nu * np.trace(MA @ MA) - np.trace(MA) ** 2) / (nu**2 * (nu + 2)), rel=1e-10
-    )
+    assert var == pytest.approx(2 * (nu * np.trace(MA @ MA) - np.trace(MA) ** 2) / (nu**2 * (nu + 2)), rel=1e-10)
 
 
 def test_durbin_watson_p_value_agrees_with_simulation() -> None:
@@ -324,9 +320,7 @@ def test_lack_of_fit_matches_the_nist_handbook_load_cell_example() -> None:
     ("formula", "terms"),
     [("y ~ x", ("Intercept", "x")), ("y ~ x + I(x**2)", ("Intercept", "x", "I(x ** 2)"))],
 )
-def test_lack_of_fit_matches_statsmodels_anova_against_cell_means(
-    formula: str, terms: tuple[str, ...]
-) -> None:
+def test_lack_of_fit_matches_statsmodels_anova_against_cell_means(formula: str, terms: tuple[str, ...]) -> None:
     data = pontius()
     x, y = data["x"].to_numpy(float), data["y"].to_numpy(float)
     X = np.column_stack([x**k for k in range(len(terms))])

@@ -62,9 +62,7 @@ def ours(frame: pd.DataFrame, level: float, weighted: bool) -> tuple[Design, Ols
     return design, fit
 
 
-def check_claim(
-    design: Design, fit: OlsFit, claim: str, weights: NDArray[np.float64] | None = None
-) -> ClaimTest:
+def check_claim(design: Design, fit: OlsFit, claim: str, weights: NDArray[np.float64] | None = None) -> ClaimTest:
     """One claim through sitegen's claims module, given the (weighted) design as derive passes it."""
     sw = np.ones(fit.n) if weights is None else np.sqrt(weights)
     (found,) = run_claims(fit, design.X * sw[:, None], design.y * sw, [claim])
@@ -165,9 +163,7 @@ GROUP_CASES = [
 
 
 @pytest.mark.parametrize(("seed", "slopes", "level"), GROUP_CASES)
-def test_equal_slopes_f_matches_anova_of_nested_models(
-    seed: int, slopes: dict[str, float], level: float
-) -> None:
+def test_equal_slopes_f_matches_anova_of_nested_models(seed: int, slopes: dict[str, float], level: float) -> None:
     # Reference: anova_lm(ols("y ~ C(site) + x"), ols("y ~ C(site) * x")).
     frame = grouped_data(seed, slopes)
     x, y = frame["x"].to_numpy(dtype=float), frame["y"].to_numpy(dtype=float)
@@ -189,8 +185,13 @@ def test_equal_slopes_f_matches_anova_of_nested_models(
 def test_each_group_line_matches_its_own_ols_fit(seed: int, slopes: dict[str, float], level: float) -> None:
     # Reference: smf.ols("y ~ x") on each group's rows; CI at the same level.
     frame = grouped_data(seed, slopes)
-    got = compare_groups(frame["x"].to_numpy(dtype=float), frame["y"].to_numpy(dtype=float),
-                         frame["site"].to_numpy(dtype=str), "site", level)  # fmt: skip
+    got = compare_groups(
+        frame["x"].to_numpy(dtype=float),
+        frame["y"].to_numpy(dtype=float),
+        frame["site"].to_numpy(dtype=str),
+        "site",
+        level,
+    )
     assert [g.group for g in got.lines] == sorted(slopes)
     for line in got.lines:
         rows = frame[frame["site"] == line.group]
@@ -226,8 +227,13 @@ def test_different_slopes_are_detected_and_equal_ones_are_not() -> None:
 def test_a_single_group_cannot_be_compared() -> None:
     frame = grouped_data(24, {"only": 1.0})
     with pytest.raises(FitError, match="only one value"):
-        compare_groups(frame["x"].to_numpy(dtype=float), frame["y"].to_numpy(dtype=float),
-                       frame["site"].to_numpy(dtype=str), "site", 0.95)  # fmt: skip
+        compare_groups(
+            frame["x"].to_numpy(dtype=float),
+            frame["y"].to_numpy(dtype=float),
+            frame["site"].to_numpy(dtype=str),
+            "site",
+            0.95,
+        )
 
 
 # --- through the real build ------------------------------------------------------------------------

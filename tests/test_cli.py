@@ -137,9 +137,7 @@ def test_data_folder_that_is_a_file_exits_2(tmp_path: Path) -> None:
         pytest.param('theme = "no/such/theme/folder"\n', id="missing-theme"),
     ],
 )
-def test_invalid_site_toml_exits_2_and_writes_nothing(
-    site_toml: str, small_data: Path, tmp_path: Path
-) -> None:
+def test_invalid_site_toml_exits_2_and_writes_nothing(site_toml: str, small_data: Path, tmp_path: Path) -> None:
     write_toml(small_data / "site.toml", site_toml)
     site = tmp_path / "site"
     before = tree_snapshot(tmp_path)

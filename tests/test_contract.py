@@ -187,8 +187,15 @@ EDGE_FILES = {
     "evil.csv": "evil",
     "typo.csv": "typo",
 }
-HIDDEN_FILES = (".hidden.csv", "_draft.csv", ".git/x.csv", "_old/y.csv", "a/.z.csv", "a/_w.csv",
-                "_old/deeper/visible.csv")  # fmt: skip
+HIDDEN_FILES = (
+    ".hidden.csv",
+    "_draft.csv",
+    ".git/x.csv",
+    "_old/y.csv",
+    "a/.z.csv",
+    "a/_w.csv",
+    "_old/deeper/visible.csv",
+)
 
 
 @pytest.fixture(scope="module")
@@ -475,9 +482,7 @@ def test_build_json_provenance(any_build: Built) -> None:
     built_at = datetime.fromisoformat(body["built_at"])
     assert built_at.tzinfo is not None
     entries = body["datasets"]
-    assert [e["dataset"] for e in entries] == [
-        r["dataset"] for r in read_csv(any_build.site / "summary.csv")[1]
-    ]
+    assert [e["dataset"] for e in entries] == [r["dataset"] for r in read_csv(any_build.site / "summary.csv")[1]]
     for e in entries:
         assert {"dataset", "input_sha256", "reused"} <= set(e)
         assert e["reused"] is False, "a first build reuses nothing"
@@ -519,9 +524,7 @@ def test_sections_come_from_sub_folders(edge_build: Built) -> None:
 def test_hidden_files_and_folders_are_ignored(edge_build: Built) -> None:
     sources = {fit_json(edge_build.site, s)["source"] for s in dataset_dirs(edge_build.site)}
     assert not sources & set(HIDDEN_FILES)
-    everything = "\n".join(
-        t for rel, t in text_files(edge_build.site).items() if not rel.startswith("assets/")
-    )
+    everything = "\n".join(t for rel, t in text_files(edge_build.site).items() if not rel.startswith("assets/"))
     for name in ("hidden", "draft", "visible", "deeper"):
         assert name not in dataset_dirs(edge_build.site)
     assert "_draft" not in everything

@@ -96,9 +96,7 @@ def assert_site_sound(site: Path) -> dict[str, dict[str, str]]:
         if row["status"] == "error":
             assert row["message"].strip(), f"{slug}: an error row must explain itself"
         for count in ("n", "df_resid"):
-            assert row[count] == "" or row[count].isdigit(), (
-                f"{slug}: {count} = {row[count]!r} is not a count"
-            )
+            assert row[count] == "" or row[count].isdigit(), f"{slug}: {count} = {row[count]!r} is not a count"
     return rows
 
 
@@ -109,9 +107,7 @@ def assert_nothing_written_astray(tmp: Path, before: dict[str, bytes | None], ou
     assert outside == before
 
 
-def build_case(
-    tmp: Path, prepare: Callable[[Path], object]
-) -> tuple[CliResult, Path, dict[str, dict[str, str]]]:
+def build_case(tmp: Path, prepare: Callable[[Path], object]) -> tuple[CliResult, Path, dict[str, dict[str, str]]]:
     """Make DATA with the control dataset plus whatever ``prepare`` adds, build it, check the invariants."""
     data = tmp / "data"
     data.mkdir()
@@ -183,9 +179,7 @@ CASES = (
         "error",
         ("constant_x.csv", "term 'x' has the same value (3) in all 5 rows", "at least two different values"),
     ),
-    Case(
-        "collinear_predictors", "collinear", "error", ("term 'x2'", "linear combination", "remove the term")
-    ),
+    Case("collinear_predictors", "collinear", "error", ("term 'x2'", "linear combination", "remove the term")),
     Case(
         "non_numeric_cells",
         "non-numeric",
@@ -262,9 +256,7 @@ CASES = (
         "error",
         ("no response on the left of '~'", "key 'model'"),
     ),
-    Case(
-        "formula_runs_code", "code", "error", ("code.csv", "is not allowed in a model formula", "key 'model'")
-    ),
+    Case("formula_runs_code", "code", "error", ("code.csv", "is not allowed in a model formula", "key 'model'")),
     Case(
         "toml_syntax_error",
         "bad-toml",
@@ -309,9 +301,7 @@ CASES = (
     Case("weights_not_positive", "weighted", "error", ("weights column 'w'", "positive", "row 3")),
     Case("log_of_nonpositive", "log", "warn", ("2 row(s) left out", "undefined", "rows 2, 4")),
     Case("over_row_limit", "long", "error", ("long.csv has more than 30 data rows", "max_rows")),
-    Case(
-        "over_column_limit", "wide", "error", ("wide.csv has 8 columns, over the limit of 5", "max_columns")
-    ),
+    Case("over_column_limit", "wide", "error", ("wide.csv has 8 columns, over the limit of 5", "max_columns")),
     Case(
         "over_size_limit",
         "big",
@@ -388,9 +378,7 @@ def test_formula_cannot_run_code(tmp_path: Path) -> None:
 
 
 def test_byte_order_mark_is_not_part_of_the_first_column_name(tmp_path: Path) -> None:
-    _, site, _ = build_case(
-        tmp_path, lambda d: shutil.copytree(CORPUS / "byte_order_mark", d, dirs_exist_ok=True)
-    )
+    _, site, _ = build_case(tmp_path, lambda d: shutil.copytree(CORPUS / "byte_order_mark", d, dirs_exist_ok=True))
     report = fit_json(site, "bom")
     assert report["model"] == "y ~ x"
     with (site / "datasets" / "bom" / "observations.csv").open(encoding="utf-8") as fh:
@@ -437,9 +425,7 @@ def test_very_long_line(tmp_path: Path) -> None:
         (data / "long_line.csv").write_text("x,y\n1,2.1\n2," + "7" * 150_000 + "x" * 150_000 + "\n3,6.2\n")
 
     result, site, rows = build_case(tmp_path, prepare)
-    expect(
-        result, site, rows, "long-line", "error", ("long_line.csv", "column 'y'", "on row 2", "fix or delete")
-    )
+    expect(result, site, rows, "long-line", "error", ("long_line.csv", "column 'y'", "on row 2", "fix or delete"))
     assert len(rows["long-line"]["message"]) < 400
 
 
@@ -553,9 +539,7 @@ class _ActOnProgress(io.StringIO):
         return n
 
 
-def _build_with_action(
-    tmp: Path, files: dict[str, str], action: Callable[[Path], object]
-) -> tuple[CliResult, Path]:
+def _build_with_action(tmp: Path, files: dict[str, str], action: Callable[[Path], object]) -> tuple[CliResult, Path]:
     """Build with ``-j 1`` (datasets fitted in sorted order); ``action`` runs once the first one is fitted."""
     data = tmp / "data"
     data.mkdir()
@@ -577,8 +561,14 @@ def test_file_that_vanishes_during_the_build(tmp_path: Path) -> None:
     )
     rows = assert_site_sound(site)
     assert rows[CONTROL_SLUG]["status"] == "ok"
-    expect(result, site, rows, "b-gone", "error",
-           ("b_gone.csv cannot be read", "moved or deleted during the build"))  # fmt: skip
+    expect(
+        result,
+        site,
+        rows,
+        "b-gone",
+        "error",
+        ("b_gone.csv cannot be read", "moved or deleted during the build"),
+    )
     assert sorted(p.name for p in tmp_path.iterdir()) == ["data", "site"]
 
 
@@ -608,9 +598,7 @@ def test_file_changed_during_the_build_is_flagged(tmp_path: Path) -> None:
 
 
 def test_unknown_sidecar_key_names_the_sidecar(tmp_path: Path) -> None:
-    _, _, rows = build_case(
-        tmp_path, lambda d: shutil.copytree(CORPUS / "unknown_sidecar_key", d, dirs_exist_ok=True)
-    )
+    _, _, rows = build_case(tmp_path, lambda d: shutil.copytree(CORPUS / "unknown_sidecar_key", d, dirs_exist_ok=True))
     assert rows["typo"]["message"].startswith("typo.toml: unknown sidecar key 'titel'")
 
 
@@ -651,19 +639,13 @@ def test_huge_sparse_file_is_refused_by_size(tmp_path: Path) -> None:
     [
         pytest.param('title = "unterminated\n', ("site.toml is not valid TOML", "line 1"), id="toml-syntax"),
         pytest.param("[limits]\nmax_rows = -1\n", ("max_rows", "positive whole number"), id="negative-limit"),
-        pytest.param(
-            '[limits]\nmax_megabytes = "lots"\n', ("max_megabytes", "got 'lots'"), id="limit-wrong-type"
-        ),
+        pytest.param('[limits]\nmax_megabytes = "lots"\n', ("max_megabytes", "got 'lots'"), id="limit-wrong-type"),
         pytest.param("[limits]\nmax_rowz = 10\n", ("max_rowz", "did you mean 'max_rows'"), id="limit-typo"),
-        pytest.param(
-            "[defaults]\nlevel = 2\n", ("level", "strictly between 0 and 1"), id="default-out-of-range"
-        ),
+        pytest.param("[defaults]\nlevel = 2\n", ("level", "strictly between 0 and 1"), id="default-out-of-range"),
         pytest.param(b"title = '\xff'\n", ("site.toml is not UTF-8",), id="not-utf8"),
     ],
 )
-def test_broken_site_toml_writes_nothing(
-    site_toml: str | bytes, says: tuple[str, ...], tmp_path: Path
-) -> None:
+def test_broken_site_toml_writes_nothing(site_toml: str | bytes, says: tuple[str, ...], tmp_path: Path) -> None:
     data = tmp_path / "data"
     data.mkdir()
     shutil.copyfile(CONTROL, data / CONTROL.name)

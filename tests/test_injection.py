@@ -55,9 +55,7 @@ Links: [js](javascript:alert('js')) [JS](JaVaScRiPt:alert('JS')) [data](data:tex
 HOSTILE_X = "</script><b onmouseover=alert('x')>dose"
 HOSTILE_Y = '=HYPERLINK("http://evil.example","y")'
 ROWS = [(1, 9.1), (2, 8.2), (3, 6.8), (4, 6.1), (5, 4.9), (6, 4.2), (7, 2.8), (8, 2.1), (9, 0.9), (10, -0.2)]
-HOSTILE_CSV = (
-    '"' + HOSTILE_X + '","' + HOSTILE_Y.replace('"', '""') + '"\n' + "".join(f"{x},{y}\n" for x, y in ROWS)
-)
+HOSTILE_CSV = '"' + HOSTILE_X + '","' + HOSTILE_Y.replace('"', '""') + '"\n' + "".join(f"{x},{y}\n" for x, y in ROWS)
 MODEL = f"Q({HOSTILE_Y!r}) ~ Q({HOSTILE_X!r})"
 HOSTILE_TOML = "\n".join(
     [
@@ -172,11 +170,7 @@ def test_pages_have_only_their_own_scripts_and_no_handlers_or_bad_links(hostile_
 def test_hostile_text_is_shown_escaped(hostile_site: Path) -> None:
     # Jinja writes ' as &#39;, markdown-it leaves it: compare with ' throughout.
     index = (hostile_site / "index.html").read_text(encoding="utf-8").replace("&#39;", "'")
-    page = (
-        (hostile_site / "datasets" / "hostile" / "index.html")
-        .read_text(encoding="utf-8")
-        .replace("&#39;", "'")
-    )
+    page = (hostile_site / "datasets" / "hostile" / "index.html").read_text(encoding="utf-8").replace("&#39;", "'")
     escaped = "&lt;/script&gt;&lt;script&gt;alert(1)&lt;/script&gt;"
     assert escaped in index  # site title
     assert escaped in page  # dataset title
@@ -247,9 +241,7 @@ def test_csv_text_cells_are_neutralised_and_numbers_stay_numbers(hostile_site: P
         # A bare CR inside a cell is written as LF, so that the cell is quoted (see report/tables.py).
         assert by_slug[name.replace("_", "-")]["title"] == "'" + title.replace("\r", "\n")
         assert by_slug[name.replace("_", "-")]["tags"] == "'" + title.strip()  # tags are trimmed
-    with (hostile_site / "datasets" / "hostile" / "observations.csv").open(
-        encoding="utf-8", newline=""
-    ) as fh:
+    with (hostile_site / "datasets" / "hostile" / "observations.csv").open(encoding="utf-8", newline="") as fh:
         header = next(csv.reader(fh))
     assert "'" + HOSTILE_Y in header
     assert HOSTILE_X in header

@@ -158,9 +158,7 @@ def test_build_coefficients_meet_nist_digits(nist_build: Callable[[str], Built],
 
 
 @pytest.mark.parametrize("name", ALL_NIST)
-def test_build_uncertainty_and_r_squared_meet_nist_digits(
-    nist_build: Callable[[str], Built], name: str
-) -> None:
+def test_build_uncertainty_and_r_squared_meet_nist_digits(nist_build: Callable[[str], Built], name: str) -> None:
     # Source: NIST StRD certified standard deviations of the estimates, residual SD and R².
     # For NoInt1/NoInt2 NIST's R² is uncentered (no intercept), as is ours.
     case = load_nist(name)
@@ -219,9 +217,7 @@ def test_build_bands_follow_the_leverage(nist_build: Callable[[str], Built], nam
         return
     s = case.residual_sd
     np.testing.assert_allclose(mean_half, t * s * np.sqrt(h), rtol=1e-5, err_msg=f"{name} mean band")
-    np.testing.assert_allclose(
-        pred_half, t * s * np.sqrt(1 + h), rtol=1e-5, err_msg=f"{name} prediction band"
-    )
+    np.testing.assert_allclose(pred_half, t * s * np.sqrt(1 + h), rtol=1e-5, err_msg=f"{name} prediction band")
 
 
 # --- unit level: build_design + fit_ols ---------------------------------------------------------
@@ -246,9 +242,7 @@ def test_fit_ols_meets_nist_digits(name: str) -> None:
     for i, cert in enumerate(case.coefficients):
         assert_digits(f"{name} B{i}", float(fit.beta[i]), cert, COEF_DIGITS, abs(cert))
     for i, cert in enumerate(case.std_errors):
-        assert_digits(
-            f"{name} SE(B{i})", float(fit.std_error[i]), cert, OTHER_DIGITS, abs(case.coefficients[i])
-        )
+        assert_digits(f"{name} SE(B{i})", float(fit.std_error[i]), cert, OTHER_DIGITS, abs(case.coefficients[i]))
     assert_digits(f"{name} residual SD", fit.sigma, case.residual_sd, OTHER_DIGITS, rms(y))
     assert_digits(f"{name} R²", fit.r_squared, case.r_squared, OTHER_DIGITS, 1.0)
     assert fit.df_resid == case.df_residual
@@ -263,9 +257,7 @@ def test_fit_ols_meets_nist_digits(name: str) -> None:
     ss_reg = math.fsum(row.sum_sq for row in table[:-1])
     assert_digits(f"{name} regression SS", ss_reg, float(raw["ss_regression"]), OTHER_DIGITS, 1.0)
     # scale for a certified zero residual SS: the total sum of squares of the response
-    assert_digits(
-        f"{name} residual SS", table[-1].sum_sq, float(raw["ss_residual"]), OTHER_DIGITS, float(y @ y)
-    )
+    assert_digits(f"{name} residual SS", table[-1].sum_sq, float(raw["ss_residual"]), OTHER_DIGITS, float(y @ y))
 
 
 @pytest.mark.parametrize("name", ALL_NIST)
@@ -284,9 +276,7 @@ def test_bands_at_the_observed_rows_follow_the_leverage(name: str) -> None:
         scale = rms(pd.read_csv(case.csv_path)["y"].to_numpy(dtype=float))
         assert np.all(b.se_mean <= ZERO_TOLERANCE * scale)
         return
-    np.testing.assert_allclose(
-        b.se_mean, case.residual_sd * np.sqrt(h), rtol=1e-5, err_msg=f"{name} SE of mean"
-    )
+    np.testing.assert_allclose(b.se_mean, case.residual_sd * np.sqrt(h), rtol=1e-5, err_msg=f"{name} SE of mean")
     np.testing.assert_allclose(
         (b.pred_high - b.pred_low) / 2, t * case.residual_sd * np.sqrt(1 + h), rtol=1e-5, err_msg=name
     )

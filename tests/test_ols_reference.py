@@ -64,33 +64,61 @@ def make_cases() -> list[Case]:
     rng = np.random.default_rng(20240917)
     cases = []
     x = rng.uniform(0, 10, 30)
-    cases.append(Case("line", "y ~ x", _indexed({"x": x, "y": 2.0 + 0.7 * x + rng.normal(0, 1.0, 30)}),
-                      0.95, None, pd.DataFrame({"x": np.linspace(-2, 12, 7)})))  # fmt: skip
+    cases.append(
+        Case(
+            "line",
+            "y ~ x",
+            _indexed({"x": x, "y": 2.0 + 0.7 * x + rng.normal(0, 1.0, 30)}),
+            0.95,
+            None,
+            pd.DataFrame({"x": np.linspace(-2, 12, 7)}),
+        )
+    )
     x1, x2 = rng.uniform(0, 5, 60), rng.normal(10, 3, 60)
     y = 1.0 - 0.8 * x1 + 0.3 * x2 + 0.25 * x1**2 + rng.normal(0, 0.5, 60)
-    new = pd.DataFrame(
-        {"x1": [0.5, 2.0, 4.5, 6.0, 1.0, 3.0, 2.5], "x2": [4.0, 10.0, 16.0, 9.0, 12.0, 7.0, 10.5]}
-    )
+    new = pd.DataFrame({"x1": [0.5, 2.0, 4.5, 6.0, 1.0, 3.0, 2.5], "x2": [4.0, 10.0, 16.0, 9.0, 12.0, 7.0, 10.5]})
     frame = _indexed({"x1": x1, "x2": x2, "y": y})
     cases.append(Case("two_predictors_square", "y ~ x1 + x2 + I(x1**2)", frame, 0.90, None, new))
     x = rng.uniform(1, 20, 25)
-    cases.append(Case("no_intercept", "y ~ x - 1", _indexed({"x": x, "y": 1.5 * x + rng.normal(0, 2.0, 25)}),
-                      0.99, None, pd.DataFrame({"x": [0.0, 5.0, 10.0, 25.0, 2.0, 7.0, 30.0]})))  # fmt: skip
+    cases.append(
+        Case(
+            "no_intercept",
+            "y ~ x - 1",
+            _indexed({"x": x, "y": 1.5 * x + rng.normal(0, 2.0, 25)}),
+            0.99,
+            None,
+            pd.DataFrame({"x": [0.0, 5.0, 10.0, 25.0, 2.0, 7.0, 30.0]}),
+        )
+    )
     x = rng.uniform(0, 4, 40)
     y = np.exp(0.2 + 0.45 * x + rng.normal(0, 0.15, 40))
-    cases.append(Case("log_response", "np.log(y) ~ x", _indexed({"x": x, "y": y}), 0.95, None,
-                      pd.DataFrame({"x": np.linspace(0, 5, 7)})))  # fmt: skip
+    cases.append(
+        Case(
+            "log_response",
+            "np.log(y) ~ x",
+            _indexed({"x": x, "y": y}),
+            0.95,
+            None,
+            pd.DataFrame({"x": np.linspace(0, 5, 7)}),
+        )
+    )
     x = rng.uniform(1, 10, 40)
     w = 1.0 / x**2  # error SD proportional to x
     y = 3.0 + 1.2 * x + rng.normal(0, 1.0, 40) * x * 0.3
-    cases.append(Case("weighted_line", "y ~ x", _indexed({"x": x, "y": y, "w": w}), 0.95, "w",
-                      pd.DataFrame({"x": np.linspace(1, 10, 7)})))  # fmt: skip
+    cases.append(
+        Case(
+            "weighted_line",
+            "y ~ x",
+            _indexed({"x": x, "y": y, "w": w}),
+            0.95,
+            "w",
+            pd.DataFrame({"x": np.linspace(1, 10, 7)}),
+        )
+    )
     x1, x2 = rng.uniform(0, 3, 50), rng.uniform(-1, 1, 50)
     w = rng.uniform(0.2, 5.0, 50)
     y = 0.5 + 2.0 * x1 - 1.0 * x2 + rng.normal(0, 1.0, 50) / np.sqrt(w)
-    new = pd.DataFrame(
-        {"x1": [0.0, 1.0, 2.0, 3.0, 0.5, 1.5, 2.5], "x2": [-1.0, 0.0, 1.0, 0.5, -0.5, 0.2, -0.2]}
-    )
+    new = pd.DataFrame({"x1": [0.0, 1.0, 2.0, 3.0, 0.5, 1.5, 2.5], "x2": [-1.0, 0.0, 1.0, 0.5, -0.5, 0.2, -0.2]})
     frame = _indexed({"x1": x1, "x2": x2, "y": y, "w": w})
     cases.append(Case("weighted_two_predictors", "y ~ x1 + x2", frame, 0.90, "w", new))
     return cases
@@ -105,8 +133,14 @@ def ours(case: Case) -> tuple[Design, OlsFit, NDArray[np.float64] | None]:
     extra = (case.weights,) if case.weights else ()
     design = build_design(case.formula, case.frame, f"{case.name}.csv", extra)
     w = case.frame[case.weights].to_numpy(dtype=float) if case.weights else None
-    fit = fit_ols(design.X_ext, design.y_ext, design.terms, has_intercept=design.has_intercept,
-                  level=case.level, weights=w)  # fmt: skip
+    fit = fit_ols(
+        design.X_ext,
+        design.y_ext,
+        design.terms,
+        has_intercept=design.has_intercept,
+        level=case.level,
+        weights=w,
+    )
     return design, fit, w
 
 
@@ -120,8 +154,9 @@ def reference(case: Case, cov_type: str = "nonrobust") -> Any:
 
 
 def close(got: Any, want: Any, rtol: float = RTOL, what: str = "") -> None:
-    np.testing.assert_allclose(np.asarray(got, dtype=float), np.asarray(want, dtype=float),
-                               rtol=rtol, atol=0, err_msg=what)  # fmt: skip
+    np.testing.assert_allclose(
+        np.asarray(got, dtype=float), np.asarray(want, dtype=float), rtol=rtol, atol=0, err_msg=what
+    )
 
 
 @pytest.mark.parametrize("case", CASES, ids=IDS)
@@ -205,9 +240,7 @@ def test_weighted_anova_table_matches_nested_wls_models(case: Case) -> None:
     assert [r.df for r in table[:-1]] == [int(v) for v in ref["df_diff"].iloc[1:]]
     close([r.sum_sq for r in table[:-1]], ref["ss_diff"].iloc[1:], what="sum_sq")
     close([r.f_stat for r in table[:-1]], ref["F"].iloc[1:], what="F")
-    close(
-        [r.p_value for r in table[:-1]], stats.f.sf(ref["F"].iloc[1:], 1, fit.df_resid), rtol=1e-7, what="p"
-    )
+    close([r.p_value for r in table[:-1]], stats.f.sf(ref["F"].iloc[1:], 1, fit.df_resid), rtol=1e-7, what="p")
     assert table[-1].df == int(models[-1].df_resid)
     close(table[-1].sum_sq, models[-1].ssr, what="residual SS (weighted)")
 
@@ -316,9 +349,13 @@ def test_build_outputs_match_statsmodels(built_site: Path, name: str) -> None:
     folder = built_site / "datasets" / slug(name)
     fit = json.loads((folder / "fit.json").read_text(encoding="utf-8"))
     assert fit["level"] == case.level
-    for key, want in (("r_squared", ref.rsquared), ("adj_r_squared", ref.rsquared_adj),
-                      ("residual_std_error", np.sqrt(ref.scale)), ("f_stat", ref.fvalue),
-                      ("f_p_value", ref.f_pvalue)):  # fmt: skip
+    for key, want in (
+        ("r_squared", ref.rsquared),
+        ("adj_r_squared", ref.rsquared_adj),
+        ("residual_std_error", np.sqrt(ref.scale)),
+        ("f_stat", ref.fvalue),
+        ("f_p_value", ref.f_pvalue),
+    ):
         assert fit[key] == pytest.approx(want, rel=1e-7), key
     coefs = pd.read_csv(folder / "coefficients.csv")
     assert tuple(coefs.columns[:7]) == COEFFICIENT_COLUMNS

@@ -107,9 +107,7 @@ def _a_link_to_a_file(tmp: Path, data: Path) -> Path:
         pytest.param(_a_link_to_a_file, id="symlink-to-a-file"),
     ],
 )
-def test_unsafe_output_is_refused_and_nothing_is_touched(
-    where: Where, small_data: Path, tmp_path: Path
-) -> None:
+def test_unsafe_output_is_refused_and_nothing_is_touched(where: Where, small_data: Path, tmp_path: Path) -> None:
     out = where(tmp_path, small_data)
     before = tree_snapshot(tmp_path)
     result = cli("build", small_data, "-o", out, "-j", "1")

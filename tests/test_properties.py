@@ -66,9 +66,7 @@ def _scratch() -> tempfile.TemporaryDirectory[str]:
 # --- random bytes --------------------------------------------------------------------------------
 
 _CSV_ALPHABET = [*"0123456789.,;\t|\"'-+eE xyzé µ\n\r=@#", "nan", "inf", "NA", "1e400", "\ufeff", "\x00"]
-csv_like = st.lists(st.sampled_from(_CSV_ALPHABET), max_size=400).map(
-    lambda parts: "".join(parts).encode("utf-8")
-)
+csv_like = st.lists(st.sampled_from(_CSV_ALPHABET), max_size=400).map(lambda parts: "".join(parts).encode("utf-8"))
 
 
 @SETTINGS
@@ -95,9 +93,7 @@ def numeric_tables(draw: st.DrawFn) -> tuple[list[str], list[list[float]], bool]
     ncol = draw(st.integers(2, 4))
     nrow = draw(st.integers(0, 40))
     names = draw(
-        st.lists(
-            st.from_regex(r"[a-z][a-z0-9_]{0,7}", fullmatch=True), min_size=ncol, max_size=ncol, unique=True
-        )
+        st.lists(st.from_regex(r"[a-z][a-z0-9_]{0,7}", fullmatch=True), min_size=ncol, max_size=ncol, unique=True)
     )
     rows = draw(st.lists(st.lists(cell, min_size=ncol, max_size=ncol), min_size=nrow, max_size=nrow))
     with_sidecar = ncol > 2 or draw(st.booleans())
@@ -114,11 +110,7 @@ def test_random_numeric_tables_give_contract_rows(table: tuple[list[str], list[l
     names, rows, with_sidecar = table
     quoted = [f"Q({n!r})" if n in ("I", "Q", "center", "scale", "standardize") else n for n in names]
     response, predictors = quoted[-1], quoted[:-1]
-    text = (
-        ",".join(names)
-        + "\n"
-        + "".join(",".join("" if math.isnan(v) else repr(v) for v in r) + "\n" for r in rows)
-    )
+    text = ",".join(names) + "\n" + "".join(",".join("" if math.isnan(v) else repr(v) for v in r) + "\n" for r in rows)
     files = {"table.csv": text.encode()}
     if with_sidecar:
         model = f"{response} ~ {' + '.join(predictors)}"
@@ -166,15 +158,54 @@ SIDECAR_DATA = "x,y,w,g\n" + "".join(f"{line},{1 + i % 3},{'ab'[i % 2]}\n" for i
 
 PLAUSIBLE = st.sampled_from(
     [
-        "y ~ x", "y ~ x - 1", "np.log(y) ~ x", "y ~ x + I(x**2)", "y ~ z", "y ~", "y ~ x + g", "~ x",
-        "x = 1", "Intercept = 0", "x = 1, Intercept = 0", "nonsense = = 2",
-        ["x = 1"], ["reverse", "deming", "orthogonal", "geometric_mean"], ["deming", "bogus"],
-        [0.25, 1.7, 40.0], [-1e300, 0.0], [{"x": 2.0}], [{"z": 1.0}], [{}], [1, "a"],
-        0.95, 0.5, 0.0, 1.0, -3, 2, 1e-300, 1e300, True, False,
-        "w", "g", "x", "Intercept", "zzz", ";", ",", "\t", ".", "utf-8", "latin-1", "utf-16", "rot13",
-        {"x": "mg/L", "y": "<b>AU</b>"}, {"x": 1},
+        "y ~ x",
+        "y ~ x - 1",
+        "np.log(y) ~ x",
+        "y ~ x + I(x**2)",
+        "y ~ z",
+        "y ~",
+        "y ~ x + g",
+        "~ x",
+        "x = 1",
+        "Intercept = 0",
+        "x = 1, Intercept = 0",
+        "nonsense = = 2",
+        ["x = 1"],
+        ["reverse", "deming", "orthogonal", "geometric_mean"],
+        ["deming", "bogus"],
+        [0.25, 1.7, 40.0],
+        [-1e300, 0.0],
+        [{"x": 2.0}],
+        [{"z": 1.0}],
+        [{}],
+        [1, "a"],
+        0.95,
+        0.5,
+        0.0,
+        1.0,
+        -3,
+        2,
+        1e-300,
+        1e300,
+        True,
+        False,
+        "w",
+        "g",
+        "x",
+        "Intercept",
+        "zzz",
+        ";",
+        ",",
+        "\t",
+        ".",
+        "utf-8",
+        "latin-1",
+        "utf-16",
+        "rot13",
+        {"x": "mg/L", "y": "<b>AU</b>"},
+        {"x": 1},
     ]
-)  # fmt: skip
+)
 _text = st.text(st.characters(codec="utf-8"), max_size=20)  # any text TOML can hold (no lone surrogates)
 _scalar = st.one_of(st.booleans(), st.integers(-(10**6), 10**6), st.floats(), _text)
 RANDOM = st.recursive(

@@ -134,10 +134,10 @@ def test_preview_serves_the_site_on_loopback(tmp_path: Path) -> None:
     thread = threading.Thread(target=server.serve_forever, daemon=True)
     thread.start()
     try:
-        with urllib.request.urlopen(f"http://127.0.0.1:{port}/index.html", timeout=5) as resp:  # noqa: S310
+        with urllib.request.urlopen(f"http://127.0.0.1:{port}/index.html", timeout=5) as resp:
             body = resp.read().decode("utf-8")
         assert "set_00" in body
-        with urllib.request.urlopen(f"http://127.0.0.1:{port}/summary.csv", timeout=5) as resp:  # noqa: S310
+        with urllib.request.urlopen(f"http://127.0.0.1:{port}/summary.csv", timeout=5) as resp:
             assert resp.read().startswith(b"dataset,title,status")
     finally:
         server.shutdown()

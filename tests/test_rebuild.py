@@ -71,7 +71,7 @@ def test_unchanged_input_reuses_everything_and_gives_identical_pages(built: tupl
 
 def test_unchanged_example_reuses_everything(example_build: Built, tmp_path: Path) -> None:
     """The example site, copied, rebuilt in place: every dataset reused, every other file identical."""
-    import shutil  # noqa: PLC0415
+    import shutil
 
     site = tmp_path / "site"
     shutil.copytree(example_build.site, site)
@@ -166,8 +166,20 @@ def test_change_report_of_one_rebuild_lists_new_removed_and_refitted(built: tupl
 def _stripped(good: bytes) -> bytes:
     """A well-formed fit.json of the right format version that lost its numbers."""
     body = json.loads(good)
-    for key in ("coefficients", "n", "df_model", "df_resid", "r_squared", "adj_r_squared",
-                "residual_std_error", "f_stat", "f_p_value", "anova", "chart", "diagnostics"):  # fmt: skip
+    for key in (
+        "coefficients",
+        "n",
+        "df_model",
+        "df_resid",
+        "r_squared",
+        "adj_r_squared",
+        "residual_std_error",
+        "f_stat",
+        "f_p_value",
+        "anova",
+        "chart",
+        "diagnostics",
+    ):
         body.pop(key, None)
     return json.dumps(body).encode()
 
@@ -206,9 +218,16 @@ def test_corrupt_previous_fit_json_is_refitted_without_error(
 
 @pytest.mark.parametrize(
     "name",
-    ["summary.csv", "summary.json", "index.html", "assets/style.css", "datasets/beta/observations.csv",
-     "datasets/beta/coefficients.csv", "datasets/beta/index.html"],
-)  # fmt: skip
+    [
+        "summary.csv",
+        "summary.json",
+        "index.html",
+        "assets/style.css",
+        "datasets/beta/observations.csv",
+        "datasets/beta/coefficients.csv",
+        "datasets/beta/index.html",
+    ],
+)
 def test_deleted_site_files_are_restored(built: tuple[Path, Path], name: str) -> None:
     """A missing file of the previous site only means more work (build.py's promise)."""
     data, site = built

@@ -319,9 +319,7 @@ def user_theme_site(tmp_path_factory: pytest.TempPathFactory) -> Path:
     for folder, name in (("calibration", "nitrate_uv"), ("field", "chlorine_kit_vs_lab")):
         (data / folder).mkdir(parents=True, exist_ok=True)
         for ext in ("csv", "toml"):
-            shutil.copyfile(
-                ROOT / "example_project" / folder / f"{name}.{ext}", data / folder / f"{name}.{ext}"
-            )
+            shutil.copyfile(ROOT / "example_project" / folder / f"{name}.{ext}", data / folder / f"{name}.{ext}")
     theme = data / "_brand"
     (theme / "templates").mkdir(parents=True)
     (theme / "static").mkdir()

@@ -49,11 +49,7 @@ def write_bundle(out: Path, previous: Path | None) -> None:
     if previous is not None:
         old_version = previous / BUNDLE_VERSION
         old_bundle = previous / BUNDLE
-        if (
-            old_version.is_file()
-            and old_bundle.is_file()
-            and old_version.read_text(encoding="utf-8") == version
-        ):
+        if old_version.is_file() and old_bundle.is_file() and old_version.read_text(encoding="utf-8") == version:
             shutil.copyfile(old_bundle, target)
             return
     key = "".join(c if c.isalnum() else "-" for c in version.strip())

@@ -41,7 +41,9 @@ SIGNIFICANT = 6  # digits kept for drawing; the downloads keep full precision
 KINDS = ["ordinary", "flagged"]
 SHARED = "points"
 CROWDED = 1000  # above this many points, symbols shrink and lines are drawn over them
-STATUS_WORDS = "datum.label == 'ok' ? 'sound' : datum.label == 'warn' ? 'check' : datum.label == 'error' ? 'failed' : datum.label"  # noqa: E501
+STATUS_WORDS = (
+    "datum.label == 'ok' ? 'sound' : datum.label == 'warn' ? 'check' : datum.label == 'error' ? 'failed' : datum.label"
+)
 
 
 def _points(alt: Any) -> Any:
@@ -50,9 +52,7 @@ def _points(alt: Any) -> Any:
 
 def _tooltip(alt: Any, fields: Sequence[tuple[str, str]]) -> list[Any]:
     return [
-        alt.Tooltip(f"{f}:Q", title=t, format=",.4~g")
-        if f != "row"
-        else alt.Tooltip("row:Q", title="CSV row")
+        alt.Tooltip(f"{f}:Q", title=t, format=",.4~g") if f != "row" else alt.Tooltip("row:Q", title="CSV row")
         for f, t in fields
     ]
 
@@ -128,18 +128,14 @@ def _fit_chart(alt: Any) -> Any:
             y=alt.Y("y:Q"),
             detail="label:N",
             color=alt.Color("series:N", title="Series", legend=_bottom_legend(alt, "Series")),
-            strokeDash=alt.StrokeDash(
-                "line:N", title="Other lines", legend=_bottom_legend(alt, "Other lines")
-            ),
+            strokeDash=alt.StrokeDash("line:N", title="Other lines", legend=_bottom_legend(alt, "Other lines")),
         )
     )
     pts = _point_mark(_points(alt)).encode(
         x=x,
         y=y,
         **_kind_encodings(alt),
-        tooltip=_tooltip(
-            alt, [("row", ""), ("x", "x"), ("y", "y"), ("fitted", "fitted"), ("residual", "residual")]
-        ),
+        tooltip=_tooltip(alt, [("row", ""), ("x", "x"), ("y", "y"), ("fitted", "fitted"), ("residual", "residual")]),
     )
     return alt.layer(density, pred, conf, fitted, alt_lines, pts).properties(width=WIDTH, height=HEIGHT)
 
@@ -165,9 +161,7 @@ def _qq(alt: Any) -> Any:
         x=alt.X("qq_theory:Q", title="Normal quantile"),
         y=alt.Y("std_resid:Q", title="Standardized residual"),
         **_kind_encodings(alt),
-        tooltip=_tooltip(
-            alt, [("row", ""), ("std_resid", "standardized residual"), ("qq_theory", "normal quantile")]
-        ),
+        tooltip=_tooltip(alt, [("row", ""), ("std_resid", "standardized residual"), ("qq_theory", "normal quantile")]),
     )
     return _small(alt.layer(ref, pts))
 
@@ -177,9 +171,7 @@ def _scale_location(alt: Any) -> Any:
         x=alt.X("fitted:Q", title="Fitted value", scale=alt.Scale(zero=False)),
         y=alt.Y("root_abs_std:Q", title="√|standardized residual|"),
         **_kind_encodings(alt),
-        tooltip=_tooltip(
-            alt, [("row", ""), ("fitted", "fitted"), ("root_abs_std", "√|standardized residual|")]
-        ),
+        tooltip=_tooltip(alt, [("row", ""), ("fitted", "fitted"), ("root_abs_std", "√|standardized residual|")]),
     )
     return _small(pts)
 
@@ -237,9 +229,7 @@ def _forest(alt: Any, *, shared_axis: bool) -> Any:
             "status:N",
             title="Status",
             scale=alt.Scale(domain=list(STATUS_SHAPES), range=list(STATUS_SHAPES.values())),
-            legend=alt.Legend(
-                title="Status", orient="bottom", direction="horizontal", labelExpr=STATUS_WORDS
-            ),
+            legend=alt.Legend(title="Status", orient="bottom", direction="horizontal", labelExpr=STATUS_WORDS),
         ),
         tooltip=[
             alt.Tooltip("label:N", title="Dataset"),
@@ -329,9 +319,7 @@ def _replace_titles(node: Any, titles: dict[str, str]) -> Any:
     return node
 
 
-def fill(
-    kind: str, datasets: dict[str, list[dict[str, Any]]], *, x_title: str = "", y_title: str = ""
-) -> Spec:
+def fill(kind: str, datasets: dict[str, list[dict[str, Any]]], *, x_title: str = "", y_title: str = "") -> Spec:
     """A copy of a compiled chart with this dataset's numbers and titles."""
     spec = _replace_titles(copy.deepcopy(compiled(kind)), {X_TITLE: x_title, Y_TITLE: y_title})
     assert isinstance(spec, dict)
@@ -562,9 +550,7 @@ def _contours(points: list[dict[str, Any]], p: int) -> list[dict[str, Any]]:
                 h = h_max * k / 40
                 r = sign * math.sqrt(d * p * (1 - h) / h)
                 if abs(r) <= r_lim:
-                    out.append(
-                        {"h": _short(h), "r": _short(r), "label": f"D = {d:g}", "branch": f"{d}{branch}"}
-                    )
+                    out.append({"h": _short(h), "r": _short(r), "label": f"D = {d:g}", "branch": f"{d}{branch}"})
     return out
 
 
@@ -575,9 +561,7 @@ def forest_chart(rows: list[dict[str, Any]], term: str) -> Spec:
     """
     terms = {row.get("term") for row in rows}
     mixed = len(terms) > 1
-    headed = [
-        {**row, "heading": f"{row['label']} — {row.get('term')}" if mixed else row["label"]} for row in rows
-    ]
+    headed = [{**row, "heading": f"{row['label']} — {row.get('term')}" if mixed else row["label"]} for row in rows]
     spec = fill("forest_mixed" if mixed else "forest", {"rows": headed}, x_title=term)
     present = [s for s in STATUS_SHAPES if any(row.get("status") == s for row in rows)]
     spec["spec"]["layer"][1]["encoding"]["shape"]["legend"]["values"] = present

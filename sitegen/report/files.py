@@ -20,10 +20,28 @@ from sitegen.report.tables import frame_from_columns, frame_from_rows, to_csv_by
 
 XLSX_MAX_ROWS = 50_000  # larger observation tables are offered as CSV only
 SUMMARY_COLUMNS = (
-    "dataset", "title", "status", "n", "df_resid", "r_squared", "adj_r_squared", "residual_std_error",
-    "f_stat", "f_p_value", "message",
-    "section", "source", "model", "compare_term", "estimate", "std_error", "ci_low", "ci_high", "level", "tags",
-)  # fmt: skip
+    "dataset",
+    "title",
+    "status",
+    "n",
+    "df_resid",
+    "r_squared",
+    "adj_r_squared",
+    "residual_std_error",
+    "f_stat",
+    "f_p_value",
+    "message",
+    "section",
+    "source",
+    "model",
+    "compare_term",
+    "estimate",
+    "std_error",
+    "ci_low",
+    "ci_high",
+    "level",
+    "tags",
+)
 COEFFICIENT_COLUMNS = ("term", "estimate", "std_error", "t_stat", "p_value", "ci_low", "ci_high")
 
 
@@ -39,14 +57,28 @@ def summary_row(r: FitReport) -> dict[str, Any]:
     """One dataset's row of summary.csv / summary.json."""
     c = r.coefficient(r.compare_term) if r.compare_term else None
     return {
-        "dataset": r.dataset, "title": r.title, "status": r.status, "n": r.n, "df_resid": r.df_resid,
-        "r_squared": r.r_squared, "adj_r_squared": r.adj_r_squared, "residual_std_error": r.residual_std_error,
-        "f_stat": r.f_stat, "f_p_value": r.f_p_value, "message": _message(r), "section": r.section,
-        "source": r.source, "model": r.model, "compare_term": r.compare_term,
-        "estimate": c.estimate if c else None, "std_error": c.std_error if c else None,
-        "ci_low": c.ci_low if c else None, "ci_high": c.ci_high if c else None,
-        "level": r.level, "tags": ";".join(r.tags),
-    }  # fmt: skip
+        "dataset": r.dataset,
+        "title": r.title,
+        "status": r.status,
+        "n": r.n,
+        "df_resid": r.df_resid,
+        "r_squared": r.r_squared,
+        "adj_r_squared": r.adj_r_squared,
+        "residual_std_error": r.residual_std_error,
+        "f_stat": r.f_stat,
+        "f_p_value": r.f_p_value,
+        "message": _message(r),
+        "section": r.section,
+        "source": r.source,
+        "model": r.model,
+        "compare_term": r.compare_term,
+        "estimate": c.estimate if c else None,
+        "std_error": c.std_error if c else None,
+        "ci_low": c.ci_low if c else None,
+        "ci_high": c.ci_high if c else None,
+        "level": r.level,
+        "tags": ";".join(r.tags),
+    }
 
 
 def _json_value(v: Any) -> Any:
@@ -66,9 +98,7 @@ def summary_files(work: Path, reports: Sequence[FitReport]) -> None:
     (work / "summary.json").write_text(text + "\n", encoding="utf-8")
 
 
-def _table(
-    folder: Path, name: str, columns: Sequence[str], rows: Sequence[Sequence[Any]], xlsx: bool
-) -> list[str]:
+def _table(folder: Path, name: str, columns: Sequence[str], rows: Sequence[Sequence[Any]], xlsx: bool) -> list[str]:
     frame = frame_from_rows(columns, rows)
     (folder / f"{name}.csv").write_bytes(to_csv_bytes(frame))
     out = [f"{name}.csv"]
@@ -98,17 +128,29 @@ def dataset_files(
     coef_rows = [[getattr(c, k) for k in COEFFICIENT_COLUMNS] for c in r.coefficients]
     extra = ("robust_std_error", "robust_ci_low", "robust_ci_high", "robust_p_value")
     if r.coefficients and r.coefficients[0].robust_std_error is not None:
-        coef_rows = [
-            row + [getattr(c, k) for k in extra] for row, c in zip(coef_rows, r.coefficients, strict=True)
-        ]
+        coef_rows = [row + [getattr(c, k) for k in extra] for row, c in zip(coef_rows, r.coefficients, strict=True)]
         files += _table(folder, "coefficients", COEFFICIENT_COLUMNS + extra, coef_rows, True)
     else:
         files += _table(folder, "coefficients", COEFFICIENT_COLUMNS, coef_rows, True)
-    files += _table(folder, "anova", ("source", "df", "sum_sq", "mean_sq", "f_stat", "p_value"),
-                    [list(asdict(a).values()) for a in r.anova], False)  # fmt: skip
+    files += _table(
+        folder,
+        "anova",
+        ("source", "df", "sum_sq", "mean_sq", "f_stat", "p_value"),
+        [list(asdict(a).values()) for a in r.anova],
+        False,
+    )
     if r.lines:
-        cols: tuple[str, ...] = ("method", "slope", "intercept", "slope_ci_low", "slope_ci_high", "intercept_ci_low",
-                "intercept_ci_high", "interval_method", "label")  # fmt: skip
+        cols: tuple[str, ...] = (
+            "method",
+            "slope",
+            "intercept",
+            "slope_ci_low",
+            "slope_ci_high",
+            "intercept_ci_low",
+            "intercept_ci_high",
+            "interval_method",
+            "label",
+        )
         files += _table(folder, "lines", cols, [[getattr(ln, c) for c in cols] for ln in r.lines], True)
     if r.calibration:
         cal_cols = ("response", "estimate", "std_error", "ci_low", "ci_high", "readings", "method", "bounded")

@@ -53,13 +53,16 @@ def _moved(old: Mapping[str, Any], new: Mapping[str, Any]) -> dict[str, Any] | N
         return None
     shift = (new["estimate"] - old["estimate"]) / old["std_error"] if old["std_error"] else None
     outside = not (new["low"] <= old["estimate"] <= new["high"])
-    return {"term": new["term"], "old": old["estimate"], "new": new["estimate"], "shift_se": shift,
-            "outside": outside}  # fmt: skip
+    return {
+        "term": new["term"],
+        "old": old["estimate"],
+        "new": new["estimate"],
+        "shift_se": shift,
+        "outside": outside,
+    }
 
 
-def changes(
-    old: Mapping[str, Any] | None, new: Mapping[str, Any], seq: int, before: int | None
-) -> dict[str, Any]:
+def changes(old: Mapping[str, Any] | None, new: Mapping[str, Any], seq: int, before: int | None) -> dict[str, Any]:
     """The change set between two snapshots."""
     old = old or {}
     added = sorted(set(new) - set(old))
@@ -67,8 +70,14 @@ def changes(
     refitted = []
     for slug in sorted(set(new) & set(old)):
         if new[slug]["input_sha256"] != old[slug]["input_sha256"] or new[slug] != old[slug]:
-            refitted.append({"dataset": slug, "title": new[slug]["title"], "status": new[slug]["status"],
-                             "moved": _moved(old[slug], new[slug])})  # fmt: skip
+            refitted.append(
+                {
+                    "dataset": slug,
+                    "title": new[slug]["title"],
+                    "status": new[slug]["status"],
+                    "moved": _moved(old[slug], new[slug]),
+                }
+            )
     failed = sorted(s for s, v in new.items() if v["status"] == "error")
     return {
         "build": seq,
@@ -92,29 +101,22 @@ def write(work: Path, ctx: pages.SiteContext, reports: Sequence[FitReport], prev
     change = _load(prev_site, "changes.json")
     if last is None or last.get("datasets") != current or not isinstance(change, dict):
         seq = (int(last["build"]) + 1) if last else 1
-        change = changes(
-            last["datasets"] if last else None, current, seq, int(last["build"]) if last else None
-        )
+        change = changes(last["datasets"] if last else None, current, seq, int(last["build"]) if last else None)
         if last is None or last.get("datasets") != current:
             builds = [*builds, {"build": seq, "datasets": current}][-MAX_BUILDS:]
-    (work / "history.json").write_text(
-        json.dumps({"builds": builds}, sort_keys=True, indent=1) + "\n", "utf-8"
-    )
+    (work / "history.json").write_text(json.dumps({"builds": builds}, sort_keys=True, indent=1) + "\n", "utf-8")
     (work / "changes.json").write_text(json.dumps(change, sort_keys=True, indent=1) + "\n", "utf-8")
     drift = []
     for r in reports:
         series = [
             {"build": f"build {b['build']}", "estimate": d["estimate"], "low": d["low"], "high": d["high"]}
             for b in builds
-            if (d := b["datasets"].get(r.dataset))
-            and d.get("estimate") is not None
-            and d.get("term") == r.compare_term
+            if (d := b["datasets"].get(r.dataset)) and d.get("estimate") is not None and d.get("term") == r.compare_term
         ]
         if len(series) >= 2 and r.compare_term:
-            drift.append(
-                {"report": r, "spec": charts.drift_chart(series, r.compare_term), "points": len(series)}
-            )
-    html = pages.render_page(ctx, "changes.html", "changes", change=change, drift=drift, kept=len(builds),
-                             max_builds=MAX_BUILDS)  # fmt: skip
+            drift.append({"report": r, "spec": charts.drift_chart(series, r.compare_term), "points": len(series)})
+    html = pages.render_page(
+        ctx, "changes.html", "changes", change=change, drift=drift, kept=len(builds), max_builds=MAX_BUILDS
+    )
     (work / "changes.html").write_text(html, encoding="utf-8")
     return warnings

@@ -116,7 +116,8 @@ def sentence(r: FitReport) -> str:
     units = dict(r.units)
     lvl = fmt.level(r.level)
     fit_part = (
-        f"the model explains {fmt.percent(r.r_squared)} of the variation in {r.response} (R² = {fmt.rsquared(r.r_squared)}), "
+        f"the model explains {fmt.percent(r.r_squared)} of the variation in {r.response} "
+        f"(R² = {fmt.rsquared(r.r_squared)}), "
         f"and the points scatter about it with a residual standard error of {fmt.num(r.residual_std_error)}"
     )
     chart = r.chart
@@ -155,8 +156,11 @@ def _downloads(r: FitReport, files: Sequence[str]) -> list[tuple[str, str, str]]
     }
     out = [(f, f, described.get(f, "")) for f in files if f in described]
     original = r.source.rsplit("/", 1)[-1]
-    out += [(f, f"original file ({original})", "the data file exactly as delivered")
-            for f in files if f.startswith("source-")]  # fmt: skip
+    out += [
+        (f, f"original file ({original})", "the data file exactly as delivered")
+        for f in files
+        if f.startswith("source-")
+    ]
     return out
 
 

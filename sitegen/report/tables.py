@@ -91,7 +91,6 @@ def to_xlsx_bytes(frame: pd.DataFrame, sheet: str = "data") -> bytes:
     from sitegen.report.xlsx import workbook_bytes  # noqa: PLC0415
 
     rows = (
-        [v.item() if isinstance(v, np.generic) else v for v in row]
-        for row in frame.itertuples(index=False, name=None)
+        [v.item() if isinstance(v, np.generic) else v for v in row] for row in frame.itertuples(index=False, name=None)
     )
     return workbook_bytes([str(c) for c in frame.columns], rows, sheet)

@@ -23,8 +23,17 @@ def tag_blocks(reports: Sequence[FitReport]) -> list[dict[str, Any]]:
         for r in members:
             c = r.coefficient(r.compare_term) if r.compare_term and r.status != "error" else None
             if c is not None:
-                rows.append({"label": r.title, "estimate": c.estimate, "low": c.ci_low, "high": c.ci_high,
-                             "status": r.status, "term": c.term, "se": c.std_error})  # fmt: skip
+                rows.append(
+                    {
+                        "label": r.title,
+                        "estimate": c.estimate,
+                        "low": c.ci_low,
+                        "high": c.ci_high,
+                        "status": r.status,
+                        "term": c.term,
+                        "se": c.std_error,
+                    }
+                )
         terms = sorted({row["term"] for row in rows})
         forest = (
             charts.forest_chart(rows, terms[0] if len(terms) == 1 else "estimate of each dataset's term")
@@ -35,16 +44,24 @@ def tag_blocks(reports: Sequence[FitReport]) -> list[dict[str, Any]]:
         if len(rows) >= 2 and len(terms) == 1:
             h = homogeneity([r["estimate"] for r in rows], [r["se"] for r in rows])
             if h is not None:
-                verdict = ("The estimates differ by more than their standard errors allow"
-                           if h.p_value < 0.05 else "One common value is consistent with these estimates")  # fmt: skip
-                test = (f"{verdict} (Cochran's Q = {fmt.num(h.q)} on {h.df} df, p = {fmt.pvalue(h.p_value)}; "
-                        f"pooled estimate {fmt.num(h.pooled)} ± {fmt.num(h.pooled_se)}). The test treats each "
-                        "dataset's standard error as known and is tested at the 5% level.")  # fmt: skip
+                verdict = (
+                    "The estimates differ by more than their standard errors allow"
+                    if h.p_value < 0.05
+                    else "One common value is consistent with these estimates"
+                )
+                test = (
+                    f"{verdict} (Cochran's Q = {fmt.num(h.q)} on {h.df} df, p = {fmt.pvalue(h.p_value)}; "
+                    f"pooled estimate {fmt.num(h.pooled)} ± {fmt.num(h.pooled_se)}). The test treats each "
+                    "dataset's standard error as known and is tested at the 5% level."
+                )
         elif len(rows) >= 2:
-            test = ("These datasets estimate different terms (" + ", ".join(terms) + "), so no common value is "
-                    "tested; set compare in the sidecars to the same term to compare them.")  # fmt: skip
+            test = (
+                "These datasets estimate different terms (" + ", ".join(terms) + "), so no common value is "
+                "tested; set compare in the sidecars to the same term to compare them."
+            )
         sets = "dataset" if len(rows) == 1 else "datasets"
-        caption = (f"Estimates with intervals for the {len(rows)} {sets} tagged {tag}"
-                   + (f" (term {terms[0]})." if len(terms) == 1 else "."))  # fmt: skip
+        caption = f"Estimates with intervals for the {len(rows)} {sets} tagged {tag}" + (
+            f" (term {terms[0]})." if len(terms) == 1 else "."
+        )
         blocks.append({"name": tag, "reports": members, "forest": forest, "caption": caption, "test": test})
     return blocks

@@ -381,9 +381,7 @@ def _collinearity(d: _Data, weights: FloatArray | None) -> Check:
     cond = float(sv[0] / sv[-1]) if sv[-1] > 0 else math.inf
     if d.icol is None:
         flag = cond > CONDITION_LIMIT
-        text = (
-            f"{WORDING[name][1 if flag else 2]}: the condition number of the scaled design is {_num(cond)}."
-        )
+        text = f"{WORDING[name][1 if flag else 2]}: the condition number of the scaled design is {_num(cond)}."
         return _check(name, flag, text, cond)
     factors = vif(d.X, d.icol, weights)
     named = sorted(zip(factors.tolist(), (d.terms[j] for j in pred), strict=True), reverse=True)
@@ -404,8 +402,7 @@ def _influence(d: _Data, infl: Influence, alpha: float) -> Check:
     if d.df < 1:
         return _check(name, False, f"With {d.n} rows for {d.p} coefficients every point is fitted exactly.")
     h, t, cooks = (
-        np.asarray(a, dtype=np.float64)
-        for a in (infl.leverage, infl.studentized_residual, infl.cooks_distance)
+        np.asarray(a, dtype=np.float64) for a in (infl.leverage, infl.studentized_residual, infl.cooks_distance)
     )
     cut = float(sps.f.median(d.p, d.df))
     t_cut = max(RESIDUAL_LIMIT, float(sps.t.isf(alpha / (2 * d.n), d.df - 1)) if d.df > 1 else 0.0)
@@ -418,9 +415,7 @@ def _influence(d: _Data, infl: Influence, alpha: float) -> Check:
     parts = []
     if k := int(one.sum()):
         them = "it" if k == 1 else "them"
-        parts.append(
-            f"{_points(k, 'set')} a coefficient alone (leverage 1), so no other row can check {them}"
-        )
+        parts.append(f"{_points(k, 'set')} a coefficient alone (leverage 1), so no other row can check {them}")
     if k := int(far.sum()):
         parts.append(f"{_points(k, 'lie')} far from the line through the other rows")
     if k := int(strong.sum()):

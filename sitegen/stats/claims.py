@@ -26,7 +26,9 @@ def _results(fit: OlsFit, X: np.ndarray[Any, Any], y: np.ndarray[Any, Any]) -> A
     return RegressionResults(model, fit.beta, normalized_cov_params=fit.xtx_inv, scale=fit.sigma**2)
 
 
-def check_claims(fit: OlsFit, X: np.ndarray[Any, Any], y: np.ndarray[Any, Any], claims: list[str]) -> list[ClaimTest | FormulaError]:
+def check_claims(
+    fit: OlsFit, X: np.ndarray[Any, Any], y: np.ndarray[Any, Any], claims: list[str]
+) -> list[ClaimTest | FormulaError]:
     """Test each declared claim; an unreadable claim comes back as a :class:`FormulaError`."""
     import patsy  # noqa: PLC0415
 
@@ -37,10 +39,12 @@ def check_claims(fit: OlsFit, X: np.ndarray[Any, Any], y: np.ndarray[Any, Any], 
             constraint = patsy.DesignInfo(list(fit.terms)).linear_constraint(claim)
         except (patsy.PatsyError, ValueError, KeyError) as exc:
             names = ", ".join(fit.terms)
-            out.append(FormulaError(
-                f"claim {claim!r} cannot be read: {' '.join(str(exc).split())[:200]}",
-                hint=f'write it like "x = 1" or "x = 1, Intercept = 0" using the terms {names}',
-            ))  # fmt: skip
+            out.append(
+                FormulaError(
+                    f"claim {claim!r} cannot be read: {' '.join(str(exc).split())[:200]}",
+                    hint=f'write it like "x = 1" or "x = 1, Intercept = 0" using the terms {names}',
+                )
+            )
             continue
         out.append(_one(results, fit, claim, constraint))
     return out
@@ -67,6 +71,12 @@ def _one(results: Any, fit: OlsFit, claim: str, constraint: Any) -> ClaimTest | 
         else f"The data are consistent with this claim at the {pct} level (p = {p:.3g}); this does not prove it."
     )
     return ClaimTest(
-        claim=claim, statistic=stat, test=test, df_num=df_num, df_den=fit.df_resid,
-        p_value=p, rejected=bool(rejected), conclusion=conclusion,
-    )  # fmt: skip
+        claim=claim,
+        statistic=stat,
+        test=test,
+        df_num=df_num,
+        df_den=fit.df_resid,
+        p_value=p,
+        rejected=bool(rejected),
+        conclusion=conclusion,
+    )

@@ -26,22 +26,16 @@ def compare_groups(
     if len(names) < 2:
         raise FitError(f"group column {column!r} has only one value, so there is nothing to compare")
     if len(names) > 50:
-        raise FitError(
-            f"group column {column!r} has {len(names)} different values; at most 50 groups are drawn"
-        )
+        raise FitError(f"group column {column!r} has {len(names)} different values; at most 50 groups are drawn")
     lines = []
     for name in names:
         mask = labels == name
         n = int(mask.sum())
         if n < 3 or np.ptp(x[mask]) == 0:
-            raise FitError(
-                f"group {name!r} of column {column!r} needs at least 3 rows with different x values"
-            )
+            raise FitError(f"group {name!r} of column {column!r} needs at least 3 rows with different x values")
         X = np.column_stack([np.ones(n), x[mask]]).astype(LD)
         f = fit_ols(X, y[mask].astype(LD), ("Intercept", "x"), has_intercept=True, level=level)
-        lines.append(
-            GroupLine(name, n, float(f.beta[1]), float(f.beta[0]), float(f.ci_low[1]), float(f.ci_high[1]))
-        )
+        lines.append(GroupLine(name, n, float(f.beta[1]), float(f.beta[0]), float(f.ci_low[1]), float(f.ci_high[1])))
     dummies = np.column_stack([(labels == g).astype(float) for g in names])
     reduced = np.column_stack([dummies, x])
     full = np.column_stack([dummies, dummies * x[:, None]])
@@ -59,15 +53,18 @@ def compare_groups(
     if not np.isfinite(p):
         conclusion = "The lines fit their groups exactly, so the slopes cannot be compared statistically."
     elif p < 1 - level:
-        conclusion = (
-            f"The slopes differ between the groups at the {pct} level (p = {p:.3g}): use one line per group."
-        )
+        conclusion = f"The slopes differ between the groups at the {pct} level (p = {p:.3g}): use one line per group."
     else:
         conclusion = (
             f"The data do not show different slopes at the {pct} level (p = {p:.3g}); "
             "a common slope is consistent with them."
         )
     return GroupComparison(
-        column=column, lines=tuple(lines), f_stat=float(f_stat), df_num=df_num,
-        df_den=ff.df_resid, p_value=p, conclusion=conclusion,
-    )  # fmt: skip
+        column=column,
+        lines=tuple(lines),
+        f_stat=float(f_stat),
+        df_num=df_num,
+        df_den=ff.df_resid,
+        p_value=p,
+        conclusion=conclusion,
+    )

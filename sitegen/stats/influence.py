@@ -64,9 +64,7 @@ def whitened_residuals(resid: FloatArray, weights: FloatArray | None) -> FloatAr
     return e * np.sqrt(w)
 
 
-def influence(
-    q: FloatArray, resid: FloatArray, df_resid: int, *, weights: FloatArray | None = None
-) -> Influence:
+def influence(q: FloatArray, resid: FloatArray, df_resid: int, *, weights: FloatArray | None = None) -> Influence:
     """Leverage, studentized residuals, Cook's distance and DFFITS of every row.
 
     ``q`` is the thin Q factor (n × p) of the (weighted) design, ``resid`` the

@@ -45,7 +45,7 @@ class Solution:
 
 def _householder(A: LDArray) -> tuple[LDArray, list[LDArray]]:
     """In-place Householder QR; returns R (p×p) and the reflectors."""
-    n, p = A.shape
+    _, p = A.shape
     reflectors: list[LDArray] = []
     for k in range(p):
         v = A[k:, k].copy()
@@ -85,7 +85,7 @@ def _forward_substitute_transposed(R: LDArray, g: LDArray) -> LDArray:
 
 
 def _refine_augmented(
-    Xs: LDArray, y: LDArray, R: LDArray, refl: list[LDArray], b: LDArray, steps: int = 3
+    Xs: LDArray, y: LDArray, R: LDArray, refl: list[LDArray], b: LDArray, *, steps: int = 3
 ) -> LDArray:
     """Refine the solution and residual together (Björck's augmented-system refinement).
 
