@@ -221,3 +221,15 @@ def test_drift_chart_is_valid_vega_lite(validator: jsonschema.protocols.Validato
     assert _errors(validator, spec) == []
     assert spec["datasets"]["history"] == history
     assert spec["layer"][0]["encoding"]["y"]["title"] == "slope"
+
+
+def test_stored_specs_equal_a_fresh_altair_compilation() -> None:
+    """chart_specs.json (used at build time) must not drift from the Altair definitions."""
+    import json
+
+    from sitegen.report import charts
+
+    stored = json.loads(charts.STORED_SPECS.read_text(encoding="utf-8"))
+    assert set(stored) == set(charts.CHART_KINDS)
+    for kind in charts.CHART_KINDS:
+        assert stored[kind] == charts.build_spec(kind), f"run python -m sitegen.report.charts to refresh {kind}"

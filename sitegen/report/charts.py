@@ -22,9 +22,11 @@ drawing. This keeps a page with thousands of sampled points small.
 from __future__ import annotations
 
 import copy
+import json
 import math
 from collections.abc import Callable, Sequence
 from functools import cache
+from pathlib import Path
 from typing import Any
 
 from sitegen.model import ChartData, FitReport
@@ -287,10 +289,31 @@ _BUILDERS: dict[str, Callable[[Any], Any]] = {
 CHART_KINDS = tuple(_BUILDERS)
 
 
+#: Every chart kind compiled ahead of time, so a build needs neither Altair's import
+#: (~0.3 s) nor its compilation (~0.3 s) in every worker. Regenerate with
+#: ``python -m sitegen.report.charts``; a test checks it equals a fresh compilation.
+STORED_SPECS = Path(__file__).with_name("chart_specs.json")
+
+
+@cache
+def _stored() -> dict[str, Spec]:
+    try:
+        stored: dict[str, Spec] = json.loads(STORED_SPECS.read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return {}
+    return stored
+
+
 @cache
 def compiled(kind: str) -> Spec:
-    """The Vega-Lite spec of one chart kind, built with Altair once per process."""
-    import altair as alt  # noqa: PLC0415 - Altair is only needed when rendering
+    """The Vega-Lite spec of one chart kind: stored, or built with Altair once per process."""
+    stored = _stored().get(kind)
+    return stored if stored is not None else build_spec(kind)
+
+
+def build_spec(kind: str) -> Spec:
+    """Build one chart kind's spec with Altair."""
+    import altair as alt  # noqa: PLC0415 - Altair is only needed to (re)build the stored specs
 
     spec: Spec = _BUILDERS[kind](alt).to_dict(validate=False)
     spec.pop("config", None)
@@ -571,3 +594,13 @@ def forest_chart(rows: list[dict[str, Any]], term: str) -> Spec:
 def drift_chart(history: list[dict[str, Any]], term: str) -> Spec:
     """One term's estimate across the kept builds."""
     return fill("drift", {"history": history}, y_title=term)
+
+
+def write_stored_specs() -> None:
+    """Rebuild ``chart_specs.json`` from the Altair definitions."""
+    specs = {kind: build_spec(kind) for kind in CHART_KINDS}
+    STORED_SPECS.write_text(json.dumps(specs, indent=1, sort_keys=True) + "\n", encoding="utf-8")
+
+
+if __name__ == "__main__":
+    write_stored_specs()
