@@ -234,7 +234,12 @@ def page_job(job: PageJob) -> str:
     from sitegen.report.pages import render_dataset  # noqa: PLC0415
 
     report = job.report or from_json((job.target.parent / "fit.json").read_text(encoding="utf-8"))
-    job.target.write_text(render_dataset(job.ctx, report, job.files, job.prev, job.next), encoding="utf-8")
+    files = [f for f in job.files if not f.startswith("chart-")]
+    if job.ctx.config.static_images and report.status != "error":
+        from sitegen.report.images import write_chart_images  # noqa: PLC0415
+
+        files += write_chart_images(report, job.target.parent, job.ctx.theme.chart_colors)
+    job.target.write_text(render_dataset(job.ctx, report, sorted(files), job.prev, job.next), encoding="utf-8")
     return report.dataset
 
 

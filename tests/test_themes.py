@@ -360,3 +360,31 @@ def test_user_chart_colours_are_merged_over_the_default(user_theme_site: Path) -
     colours = json.loads(found.group(1))
     assert colours["light"]["mark"] == "#8b1e3f"
     assert colours["dark"] == CHART["dark"]  # untouched scheme comes from the default theme
+
+
+def test_static_images_are_written_and_offered(tmp_path: Path) -> None:
+    """static_images = true: every chart of a page also as an SVG file, listed in the downloads."""
+    import shutil
+
+    from conftest import EXAMPLE, cli
+
+    data = tmp_path / "data"
+    shutil.copytree(EXAMPLE / "field", data / "field")
+    (data / "site.toml").write_text('title = "images"\nstatic_images = true\n', encoding="utf-8")
+    out = tmp_path / "site"
+    assert cli("build", data, "-o", out, "-j", "1").code == 0
+    folder = out / "datasets" / "field-nitrate-kit-vs-lab"
+    svgs = sorted(p.name for p in folder.glob("chart-*.svg"))
+    assert svgs == [
+        "chart-fit.svg",
+        "chart-leverage.svg",
+        "chart-qq.svg",
+        "chart-residual-fitted.svg",
+        "chart-scale-location.svg",
+    ]
+    for name in svgs:
+        text = (folder / name).read_text(encoding="utf-8")
+        assert text.lstrip().startswith("<svg") and "<path" in text
+        assert "http://" not in text.replace("http://www.w3.org", "")
+    page = (folder / "index.html").read_text(encoding="utf-8")
+    assert 'href="chart-fit.svg"' in page

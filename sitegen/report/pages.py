@@ -142,24 +142,40 @@ def _first_problem(r: FitReport) -> str:
     return ""
 
 
+_DESCRIBED = {
+    "fit.json": "every number on this page, at full precision",
+    "coefficients.csv": "estimates with standard errors, tests and intervals",
+    "observations.csv": "every row: data, fitted value, intervals and influence measures",
+    "anova.csv": "the analysis of variance table",
+    "lines.csv": "the other lines with their intervals",
+    "calibration.csv": "inverse predictions with their intervals",
+    "predictions.csv": "predicted values with their intervals",
+}
+_CHART_NAMES = {
+    "chart-fit.svg": "the line and its bands",
+    "chart-residual-fitted.svg": "residuals against fitted values",
+    "chart-scale-location.svg": "scatter along the line",
+    "chart-qq.svg": "normal Q–Q plot",
+    "chart-leverage.svg": "residuals against leverage",
+}
+
+
 def _downloads(r: FitReport, files: Sequence[str]) -> list[tuple[str, str, str]]:
-    described = {
-        "observations.csv": "every row: data, fitted value, intervals and influence measures",
-        "observations.xlsx": "the same as a workbook",
-        "coefficients.csv": "estimates with standard errors, tests and intervals",
-        "coefficients.xlsx": "the same as a workbook",
-        "fit.json": "every number on this page, at full precision",
-        "lines.csv": "the other lines with their intervals",
-        "calibration.csv": "inverse predictions with their intervals",
-        "predictions.csv": "predicted values with their intervals",
-        "anova.csv": "the analysis of variance table",
-    }
-    out = [(f, f, described.get(f, "")) for f in files if f in described]
+    out: list[tuple[str, str, str]] = []
+    for name, what in _DESCRIBED.items():
+        if name in files:
+            out.append((name, name, what))
+            book = name.removesuffix(".csv") + ".xlsx"
+            if name.endswith(".csv") and book in files:
+                out.append((book, book, "the same as a workbook"))
     original = r.source.rsplit("/", 1)[-1]
     out += [
         (f, f"original file ({original})", "the data file exactly as delivered")
         for f in files
         if f.startswith("source-")
+    ]
+    out += [
+        (f, f, f"static image of the chart: {_CHART_NAMES[f]} (for print and mail)") for f in files if f in _CHART_NAMES
     ]
     return out
 
