@@ -364,8 +364,6 @@ def test_user_chart_colours_are_merged_over_the_default(user_theme_site: Path) -
 
 def test_static_images_are_written_and_offered(tmp_path: Path) -> None:
     """static_images = true: every chart of a page also as an SVG file, listed in the downloads."""
-    import shutil
-
     from conftest import EXAMPLE, cli
 
     data = tmp_path / "data"
@@ -384,7 +382,8 @@ def test_static_images_are_written_and_offered(tmp_path: Path) -> None:
     ]
     for name in svgs:
         text = (folder / name).read_text(encoding="utf-8")
-        assert text.lstrip().startswith("<svg") and "<path" in text
+        assert text.lstrip().startswith("<svg")
+        assert "<path" in text
         assert "http://" not in text.replace("http://www.w3.org", "")
     page = (folder / "index.html").read_text(encoding="utf-8")
     assert 'href="chart-fit.svg"' in page
