@@ -187,7 +187,15 @@ def _reasons(flags: PointFlags, i: int) -> tuple[str, ...]:
     return tuple(out)
 
 
+MAX_FLAGGED_LISTED = 500  # the report lists the most influential flagged rows; observations.csv has all
+
+
 def _flagged(design: Design, infl: Influence, flags: PointFlags) -> tuple[FlaggedPoint, ...]:
+    rows = list(flags.rows)
+    if len(rows) > MAX_FLAGGED_LISTED:
+        cooks = np.nan_to_num(np.asarray(infl.cooks_distance)[rows], nan=np.inf)
+        keep = np.argsort(-cooks, kind="stable")[:MAX_FLAGGED_LISTED]
+        rows = sorted(rows[int(k)] for k in keep)
     return tuple(
         FlaggedPoint(
             int(design.rows[i]),
@@ -197,7 +205,7 @@ def _flagged(design: Design, infl: Influence, flags: PointFlags) -> tuple[Flagge
             float(infl.cooks_distance[i]),
             float(infl.dffits[i]),
         )
-        for i in flags.rows
+        for i in rows
     )
 
 

@@ -16,7 +16,7 @@ if TYPE_CHECKING:
 
 from sitegen.discover import DatasetSource
 from sitegen.model import FitReport, to_json
-from sitegen.report.tables import frame_from_columns, frame_from_rows, to_csv_bytes, to_xlsx_bytes
+from sitegen.report.tables import frame_from_columns, frame_from_rows, to_csv_bytes, to_xlsx_bytes, write_csv
 
 XLSX_MAX_ROWS = 50_000  # larger observation tables are offered as CSV only
 SUMMARY_COLUMNS = (
@@ -164,7 +164,7 @@ def dataset_files(
         files += _table(folder, "predictions", (*names, *pred_cols), rows, True)
     if obs is not None:
         frame = frame_from_columns(obs.columns, obs.values)
-        (folder / "observations.csv").write_bytes(to_csv_bytes(frame))
+        write_csv(frame, folder / "observations.csv")
         files.append("observations.csv")
         if len(frame) <= XLSX_MAX_ROWS:
             (folder / "observations.xlsx").write_bytes(to_xlsx_bytes(frame, "observations"))

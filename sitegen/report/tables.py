@@ -10,6 +10,7 @@ from __future__ import annotations
 import io
 import math
 from collections.abc import Sequence
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -68,6 +69,19 @@ def _one_line_end(value: Any) -> Any:
 
 def to_csv_bytes(frame: pd.DataFrame) -> bytes:
     """CSV with shortest round-trip floats, empty cells for missing values, LF line ends."""
+    buf = io.StringIO()
+    _prepared(frame).to_csv(buf, index=False, na_rep="", lineterminator="\n")
+    return buf.getvalue().encode("utf-8")
+
+
+def write_csv(frame: pd.DataFrame, path: Path) -> None:
+    """Like :func:`to_csv_bytes`, streamed to a file in chunks (large tables never sit in memory as text)."""
+    with path.open("w", encoding="utf-8", newline="") as fh:
+        _prepared(frame).to_csv(fh, index=False, na_rep="", lineterminator="\n", chunksize=20_000)
+
+
+def _prepared(frame: pd.DataFrame) -> pd.DataFrame:
+    """Text cells with a bare carriage return get LF line ends, so the CSV writer quotes them."""
     fixed: dict[int, list[Any]] = {}
     for i in range(frame.shape[1]):
         col = frame.iloc[:, i]
@@ -81,9 +95,7 @@ def to_csv_bytes(frame: pd.DataFrame) -> bytes:
         for i, values in fixed.items():
             frame.isetitem(i, values)
         frame.columns = [_one_line_end(str(c)) for c in frame.columns]
-    buf = io.StringIO()
-    frame.to_csv(buf, index=False, na_rep="", lineterminator="\n")
-    return buf.getvalue().encode("utf-8")
+    return frame
 
 
 def to_xlsx_bytes(frame: pd.DataFrame, sheet: str = "data") -> bytes:
