@@ -251,14 +251,22 @@ class FitReport:
 # --- JSON codec -------------------------------------------------------------------------------
 
 
-def _encode(value: object) -> object:
-    if dataclasses.is_dataclass(value) and not isinstance(value, type):
-        return {f.name: _encode(getattr(value, f.name)) for f in dataclasses.fields(value)}
-    if isinstance(value, tuple | list):
-        return [_encode(v) for v in value]
-    if isinstance(value, float):
+def _encode(value: Any) -> object:
+    kind: Any = type(value)
+    if kind is float:
         return value if math.isfinite(value) else None
+    if kind is tuple or kind is list:
+        return [_encode(v) for v in value]
+    if hasattr(kind, "__dataclass_fields__"):
+        return {name: _encode(getattr(value, name)) for name in _field_names(kind)}
+    if isinstance(value, float):  # numpy floats and other float subclasses
+        return float(value) if math.isfinite(value) else None
     return value
+
+
+@functools.cache
+def _field_names(kind: Any) -> tuple[str, ...]:
+    return tuple(f.name for f in dataclasses.fields(kind))
 
 
 def to_json(report: FitReport) -> str:

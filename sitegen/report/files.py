@@ -16,7 +16,8 @@ if TYPE_CHECKING:
 
 from sitegen.discover import DatasetSource
 from sitegen.model import FitReport, to_json
-from sitegen.report.tables import frame_from_columns, frame_from_rows, to_csv_bytes, to_xlsx_bytes, write_csv
+from sitegen.report.tables import clean_rows, frame_from_columns, rows_from_columns, rows_to_csv_bytes, write_csv
+from sitegen.report.xlsx import workbook_bytes
 
 XLSX_MAX_ROWS = 50_000  # larger observation tables are offered as CSV only
 SUMMARY_COLUMNS = (
@@ -90,22 +91,34 @@ def _json_value(v: Any) -> Any:
 def summary_files(work: Path, reports: Sequence[FitReport]) -> None:
     """summary.csv, summary.json and summary.xlsx."""
     rows = [summary_row(r) for r in reports]
-    frame = frame_from_rows(SUMMARY_COLUMNS, [[row[c] for c in SUMMARY_COLUMNS] for row in rows])
-    (work / "summary.csv").write_bytes(to_csv_bytes(frame))
-    (work / "summary.xlsx").write_bytes(to_xlsx_bytes(frame, "summary"))
+    header, cells = clean_rows(SUMMARY_COLUMNS, [[row[c] for c in SUMMARY_COLUMNS] for row in rows])
+    (work / "summary.csv").write_bytes(rows_to_csv_bytes(header, cells))
+    (work / "summary.xlsx").write_bytes(workbook_bytes(header, cells, "summary"))
     body = [{k: _json_value(v) for k, v in row.items()} for row in rows]
     text = json.dumps(body, sort_keys=True, ensure_ascii=False, allow_nan=False, indent=1)
     (work / "summary.json").write_text(text + "\n", encoding="utf-8")
 
 
 def _table(folder: Path, name: str, columns: Sequence[str], rows: Sequence[Sequence[Any]], xlsx: bool) -> list[str]:
-    frame = frame_from_rows(columns, rows)
-    (folder / f"{name}.csv").write_bytes(to_csv_bytes(frame))
+    header, cells = clean_rows(columns, rows)
+    (folder / f"{name}.csv").write_bytes(rows_to_csv_bytes(header, cells))
     out = [f"{name}.csv"]
     if xlsx:
-        (folder / f"{name}.xlsx").write_bytes(to_xlsx_bytes(frame, name))
+        (folder / f"{name}.xlsx").write_bytes(workbook_bytes(header, cells, name))
         out.append(f"{name}.xlsx")
     return out
+
+
+def _observations(folder: Path, obs: Observations) -> list[str]:
+    n = len(obs.values[0]) if obs.values else 0
+    if n > XLSX_MAX_ROWS:  # large: pandas streams the CSV in chunks; no workbook
+        write_csv(frame_from_columns(obs.columns, obs.values), folder / "observations.csv")
+        return ["observations.csv"]
+    header, _ = clean_rows(obs.columns, [])
+    cells = rows_from_columns(obs.values)
+    (folder / "observations.csv").write_bytes(rows_to_csv_bytes(header, cells))
+    (folder / "observations.xlsx").write_bytes(workbook_bytes(header, cells, "observations"))
+    return ["observations.csv", "observations.xlsx"]
 
 
 def dataset_files(
@@ -163,10 +176,5 @@ def dataset_files(
         rows = [[dict(p.at).get(n) for n in names] + [getattr(p, c) for c in pred_cols] for p in r.predictions]
         files += _table(folder, "predictions", (*names, *pred_cols), rows, True)
     if obs is not None:
-        frame = frame_from_columns(obs.columns, obs.values)
-        write_csv(frame, folder / "observations.csv")
-        files.append("observations.csv")
-        if len(frame) <= XLSX_MAX_ROWS:
-            (folder / "observations.xlsx").write_bytes(to_xlsx_bytes(frame, "observations"))
-            files.append("observations.xlsx")
+        files += _observations(folder, obs)
     return sorted(files)

@@ -7,6 +7,7 @@ formula injection); numbers stay numbers. NaN and ±inf are empty cells.
 
 from __future__ import annotations
 
+import csv
 import io
 import math
 from collections.abc import Sequence
@@ -39,10 +40,32 @@ def _cell(value: Any) -> Any:
     return neutralise(str(value))
 
 
-def frame_from_rows(columns: Sequence[str], rows: Sequence[Sequence[Any]]) -> pd.DataFrame:
-    """A frame of cleaned cells (neutralised text, NaN/inf as missing)."""
-    clean = [[_cell(v) for v in row] for row in rows]
-    return pd.DataFrame(clean, columns=[neutralise(str(c)) for c in columns], dtype=object)
+def clean_rows(columns: Sequence[str], rows: Sequence[Sequence[Any]]) -> tuple[list[str], list[list[Any]]]:
+    """Header and rows with every cell cleaned (neutralised text, NaN/inf as missing)."""
+    header = [_one_line_end(neutralise(str(c))) for c in columns]
+    return header, [[_one_line_end(_cell(v)) for v in row] for row in rows]
+
+
+def rows_to_csv_bytes(header: Sequence[str], rows: Sequence[Sequence[Any]]) -> bytes:
+    """CSV of already-cleaned rows: shortest round-trip floats (``repr``), empty missing cells, LF."""
+    buf = io.StringIO()
+    writer = csv.writer(buf, lineterminator="\n")
+    writer.writerow(header)
+    writer.writerows(rows)
+    return buf.getvalue().encode("utf-8")
+
+
+def rows_from_columns(values: Sequence[np.ndarray[Any, Any]]) -> list[list[Any]]:
+    """Row lists from column arrays (for tables small enough to handle in Python)."""
+    cols: list[list[Any]] = []
+    for arr in values:
+        if arr.dtype.kind == "f":
+            cols.append([v if math.isfinite(v) else None for v in arr.tolist()])
+        elif arr.dtype.kind in "iub":
+            cols.append(arr.tolist())
+        else:
+            cols.append([_one_line_end(_cell(v)) for v in arr.tolist()])
+    return [list(r) for r in zip(*cols, strict=True)]
 
 
 def frame_from_columns(columns: Sequence[str], values: Sequence[np.ndarray[Any, Any]]) -> pd.DataFrame:
@@ -67,15 +90,8 @@ def _one_line_end(value: Any) -> Any:
     return value
 
 
-def to_csv_bytes(frame: pd.DataFrame) -> bytes:
-    """CSV with shortest round-trip floats, empty cells for missing values, LF line ends."""
-    buf = io.StringIO()
-    _prepared(frame).to_csv(buf, index=False, na_rep="", lineterminator="\n")
-    return buf.getvalue().encode("utf-8")
-
-
 def write_csv(frame: pd.DataFrame, path: Path) -> None:
-    """Like :func:`to_csv_bytes`, streamed to a file in chunks (large tables never sit in memory as text)."""
+    """CSV like :func:`rows_to_csv_bytes`, streamed to a file in chunks (large tables never sit in memory as text)."""
     with path.open("w", encoding="utf-8", newline="") as fh:
         _prepared(frame).to_csv(fh, index=False, na_rep="", lineterminator="\n", chunksize=20_000)
 
@@ -96,13 +112,3 @@ def _prepared(frame: pd.DataFrame) -> pd.DataFrame:
             frame.isetitem(i, values)
         frame.columns = [_one_line_end(str(c)) for c in frame.columns]
     return frame
-
-
-def to_xlsx_bytes(frame: pd.DataFrame, sheet: str = "data") -> bytes:
-    """An XLSX workbook of one sheet; text cells are stored as text, never as formulas."""
-    from sitegen.report.xlsx import workbook_bytes  # noqa: PLC0415
-
-    rows = (
-        [v.item() if isinstance(v, np.generic) else v for v in row] for row in frame.itertuples(index=False, name=None)
-    )
-    return workbook_bytes([str(c) for c in frame.columns], rows, sheet)

@@ -92,7 +92,7 @@ def workbook_bytes(header: Sequence[str], rows: Iterable[Sequence[object]], shee
         parts.append(f'<row r="{r}">{cells}</row>')
     parts.append("</sheetData></worksheet>")
     buf = io.BytesIO()
-    with zipfile.ZipFile(buf, "w", zipfile.ZIP_DEFLATED) as zf:
+    with zipfile.ZipFile(buf, "w", zipfile.ZIP_DEFLATED, compresslevel=1) as zf:
         for name, body in (
             ("[Content_Types].xml", _CONTENT_TYPES),
             ("_rels/.rels", _ROOT_RELS),
