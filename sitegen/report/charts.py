@@ -29,6 +29,8 @@ from functools import cache
 from pathlib import Path
 from typing import Any
 
+import numpy as np
+
 from sitegen.model import ChartData, FitReport
 
 Spec = dict[str, Any]
@@ -433,8 +435,25 @@ def _short(value: Any) -> Any:
     return value
 
 
+def _short_column(values: Sequence[Any]) -> list[Any]:
+    """A column cut to the digits a chart can show: SIGNIFICANT digits of the column's largest value."""
+    if not all(v is None or isinstance(v, float | int) for v in values):
+        return [_short(v) for v in values]
+    arr = np.array([np.nan if v is None else v for v in values], dtype=float)
+    finite = np.isfinite(arr)
+    top = float(np.max(np.abs(arr[finite]))) if finite.any() else 0.0
+    if top == 0.0:
+        return [None if v is None else v for v in values]
+    decimals = SIGNIFICANT - 1 - math.floor(math.log10(top))
+    rounded = np.round(arr, decimals).tolist() if decimals < 300 else arr.tolist()
+    return [v if math.isfinite(v) else None for v in rounded]
+
+
 def _records(columns: Sequence[str], rows: Sequence[Sequence[Any]]) -> list[dict[str, Any]]:
-    return [{c: _short(v) for c, v in zip(columns, row, strict=True)} for row in rows]
+    if not rows:
+        return []
+    cols = [_short_column(col) for col in zip(*rows, strict=True)]
+    return [dict(zip(columns, row, strict=True)) for row in zip(*cols, strict=True)]
 
 
 def point_records(chart: ChartData) -> list[dict[str, Any]]:
