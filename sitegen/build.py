@@ -266,18 +266,18 @@ def run_build(
         if _nothing_changed(prev, sources, prints, site_key):
             outcomes = _touch_build_json(out_dir, prev)
             return BuildSummary(out_dir, outcomes, 0, len(sources), time.perf_counter() - started, tuple(warnings))
-        run = executor or make_executor(options.jobs)
-        state = _Build(
-            work=work,
-            prev=prev,
-            sources=sources,
-            prints=prints,
-            config=config,
-            site_key=site_key,
-            run=run,
-            progress=progress,
-        )
-        summary = state.execute(theme)
+        with executor or make_executor(options.jobs) as run:
+            state = _Build(
+                work=work,
+                prev=prev,
+                sources=sources,
+                prints=prints,
+                config=config,
+                site_key=site_key,
+                run=run,
+                progress=progress,
+            )
+            summary = state.execute(theme)
         swap_in(work, out_dir)
     return BuildSummary(
         out_dir=out_dir,
@@ -425,14 +425,15 @@ class _Build:
         reports = [_with_sha(done[s.slug][0], self.prints[s.slug][0]) for s in self.sources]
         ctx = pages.SiteContext(self.config, theme)
         entries, page_jobs = self._plan_pages(ctx, reports, done, refitted)
-        for _ in self.run.run(page_job, page_jobs):
-            pass
+        pending = self.run.run(page_job, page_jobs)  # the pool renders pages while this process does the rest
         index = pages.render_index(ctx, reports, tag_blocks(reports))
         (self.work / "index.html").write_text(index, encoding="utf-8")
         summary_files(self.work, reports)
         hist_warnings = history.write(self.work, ctx, reports, self.prev.site)
         assets.write_bundle(self.work, self.prev.site)
         assets.write_static(self.work, theme)
+        for _ in pending:
+            pass
         self._write_build_json(entries)
         outcomes = tuple(Outcome(r.dataset, r.source, r.status, str(summary_row(r)["message"])) for r in reports)
         return outcomes, len(jobs), hist_warnings, tuple(traces)

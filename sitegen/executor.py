@@ -1,7 +1,10 @@
-"""The one seam through which fitting work runs: in this process, or a local process pool.
+"""The one seam through which work runs: in this process, or a local process pool.
 
 Work items and results are plain picklable data, so another engine (for example a
-Dask client's ``map``) can stand in by implementing :class:`Executor`.
+Dask client's ``submit``/``as_completed``) can stand in by implementing
+:class:`Executor`. ``run`` submits every item at once and returns an iterator of
+(index, result) in completion order, so the caller can do other work while the
+items run. One pool serves a whole build (workers keep what they imported).
 """
 
 from __future__ import annotations
@@ -9,26 +12,40 @@ from __future__ import annotations
 import multiprocessing
 import os
 import sys
-from collections.abc import Callable, Iterable, Iterator
-from concurrent.futures import ProcessPoolExecutor, as_completed
-from typing import Protocol, TypeVar
+from collections.abc import Callable, Iterator
+from concurrent.futures import Future, ProcessPoolExecutor, as_completed
+from types import TracebackType
+from typing import Protocol, Self, TypeVar
 
 T = TypeVar("T")
 R = TypeVar("R")
 
 
 class Executor(Protocol):
-    """Runs a function over work items and yields (index, result) as each finishes."""
+    """Runs a function over work items; yields (index, result) as each finishes."""
 
     def run(self, fn: Callable[[T], R], items: list[T]) -> Iterator[tuple[int, R]]: ...
 
+    def __enter__(self) -> Self: ...
+
+    def __exit__(
+        self, exc_type: type[BaseException] | None, exc: BaseException | None, tb: TracebackType | None
+    ) -> None: ...
+
 
 class InlineExecutor:
-    """Runs every item in this process, in order."""
+    """Runs every item in this process, in order, when its result is asked for."""
 
     def run(self, fn: Callable[[T], R], items: list[T]) -> Iterator[tuple[int, R]]:
-        for i, item in enumerate(items):
-            yield i, fn(item)
+        return ((i, fn(item)) for i, item in enumerate(items))
+
+    def __enter__(self) -> Self:
+        return self
+
+    def __exit__(
+        self, exc_type: type[BaseException] | None, exc: BaseException | None, tb: TracebackType | None
+    ) -> None:
+        return None
 
 
 class PoolExecutor:
@@ -36,18 +53,32 @@ class PoolExecutor:
 
     def __init__(self, jobs: int) -> None:
         self.jobs = max(1, jobs)
+        self._pool: ProcessPoolExecutor | None = None
+
+    def _ensure(self) -> ProcessPoolExecutor:
+        if self._pool is None:
+            method = "fork" if sys.platform.startswith("linux") else None
+            self._pool = ProcessPoolExecutor(max_workers=self.jobs, mp_context=multiprocessing.get_context(method))
+        return self._pool
 
     def run(self, fn: Callable[[T], R], items: list[T]) -> Iterator[tuple[int, R]]:
-        if self.jobs == 1 or len(items) <= 1:
-            yield from InlineExecutor().run(fn, items)
-            return
-        method = "fork" if sys.platform.startswith("linux") else None
-        ctx = multiprocessing.get_context(method)
-        workers = min(self.jobs, len(items))
-        with ProcessPoolExecutor(max_workers=workers, mp_context=ctx) as pool:
-            futures = {pool.submit(fn, item): i for i, item in enumerate(items)}
-            for fut in as_completed(futures):
-                yield futures[fut], fut.result()
+        if not items:
+            return iter(())
+        if len(items) == 1 and self._pool is None:
+            return InlineExecutor().run(fn, items)
+        pool = self._ensure()
+        futures: dict[Future[R], int] = {pool.submit(fn, item): i for i, item in enumerate(items)}
+        return ((futures[f], f.result()) for f in as_completed(futures))
+
+    def __enter__(self) -> Self:
+        return self
+
+    def __exit__(
+        self, exc_type: type[BaseException] | None, exc: BaseException | None, tb: TracebackType | None
+    ) -> None:
+        if self._pool is not None:
+            self._pool.shutdown(wait=exc_type is None, cancel_futures=exc_type is not None)
+            self._pool = None
 
 
 def default_jobs() -> int:
@@ -58,13 +89,7 @@ def default_jobs() -> int:
         return os.cpu_count() or 1
 
 
-def make_executor(jobs: int | None) -> Executor:
+def make_executor(jobs: int | None) -> InlineExecutor | PoolExecutor:
     """The executor for ``--jobs``: None means all cores."""
     n = default_jobs() if jobs is None else jobs
     return InlineExecutor() if n <= 1 else PoolExecutor(n)
-
-
-def consume(iterable: Iterable[object]) -> None:
-    """Exhaust an iterator (helper for callers that only want side effects)."""
-    for _ in iterable:
-        pass

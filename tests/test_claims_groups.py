@@ -366,3 +366,16 @@ def test_identical_estimates_give_q_zero_and_p_one() -> None:
     assert got is not None
     assert got.q == pytest.approx(0.0, abs=1e-24)
     assert got.p_value == pytest.approx(1.0)
+
+
+@pytest.mark.parametrize("df", [1, 2, 3, 7, 30, 199])
+def test_chi2_upper_tail_matches_scipy(df: int) -> None:
+    """Our χ² tail (used for Cochran's Q) against scipy.stats.chi2.sf as the reference."""
+    from scipy import stats
+
+    from sitegen.stats.compare import chi2_sf
+
+    for x in (0.0, 1e-6, 0.3, 1.0, df * 0.5, float(df), df + 1.0, df * 2.0, df * 5.0 + 10, 400.0):
+        want = float(stats.chi2.sf(x, df))
+        got = chi2_sf(x, df)
+        assert got == pytest.approx(want, rel=1e-9, abs=1e-15), (x, df)
