@@ -301,7 +301,11 @@ def _nothing_changed(
         e = prev.entries[s.slug]
         if e.get("fingerprint") != prints[s.slug][1] or not prints[s.slug][1] or e.get("status") == "error":
             return False
-        if _stored_report(prev.site / "datasets" / s.slug, s.slug) is None:
+        stored = prev.site / "datasets" / s.slug / "fit.json"
+        try:
+            if not e.get("fit_sha256") or _file_sha256(stored) != e["fit_sha256"]:
+                return False  # missing, changed or corrupt since the previous build wrote it
+        except OSError:
             return False
     # every file the previous build wrote is still there at its size, and nothing else is
     return prev.body.get("files") == _manifest(prev.site)
@@ -310,11 +314,18 @@ def _nothing_changed(
 def _manifest(site: Path) -> dict[str, int]:
     """Size of every file of a built site, except build.json and sitegen's own top-level dot files."""
     out: dict[str, int] = {}
-    for path in sorted(site.rglob("*")):
-        rel = path.relative_to(site).as_posix()
-        if rel != "build.json" and not rel.startswith(".") and path.is_file():
-            out[rel] = path.stat().st_size
-    return out
+
+    def walk(folder: str, prefix: str) -> None:
+        with os.scandir(folder) as entries:
+            for entry in entries:
+                rel = prefix + entry.name
+                if entry.is_dir(follow_symlinks=False):
+                    walk(entry.path, rel + "/")
+                elif entry.is_file(follow_symlinks=False) and rel != "build.json" and not rel.startswith("."):
+                    out[rel] = entry.stat(follow_symlinks=False).st_size
+
+    walk(str(site), "")
+    return dict(sorted(out.items()))
 
 
 def _stored_report(folder: Path, slug: str) -> FitReport | None:
@@ -485,6 +496,8 @@ class _Build:
     def _write_build_json(self, entries: list[dict[str, Any]]) -> None:
         import platform  # noqa: PLC0415
 
+        for entry in entries:  # lets a rebuild trust a stored result without parsing it
+            entry["fit_sha256"] = _file_sha256(self.work / "datasets" / entry["dataset"] / "fit.json")
         body = {
             "generator": "sitegen",
             "sitegen_version": __version__,
