@@ -68,6 +68,7 @@ class Design:
     design_info: Any  # patsy DesignInfo of the right-hand side, to build predictions
     X_ext: NDArray[np.longdouble]  # the same design evaluated in extended precision
     y_ext: NDArray[np.longdouble]
+    simple: bool = False  # every term is a product of numeric expressions: evaluated without patsy
 
 
 def quote_name(column: str) -> str:
@@ -284,7 +285,6 @@ def numeric_columns(frame: pd.DataFrame, columns: list[str], name: str) -> tuple
 
 def build_design(formula: str, frame: pd.DataFrame, name: str, extra: tuple[str, ...] = ()) -> Design:
     """Turn the table into a design matrix, leaving out rows with missing or non-finite values."""
-    import patsy  # noqa: PLC0415
 
     columns = [str(c) for c in frame.columns]
     try:
@@ -319,7 +319,36 @@ def build_design(formula: str, frame: pd.DataFrame, name: str, extra: tuple[str,
     for col in extra:
         if col not in data.columns:
             data = data.assign(**{col: frame.loc[keep, col]})
-    env = patsy.EvalEnvironment([{"np": np, "numpy": np} | {f: getattr(np, f) for f in SAFE_FUNCTIONS}])
+    plan = _plan(formula, used)
+    if plan is not None:
+        evaluated = _evaluate_design(plan, data, np.longdouble)
+        if evaluated is not None:
+            return _finish_simple(
+                plan,
+                evaluated=evaluated,
+                data=data,
+                dropped=dropped,
+                intercept=intercept,
+                used=used,
+                name=name,
+                formula=formula,
+            )
+    return _patsy_design(formula, data, dropped=dropped, intercept=intercept, used=used, name=name)
+
+
+def _patsy_design(
+    formula: str,
+    data: pd.DataFrame,
+    *,
+    dropped: list[tuple[int, str]],
+    intercept: bool,
+    used: tuple[str, ...],
+    name: str,
+) -> Design:
+    """The general path: patsy builds the design (categorical or stateful terms)."""
+    import patsy  # noqa: PLC0415
+
+    env = _environment()
     try:
         with np.errstate(all="ignore"):
             y_df, x_df = patsy.dmatrices(
@@ -420,6 +449,11 @@ def design_for(design: Design, new: pd.DataFrame) -> NDArray[np.float64]:
     """Design matrix rows for new predictor values (for predictions)."""
     import patsy  # noqa: PLC0415
 
+    if design.simple:
+        cols = _evaluate_terms(design.design_info, new.astype(float), np.float64)
+        if cols is not None:
+            return cols
+
     try:
         with np.errstate(all="ignore"):
             (mat,) = patsy.build_design_matrices([design.design_info], new, NA_action="raise")
@@ -480,3 +514,153 @@ def _extended(
             y_ext.astype(float), y, rtol=1e-12, atol=0
         )
     return (X_ext, y_ext) if same else fallback
+
+
+def _environment() -> Any:
+    import patsy  # noqa: PLC0415
+
+    return patsy.EvalEnvironment([{"np": np, "numpy": np} | {f: getattr(np, f) for f in SAFE_FUNCTIONS}])
+
+
+@dataclass(frozen=True, slots=True)
+class _Plan:
+    """patsy's description of a formula whose terms are all numeric expressions."""
+
+    x_info: Any
+    y_info: Any
+
+
+_PLANS: dict[tuple[str, tuple[str, ...]], _Plan | None] = {}
+_PROBE = (2.0, 3.0, 5.0, 7.0)
+
+
+def _plan(formula: str, used: tuple[str, ...]) -> _Plan | None:
+    """Term structure of a purely numeric formula, worked out once per formula and column set.
+
+    Every column a formula uses is numeric here, so patsy's term order, names and
+    column counts do not depend on the data: patsy runs once on a small probe table,
+    and each dataset's design is then evaluated directly (in extended precision),
+    checked once against patsy's own evaluation of the probe.
+    """
+    key = (formula, used)
+    if key in _PLANS:
+        return _PLANS[key]
+    plan: _Plan | None = None
+    if not any(name in formula for name in _STATEFUL):
+        import patsy  # noqa: PLC0415
+
+        probe = pd.DataFrame({c: list(_PROBE) for c in used}, index=pd.RangeIndex(1, len(_PROBE) + 1))
+        try:
+            with np.errstate(all="ignore"):
+                y_df, x_df = patsy.dmatrices(
+                    formula, probe, eval_env=_environment(), return_type="dataframe",
+                    NA_action=patsy.NAAction(NA_types=[]),
+                )  # fmt: skip
+        except (patsy.PatsyError, ValueError, TypeError, ArithmeticError, KeyError, NameError):
+            y_df = x_df = None
+        if x_df is not None and y_df is not None and y_df.shape[1] == 1:
+            candidate = _Plan(x_df.design_info, y_df.design_info)
+            mine = _evaluate_design(candidate, probe, np.float64)
+            if mine is not None and _same(mine[0], x_df.to_numpy(float)) and _same(mine[1], y_df.to_numpy(float)[:, 0]):
+                plan = candidate
+    if len(_PLANS) > 256:
+        _PLANS.clear()
+    _PLANS[key] = plan
+    return plan
+
+
+def _same(a: NDArray[Any], b: NDArray[Any]) -> bool:
+    a, b = np.asarray(a, dtype=float), np.asarray(b, dtype=float)
+    with np.errstate(all="ignore"):
+        return a.shape == b.shape and bool(np.allclose(a, b, rtol=1e-12, atol=0, equal_nan=True))
+
+
+def _namespace(frame: pd.DataFrame, dtype: Any) -> dict[str, Any]:
+    namespace: dict[str, Any] = {
+        str(c): frame[c].to_numpy(dtype=dtype) for c in frame.columns if pd.api.types.is_numeric_dtype(frame[c])
+    }
+    namespace |= {
+        "np": np,
+        "numpy": np,
+        "I": lambda v: v,
+        "Q": lambda name: namespace[name],
+        "__rows__": frame.index,
+    }
+    namespace |= {f: getattr(np, f) for f in SAFE_FUNCTIONS}
+    return namespace
+
+
+def _evaluate_terms(x_info: Any, frame: pd.DataFrame, dtype: Any) -> NDArray[Any] | None:
+    """The design columns of ``x_info``'s terms over ``frame``, or None when they cannot be evaluated here."""
+    namespace = _namespace(frame, dtype)
+    try:
+        with np.errstate(all="ignore"):
+            cols = []
+            for term in x_info.terms:
+                col = np.ones(len(frame), dtype=dtype)
+                for factor in term.factors:
+                    col = col * _evaluate(factor.code, namespace).astype(dtype)
+                cols.append(col)
+    except (TypeError, ValueError, KeyError, NameError, ArithmeticError, AttributeError):
+        return None
+    return np.column_stack(cols) if cols else np.empty((len(frame), 0), dtype=dtype)
+
+
+def _evaluate_design(plan: _Plan, frame: pd.DataFrame, dtype: Any) -> tuple[NDArray[Any], NDArray[Any]] | None:
+    X = _evaluate_terms(plan.x_info, frame, dtype)
+    if X is None:
+        return None
+    namespace = _namespace(frame, dtype)
+    try:
+        (yterm,) = plan.y_info.terms
+        (yfactor,) = yterm.factors
+        with np.errstate(all="ignore"):
+            y = _evaluate(yfactor.code, namespace).astype(dtype)
+    except (TypeError, ValueError, KeyError, NameError, ArithmeticError, AttributeError):
+        return None
+    return X, y
+
+
+def _finish_simple(
+    plan: _Plan,
+    *,
+    evaluated: tuple[NDArray[Any], NDArray[Any]],
+    data: pd.DataFrame,
+    dropped: list[tuple[int, str]],
+    intercept: bool,
+    used: tuple[str, ...],
+    name: str,
+    formula: str,
+) -> Design:
+    X_ext, y_ext = evaluated
+    X = X_ext.astype(float)
+    y = y_ext.astype(float)
+    rows = np.asarray(data.index, dtype=np.int64)
+    ok = np.isfinite(y) & np.isfinite(X).all(axis=1)
+    if not bool(ok.any()):
+        raise FitError(
+            f"{name}: the model {_show(formula)} is undefined in every row (e.g. the log of values ≤ 0)",
+            hint="check the transformations in key 'model' against the data",
+        )
+    if not bool(ok.all()):
+        for row in rows[~ok]:
+            dropped.append((int(row), "the model's transformation is undefined here (e.g. log of a value ≤ 0)"))
+        X, y, rows, X_ext, y_ext = X[ok], y[ok], rows[ok], X_ext[ok], y_ext[ok]
+        data = data.loc[rows]
+    terms = tuple(str(c) for c in plan.x_info.column_names)
+    _check_constant_terms(X, terms, intercept, name)
+    return Design(
+        X_ext=np.ascontiguousarray(X_ext),
+        y_ext=np.ascontiguousarray(y_ext),
+        X=np.ascontiguousarray(X),
+        y=y,
+        terms=terms,
+        response=str(plan.y_info.column_names[0]),
+        rows=rows,
+        dropped=tuple(sorted(dropped)),
+        has_intercept=intercept,
+        variables=used,
+        data=data,
+        design_info=plan.x_info,
+        simple=True,
+    )
