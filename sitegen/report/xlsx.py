@@ -52,44 +52,35 @@ def _workbook(sheet: str) -> str:
     )
 
 
-def _column_letter(index: int) -> str:
-    letters = ""
-    index += 1
-    while index:
-        index, rem = divmod(index - 1, 26)
-        letters = chr(65 + rem) + letters
-    return letters
-
-
 def _illegal_free(text: str) -> str:
     # XML 1.0 forbids most control characters; drop them rather than write a broken file.
     return "".join(ch for ch in text if ch in "\t\n\r" or ord(ch) >= 32)
 
 
-def _cell(ref: str, value: object) -> str:
+def _cell(value: object) -> str:
+    # Cells carry no reference: each row writes every column in order, so positions are implicit.
+    kind = type(value)
+    if kind is float:
+        return f"<c><v>{value!r}</v></c>" if math.isfinite(value) else "<c/>"  # type: ignore[arg-type]
     if value is None:
-        return ""
-    if isinstance(value, bool):
-        return f'<c r="{ref}" t="b"><v>{int(value)}</v></c>'
+        return "<c/>"
+    if kind is bool:
+        return f'<c t="b"><v>{int(value)}</v></c>'  # type: ignore[call-overload]
     if isinstance(value, int | float):
         v = float(value)
-        if not math.isfinite(v):
-            return ""
-        return f'<c r="{ref}"><v>{value!r}</v></c>'
+        return f"<c><v>{value!r}</v></c>" if math.isfinite(v) else "<c/>"
     text = escape(_illegal_free(str(value)))
-    return f'<c r="{ref}" t="inlineStr"><is><t xml:space="preserve">{text}</t></is></c>'
+    return f'<c t="inlineStr"><is><t xml:space="preserve">{text}</t></is></c>'
 
 
 def workbook_bytes(header: Sequence[str], rows: Iterable[Sequence[object]], sheet: str = "data") -> bytes:
     """An XLSX file holding ``header`` and ``rows``; text cells are stored as text."""
-    letters = [_column_letter(i) for i in range(len(header))]
     parts = [
         '<?xml version="1.0" encoding="UTF-8" standalone="yes"?>\n'
         '<worksheet xmlns="http://schemas.openxmlformats.org/spreadsheetml/2006/main"><sheetData>'
     ]
     for r, row in enumerate([list(header), *rows], start=1):
-        cells = "".join(_cell(f"{letters[c]}{r}", v) for c, v in enumerate(row))
-        parts.append(f'<row r="{r}">{cells}</row>')
+        parts.append(f'<row r="{r}">{"".join(map(_cell, row))}</row>')
     parts.append("</sheetData></worksheet>")
     buf = io.BytesIO()
     with zipfile.ZipFile(buf, "w", zipfile.ZIP_DEFLATED, compresslevel=1) as zf:
