@@ -212,7 +212,7 @@ def _weights(design: Design, spec: DatasetSpec) -> NDArray[np.float64] | None:
 
 
 def _coefficients(fit: OlsFit, robust_se: NDArray[np.float64] | None) -> tuple[Coefficient, ...]:
-    from scipy import stats as sps  # noqa: PLC0415
+    from sitegen.stats.distributions import t_sf  # noqa: PLC0415
 
     out = []
     for i, term in enumerate(fit.terms):
@@ -233,7 +233,7 @@ def _coefficients(fit: OlsFit, robust_se: NDArray[np.float64] | None) -> tuple[C
                 robust_std_error=se,
                 robust_ci_low=c.estimate - fit.t_crit * se,
                 robust_ci_high=c.estimate + fit.t_crit * se,
-                robust_p_value=float(2 * sps.t.sf(abs(t), fit.df_resid)),
+                robust_p_value=float(2 * t_sf(abs(t), fit.df_resid)),
             )
         out.append(c)
     return tuple(out)

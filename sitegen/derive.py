@@ -15,7 +15,6 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
-from scipy import stats as sps
 
 from sitegen.errors import DatasetError, FitError
 from sitegen.formula import Design, design_for
@@ -35,6 +34,7 @@ from sitegen.spec import DatasetSpec
 from sitegen.stats.calibration import detection_limits, inverse_predict
 from sitegen.stats.checks import model_checks
 from sitegen.stats.claims import check_claims
+from sitegen.stats.distributions import norm_ppf
 from sitegen.stats.groups import compare_groups
 from sitegen.stats.influence import Influence, PointFlags, flag_points, influence
 from sitegen.stats.lines import alternative_lines, explain_lines
@@ -360,8 +360,9 @@ def _qq(values: FloatArray) -> FloatArray:
     ok = np.isfinite(values)
     m = int(ok.sum())
     if m:
-        ranks = sps.rankdata(values[ok], method="ordinal")
-        out[ok] = sps.norm.ppf((ranks - 0.375) / (m + 0.25))
+        ranks = np.empty(m)
+        ranks[np.argsort(values[ok], kind="stable")] = np.arange(1, m + 1)
+        out[ok] = norm_ppf((ranks - 0.375) / (m + 0.25))
     return out
 
 

@@ -247,8 +247,9 @@ def test_normality_matches_scipy_and_the_jarque_bera_formula(k: int) -> None:
     checks = run(X, y)
     e = y - X @ np.linalg.lstsq(X, y, rcond=None)[0]
     w, p = sps.shapiro(e)
-    assert checks["normality_shapiro"].statistic == pytest.approx(w, rel=1e-12)
-    assert checks["normality_shapiro"].p_value == pytest.approx(p, rel=1e-9)
+    # Our own AS R94 against scipy's, which evaluates parts of it in single precision.
+    assert checks["normality_shapiro"].statistic == pytest.approx(w, abs=1e-6)
+    assert checks["normality_shapiro"].p_value == pytest.approx(p, abs=1e-5)
     jb, p = sps.jarque_bera(e)
     assert checks["normality_jarque_bera"].statistic == pytest.approx(jb, rel=1e-9)
     assert checks["normality_jarque_bera"].p_value == pytest.approx(p, rel=1e-9)

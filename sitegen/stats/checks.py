@@ -42,9 +42,10 @@ from functools import partial
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy import stats as sps
 
+from sitegen.stats import distributions as dist
 from sitegen.stats.influence import LEVERAGE_ONE, Influence
+from sitegen.stats.shapiro import shapiro_wilk
 
 FloatArray = NDArray[np.float64]
 
@@ -255,7 +256,7 @@ def _breusch_pagan(e: FloatArray, Z: FloatArray) -> tuple[float, float]:
     tss = float(np.sum((u - u.mean()) ** 2))
     r2 = 1 - float(np.sum((u - fitted) ** 2)) / tss if tss > 0 else 0.0
     lm = len(u) * r2
-    return lm, float(sps.chi2.sf(lm, Z.shape[1] - 1))
+    return lm, dist.chi2_sf(lm, Z.shape[1] - 1)
 
 
 def dw_moments(q: FloatArray, df_resid: int) -> tuple[float, float]:
@@ -287,20 +288,30 @@ def _independence(d: _Data) -> _Outcome:
     if not (0 < m < 1 and 0 < v < m * (1 - m)):
         return f"Durbin–Watson d = {_num(dw)}, but no p-value can be given for this design."
     a, b = m * (m * (1 - m) / v - 1), (1 - m) * (m * (1 - m) / v - 1)
-    tail = min(float(sps.beta.cdf(dw / 4, a, b)), float(sps.beta.sf(dw / 4, a, b)))
+    tail = min(dist.beta_cdf(dw / 4, a, b), dist.beta_sf(dw / 4, a, b))
     p = min(1.0, 2.0 * tail)
     return dw, p, f"Durbin–Watson d = {_num(dw)}, lag-one correlation {_num(lag1)}, {_p(p)}"
+
+
+def _jarque_bera(e: FloatArray) -> tuple[float, float]:
+    """Jarque–Bera JB = n/6 (S² + (K − 3)²/4) from the biased moments, χ² on 2 df (as scipy.stats.jarque_bera)."""
+    z = e - e.mean()
+    m2 = float(np.mean(z**2))
+    skew = float(np.mean(z**3)) / m2**1.5
+    kurt = float(np.mean(z**4)) / m2**2
+    jb = len(e) / 6 * (skew**2 + (kurt - 3) ** 2 / 4)
+    return jb, dist.chi2_sf(jb, 2)
 
 
 def _normality(d: _Data, shapiro: bool) -> _Outcome:
     if np.ptp(d.ew) == 0:
         return "All residuals are equal, so they have no shape to judge."
     if not shapiro:
-        stat, p = (float(v) for v in sps.jarque_bera(d.ew))
+        stat, p = _jarque_bera(d.ew)
         return stat, p, f"Jarque–Bera = {_num(stat)}, {_p(p)}; a large-sample test"
     if not 3 <= d.n <= SHAPIRO_MAX_ROWS:
         return f"Shapiro–Wilk is computed for 3 to {SHAPIRO_MAX_ROWS:,} rows only, not {d.n:,}."
-    stat, p = (float(v) for v in sps.shapiro(d.ew))
+    stat, p = shapiro_wilk(d.ew)
     return stat, p, f"Shapiro–Wilk W = {stat:.3f}, {_p(p)}"
 
 
@@ -322,7 +333,7 @@ def _curvature(d: _Data) -> _Outcome:
     extra = float(np.sum((basis.T @ d.ew) ** 2))
     rest = max(d.ssr - extra, 0.0)
     stat = math.inf if rest == 0 else (extra / k) / (rest / (d.df - k))
-    p = 0.0 if rest == 0 else float(sps.f.sf(stat, k, d.df - k))
+    p = 0.0 if rest == 0 else dist.f_sf(stat, k, d.df - k)
     return stat, p, f"RESET F = {_num(stat)}, {_p(p)}"
 
 
@@ -346,7 +357,7 @@ def _lack_of_fit(d: _Data) -> _Outcome:
     if math.sqrt(ss_pe) <= _ZERO * float(np.linalg.norm(d.yw)):
         return "Repeated measurements agree exactly, so there is no pure error to compare with."
     stat = (max(d.ssr - ss_pe, 0.0) / df_lof) / (ss_pe / df_pe)
-    p = float(sps.f.sf(stat, df_lof, df_pe))
+    p = dist.f_sf(stat, df_lof, df_pe)
     return stat, p, f"lack-of-fit F = {_num(stat)}, {_p(p)}, {m} distinct settings"
 
 
@@ -404,8 +415,8 @@ def _influence(d: _Data, infl: Influence, alpha: float) -> Check:
     h, t, cooks = (
         np.asarray(a, dtype=np.float64) for a in (infl.leverage, infl.studentized_residual, infl.cooks_distance)
     )
-    cut = float(sps.f.median(d.p, d.df))
-    t_cut = max(RESIDUAL_LIMIT, float(sps.t.isf(alpha / (2 * d.n), d.df - 1)) if d.df > 1 else 0.0)
+    cut = dist.f_ppf(0.5, d.p, d.df)
+    t_cut = max(RESIDUAL_LIMIT, dist.t_isf(alpha / (2 * d.n), d.df - 1) if d.df > 1 else 0.0)
     one, far, strong = h > LEVERAGE_ONE, np.abs(t) > t_cut, cooks > cut
     t_max = float(np.max(np.abs(t), where=~np.isnan(t), initial=0.0))
     d_max = float(np.max(cooks, where=np.isfinite(cooks), initial=0.0))

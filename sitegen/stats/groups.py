@@ -10,10 +10,10 @@ from __future__ import annotations
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy import stats as sps
 
 from sitegen.errors import FitError
 from sitegen.model import GroupComparison, GroupLine
+from sitegen.stats import distributions as dist
 from sitegen.stats.ols import fit_ols
 from sitegen.stats.solver import LD
 
@@ -46,7 +46,7 @@ def compare_groups(
     df_num = len(names) - 1
     if ff.ssr > 0:
         f_stat = ((fr.ssr - ff.ssr) / df_num) / (ff.ssr / ff.df_resid)
-        p = float(sps.f.sf(f_stat, df_num, ff.df_resid))
+        p = dist.f_sf(f_stat, df_num, ff.df_resid)
     else:
         f_stat, p = float("nan"), float("nan")
     pct = f"{level * 100:g}%"

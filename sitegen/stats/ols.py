@@ -12,9 +12,9 @@ from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy import stats as sps
 
 from sitegen.errors import FitError
+from sitegen.stats import distributions as dist
 from sitegen.stats.solver import LD, solve
 
 FloatArray = NDArray[np.float64]
@@ -110,14 +110,14 @@ def fit_ols(
     se = np.sqrt(np.clip(np.diag(sol.xtx_inv) * sigma2, 0, None))
     with np.errstate(divide="ignore", invalid="ignore"):
         t_stat = np.where(se > 0, beta / se, np.where(beta == 0, np.nan, np.copysign(np.inf, beta)))
-    p_value = 2 * sps.t.sf(np.abs(t_stat), df_resid)
-    t_crit = float(sps.t.ppf(0.5 + level / 2, df_resid))
+    p_value = 2 * dist.t_sf(np.abs(t_stat), df_resid)
+    t_crit = dist.t_ppf(0.5 + level / 2, df_resid)
     r2 = 1 - _nan_div(ssr, tss) if tss > 0 else float("nan")
     dof_total = n - 1 if has_intercept else n
     adj = 1 - (1 - r2) * dof_total / df_resid if tss > 0 else float("nan")
     if df_model > 0 and ssr > 0:
         f_stat = ((tss - ssr) / df_model) / sigma2
-        f_p = float(sps.f.sf(f_stat, df_model, df_resid))
+        f_p = dist.f_sf(f_stat, df_model, df_resid)
     elif df_model > 0 and tss > 0:
         f_stat, f_p = float("inf"), 0.0
     else:
@@ -208,6 +208,6 @@ def anova_table(fit: OlsFit) -> tuple[AnovaRow, ...]:
             continue
         ss = float(effect * effect)
         f = ss / sigma2 if sigma2 > 0 else float("inf")
-        rows.append(AnovaRow(term, 1, ss, ss, f, float(sps.f.sf(f, 1, fit.df_resid))))
+        rows.append(AnovaRow(term, 1, ss, ss, f, dist.f_sf(f, 1, fit.df_resid)))
     rows.append(AnovaRow("Residual", fit.df_resid, fit.ssr, sigma2, None, None))
     return tuple(rows)
