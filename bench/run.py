@@ -13,6 +13,7 @@ import shutil
 import subprocess
 import sys
 import tempfile
+from collections.abc import Callable
 from pathlib import Path
 
 HERE = Path(__file__).resolve().parent
@@ -28,8 +29,18 @@ _PEAK = (
 )
 
 
-def timed(cmd: list[str]) -> tuple[float, float, int]:
-    """(seconds, peak RSS of the largest process in MB, exit status)."""
+def timed(cmd: list[str], repeat: int = 1, before: Callable[[], object] | None = None) -> tuple[float, float, int]:
+    """Median seconds over ``repeat`` runs, peak RSS (MB) of the largest process, last exit status."""
+    runs = []
+    for _ in range(repeat):
+        if before is not None:
+            before()
+        runs.append(_timed_once(cmd))
+    seconds = sorted(r[0] for r in runs)[len(runs) // 2]
+    return seconds, max(r[1] for r in runs), runs[-1][2]
+
+
+def _timed_once(cmd: list[str]) -> tuple[float, float, int]:
     out = subprocess.run([sys.executable, "-c", _PEAK, *cmd], capture_output=True, text=True, check=False)
     line = next(ln for ln in out.stdout.splitlines() if ln.startswith("%BENCH%"))
     _, s, m, rc = line.split()
@@ -45,6 +56,7 @@ def main() -> None:
     ap.add_argument("--datasets", type=int, default=200)
     ap.add_argument("--rows", type=int, default=200)
     ap.add_argument("--skip-baseline", action="store_true")
+    ap.add_argument("--repeat", type=int, default=3, help="runs per figure; the median is reported")
     args = ap.parse_args()
     tmp = Path(tempfile.mkdtemp(prefix="sitegen-bench-"))
     try:
@@ -53,10 +65,9 @@ def main() -> None:
         sitegen = [sys.executable, "-m", "sitegen", "build", str(data), "-o", str(site), "-q"]
         # Warm the chart-bundle cache so the full build measures steady-state work.
         timed([sys.executable, "-m", "sitegen", "build", str(data), "-o", str(tmp / "warm"), "-q"])
-        full, full_mem, _ = timed(sitegen)
-        noop, noop_mem, _ = timed(sitegen)
-        touch_one(data)
-        one, one_mem, _ = timed(sitegen)
+        full, full_mem, _ = timed([*sitegen, "--refit"], args.repeat)
+        noop, noop_mem, _ = timed(sitegen, args.repeat)
+        one, one_mem, _ = timed(sitegen, args.repeat, before=lambda: touch_one(data))
         results = {
             "datasets": args.datasets,
             "rows": args.rows,
@@ -71,7 +82,9 @@ def main() -> None:
         }
         if not args.skip_baseline:
             base_out = tmp / "baseline"
-            base, base_mem, _ = timed([sys.executable, str(HERE / "baseline.py"), str(data), str(base_out)])
+            base, base_mem, _ = timed(
+                [sys.executable, str(HERE / "baseline.py"), str(data), str(base_out)], args.repeat
+            )
             results |= {
                 "baseline_full_s": round(base, 2),
                 "baseline_per_dataset_ms": round(1000 * base / args.datasets, 1),

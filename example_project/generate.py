@@ -385,9 +385,7 @@ def intake_turbidity_log() -> None:
     turbidity = np.exp(log_t)
     reference = turbidity * (1.0 + rng.normal(0.0, 0.01, n))
     online = 0.15 + 1.04 * turbidity + rng.normal(0.0, 1.0, n) * (0.05 + 0.02 * turbidity)
-    stamps = [
-        f"2024-04-{1 + int(m // 1440):02d}T{int(m % 1440) // 60:02d}:{int(m % 60):02d}" for m in minutes
-    ]
+    stamps = [f"2024-04-{1 + int(m // 1440):02d}T{int(m % 1440) // 60:02d}:{int(m % 60):02d}" for m in minutes]
     write_csv(
         "field/intake_turbidity_log.csv",
         [("time", stamps, None), ("reference", reference, 2), ("online", online, 2)],

@@ -56,7 +56,7 @@ class _Printer:
             if done == total:
                 print("\r" + " " * (width + 55) + "\r", end="", file=self.stream)
         elif name:
-            print(f"fitted {done}/{total}: {name}", file=self.stream)
+            print(f"done {done}/{total}: {name}", file=self.stream)
 
 
 def _parser() -> argparse.ArgumentParser:

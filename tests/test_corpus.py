@@ -547,7 +547,7 @@ def _build_with_action(tmp: Path, files: dict[str, str], action: Callable[[Path]
     for name, text in files.items():
         (data / name).write_text(text)
     site = tmp / "site"
-    stream = _ActOnProgress("fitted 1/", lambda: action(data))
+    stream = _ActOnProgress("done 1/", lambda: action(data))
     result = run(data, site, stream)
     assert stream.fired
     assert_clean_output(result)
