@@ -28,7 +28,8 @@ def bundle_version() -> str:
     )
 
 
-def _cache_dir() -> Path:
+def cache_dir() -> Path:
+    """sitegen's folder in the user's cache (chart bundle, compiled templates)."""
     base = os.environ.get("XDG_CACHE_HOME") or str(Path.home() / ".cache")
     return Path(base) / "sitegen"
 
@@ -53,7 +54,7 @@ def write_bundle(out: Path, previous: Path | None) -> None:
             shutil.copyfile(old_bundle, target)
             return
     key = "".join(c if c.isalnum() else "-" for c in version.strip())
-    cached = _cache_dir() / f"vega-bundle-{key}.js"
+    cached = cache_dir() / f"vega-bundle-{key}.js"
     if cached.is_file():
         shutil.copyfile(cached, target)
         return

@@ -61,11 +61,24 @@ def _show_char(value: str) -> str:
     return {"\t": "tab", ",": ",", ";": ";", "|": "|"}.get(value, value)
 
 
+def _bytecode_cache() -> jinja2.BytecodeCache | None:
+    """Compiled templates kept in the user's cache folder (keyed by template source), if it is writable."""
+    from sitegen.report.assets import cache_dir  # noqa: PLC0415
+
+    folder = cache_dir() / "templates"
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError:
+        return None
+    return jinja2.FileSystemBytecodeCache(str(folder))
+
+
 @cache
 def environment(theme: Theme) -> jinja2.Environment:
     """The Jinja2 environment of a theme (user templates first, default after)."""
     env = jinja2.Environment(
         loader=jinja2.FileSystemLoader([str(d) for d in theme.template_dirs]),
+        bytecode_cache=_bytecode_cache(),
         autoescape=True,
         undefined=jinja2.StrictUndefined,
         trim_blocks=True,
