@@ -77,9 +77,11 @@ def _parser() -> argparse.ArgumentParser:
     w.add_argument("--settle", type=float, default=1.5, help="quiet seconds before a rebuild starts (default 1.5)")
     w.add_argument("--max-builds", type=int, default=None, help=argparse.SUPPRESS)
     _common_build_options(w)
-    k = sub.add_parser("pack", help="zip a built site for e-mail or a file share")
+    k = sub.add_parser(
+        "pack", help="zip a built site for e-mail or a file share (or, with -o NAME.html, one single HTML file)"
+    )
     k.add_argument("site_dir", type=Path, metavar="SITE_DIR")
-    k.add_argument("-o", "--output", type=Path, required=True, metavar="FILE.zip", dest="target")
+    k.add_argument("-o", "--output", type=Path, required=True, metavar="FILE.zip|FILE.html", dest="target")
     k.add_argument(
         "--budget-mb",
         type=float,
@@ -153,7 +155,12 @@ def _pack(args: argparse.Namespace, out: _Printer) -> int:
 
     from sitegen.publish import pack  # noqa: PLC0415
 
-    size = pack(args.site_dir, args.target)
+    if args.target.suffix.lower() in (".html", ".htm"):
+        from sitegen.single import write_single_file  # noqa: PLC0415
+
+        size = write_single_file(args.site_dir, args.target)
+    else:
+        size = pack(args.site_dir, args.target)
     budget = args.budget_mb
     if budget is None:
         budget = DEFAULT_MAIL_BUDGET_MB

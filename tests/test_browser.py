@@ -540,3 +540,30 @@ def test_a_large_dataset_page_is_small_and_draws(browser: Any, large_site: Path,
         assert 0 < points < LARGE_ROWS
         page.locator("#fig-fit").screenshot(path=str(shots / "dataset-large-chart.png"))
         assert problems == []
+
+
+def test_single_file_report_opens_cleanly_and_draws_every_chart(browser: Any, site: Path, tmp_path: Path) -> None:
+    """`sitegen pack SITE -o report.html`: one file, nothing loaded from anywhere, every chart drawn."""
+    from conftest import cli
+
+    out = tmp_path / "mail"
+    out.mkdir()
+    report = out / "report.html"
+    res = cli("pack", site, "-o", report)
+    assert res.code == 0, res.output
+    assert sorted(p.name for p in out.iterdir()) == ["report.html"]
+    with watched(browser, out) as (page, problems):
+        _open(page, out, "report.html")
+        assert _chart_problems(page) == []
+        sections = page.locator("article.dataset").count()
+        assert sections == len(_summary(site))
+        duplicates = page.evaluate(
+            "() => { const ids = [...document.querySelectorAll('[id]')].map(e => e.id);"
+            " return ids.filter((v, i) => ids.indexOf(v) !== i); }"
+        )
+        assert duplicates == []
+        # Links inside the file lead to its own sections.
+        first = _summary(site)[0]["dataset"]
+        page.click(f'a[href="#ds-{first}"] >> nth=0')
+        assert page.evaluate("() => location.hash") == f"#ds-{first}"
+    assert problems == []

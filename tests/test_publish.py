@@ -172,3 +172,45 @@ def test_watch_rebuilds_after_a_change_and_ignores_editor_files(tmp_path: Path) 
     assert codes == [0, 0]
     with (out / "summary.csv").open(encoding="utf-8") as fh:
         assert {row["dataset"] for row in csv.DictReader(fh)} == {"new", "set-00", "set-01"}
+
+
+def test_pack_to_html_writes_one_self_contained_file(tmp_path: Path) -> None:
+    import json
+    import re
+
+    data = _dataset_folder(tmp_path, 3)
+    out = tmp_path / "site"
+    assert cli("build", data, "-o", out, "-j", "1").code == 0
+    target = tmp_path / "report.html"
+    res = cli("pack", out, "-o", target)
+    assert res.code == 0, res.output
+    text = target.read_text(encoding="utf-8")
+    # Nothing is loaded from a file or a server: no src attributes, no stylesheet links.
+    assert re.search(r"<script[^>]*\bsrc=", text) is None
+    assert re.search(r"<link[^>]*stylesheet", text) is None
+    # Every link stays inside the file (anchors) or is an outside reference the reader may follow.
+    hrefs = re.findall(r'href="([^"]*)"', text)
+    assert hrefs
+    assert all(h.startswith(("#", "https://", "http://", "mailto:")) for h in hrefs), [
+        h for h in hrefs if not h.startswith("#")
+    ][:5]
+    anchors = set(re.findall(r'\bid="([^"]+)"', text))
+    assert len(anchors) == len(re.findall(r'\bid="([^"]+)"', text))  # ids are unique
+    assert all(h[1:] in anchors for h in hrefs if h.startswith("#") and len(h) > 1)
+    for slug in ("set-00", "set-01", "set-02"):
+        assert f'id="ds-{slug}"' in text
+    for block in re.findall(r'<script type="application/json"[^>]*>(.*?)</script>', text, re.S):
+        json.loads(block)
+    assert "Use with care." in text  # the caution notice travels with the file
+
+
+def test_pack_to_html_refuses_a_large_site(tmp_path: Path) -> None:
+    from sitegen.single import MAX_DATASETS
+
+    data = _dataset_folder(tmp_path, MAX_DATASETS + 1)
+    out = tmp_path / "site"
+    assert cli("build", data, "-o", out).code == 0
+    res = cli("pack", out, "-o", tmp_path / "report.html")
+    assert res.code == 2
+    assert "send the site as a zip" in res.stream
+    assert not (tmp_path / "report.html").exists()

@@ -92,19 +92,23 @@
       if (!target) { return; }
       var spec;
       try { spec = JSON.parse(s.textContent); } catch (e) { fail(target, "its description is damaged"); return; }
+      /* Points are lent within one dataset: the page, or its section of a single-file report. */
+      var holder = s.closest("[data-chart-scope]");
+      var scope = (holder ? holder.getAttribute("data-chart-scope") : "") + "|";
       var lend = meta(spec, "lend");
       if (lend) {
         Object.keys(lend).forEach(function (name) {
-          lent[lend[name] + "/" + name] = JSON.stringify((spec.datasets || {})[name] || []);
+          lent[scope + lend[name] + "/" + name] = JSON.stringify((spec.datasets || {})[name] || []);
         });
       }
-      charts.push({ target: target, spec: spec, view: null, label: target.getAttribute("aria-label") || "Chart" });
+      charts.push({ target: target, spec: spec, view: null, scope: scope,
+                    label: target.getAttribute("aria-label") || "Chart" });
     });
     charts.forEach(function (c) {
       var borrow = meta(c.spec, "borrow");
       if (!borrow) { return; }
       Object.keys(borrow).forEach(function (name) {
-        var text = lent[borrow[name] + "/" + name];
+        var text = lent[c.scope + borrow[name] + "/" + name];
         if (text !== undefined) { c.spec.datasets[name] = JSON.parse(text); }
       });
     });
