@@ -85,7 +85,7 @@ def _forward_substitute_transposed(R: LDArray, g: LDArray) -> LDArray:
 
 
 def _refine_augmented(
-    Xs: LDArray, y: LDArray, R: LDArray, refl: list[LDArray], b: LDArray, *, steps: int = 3
+    Xs: LDArray, y: LDArray, R: LDArray, refl: list[LDArray], b: LDArray, *, steps: int = 4
 ) -> LDArray:
     """Refine the solution and residual together (Björck's augmented-system refinement).
 
