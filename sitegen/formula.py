@@ -25,7 +25,22 @@ from sitegen.errors import DataFileError, FitError, FormulaError
 
 #: numpy functions a formula may call, as ``np.NAME`` or bare ``NAME``.
 SAFE_FUNCTIONS = frozenset(
-    {"log", "log10", "log2", "log1p", "exp", "expm1", "sqrt", "abs", "square", "reciprocal", "sin", "cos"}
+    {
+        "log",
+        "log10",
+        "log2",
+        "log1p",
+        "exp",
+        "expm1",
+        "sqrt",
+        "abs",
+        "square",
+        "reciprocal",
+        "sin",
+        "cos",
+        "power",
+        "cbrt",
+    }
 )
 #: patsy's own helpers that are safe to call.
 PATSY_FUNCTIONS = frozenset({"I", "Q", "center", "standardize", "scale"})
