@@ -399,9 +399,15 @@ class _Build:
         new.mkdir(parents=True, exist_ok=True)
         files = []
         for path in sorted(old.iterdir()):
-            if path.is_file() and path.name != "index.html":
-                _link_or_copy(path, new / path.name)
-                files.append(path.name)
+            if not path.is_file() or path.name == "index.html":
+                continue
+            if path.name.startswith("chart-") and path.name.endswith(".svg"):
+                # Static chart images belong to the page: kept only while the site asks for them.
+                if self.config.static_images:
+                    _link_or_copy(path, new / path.name)
+                continue
+            _link_or_copy(path, new / path.name)
+            files.append(path.name)
         return report, tuple(files)
 
     def execute(self, theme: Theme) -> tuple[tuple[Outcome, ...], int, list[str], tuple[tuple[str, str], ...]]:

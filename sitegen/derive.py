@@ -145,7 +145,7 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
     lines, lines_text = _lines(design, fit, spec, line_x, messages)
     calibration, limits = _calibration(design, fit, spec, line_x, messages)
     predictions = _predictions(design, fit, spec, messages)
-    groups = _groups(design, fit, spec, line_x, messages)
+    groups = _groups(design, fit, spec, line_x, messages, weights=weights)
     chart = _chart(design, fit, infl, flags, spec)
     observations = _observations(design, fit, infl, flags, weights)
     return Derived(
@@ -177,13 +177,13 @@ def _reasons(flags: PointFlags, i: int) -> tuple[str, ...]:
     if flags.leverage_one[i]:
         out.append("alone sets a coefficient (leverage 1)")
     elif flags.high_leverage[i]:
-        out.append("high leverage")
+        out.append("leverage above 2p/n")
     if flags.large_residual[i]:
-        out.append("large studentized residual")
+        out.append("|studentized residual| above 3")
     if flags.large_cooks[i]:
-        out.append("large Cook's distance")
+        out.append("Cook's distance above 4/n")
     if flags.large_dffits[i]:
-        out.append("large DFFITS")
+        out.append("|DFFITS| above 2√(p/n)")
     return tuple(out)
 
 
@@ -222,6 +222,15 @@ def _lines(
             )
         )
         return (), ""
+    if spec.weights:
+        messages.append(
+            Message(
+                "warning",
+                "the alternative lines do not take weights, so they are not drawn for this weighted fit; "
+                "remove 'weights' or 'lines' from the sidecar",
+            )
+        )
+        return (), ""
     x = design.X[:, 1]
     try:
         found = alternative_lines(x, design.y, ("ols", *spec.lines), error_ratio=spec.error_ratio, level=fit.level)
@@ -251,12 +260,12 @@ def _calibration(
 ) -> tuple[tuple[Calibration, ...], DetectionLimits | None]:
     if not spec.calibrate:
         return (), None
-    if x_col is None or spec.weights:
+    if x_col is None or spec.weights or design.response not in design.variables:
         messages.append(
             Message(
                 "warning",
-                "inverse prediction needs an unweighted straight-line model such as "
-                "\"y ~ x\"; the 'calibrate' request was skipped",
+                "inverse prediction needs an unweighted straight-line model of an untransformed response, "
+                "such as \"y ~ x\"; the 'calibrate' request was skipped",
             )
         )
         return (), None
@@ -318,6 +327,17 @@ def _predictions(design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[
     except DatasetError as exc:
         messages.append(Message("warning", f"predict_at: {exc}"))
         return ()
+    finite_rows: NDArray[np.bool_] = np.asarray(np.isfinite(X_new).all(axis=1))
+    defined = [bool(v) for v in finite_rows]
+    for row in (r for r, ok in zip(rows, defined, strict=True) if not ok):
+        at = ", ".join(f"{k} = {v:g}" for k, v in row.items())
+        messages.append(
+            Message("warning", f"predict_at {at} is outside the model's reach (e.g. the log of a value ≤ 0); left out")
+        )
+    rows = [r for r, ok in zip(rows, defined, strict=True) if ok]
+    X_new = X_new[defined]
+    if not rows:
+        return ()
     b = bands(fit, X_new)
     return tuple(
         Prediction(
@@ -334,7 +354,13 @@ def _predictions(design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[
 
 
 def _groups(
-    design: Design, fit: OlsFit, spec: DatasetSpec, x_col: str | None, messages: list[Message]
+    design: Design,
+    fit: OlsFit,
+    spec: DatasetSpec,
+    x_col: str | None,
+    messages: list[Message],
+    *,
+    weights: FloatArray | None,
 ) -> GroupComparison | None:
     if not spec.group:
         return None
@@ -348,7 +374,7 @@ def _groups(
         return None
     labels = design.data[spec.group].astype(str).to_numpy(dtype=str)
     try:
-        return compare_groups(design.X[:, 1], design.y, labels, spec.group, fit.level)
+        return compare_groups(design.X[:, 1], design.y, labels, spec.group, fit.level, weights=weights)
     except DatasetError as exc:
         messages.append(Message("warning", f"group comparison skipped: {exc}"))
         return None

@@ -140,9 +140,9 @@ def test_anscombe_iv_single_deciding_point_is_caught_with_the_leverage_explanati
 def test_influence_limits_are_the_median_of_f_and_the_bonferroni_outlier_limit() -> None:
     x, y = anscombe(1)
     text = run(line_design(x), y)["influence"].text
-    assert f"Cook's distance 0.489, limit {sps.f.ppf(0.5, 2, 9):.3g}" in text  # 0.749
+    assert f"Cook's distance 0.489, against the F-median limit {sps.f.ppf(0.5, 2, 9):.3g}" in text  # 0.749
     # Bonferroni outlier test: t(1 − 0.05/22, 8) ≈ 4.1 is above the plain limit 3.
-    assert f"|studentized residual| 2.08, limit {sps.t.isf(0.05 / 22, 8):.3g}" in text
+    assert f"|studentized residual| 2.08, against the outlier-test limit {sps.t.isf(0.05 / 22, 8):.3g}" in text
 
 
 def test_many_ordinary_rows_do_not_raise_the_influence_flag() -> None:

@@ -442,7 +442,7 @@ def test_exact_fit_wampler1_flags_no_point_as_off_the_line(tmp_path: Path) -> No
     # (residuals ~1e-13 of a response ~1e6) must not raise flags or warnings.
     report, _ = wampler1_report(tmp_path / "w")
     assert report.status != "error", error_text(report)
-    off_line = [f for f in report.flagged if set(f.reasons) - {"high leverage"}]
+    off_line = [f for f in report.flagged if set(f.reasons) - {"leverage above 2p/n"}]
     assert off_line == [], f"flagged on rounding residue: {off_line}"
     influence_msgs = [m.text for m in report.messages if "far from the line" in m.text or "Cook" in m.text]
     assert influence_msgs == []

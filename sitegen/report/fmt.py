@@ -45,19 +45,35 @@ def integer(x: object) -> str:
 
 
 def pvalue(p: object) -> str:
-    """A p-value as readers expect it: three significant digits, or "< 0.0001"."""
+    """A p-value as readers expect it: three significant digits (0.0496, 0.430), or "< 0.0001"."""
     v = _finite(p)
     if v is None:
         return MISSING
     if v < 1e-4:
         return "< 0.0001"
-    return f"{v:.3g}" if v < 0.001 else f"{v:.3f}".rstrip("0").rstrip(".") if v < 1 else "1"
+    if v >= 1:
+        return "1"
+    decimals = 2 - math.floor(math.log10(v))
+    text = f"{v:.{decimals}f}"
+    return "1" if float(text) >= 1 else text
+
+
+def p_phrase(p: object) -> str:
+    """ "p = 0.0496" or "p < 0.0001", for use in a sentence."""
+    text = pvalue(p)
+    return f"p {text}" if text.startswith("<") else f"p = {text}"
 
 
 def percent(x: object, digits: int = 1) -> str:
-    """A proportion as a percentage."""
+    """A proportion as a percentage; never rounds a value short of 100% (or above 0%) up to 100.0% (or 0.0%)."""
     v = _finite(x)
-    return MISSING if v is None else f"{v * 100:.{digits}f}%"
+    if v is None:
+        return MISSING
+    text = f"{v * 100:.{digits}f}"
+    while digits < 8 and ((0 < v < 1 and float(text) >= 100) or (0 < v < 1 and float(text) <= 0)):
+        digits += 1
+        text = f"{v * 100:.{digits}f}"
+    return f"{text}%"
 
 
 def level(x: object) -> str:

@@ -34,6 +34,7 @@ def snapshot(reports: Sequence[FitReport]) -> dict[str, dict[str, Any]]:
             "std_error": c.std_error if c else None,
             "low": c.ci_low if c else None,
             "high": c.ci_high if c else None,
+            "level": r.level,
         }
     return out
 
@@ -114,7 +115,25 @@ def write(work: Path, ctx: pages.SiteContext, reports: Sequence[FitReport], prev
             if (d := b["datasets"].get(r.dataset)) and d.get("estimate") is not None and d.get("term") == r.compare_term
         ]
         if len(series) >= 2 and r.compare_term:
-            drift.append({"report": r, "spec": charts.drift_chart(series, r.compare_term), "points": len(series)})
+            levels = sorted(
+                {
+                    float(d["level"])
+                    for b in builds
+                    if (d := b["datasets"].get(r.dataset)) and d.get("level") is not None
+                }
+            )
+            if len(levels) == 1:
+                level_text = f"intervals at {levels[0] * 100:g}%"
+            else:
+                level_text = "intervals at the level each build used (the level changed between builds)"
+            drift.append(
+                {
+                    "report": r,
+                    "spec": charts.drift_chart(series, r.compare_term),
+                    "points": len(series),
+                    "levels": level_text,
+                }
+            )
     html = pages.render_page(
         ctx, "changes.html", "changes", change=change, drift=drift, kept=len(builds), max_builds=MAX_BUILDS
     )

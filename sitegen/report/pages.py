@@ -125,24 +125,43 @@ def _label(column: str | None, units: dict[str, str]) -> str:
 
 
 def sentence(r: FitReport) -> str:
-    """The fit stated in one plain sentence."""
+    """The fit stated in one plain sentence (two when the direction of the line is not established)."""
     units = dict(r.units)
     lvl = fmt.level(r.level)
+    if "Intercept" in r.terms:
+        share = (
+            f"the model explains {fmt.percent(r.r_squared)} of the variation in {r.response} "
+            f"(R² = {fmt.rsquared(r.r_squared)})"
+        )
+    else:
+        share = (
+            f"R² = {fmt.rsquared(r.r_squared)}, measured about zero because the model has no intercept "
+            "(it cannot be compared with the R² of a model that has one)"
+        )
     fit_part = (
-        f"the model explains {fmt.percent(r.r_squared)} of the variation in {r.response} "
-        f"(R² = {fmt.rsquared(r.r_squared)}), "
-        f"and the points scatter about it with a residual standard error of {fmt.num(r.residual_std_error)}"
+        f"{share}, and the points scatter about it with a residual standard error of {fmt.num(r.residual_std_error)}"
     )
     chart = r.chart
     term = r.compare_term
     c = r.coefficient(term) if term else None
-    if chart is not None and chart.x is not None and c is not None and term == chart.x:
+    straight = (
+        chart is not None and chart.x is not None and term == chart.x and r.terms in (("Intercept", term), (term,))
+    )
+    if straight and c is not None and chart is not None and chart.x is not None:
         y_unit = f" {units[r.response]}" if r.response in units else ""
         x_unit = f" {units[chart.x]}" if chart.x in units else ""
-        direction = "rises" if c.estimate > 0 else "falls"
+        interval = f"{lvl} interval {fmt.num(c.ci_low)} to {fmt.num(c.ci_high)}"
+        per = f"for each 1{x_unit} of {chart.x}"
+        if c.ci_low > 0 or c.ci_high < 0:
+            direction = "rises" if c.estimate > 0 else "falls"
+            return (
+                f"Across {fmt.integer(r.n)} rows, {r.response} {direction} by {fmt.num(abs(c.estimate))}{y_unit} "
+                f"{per} ({interval}); {fit_part}."
+            )
         return (
-            f"Across {fmt.integer(r.n)} rows, {r.response} {direction} by {fmt.num(abs(c.estimate))}{y_unit} for each "
-            f"1{x_unit} of {chart.x} ({lvl} interval {fmt.num(c.ci_low)} to {fmt.num(c.ci_high)}); {fit_part}."
+            f"Across {fmt.integer(r.n)} rows, the slope of {r.response} {per} is {fmt.num(c.estimate)}{y_unit}, "
+            f"but its {interval} includes zero, so these data do not establish whether {r.response} rises or "
+            f"falls with {chart.x}; {fit_part}."
         )
     return f"Across {fmt.integer(r.n)} rows fitted with {r.model}, {fit_part}."
 

@@ -50,7 +50,7 @@ def tag_blocks(reports: Sequence[FitReport]) -> list[dict[str, Any]]:
                     else "One common value is consistent with these estimates"
                 )
                 test = (
-                    f"{verdict} (Cochran's Q = {fmt.num(h.q)} on {h.df} df, p = {fmt.pvalue(h.p_value)}; "
+                    f"{verdict} (Cochran's Q = {fmt.num(h.q)} on {h.df} df, {fmt.p_phrase(h.p_value)}; "
                     f"pooled estimate {fmt.num(h.pooled)} ± {fmt.num(h.pooled_se)}). The test treats each "
                     "dataset's standard error as known and is tested at the 5% level."
                 )

@@ -46,6 +46,7 @@ from numpy.typing import NDArray
 from sitegen.stats import distributions as dist
 from sitegen.stats.influence import LEVERAGE_ONE, Influence
 from sitegen.stats.shapiro import shapiro_wilk
+from sitegen.stats.text import minus, p_text
 
 FloatArray = NDArray[np.float64]
 
@@ -155,12 +156,12 @@ def _num(v: float) -> str:
     if abs(v) < 1e-9:
         return "0"
     if abs(v) >= 1000:
-        return f"{v:,.0f}"
-    return f"{v:.1e}" if abs(v) < 0.001 else f"{v:.3g}"
+        return minus(f"{v:,.0f}")
+    return minus(f"{v:.1e}" if abs(v) < 0.001 else f"{v:.3g}")
 
 
 def _p(p: float) -> str:
-    return "p < 0.001" if p < 0.001 else f"p = {p:.3f}"
+    return p_text(p)
 
 
 def _check(
@@ -421,8 +422,8 @@ def _influence(d: _Data, infl: Influence, alpha: float) -> Check:
     t_max = float(np.max(np.abs(t), where=~np.isnan(t), initial=0.0))
     d_max = float(np.max(cooks, where=np.isfinite(cooks), initial=0.0))
     stat = d_max if np.any(np.isfinite(cooks)) else None
-    limits = f"largest Cook's distance {_num(d_max)}, limit {_num(cut)}; "
-    limits += f"largest |studentized residual| {_num(t_max)}, limit {_num(t_cut)}"
+    limits = f"largest Cook's distance {_num(d_max)}, against the F-median limit {_num(cut)}; "
+    limits += f"largest |studentized residual| {_num(t_max)}, against the outlier-test limit {_num(t_cut)}"
     parts = []
     if k := int(one.sum()):
         them = "it" if k == 1 else "them"

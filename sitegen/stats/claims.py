@@ -16,6 +16,7 @@ import numpy as np
 from sitegen.errors import FormulaError
 from sitegen.model import ClaimTest
 from sitegen.stats.ols import OlsFit
+from sitegen.stats.text import p_text
 
 
 def _results(fit: OlsFit, X: np.ndarray[Any, Any], y: np.ndarray[Any, Any]) -> Any:
@@ -66,9 +67,9 @@ def _one(results: Any, fit: OlsFit, claim: str, constraint: Any) -> ClaimTest | 
     rejected = p < 1 - fit.level
     pct = f"{fit.level * 100:g}%"
     conclusion = (
-        f"The data contradict this claim at the {pct} level (p = {p:.3g})."
+        f"The data contradict this claim at the {pct} level ({p_text(p)})."
         if rejected
-        else f"The data are consistent with this claim at the {pct} level (p = {p:.3g}); this does not prove it."
+        else f"The data are consistent with this claim at the {pct} level ({p_text(p)}); this does not prove it."
     )
     return ClaimTest(
         claim=claim,

@@ -16,12 +16,19 @@ from sitegen.model import GroupComparison, GroupLine
 from sitegen.stats import distributions as dist
 from sitegen.stats.ols import fit_ols
 from sitegen.stats.solver import LD
+from sitegen.stats.text import p_text
 
 
 def compare_groups(
-    x: NDArray[np.float64], y: NDArray[np.float64], labels: NDArray[np.str_], column: str, level: float
+    x: NDArray[np.float64],
+    y: NDArray[np.float64],
+    labels: NDArray[np.str_],
+    column: str,
+    level: float,
+    *,
+    weights: NDArray[np.float64] | None = None,
 ) -> GroupComparison:
-    """Fit each group's line and test equal slopes."""
+    """Fit each group's line and test equal slopes (weighted least squares when ``weights`` are given)."""
     names = sorted({str(v) for v in labels})
     if len(names) < 2:
         raise FitError(f"group column {column!r} has only one value, so there is nothing to compare")
@@ -34,15 +41,16 @@ def compare_groups(
         if n < 3 or np.ptp(x[mask]) == 0:
             raise FitError(f"group {name!r} of column {column!r} needs at least 3 rows with different x values")
         X = np.column_stack([np.ones(n), x[mask]]).astype(LD)
-        f = fit_ols(X, y[mask].astype(LD), ("Intercept", "x"), has_intercept=True, level=level)
+        w = None if weights is None else weights[mask]
+        f = fit_ols(X, y[mask].astype(LD), ("Intercept", "x"), has_intercept=True, level=level, weights=w)
         lines.append(GroupLine(name, n, float(f.beta[1]), float(f.beta[0]), float(f.ci_low[1]), float(f.ci_high[1])))
     dummies = np.column_stack([(labels == g).astype(float) for g in names])
     reduced = np.column_stack([dummies, x])
     full = np.column_stack([dummies, dummies * x[:, None]])
     terms_r = tuple(f"g{i}" for i in range(reduced.shape[1]))
     terms_f = tuple(f"g{i}" for i in range(full.shape[1]))
-    fr = fit_ols(reduced.astype(LD), y.astype(LD), terms_r, has_intercept=True, level=level)
-    ff = fit_ols(full.astype(LD), y.astype(LD), terms_f, has_intercept=True, level=level)
+    fr = fit_ols(reduced.astype(LD), y.astype(LD), terms_r, has_intercept=True, level=level, weights=weights)
+    ff = fit_ols(full.astype(LD), y.astype(LD), terms_f, has_intercept=True, level=level, weights=weights)
     df_num = len(names) - 1
     if ff.ssr > 0:
         f_stat = ((fr.ssr - ff.ssr) / df_num) / (ff.ssr / ff.df_resid)
@@ -53,10 +61,10 @@ def compare_groups(
     if not np.isfinite(p):
         conclusion = "The lines fit their groups exactly, so the slopes cannot be compared statistically."
     elif p < 1 - level:
-        conclusion = f"The slopes differ between the groups at the {pct} level (p = {p:.3g}): use one line per group."
+        conclusion = f"The slopes differ between the groups at the {pct} level ({p_text(p)}): use one line per group."
     else:
         conclusion = (
-            f"The data do not show different slopes at the {pct} level (p = {p:.3g}); "
+            f"The data do not show different slopes at the {pct} level ({p_text(p)}); "
             "a common slope is consistent with them."
         )
     return GroupComparison(

@@ -169,6 +169,11 @@ class Bands:
 
 def bands(fit: OlsFit, X_new: FloatArray, weights: FloatArray | None = None) -> Bands:
     """Intervals at new (or observed) rows; ``weights`` scale the prediction variance (σ²/w)."""
+    with np.errstate(all="ignore"):
+        return _bands(fit, X_new, weights)
+
+
+def _bands(fit: OlsFit, X_new: FloatArray, weights: FloatArray | None) -> Bands:
     yhat = X_new @ fit.beta
     # x'(X'X)^-1 x as ||x'W||² (W from the QR factor): never negative, and free of the
     # cancellation that x'(X'X)^-1 x suffers in float64 on ill-conditioned designs (NIST Filip).
