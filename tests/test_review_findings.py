@@ -10,6 +10,7 @@ import json
 import shutil
 import warnings
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -32,7 +33,7 @@ def _build(tmp_path: Path, files: dict[str, str], *extra: str) -> Path:
     return out
 
 
-def _fit(site: Path, slug: str) -> dict:  # type: ignore[type-arg]
+def _fit(site: Path, slug: str) -> Any:
     return json.loads((site / "datasets" / slug / "fit.json").read_text(encoding="utf-8"))
 
 
