@@ -114,7 +114,8 @@ def write(work: Path, ctx: pages.SiteContext, reports: Sequence[FitReport], prev
             for b in builds
             if (d := b["datasets"].get(r.dataset)) and d.get("estimate") is not None and d.get("term") == r.compare_term
         ]
-        if len(series) >= 2 and r.compare_term:
+        moved = len({(p["estimate"], p["low"], p["high"]) for p in series}) > 1
+        if len(series) >= 2 and moved and r.compare_term:
             levels = sorted(
                 {
                     float(d["level"])
