@@ -164,3 +164,31 @@ def test_reused_example_copy_is_still_identical(tmp_path: Path) -> None:
     for p in sorted(a.rglob("*")):
         if p.is_file() and p.name != "build.json":
             assert p.read_bytes() == (b / p.relative_to(a)).read_bytes(), p
+
+
+def test_anscombe_quartet_is_told_apart_by_the_verdicts(tmp_path: Path) -> None:
+    """F. J. Anscombe (1973), 'Graphs in Statistical Analysis': four sets with the same line and R².
+
+    Through the whole build: set I is sound; II is flagged for curvature, III for its outlier
+    (studentized residual), IV because one point alone sets the slope (leverage 1).
+    """
+    df = pd.read_csv(Path(__file__).parent / "data" / "textbook" / "anscombe_quartet.csv")
+    files = {}
+    for k in (1, 2, 3, 4):
+        part = df[[f"x{k}", f"y{k}"]].rename(columns={f"x{k}": "x", f"y{k}": "y"})
+        files[f"set{k}.csv"] = part.to_csv(index=False)
+    site = _build(tmp_path, files)
+    fits = {k: _fit(site, f"set{k}") for k in (1, 2, 3, 4)}
+    for fit in fits.values():  # the same line for all four (published: 3.00 + 0.500 x, R² 0.67)
+        coef = {c["term"]: c["estimate"] for c in fit["coefficients"]}
+        assert coef["Intercept"] == pytest.approx(3.00, abs=0.005)
+        assert coef["x"] == pytest.approx(0.500, abs=0.001)
+        assert fit["r_squared"] == pytest.approx(0.67, abs=0.005)
+    flagged = {k: {d["check"] for d in fit["diagnostics"] if d["flag"]} for k, fit in fits.items()}
+    assert fits[1]["status"] == "ok", flagged[1]
+    assert "curvature" in flagged[2]
+    assert "influence" in flagged[3]
+    assert "influence" in flagged[4]
+    influence4 = next(d for d in fits[4]["diagnostics"] if d["check"] == "influence")
+    assert influence4["rows"] == [8]  # the CSV row of the point at x = 19
+    assert all(fits[k]["status"] == "warn" for k in (2, 3, 4))
