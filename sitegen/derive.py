@@ -251,6 +251,7 @@ def _lines(
             ln.interval_method,
         )
         for ln in found
+        if ln.method != "ols"  # the least-squares line is the fit itself; the page shows it beside these
     )
     return out, explain_lines(found, r)
 
