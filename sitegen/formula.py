@@ -266,6 +266,7 @@ def check_formula(formula: str, columns: list[str]) -> tuple[str, ...]:
     return tuple(checker.used)
 
 
+_DECIMAL_COMMA = re.compile(r"^[-+]?\d{1,3}(\.\d{3})*,\d+$|^[-+]?\d+,\d+$")
 _NUMBERISH = re.compile(r"^\s*$")
 
 
@@ -287,11 +288,20 @@ def numeric_columns(frame: pd.DataFrame, columns: list[str], name: str) -> tuple
                 count = int(bad.sum())
                 where = f"row {rows[0]}" if count == 1 else "rows " + ", ".join(map(str, rows))
                 more = f" and {count - len(rows)} more" if count > len(rows) else ""
+                hint = (
+                    "fix or delete those cells (an empty cell counts as a missing value), "
+                    "or leave the column out of the model"
+                )
+                if _DECIMAL_COMMA.match(sample.strip()):
+                    hint = (
+                        f"{sample.strip()!r} looks like a number written with a decimal comma: "
+                        'set decimal = "," in the sidecar (and delimiter = ";" if columns are separated by '
+                        "semicolons); otherwise " + hint
+                    )
                 raise DataFileError(
                     f"{name}: column {col!r} has text where a number is expected "
                     f"({sample!r} on row {rows[0]}); {count} cell(s) in all, on {where}{more}",
-                    hint="fix or delete those cells (an empty cell counts as a missing value), "
-                    "or leave the column out of the model",
+                    hint=hint,
                 )
             series = converted
         out[col] = series.astype(float)

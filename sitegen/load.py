@@ -409,6 +409,8 @@ def _parse(
                 io.BytesIO(raw),
                 sep=delimiter,
                 decimal=decimal,
+                # With a decimal comma, a point can only group thousands (1.234,5).
+                thousands="." if decimal == "," and delimiter != "." else None,
                 encoding=encoding,
                 encoding_errors="replace",
                 skip_blank_lines=False,
