@@ -16,7 +16,7 @@ from pathlib import Path
 from typing import NoReturn, TextIO
 
 from sitegen import __version__
-from sitegen.errors import ConfigError, SitegenError
+from sitegen.errors import BuildLockedError, ConfigError, SitegenError
 
 EXIT_OK, EXIT_DATASET_FAILED, EXIT_NOTHING_WRITTEN = 0, 1, 2
 DEFAULT_MAIL_BUDGET_MB = 20.0
@@ -73,8 +73,12 @@ def _parser() -> argparse.ArgumentParser:
     w = sub.add_parser("watch", help="rebuild whenever files in the data folder change")
     w.add_argument("data_dir", type=Path, metavar="DATA_DIR")
     w.add_argument("-o", "--output", type=Path, required=True, metavar="SITE_DIR", dest="out_dir")
-    w.add_argument("--interval", type=float, default=1.0, help="seconds between looks at the folder (default 1)")
-    w.add_argument("--settle", type=float, default=1.5, help="quiet seconds before a rebuild starts (default 1.5)")
+    w.add_argument(
+        "--interval", type=_positive_seconds, default=1.0, help="seconds between looks at the folder (default 1)"
+    )
+    w.add_argument(
+        "--settle", type=_positive_seconds, default=1.5, help="quiet seconds before a rebuild starts (default 1.5)"
+    )
     w.add_argument("--max-builds", type=int, default=None, help=argparse.SUPPRESS)
     _common_build_options(w)
     k = sub.add_parser(
@@ -91,8 +95,30 @@ def _parser() -> argparse.ArgumentParser:
     )
     v = sub.add_parser("preview", help="serve a built site on http://127.0.0.1 for a quick look")
     v.add_argument("site_dir", type=Path, metavar="SITE_DIR")
-    v.add_argument("--port", type=int, default=8000, help="port to listen on (default 8000; 0 picks a free one)")
+    v.add_argument("--port", type=_port, default=8000, help="port to listen on (default 8000; 0 picks a free one)")
+    for sub_parser in (k, v):
+        sub_parser.add_argument("--debug", action="store_true", help="show tracebacks of internal errors")
     return p
+
+
+def _positive_seconds(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number of seconds") from None
+    if not 0 < value <= 3600:
+        raise argparse.ArgumentTypeError("give a number of seconds above 0 and at most 3600")
+    return value
+
+
+def _port(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a port number") from None
+    if not 0 <= value <= 65535:
+        raise argparse.ArgumentTypeError("a port is a whole number from 0 to 65535 (0 picks a free one)")
+    return value
 
 
 def _common_build_options(p: argparse.ArgumentParser) -> None:
@@ -126,15 +152,25 @@ def _build(args: argparse.Namespace, out: _Printer) -> int:
 
 
 def _watch(args: argparse.Namespace, out: _Printer) -> int:
-    from sitegen.watch import watch  # noqa: PLC0415
+    from sitegen.watch import RETRY, watch  # noqa: PLC0415
 
     def once() -> int:
         try:
             return _build(args, out)
-        except ConfigError as exc:
+        except BuildLockedError as exc:
+            out.error(f"{exc}; trying again shortly")
+            return RETRY
+        except SitegenError as exc:  # e.g. a broken site.toml or theme: fix it and save, the watch goes on
             out.error(str(exc))
             return EXIT_NOTHING_WRITTEN
+        except Exception:
+            if args.debug:
+                traceback.print_exc(file=out.stream)
+            out.error("the build hit an internal error; the published site is unchanged (run with --debug)")
+            return EXIT_NOTHING_WRITTEN
 
+    # The first build runs as a plain build: a usage or configuration error stops here (exit 2).
+    first = _build(args, out)
     out.info(f"Watching {args.data_dir} (Ctrl+C to stop)")
     try:
         watch(
@@ -147,7 +183,7 @@ def _watch(args: argparse.Namespace, out: _Printer) -> int:
         )
     except KeyboardInterrupt:
         out.info("Stopped watching.")
-    return EXIT_OK
+    return first
 
 
 def _pack(args: argparse.Namespace, out: _Printer) -> int:

@@ -58,7 +58,12 @@ class PoolExecutor:
     def _ensure(self) -> ProcessPoolExecutor:
         if self._pool is None:
             method = "fork" if sys.platform.startswith("linux") else None
-            self._pool = ProcessPoolExecutor(max_workers=self.jobs, mp_context=multiprocessing.get_context(method))
+            self._pool = ProcessPoolExecutor(
+                max_workers=self.jobs,
+                mp_context=multiprocessing.get_context(method),
+                initializer=_die_with_parent,
+                initargs=(os.getpid(),),
+            )
         return self._pool
 
     def run(self, fn: Callable[[T], R], items: list[T]) -> Iterator[tuple[int, R]]:
@@ -79,6 +84,23 @@ class PoolExecutor:
         if self._pool is not None:
             self._pool.shutdown(wait=exc_type is None, cancel_futures=exc_type is not None)
             self._pool = None
+
+
+def _die_with_parent(parent: int) -> None:
+    """Worker start-up: end this worker if the build that started it is killed (Linux ``PR_SET_PDEATHSIG``)."""
+    if not sys.platform.startswith("linux"):
+        return
+    import ctypes  # noqa: PLC0415
+    import ctypes.util  # noqa: PLC0415
+    import signal  # noqa: PLC0415
+
+    try:
+        libc = ctypes.CDLL(ctypes.util.find_library("c"), use_errno=True)
+        libc.prctl(1, signal.SIGKILL, 0, 0, 0)  # PR_SET_PDEATHSIG = 1
+    except (OSError, AttributeError):
+        return
+    if os.getppid() != parent:  # the parent died before the signal was set up
+        os._exit(1)
 
 
 def default_jobs() -> int:

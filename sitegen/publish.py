@@ -14,6 +14,7 @@ from __future__ import annotations
 import contextlib
 import ctypes
 import ctypes.util
+import fcntl
 import os
 import shutil
 import zipfile
@@ -56,40 +57,62 @@ def build_dir_for(out_dir: Path) -> Path:
     return out.parent / f".{out.name}.sitegen-build"
 
 
-def _pid_alive(pid: int) -> bool:
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return False
-    except PermissionError:
-        return True
-    return True
+def lock_path_for(out_dir: Path) -> Path:
+    """The lock file of the build folder, beside the output folder (removed when a build ends)."""
+    out = out_dir.resolve()
+    return out.parent / f".{out.name}.sitegen-build.lock"
+
+
+def _acquire(lock: Path) -> int:
+    """An exclusive, non-blocking ``flock`` on ``lock``; returns the descriptor, or -1 when held elsewhere.
+
+    A build removes its lock file when it ends, so after locking we check that the path still
+    names the file we locked (else another build replaced it and we try again).
+    """
+    for _ in range(20):
+        fd = os.open(lock, os.O_RDWR | os.O_CREAT, 0o644)
+        try:
+            fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except BlockingIOError:
+            os.close(fd)
+            return -1
+        try:
+            same = lock.stat().st_ino == os.fstat(fd).st_ino
+        except FileNotFoundError:
+            same = False
+        if same:
+            return fd
+        os.close(fd)
+    raise BuildLockedError(f"cannot take the build lock {lock.name}", hint="try again")
 
 
 @contextlib.contextmanager
 def build_folder(out_dir: Path) -> Iterator[Path]:
-    """Create the temporary build folder (the lock); remove it however the build ends."""
+    """Lock the output folder and create the temporary build folder beside it; clean both up however the build ends.
+
+    The lock is an ``flock`` on a small file beside the output folder, so the kernel
+    releases it if the build is killed; a build folder left by a killed build is removed.
+    """
     work = build_dir_for(out_dir)
     work.parent.mkdir(parents=True, exist_ok=True)
-    for _ in range(2):
-        try:
-            work.mkdir()
-            break
-        except FileExistsError:
-            owner = _read_owner(work)
-            if owner is not None and owner != os.getpid() and _pid_alive(owner):
-                raise BuildLockedError(
-                    f"another sitegen build (process {owner}) is writing {out_dir}",
-                    hint="wait for it to finish, or stop it; the published site is not affected",
-                ) from None
-            shutil.rmtree(work, ignore_errors=True)  # left by a build that was killed
-    else:
-        raise BuildLockedError(f"cannot create the build folder {work}")
+    lock = lock_path_for(out_dir)
+    fd = _acquire(lock)
+    if fd < 0:
+        owner = _read_owner(work)
+        who = f" (process {owner})" if owner else ""
+        raise BuildLockedError(
+            f"another sitegen build{who} is writing {out_dir}",
+            hint="wait for it to finish, or stop it; the published site is not affected",
+        )
     try:
+        shutil.rmtree(work, ignore_errors=True)  # left by a build that was killed
+        work.mkdir()
         (work / _OWNER).write_text(str(os.getpid()), encoding="utf-8")
         yield work
     finally:
         shutil.rmtree(work, ignore_errors=True)
+        lock.unlink(missing_ok=True)  # still ours: unlinked before the lock is released
+        os.close(fd)
 
 
 def _read_owner(work: Path) -> int | None:

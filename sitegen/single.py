@@ -114,6 +114,8 @@ def single_file(site: Path) -> str:
 
 def write_single_file(site: Path, target: Path) -> int:
     """Write the single-file report; returns its size in bytes."""
+    if target.resolve().is_relative_to(site.resolve()):
+        raise PackError("the report cannot be written inside the site it packs", hint="write it next to the site")
     text = single_file(site)
     tmp = target.with_name(f".{target.name}.partial")
     try:

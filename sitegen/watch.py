@@ -15,6 +15,7 @@ from collections.abc import Callable
 from pathlib import Path
 
 Snapshot = dict[str, tuple[int, int]]
+RETRY = -1  # what a build callable returns when it should be tried again soon
 _TEMP_SUFFIXES = ("~", ".swp", ".swx", ".tmp", ".part", ".crdownload")
 
 
@@ -28,7 +29,7 @@ def snapshot(data_dir: Path) -> Snapshot:
     for dirpath, dirnames, filenames in os.walk(data_dir, followlinks=False):
         dirnames[:] = sorted(d for d in dirnames if not _ignored(d))
         for name in filenames:
-            if _ignored(name) or not name.lower().endswith((".csv", ".toml")):
+            if _ignored(name):  # data, sidecars, site.toml and a theme folder kept in the data folder
                 continue
             path = Path(dirpath) / name
             try:
@@ -50,11 +51,14 @@ def watch(
     clock: Callable[[], float] = time.monotonic,
     sleep: Callable[[float], None] = time.sleep,
 ) -> int:
-    """Build now, then after every settled change; returns the number of builds (for tests)."""
+    """Build after every settled change; returns the number of builds (for tests).
+
+    The caller builds once before watching. ``build`` returns :data:`RETRY` when it could
+    not run (another build held the output folder); the watch then tries again after
+    ``settle`` seconds instead of waiting for the next change.
+    """
     del out_dir  # the build callable knows where to write
     builds = 0
-    build()
-    builds += 1
     last = snapshot(data_dir)
     changed_at: float | None = None
     while max_builds is None or builds < max_builds:
@@ -66,6 +70,7 @@ def watch(
             continue
         if changed_at is not None and clock() - changed_at >= settle:
             changed_at = None
-            build()
+            if build() == RETRY:
+                changed_at = clock()
             builds += 1
     return builds

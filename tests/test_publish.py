@@ -21,7 +21,7 @@ from pathlib import Path
 import pytest
 from conftest import cli
 
-from sitegen.publish import build_dir_for
+from sitegen.publish import build_dir_for, lock_path_for
 from sitegen.watch import snapshot, watch
 
 
@@ -48,22 +48,59 @@ def test_second_build_into_a_locked_folder_is_refused(tmp_path: Path) -> None:
     out = tmp_path / "site"
     assert cli("build", data, "-o", out, "-j", "1").code == 0
     before = _digest(out)
-    holder = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(60)"])
+    lock = lock_path_for(out)
+    # Another process holds the build lock (as a running build does) and has left its build folder.
+    holder = subprocess.Popen(
+        [
+            sys.executable,
+            "-c",
+            f"import fcntl,os,sys,time; fd=os.open({str(lock)!r}, os.O_RDWR|os.O_CREAT); "
+            "fcntl.flock(fd, fcntl.LOCK_EX); print('held', flush=True); time.sleep(60)",
+        ],
+        stdout=subprocess.PIPE,
+        text=True,
+    )
     try:
+        assert holder.stdout is not None
+        assert holder.stdout.readline().strip() == "held"
         work = build_dir_for(out)
         work.mkdir()
         (work / ".owner").write_text(str(holder.pid), encoding="utf-8")
         res = cli("build", data, "-o", out, "-j", "1")
         assert res.code == 2
-        assert "another sitegen build" in res.stream
+        assert f"another sitegen build (process {holder.pid})" in res.stream
         assert "Traceback" not in res.output
         assert _digest(out) == before
+        assert work.exists()  # the refused build did not touch the holder's folder
     finally:
         holder.kill()
-        holder.wait()
-    # The holder is gone: its leftover folder counts as stale and the next build proceeds.
+        holder.communicate()
+    # The holder is gone (the kernel released its lock): its leftover folder is stale and the next build proceeds.
     assert cli("build", data, "-o", out, "-j", "1").code == 0
     assert not build_dir_for(out).exists()
+    assert not lock.exists()
+
+
+def test_builds_started_together_never_both_write(tmp_path: Path) -> None:
+    """Pairs of builds racing for one output folder: at most one writes, and the site is whole after each round."""
+    data = _dataset_folder(tmp_path, 4)
+    out = tmp_path / "site"
+    assert cli("build", data, "-o", out, "-j", "1").code == 0
+    cmd = [sys.executable, "-m", "sitegen", "build", str(data), "-o", str(out), "--refit", "-q", "-j", "1"]
+    for _ in range(6):
+        procs = [subprocess.Popen(cmd, stderr=subprocess.PIPE, text=True) for _ in range(2)]
+        results = [(p.wait(), p.communicate()[1]) for p in procs]
+        codes = sorted(code for code, _ in results)
+        assert codes in ([0, 0], [0, 2]), results  # one after the other, or one refused
+        for code, err in results:
+            assert "Traceback" not in err
+            if code == 2:
+                assert "another sitegen build" in err
+        with (out / "summary.csv").open(encoding="utf-8") as fh:
+            assert len(list(csv.DictReader(fh))) == 4
+        assert (out / "index.html").is_file()
+    assert not build_dir_for(out).exists()
+    assert not lock_path_for(out).exists()
 
 
 @pytest.mark.slow
@@ -167,8 +204,9 @@ def test_watch_rebuilds_after_a_change_and_ignores_editor_files(tmp_path: Path) 
         if n == 2:
             (data / "new.csv").write_text("x,y\n1,2\n2,4.1\n3,5.9\n4,8.2\n", encoding="utf-8")
 
-    builds = watch(data, out, build, interval=0.0, settle=0.0, max_builds=2, clock=lambda: 0.0, sleep=fake_sleep)
-    assert builds == 2
+    build()  # the watch command builds once before it starts watching
+    builds = watch(data, out, build, interval=0.0, settle=0.0, max_builds=1, clock=lambda: 0.0, sleep=fake_sleep)
+    assert builds == 1
     assert codes == [0, 0]
     with (out / "summary.csv").open(encoding="utf-8") as fh:
         assert {row["dataset"] for row in csv.DictReader(fh)} == {"new", "set-00", "set-01"}
@@ -214,3 +252,48 @@ def test_pack_to_html_refuses_a_large_site(tmp_path: Path) -> None:
     assert res.code == 2
     assert "send the site as a zip" in res.stream
     assert not (tmp_path / "report.html").exists()
+
+
+def test_watch_stops_at_once_on_a_usage_error(tmp_path: Path) -> None:
+    res = cli("watch", tmp_path / "missing", "-o", tmp_path / "site")
+    assert res.code == 2
+    assert "does not exist" in res.stream
+    assert "Watching" not in res.stream
+    bad = cli("watch", tmp_path, "-o", tmp_path / "site", "--interval", "-1")
+    assert bad.code == 2
+    assert "seconds above 0" in bad.output
+
+
+def test_watch_retries_when_another_build_holds_the_folder(tmp_path: Path) -> None:
+    from sitegen.watch import RETRY
+
+    data = _dataset_folder(tmp_path, 1)
+    calls: list[int] = []
+
+    def build() -> int:
+        calls.append(1)
+        return RETRY if len(calls) == 1 else 0
+
+    def fake_sleep(_: float) -> None:
+        if len(calls) == 0 and not (data / "new.csv").exists():
+            (data / "new.csv").write_text("x,y\n1,2\n2,4.1\n3,5.9\n", encoding="utf-8")
+
+    builds = watch(data, tmp_path / "site", build, interval=0.0, settle=0.0, max_builds=2, clock=lambda: 0.0,
+                   sleep=fake_sleep)  # fmt: skip
+    assert builds == 2  # the refused build was tried again without any further change
+    assert len(calls) == 2
+
+
+def test_preview_and_pack_refuse_bad_arguments_clearly(tmp_path: Path) -> None:
+    data = _dataset_folder(tmp_path, 1)
+    out = tmp_path / "site"
+    assert cli("build", data, "-o", out, "-j", "1").code == 0
+    port = cli("preview", out, "--port", "70000")
+    assert port.code == 2
+    assert "0 to 65535" in port.output
+    inside = cli("pack", out, "-o", out / "inner.html")
+    assert inside.code == 2
+    assert "inside the site" in inside.stream
+    assert not (out / "inner.html").exists()
+    for res in (port, inside):
+        assert "Traceback" not in res.output

@@ -387,3 +387,23 @@ def test_static_images_are_written_and_offered(tmp_path: Path) -> None:
         assert "http://" not in text.replace("http://www.w3.org", "")
     page = (folder / "index.html").read_text(encoding="utf-8")
     assert 'href="chart-fit.svg"' in page
+
+
+def test_a_broken_user_template_is_named_with_its_line(tmp_path: Path) -> None:
+    """A typo in a user theme is a configuration error naming the file and line (exit 2), not an internal error."""
+    from conftest import cli
+
+    data = tmp_path / "data"
+    (data / "mytheme" / "templates").mkdir(parents=True)
+    (data / "a.csv").write_text("x,y\n1,2.1\n2,3.9\n3,6.2\n4,7.8\n", encoding="utf-8")
+    (data / "site.toml").write_text('theme = "mytheme"\n', encoding="utf-8")
+    (data / "mytheme" / "templates" / "index.html").write_text(
+        '{% extends "base.html" %}\n{% block main %}\n{{ oops( }}\n{% endblock %}\n', encoding="utf-8"
+    )
+    out = tmp_path / "site"
+    res = cli("build", data, "-o", out, "-j", "1")
+    assert res.code == 2
+    assert "index.html" in res.stream
+    assert "line 3" in res.stream
+    assert "internal error" not in res.stream
+    assert not out.exists()

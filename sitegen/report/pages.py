@@ -14,6 +14,7 @@ from markdown_it import MarkdownIt
 from markupsafe import Markup
 
 from sitegen import __version__
+from sitegen.errors import SiteConfigError
 from sitegen.model import FitReport
 from sitegen.report import charts, fmt
 from sitegen.report.theme import Theme
@@ -232,7 +233,9 @@ def render_dataset(
         + (", and the other lines listed below" if r.lines else "")
         + ("; flagged rows are drawn as larger triangles." if r.flagged else ".")
     )
-    return env.get_template("dataset.html").render(
+    return _render(
+        env,
+        "dataset.html",
         **_common(ctx, "../../", "dataset"),
         r=r,
         charts=chart_specs,
@@ -254,7 +257,9 @@ def render_index(ctx: SiteContext, reports: Sequence[FitReport], tags: Sequence[
         sections.setdefault(r.section, []).append(r)
     counts = {s: sum(1 for r in reports if r.status == s) for s in ("ok", "warn", "error")}
     levels = sorted({r.level for r in reports})
-    return env.get_template("index.html").render(
+    return _render(
+        env,
+        "index.html",
         **_common(ctx, "", "index"),
         reports=reports,
         sections=[{"name": k, "reports": v} for k, v in sorted(sections.items())],
@@ -267,4 +272,18 @@ def render_index(ctx: SiteContext, reports: Sequence[FitReport], tags: Sequence[
 
 def render_page(ctx: SiteContext, template: str, page: str, **values: Any) -> str:
     """Any other top-level page (e.g. the change report)."""
-    return environment(ctx.theme).get_template(template).render(**_common(ctx, "", page), **values)
+    return _render(environment(ctx.theme), template, **_common(ctx, "", page), **values)
+
+
+def _render(env: jinja2.Environment, name: str, **values: Any) -> str:
+    """Render a theme template; Jinja's errors (a user theme's typo) become a message naming file and line."""
+    try:
+        return env.get_template(name).render(**values)
+    except jinja2.TemplateSyntaxError as exc:
+        where = f"{exc.filename or exc.name or name}, line {exc.lineno}"
+        raise SiteConfigError(f"theme template {where}: {exc.message}", hint="fix the template") from exc
+    except jinja2.TemplateError as exc:
+        raise SiteConfigError(
+            f"theme template {name} (or a template it uses) cannot be rendered: {exc.message}",
+            hint="check the names the template uses against the default theme's templates",
+        ) from exc
