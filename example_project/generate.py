@@ -353,7 +353,7 @@ Twenty-four samples from the distribution network, read with the pocket DPD kit
 at the tap and with the laboratory photometer.
 
 **Row 17 is wrong on purpose.** The kit showed 0.48 mg/L, but 4.80 was typed
-into the spreadsheet. It is left in so that you can see how one transcription
+into the spreadsheet. It is left in so that you can see how one keying
 error shows up in the residuals, leverage and Cook's distance, and how much it
 moves the line.
 """
