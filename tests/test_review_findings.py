@@ -192,3 +192,24 @@ def test_anscombe_quartet_is_told_apart_by_the_verdicts(tmp_path: Path) -> None:
     influence4 = next(d for d in fits[4]["diagnostics"] if d["check"] == "influence")
     assert influence4["rows"] == [8]  # the CSV row of the point at x = 19
     assert all(fits[k]["status"] == "warn" for k in (2, 3, 4))
+
+
+def test_a_partial_rebuild_equals_a_fresh_build(tmp_path: Path) -> None:
+    """After one dataset changes, the rebuilt site (others reused) is byte-identical to a fresh build of the same input."""
+    from conftest import EXAMPLE
+
+    data = tmp_path / "data"
+    shutil.copytree(EXAMPLE, data)
+    site, fresh = tmp_path / "site", tmp_path / "fresh"
+    assert cli("build", data, "-o", site).code in (0, 1)
+    target = data / "calibration" / "nitrate_uv.csv"
+    target.write_text(target.read_text(encoding="utf-8") + "6,1.1702\n", encoding="utf-8")
+    assert cli("build", data, "-o", site).code in (0, 1)
+    meta = json.loads((site / "build.json").read_text(encoding="utf-8"))
+    assert sorted(e["dataset"] for e in meta["datasets"] if not e["reused"]) == ["calibration-nitrate-uv"]
+    assert cli("build", data, "-o", fresh).code in (0, 1)
+    skip = {"build.json", "changes.html", "changes.json", "history.json"}  # these record the rebuild itself
+    for p in sorted(fresh.rglob("*")):
+        rel = p.relative_to(fresh).as_posix()
+        if p.is_file() and rel not in skip:
+            assert (site / rel).read_bytes() == p.read_bytes(), rel
