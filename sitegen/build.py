@@ -381,13 +381,26 @@ class _Build:
         self.work, self.prev, self.sources, self.prints = work, prev, sources, prints
         self.config, self.site_key, self.run, self.progress = config, site_key, run, progress
 
+    def _stored_light(self, entry: dict[str, Any], old: Path, slug: str) -> FitReport | None:
+        """The stored result, light: from build.json when its fit.json is unchanged, else parsed from fit.json."""
+        from sitegen.report.files import report_from_index_entry  # noqa: PLC0415
+
+        index = entry.get("index")
+        if isinstance(index, dict) and entry.get("fit_sha256") and index.get("status") != "error":
+            try:
+                if _file_sha256(old / "fit.json") == entry["fit_sha256"]:
+                    return report_from_index_entry(index, str(entry.get("input_sha256", "")))
+            except (OSError, KeyError, TypeError, ValueError):
+                pass
+        return _stored_report(old, slug)
+
     def _reuse(self, src: DatasetSource) -> tuple[FitReport, tuple[str, ...]] | None:
         entry = self.prev.entries.get(src.slug)
         fp = self.prints[src.slug][1]
         if self.prev.site is None or entry is None or entry.get("fingerprint") != fp or not fp:
             return None
         old = self.prev.site / "datasets" / src.slug
-        report = _stored_report(old, src.slug)
+        report = self._stored_light(entry, old, src.slug)
         if report is None:
             return None
         prefix = f"datasets/{src.slug}/"
@@ -462,7 +475,7 @@ class _Build:
         done: dict[str, tuple[FitReport, tuple[str, ...]]],
         refitted: set[str],
     ) -> tuple[list[dict[str, Any]], list[PageJob]]:
-        from sitegen.report.files import summary_row  # noqa: PLC0415
+        from sitegen.report.files import index_entry, summary_row  # noqa: PLC0415
 
         entries: list[dict[str, Any]] = []
         jobs: list[PageJob] = []
@@ -495,6 +508,7 @@ class _Build:
                     "reused": src.slug not in refitted,
                     "status": report.status,
                     "message": summary_row(report)["message"],
+                    "index": index_entry(report),
                 }
             )
         return entries, jobs

@@ -82,6 +82,66 @@ def summary_row(r: FitReport) -> dict[str, Any]:
     }
 
 
+def _message_level(r: FitReport) -> str:
+    for level in ("error", "warning", "note"):
+        if any(m.level == level for m in r.messages):
+            return level
+    return ""
+
+
+def index_entry(r: FitReport) -> dict[str, Any]:
+    """What the index, summaries, tag comparisons and history need of a dataset, as plain JSON values.
+
+    Kept in build.json so that a rebuild can reuse a dataset without parsing its fit.json.
+    """
+    row = {k: _json_value(v) for k, v in summary_row(r).items()}
+    row["tags"] = list(r.tags)
+    row["message_level"] = _message_level(r)
+    return row
+
+
+def report_from_index_entry(entry: dict[str, Any], input_sha256: str) -> FitReport:
+    """A light report (no per-row or chart data) from :func:`index_entry`'s values."""
+    from sitegen.model import Coefficient, Message  # noqa: PLC0415
+
+    nan = float("nan")
+
+    def num(key: str) -> float:  # a fitted report holds floats; JSON null stood for NaN
+        v = entry.get(key)
+        return nan if v is None else float(v)
+
+    coefficients: tuple[Coefficient, ...] = ()
+    if entry.get("compare_term") and entry.get("estimate") is not None:
+        coefficients = (
+            Coefficient(
+                str(entry["compare_term"]), float(entry["estimate"]), num("std_error"),
+                nan, nan, num("ci_low"), num("ci_high"),
+            ),
+        )  # fmt: skip
+    messages = (Message(entry["message_level"], str(entry["message"])),) if entry.get("message") else ()
+    return FitReport(
+        dataset=str(entry["dataset"]),
+        source=str(entry["source"]),
+        section=str(entry["section"]),
+        title=str(entry["title"]),
+        status=entry["status"],
+        model=str(entry["model"]),
+        level=float(entry["level"]),
+        tags=tuple(entry["tags"]),
+        n=entry["n"],
+        df_resid=entry["df_resid"],
+        r_squared=num("r_squared"),
+        adj_r_squared=num("adj_r_squared"),
+        residual_std_error=num("residual_std_error"),
+        f_stat=num("f_stat"),
+        f_p_value=num("f_p_value"),
+        compare_term=entry.get("compare_term"),
+        coefficients=coefficients,
+        messages=messages,
+        input_sha256=input_sha256,
+    )
+
+
 def _json_value(v: Any) -> Any:
     if isinstance(v, float) and not np.isfinite(v):
         return None
