@@ -202,9 +202,7 @@ def _factor_codes(formula: str) -> tuple[list[str], list[str], bool]:
             hint='check key \'model\': write it as "response ~ predictors", e.g. "y ~ x + I(x**2)"',
         ) from exc
     except (RecursionError, MemoryError) as exc:
-        raise FormulaError(
-            f"the model {_show(formula)} is nested too deeply to be read", hint="simplify key 'model'"
-        ) from exc
+        raise _too_deep(formula) from exc
     lhs = [f.code for t in desc.lhs_termlist for f in t.factors]
     rhs = [f.code for t in desc.rhs_termlist for f in t.factors]
     intercept = any(not t.factors for t in desc.rhs_termlist)
@@ -214,6 +212,10 @@ def _factor_codes(formula: str) -> tuple[list[str], list[str], bool]:
             hint="name the response column first, e.g. \"y ~ x\" (key 'model')",
         )
     return lhs, rhs, intercept
+
+
+def _too_deep(formula: str) -> FormulaError:
+    return FormulaError(f"the model {_show(formula)} is nested too deeply to be read", hint="simplify key 'model'")
 
 
 def _show(formula: str) -> str:
@@ -247,9 +249,7 @@ def check_formula(formula: str, columns: list[str]) -> tuple[str, ...]:
                 hint="check the brackets and operators in key 'model'",
             ) from exc
         except (RecursionError, MemoryError) as exc:
-            raise FormulaError(
-                f"the model {_show(formula)} is nested too deeply to be read", hint="simplify key 'model'"
-            ) from exc
+            raise _too_deep(formula) from exc
     if "Intercept" in checker.used:
         raise FormulaError(
             "a column named 'Intercept' cannot be used in a model: the name is taken by the intercept term",
