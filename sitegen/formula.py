@@ -402,16 +402,9 @@ def _patsy_design(
         )
     y = y_df.to_numpy(dtype=float)[:, 0]
     X = x_df.to_numpy(dtype=float)
-    ok = np.isfinite(y) & np.isfinite(X).all(axis=1)
     rows = np.asarray(x_df.index, dtype=np.int64)
-    if not bool(ok.any()):
-        raise FitError(
-            f"{name}: the model {_show(formula)} is undefined in every row (e.g. the log of values ≤ 0)",
-            hint="check the transformations in key 'model' against the data",
-        )
+    ok = _defined_rows(X, y, rows, dropped=dropped, name=name, formula=formula)
     if not bool(ok.all()):
-        for row in rows[~ok]:
-            dropped.append((int(row), "the model's transformation is undefined here (e.g. log of a value ≤ 0)"))
         X, y, rows = X[ok], y[ok], rows[ok]
         data = data.loc[rows]
     _check_constant_terms(X, x_df.columns, intercept, name)
@@ -430,6 +423,27 @@ def _patsy_design(
         data=data,
         design_info=x_df.design_info,
     )
+
+
+def _defined_rows(
+    X: NDArray[Any],
+    y: NDArray[Any],
+    rows: NDArray[np.int64],
+    *,
+    dropped: list[tuple[int, str]],
+    name: str,
+    formula: str,
+) -> NDArray[np.bool_]:
+    """Rows where the model's transformations are defined; the others are recorded in ``dropped``."""
+    ok: NDArray[np.bool_] = np.isfinite(y) & np.isfinite(X).all(axis=1)
+    if not bool(ok.any()):
+        raise FitError(
+            f"{name}: the model {_show(formula)} is undefined in every row (e.g. the log of values ≤ 0)",
+            hint="check the transformations in key 'model' against the data",
+        )
+    for row in rows[~ok]:
+        dropped.append((int(row), "the model's transformation is undefined here (e.g. log of a value ≤ 0)"))
+    return ok
 
 
 def _dropped_rows(numeric: pd.DataFrame, frame: pd.DataFrame, extra: tuple[str, ...]) -> list[tuple[int, str]]:
@@ -661,15 +675,8 @@ def _finish_simple(
     X = X_ext.astype(float)
     y = y_ext.astype(float)
     rows = np.asarray(data.index, dtype=np.int64)
-    ok = np.isfinite(y) & np.isfinite(X).all(axis=1)
-    if not bool(ok.any()):
-        raise FitError(
-            f"{name}: the model {_show(formula)} is undefined in every row (e.g. the log of values ≤ 0)",
-            hint="check the transformations in key 'model' against the data",
-        )
+    ok = _defined_rows(X, y, rows, dropped=dropped, name=name, formula=formula)
     if not bool(ok.all()):
-        for row in rows[~ok]:
-            dropped.append((int(row), "the model's transformation is undefined here (e.g. log of a value ≤ 0)"))
         X, y, rows, X_ext, y_ext = X[ok], y[ok], rows[ok], X_ext[ok], y_ext[ok]
         data = data.loc[rows]
     terms = tuple(str(c) for c in plan.x_info.column_names)
