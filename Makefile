@@ -4,22 +4,26 @@ VENV := .venv
 BIN := $(VENV)/bin
 STAMP := $(VENV)/.installed
 
-.PHONY: demo test check lint typecheck browser clean bench
+.PHONY: demo test check lint typecheck browser clean bench pyc
 
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --upgrade pip
-	$(BIN)/python -m pip install --quiet -e '.[test,dev]'
+	$(BIN)/python -m pip install --quiet -e '.[test,dev]' --config-settings editable_mode=compat
 	touch $(STAMP)
 
-demo: $(STAMP)
+# Byte-compile our modules: with PYTHONDONTWRITEBYTECODE set, every run would compile them again.
+pyc: $(STAMP)
+	@$(BIN)/python -m compileall -q sitegen >/dev/null
+
+demo: $(STAMP) pyc
 	$(BIN)/sitegen build example_project -o _site
 	@echo "Open _site/index.html in a browser."
 
 browser: $(STAMP)
 	bash scripts/ensure-browser.sh
 
-test: $(STAMP) browser
+test: $(STAMP) pyc browser
 	$(BIN)/python -m pytest
 
 lint: $(STAMP)
@@ -31,7 +35,7 @@ typecheck: $(STAMP)
 
 check: lint typecheck test
 
-bench: $(STAMP)
+bench: $(STAMP) pyc
 	$(BIN)/python bench/run.py
 
 clean:

@@ -15,27 +15,29 @@ rebuild with nothing to do stays fast.
 
 from __future__ import annotations
 
+import functools
 import hashlib
 import json
 import os
 import shutil
+import sys
 import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
-from importlib import metadata
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from sitegen import __version__
 from sitegen.discover import SITE_CONFIG_NAME, DatasetSource, discover
 from sitegen.errors import ConfigError
-from sitegen.executor import Executor, make_executor
+from sitegen.jsontext import json_text
 from sitegen.publish import build_folder, check_output_folder, swap_in
 from sitegen.report.theme import Theme, load_theme
 from sitegen.spec import Limits, SiteConfig, read_site_config
 
 if TYPE_CHECKING:
+    from sitegen.executor import Executor
     from sitegen.model import FitReport
     from sitegen.report.pages import SiteContext
 
@@ -87,12 +89,39 @@ class BuildSummary:
 
 def library_versions(names: Sequence[str]) -> dict[str, str]:
     """Installed versions of the named distributions."""
+    found = _dist_info_versions()
     out = {}
     for name in names:
+        version = found.get(_normalised(name))
+        if version is None:  # not a plain .dist-info folder on sys.path: ask the metadata machinery
+            from importlib import metadata  # noqa: PLC0415 - costs more to import than the scan below
+
+            try:
+                version = metadata.version(name)
+            except metadata.PackageNotFoundError:
+                version = "unknown"
+        out[name] = version
+    return out
+
+
+def _normalised(name: str) -> str:
+    return name.lower().replace("-", "_").replace(".", "_")
+
+
+@functools.cache
+def _dist_info_versions() -> dict[str, str]:
+    """Versions from the names of ``NAME-VERSION.dist-info`` folders on sys.path; the first one found wins."""
+    out: dict[str, str] = {}
+    for entry in sys.path:
         try:
-            out[name] = metadata.version(name)
-        except metadata.PackageNotFoundError:
-            out[name] = "unknown"
+            names = os.listdir(entry or ".")  # noqa: PTH208 - names only; Path objects cost more here
+        except OSError:
+            continue
+        for folder in names:
+            if folder.endswith(".dist-info"):
+                dist, _, version = folder[: -len(".dist-info")].rpartition("-")
+                if dist and version:
+                    out.setdefault(_normalised(dist), version)
     return out
 
 
@@ -266,6 +295,8 @@ def run_build(
         if _nothing_changed(prev, sources, prints, site_key):
             outcomes = _touch_build_json(out_dir, prev)
             return BuildSummary(out_dir, outcomes, 0, len(sources), time.perf_counter() - started, tuple(warnings))
+        from sitegen.executor import make_executor  # noqa: PLC0415 - a process pool only when there is work
+
         with executor or make_executor(options.jobs) as run:
             state = _Build(
                 work=work,
@@ -347,7 +378,7 @@ def _touch_build_json(out_dir: Path, prev: _Previous) -> tuple[Outcome, ...]:
     body["built_at"] = datetime.now(UTC).isoformat(timespec="seconds")
     body["datasets"] = [dict(e, reused=True) for e in body.get("datasets", [])]
     tmp = out_dir / f".build.json.{os.getpid()}.tmp"
-    tmp.write_text(json.dumps(body, indent=1, sort_keys=True) + "\n", encoding="utf-8")
+    tmp.write_text(json_text(body), encoding="utf-8")
     tmp.replace(out_dir / "build.json")
     return tuple(
         Outcome(e["dataset"], e.get("source", ""), e.get("status", "ok"), e.get("message", ""))
@@ -529,8 +560,7 @@ class _Build:
             "datasets": entries,
             "files": _manifest(self.work),  # written last: every other file of the site is in place
         }
-        text = json.dumps(body, indent=1, sort_keys=True) + "\n"
-        (self.work / "build.json").write_text(text, encoding="utf-8")
+        (self.work / "build.json").write_text(json_text(body), encoding="utf-8")
 
 
 def _with_sha(report: FitReport, sha: str) -> FitReport:

@@ -256,6 +256,11 @@ def _encode(value: Any) -> object:
     if kind is float:
         return value if math.isfinite(value) else None
     if kind is tuple or kind is list:
+        try:  # fast path: a run of numbers, all finite, is written as it is (sum runs in C)
+            if math.isfinite(sum(value)):
+                return value
+        except TypeError:
+            pass
         return [_encode(v) for v in value]
     if hasattr(kind, "__dataclass_fields__"):
         return {name: _encode(getattr(value, name)) for name in _field_names(kind)}

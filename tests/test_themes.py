@@ -19,7 +19,7 @@ from pathlib import Path
 import pytest
 
 ROOT = Path(__file__).resolve().parents[1]
-THEME = ROOT / "themes" / "default"
+THEME = ROOT / "sitegen" / "themes" / "default"
 CSS = (THEME / "static" / "style.css").read_text("utf-8")
 CAUTION = "Use with care."
 

@@ -25,7 +25,8 @@ import copy
 import json
 import math
 from collections.abc import Callable, Sequence
-from functools import cache
+from dataclasses import dataclass
+from functools import cache, lru_cache
 from pathlib import Path
 from typing import Any
 
@@ -346,20 +347,47 @@ def _replace_titles(node: Any, titles: dict[str, str]) -> Any:
 
 def fill(kind: str, datasets: dict[str, list[dict[str, Any]]], *, x_title: str = "", y_title: str = "") -> Spec:
     """A copy of a compiled chart with this dataset's numbers and titles."""
+    points = datasets.get(SHARED) or []
+    shape = _Shape(
+        frozenset(name for name, rows in datasets.items() if rows),
+        one_series=len({p.get("series") for p in points}) <= 1,
+        any_flagged=any(p.get("kind") == "flagged" for p in points),
+        crowded=len(points) > CROWDED,
+    )
+    spec: Spec = json.loads(_skeleton(kind, x_title, y_title, shape))
+    spec["datasets"] = {name: datasets.get(name, []) for name in spec["datasets"]}
+    return spec
+
+
+@dataclass(frozen=True, slots=True)
+class _Shape:
+    """What, besides the rows, decides a chart's layers and legends."""
+
+    filled: frozenset[str]  # data sources with rows
+    one_series: bool
+    any_flagged: bool
+    crowded: bool
+
+
+@lru_cache(maxsize=256)
+def _skeleton(kind: str, x_title: str, y_title: str, shape: _Shape) -> str:
+    """The compiled chart with titles set and layers fitted to which data sources have rows, as JSON text.
+
+    Charts of the same kind differ only in their rows nearly always, so this is worked out once per
+    combination and each page parses the text (much cheaper than copying and walking the spec).
+    """
     spec = _replace_titles(copy.deepcopy(compiled(kind)), {X_TITLE: x_title, Y_TITLE: y_title})
     assert isinstance(spec, dict)
     names = _data_names(spec)
-    spec["datasets"] = {name: datasets.get(name, []) for name in sorted(names)}
     if "layer" in spec:  # drop layers with nothing to draw (no density, no extra lines, …)
-        spec["layer"] = [ly for ly in spec["layer"] if not _empty_layer(ly, spec["datasets"])]
-        used = _data_names({k: v for k, v in spec.items() if k != "datasets"})
-        spec["datasets"] = {k: v for k, v in spec["datasets"].items() if k in used}
-    points = spec["datasets"].get("points")
-    if points is not None:
-        _point_legends(spec, points)
-        if len(points) > CROWDED:
+        spec["layer"] = [ly for ly in spec["layer"] if not _empty_layer(ly, shape.filled)]
+        names = _data_names(spec)
+    spec["datasets"] = {name: [] for name in sorted(names)}
+    if SHARED in names:
+        _point_legends(spec, one_series=shape.one_series, any_flagged=shape.any_flagged)
+        if shape.crowded:
             _crowded(spec)
-    return spec
+    return json.dumps(spec)
 
 
 def _crowded(spec: Spec) -> None:
@@ -379,13 +407,11 @@ def _mark_type(layer: Spec) -> str:
     return str(mark.get("type") if isinstance(mark, dict) else mark)
 
 
-def _point_legends(spec: Spec, points: list[dict[str, Any]]) -> None:
+def _point_legends(spec: Spec, *, one_series: bool, any_flagged: bool) -> None:
     """Colour by series only when there are several; else colour marks the flagged points.
 
     A legend for the point kind is shown only when some point is flagged.
     """
-    one_series = len({p.get("series") for p in points}) <= 1
-    any_flagged = any(p.get("kind") == "flagged" for p in points)
     for layer in spec.get("layer", [spec]):
         enc = layer.get("encoding", {})
         if one_series and layer.get("data", {}).get("name") == "lines":
@@ -404,9 +430,9 @@ def _point_legends(spec: Spec, points: list[dict[str, Any]]) -> None:
                     enc[channel]["legend"] = None
 
 
-def _empty_layer(layer: Spec, datasets: dict[str, list[dict[str, Any]]]) -> bool:
+def _empty_layer(layer: Spec, filled: frozenset[str]) -> bool:
     data = layer.get("data")
-    return isinstance(data, dict) and "name" in data and not datasets.get(str(data["name"]))
+    return isinstance(data, dict) and "name" in data and str(data["name"]) not in filled
 
 
 def _data_names(node: Any) -> set[str]:

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import json
 import shutil
 from collections.abc import Sequence
 from dataclasses import asdict
@@ -15,6 +14,7 @@ if TYPE_CHECKING:
     from sitegen.derive import Observations
 
 from sitegen.discover import DatasetSource
+from sitegen.jsontext import json_text
 from sitegen.model import FitReport, to_json
 from sitegen.report.tables import clean_rows, frame_from_columns, rows_from_columns, rows_to_csv_bytes, write_csv
 from sitegen.report.xlsx import workbook_bytes
@@ -155,8 +155,7 @@ def summary_files(work: Path, reports: Sequence[FitReport]) -> None:
     (work / "summary.csv").write_bytes(rows_to_csv_bytes(header, cells))
     (work / "summary.xlsx").write_bytes(workbook_bytes(header, cells, "summary"))
     body = [{k: _json_value(v) for k, v in row.items()} for row in rows]
-    text = json.dumps(body, sort_keys=True, ensure_ascii=False, allow_nan=False, indent=1)
-    (work / "summary.json").write_text(text + "\n", encoding="utf-8")
+    (work / "summary.json").write_text(json_text(body), encoding="utf-8")
 
 
 def _table(folder: Path, name: str, columns: Sequence[str], rows: Sequence[Sequence[Any]], xlsx: bool) -> list[str]:

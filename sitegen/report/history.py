@@ -14,6 +14,7 @@ from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
+from sitegen.jsontext import json_text
 from sitegen.model import FitReport
 from sitegen.report import charts, pages
 
@@ -105,8 +106,8 @@ def write(work: Path, ctx: pages.SiteContext, reports: Sequence[FitReport], prev
         change = changes(last["datasets"] if last else None, current, seq, int(last["build"]) if last else None)
         if last is None or last.get("datasets") != current:
             builds = [*builds, {"build": seq, "datasets": current}][-MAX_BUILDS:]
-    (work / "history.json").write_text(json.dumps({"builds": builds}, sort_keys=True, indent=1) + "\n", "utf-8")
-    (work / "changes.json").write_text(json.dumps(change, sort_keys=True, indent=1) + "\n", "utf-8")
+    (work / "history.json").write_text(json_text({"builds": builds}), "utf-8")
+    (work / "changes.json").write_text(json_text(change), "utf-8")
     drift = []
     for r in reports:
         series = [

@@ -17,7 +17,7 @@ from sitegen.errors import SiteConfigError
 
 
 def default_theme_dir() -> Path:
-    """The packaged default theme (``themes/default``)."""
+    """The packaged default theme (``sitegen/themes/default``)."""
     import importlib  # noqa: PLC0415
 
     themes = importlib.import_module("sitegen.themes")  # the packaged themes/ folder

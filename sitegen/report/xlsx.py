@@ -15,6 +15,7 @@ from collections.abc import Iterable, Sequence
 from xml.sax.saxutils import escape
 
 _FIXED_TIME = (2000, 1, 1, 0, 0, 0)
+_NUMBERS = frozenset((float, int, type(None)))
 _CONTENT_TYPES = (
     '<?xml version="1.0" encoding="UTF-8" standalone="yes"?>\n'
     '<Types xmlns="http://schemas.openxmlformats.org/package/2006/content-types">'
@@ -79,8 +80,26 @@ def workbook_bytes(header: Sequence[str], rows: Iterable[Sequence[object]], shee
         '<?xml version="1.0" encoding="UTF-8" standalone="yes"?>\n'
         '<worksheet xmlns="http://schemas.openxmlformats.org/spreadsheetml/2006/main"><sheetData>'
     ]
+    templates: dict[tuple[type, ...], tuple[str, tuple[int, ...]]] = {}
     for r, row in enumerate([list(header), *rows], start=1):
-        parts.append(f'<row r="{r}">{"".join(map(_cell, row))}</row>')
+        # Rows of the same cell types share one template: numbers are formatted in one % operation.
+        kinds = tuple(map(type, row))
+        known = templates.get(kinds)
+        if known is None:
+            texts = tuple(i for i, k in enumerate(kinds) if k not in _NUMBERS)
+            known = templates[kinds] = (
+                "".join("%s" if i in texts else "<c><v>%r</v></c>" for i in range(len(row))),
+                texts,
+            )
+        template, texts = known
+        values = list(row)
+        for i in texts:
+            values[i] = _cell(values[i])
+        cells = template % tuple(values)
+        if "n</v>" in cells or "e</v>" in cells:  # nan, inf, None: empty cells
+            for word in ("None", "nan", "inf", "-inf"):
+                cells = cells.replace(f"<c><v>{word}</v></c>", "<c/>")
+        parts.append(f'<row r="{r}">{cells}</row>')
     parts.append("</sheetData></worksheet>")
     buf = io.BytesIO()
     with zipfile.ZipFile(buf, "w", zipfile.ZIP_DEFLATED, compresslevel=1) as zf:
@@ -92,6 +111,7 @@ def workbook_bytes(header: Sequence[str], rows: Iterable[Sequence[object]], shee
             ("xl/worksheets/sheet1.xml", "".join(parts)),
         ):
             info = zipfile.ZipInfo(name, date_time=_FIXED_TIME)
-            info.compress_type = zipfile.ZIP_DEFLATED
+            # The fixed parts are a few hundred bytes: stored as they are, only the sheet is compressed.
+            info.compress_type = zipfile.ZIP_DEFLATED if name.endswith("sheet1.xml") else zipfile.ZIP_STORED
             zf.writestr(info, body.encode("utf-8"))
     return buf.getvalue()
