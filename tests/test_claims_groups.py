@@ -373,7 +373,7 @@ def test_chi2_upper_tail_matches_scipy(df: int) -> None:
     """Our χ² tail (used for Cochran's Q) against scipy.stats.chi2.sf as the reference."""
     from scipy import stats
 
-    from sitegen.stats.compare import chi2_sf
+    from sitegen.stats.distributions import chi2_sf
 
     for x in (0.0, 1e-6, 0.3, 1.0, df * 0.5, float(df), df + 1.0, df * 2.0, df * 5.0 + 10, 400.0):
         want = float(stats.chi2.sf(x, df))

@@ -34,9 +34,8 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Literal
 
-from scipy.special import stdtrit
-
 from sitegen.errors import FitError
+from sitegen.stats.distributions import t_ppf
 
 __all__ = ["DetectionLimits", "InversePrediction", "detection_limits", "inverse_predict"]
 
@@ -147,7 +146,7 @@ def inverse_predict(
     if bad:
         raise ValueError(f"responses must be finite numbers, got {bad}")
 
-    t = float(stdtrit(df_resid, 0.5 + level / 2.0))
+    t = t_ppf(0.5 + level / 2.0, df_resid)
     s = residual_sd
     b = slope
     c = 1.0 / readings + 1.0 / n

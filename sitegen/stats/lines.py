@@ -36,9 +36,9 @@ from dataclasses import dataclass
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy.special import stdtrit
 
 from sitegen.errors import FitError
+from sitegen.stats.distributions import t_ppf
 
 __all__ = ["LINE_METHODS", "Line", "alternative_lines", "explain_lines"]
 
@@ -101,7 +101,7 @@ def _slopes(
 
 
 def _t_quantile(df: int, level: float) -> float:
-    return float(stdtrit(df, 0.5 + level / 2.0))
+    return t_ppf(0.5 + level / 2.0, df)
 
 
 def _check_arguments(x: NDArray[np.float64], y: NDArray[np.float64], methods: Sequence[str]) -> None:
