@@ -16,7 +16,6 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-import pandas as pd
 from numpy.typing import NDArray
 
 from sitegen import derive
@@ -28,6 +27,7 @@ from sitegen.load import LoadedTable, read_source, read_table
 from sitegen.model import AnovaLine, Coefficient, FitReport, Message, Status
 from sitegen.spec import DatasetSpec, Limits, read_sidecar
 from sitegen.stats.ols import OlsFit, anova_table, fit_ols
+from sitegen.table import to_float
 
 
 @dataclass(frozen=True, slots=True)
@@ -109,9 +109,9 @@ def _spec_messages(spec: DatasetSpec | None, sidecar_name: str) -> list[Message]
 def _model_formula(spec: DatasetSpec, table: LoadedTable, name: str) -> tuple[str, bool]:
     if spec.model:
         return spec.model, False
-    guess = assumed_formula(table.frame)
+    guess = assumed_formula(table.table)
     if guess is None:
-        cols = ", ".join(map(str, table.frame.columns))
+        cols = ", ".join(table.table.names)
         raise FormulaError(
             f"{name} has no model: without a sidecar only a table of exactly two numeric columns can be fitted",
             hint=f'add {Path(name).stem}.toml with e.g. model = "y ~ x"; the columns are {cols}',
@@ -123,7 +123,7 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
     name = base.source
     formula, assumed = _model_formula(spec, table, name)
     extra = tuple(c for c in (spec.weights, spec.group) if c)
-    design = build_design(formula, table.frame, name, extra)
+    design = build_design(formula, table.table, name, extra)
     weights = _weights(design, spec)
     fit = fit_ols(
         design.X_ext,
@@ -164,7 +164,7 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         variables=design.variables,
         weights=spec.weights,
         n=fit.n,
-        n_rows=len(table.frame),
+        n_rows=len(table.table),
         dropped_rows=design.dropped,
         df_model=fit.df_model,
         df_resid=fit.df_resid,
@@ -203,7 +203,7 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
 def _weights(design: Design, spec: DatasetSpec) -> NDArray[np.float64] | None:
     if not spec.weights:
         return None
-    w = pd.to_numeric(design.data[spec.weights], errors="coerce").to_numpy(dtype=float)
+    w = to_float(design.data[spec.weights])[0]
     bad = ~np.isfinite(w) | (w <= 0)
     if bool(bad.any()):
         row = int(design.rows[np.flatnonzero(bad)[0]])

@@ -15,12 +15,10 @@ rebuild with nothing to do stays fast.
 
 from __future__ import annotations
 
-import functools
 import hashlib
 import json
 import os
 import shutil
-import sys
 import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
@@ -35,6 +33,7 @@ from sitegen.jsontext import json_text
 from sitegen.publish import build_folder, check_output_folder, swap_in
 from sitegen.report.theme import Theme, load_theme
 from sitegen.spec import Limits, SiteConfig, read_site_config
+from sitegen.versions import library_versions
 
 if TYPE_CHECKING:
     from sitegen.executor import Executor
@@ -85,44 +84,6 @@ class BuildSummary:
     @property
     def warned(self) -> int:
         return sum(1 for o in self.outcomes if o.status == "warn")
-
-
-def library_versions(names: Sequence[str]) -> dict[str, str]:
-    """Installed versions of the named distributions."""
-    found = _dist_info_versions()
-    out = {}
-    for name in names:
-        version = found.get(_normalised(name))
-        if version is None:  # not a plain .dist-info folder on sys.path: ask the metadata machinery
-            from importlib import metadata  # noqa: PLC0415 - costs more to import than the scan below
-
-            try:
-                version = metadata.version(name)
-            except metadata.PackageNotFoundError:
-                version = "unknown"
-        out[name] = version
-    return out
-
-
-def _normalised(name: str) -> str:
-    return name.lower().replace("-", "_").replace(".", "_")
-
-
-@functools.cache
-def _dist_info_versions() -> dict[str, str]:
-    """Versions from the names of ``NAME-VERSION.dist-info`` folders on sys.path; the first one found wins."""
-    out: dict[str, str] = {}
-    for entry in sys.path:
-        try:
-            names = os.listdir(entry or ".")  # noqa: PTH208 - names only; Path objects cost more here
-        except OSError:
-            continue
-        for folder in names:
-            if folder.endswith(".dist-info"):
-                dist, _, version = folder[: -len(".dist-info")].rpartition("-")
-                if dist and version:
-                    out.setdefault(_normalised(dist), version)
-    return out
 
 
 def _sha256(data: bytes) -> str:

@@ -11,9 +11,9 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
-import pandas as pd
 from numpy.typing import NDArray
 
 from sitegen.errors import DatasetError, FitError
@@ -304,6 +304,13 @@ def _calibration(
     return cal, DetectionLimits(lim.lod, lim.loq, lim.convention, lim.basis)
 
 
+def _column(values: list[Any]) -> NDArray[Any]:
+    """Prediction values of one column: numbers (missing as NaN), else text."""
+    if all(v is None or (isinstance(v, int | float) and not isinstance(v, bool)) for v in values):
+        return np.array([np.nan if v is None else float(v) for v in values], dtype=float)
+    return np.array(values, dtype=object)
+
+
 def _predictions(design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[Message]) -> tuple[Prediction, ...]:
     if not spec.predict_at:
         return ()
@@ -322,7 +329,8 @@ def _predictions(design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[
             )
             return ()
         rows = [{x_col: float(v)} for v in spec.predict_at if not isinstance(v, tuple)]
-    frame = pd.DataFrame(rows)
+    names = list(dict.fromkeys(k for row in rows for k in row))
+    frame = {k: _column([row.get(k) for row in rows]) for k in names}
     try:
         X_new = design_for(design, frame)
     except DatasetError as exc:
@@ -373,7 +381,7 @@ def _groups(
             )
         )
         return None
-    labels = design.data[spec.group].astype(str).to_numpy(dtype=str)
+    labels = np.array([str(v) for v in design.data[spec.group].tolist()], dtype=str)
     try:
         return compare_groups(design.X[:, 1], design.y, labels, spec.group, fit.level, weights=weights)
     except DatasetError as exc:
@@ -440,19 +448,19 @@ def _chart(design: Design, fit: OlsFit, infl: Influence, flags: PointFlags, spec
         "flag": is_flag,
     }
     if x_col is not None:
-        cols["x"] = design.data[x_col].to_numpy(dtype=float)
+        cols["x"] = design.data[x_col].astype(float)
     names = tuple(sorted(cols))
     points = tuple(zip(*(_clean(cols[c][idx]) for c in names), strict=True))
     groups: tuple[str, ...] = ()
     if spec.group and x_col is not None:
-        groups = tuple(design.data[spec.group].astype(str).to_numpy()[idx].tolist())
+        groups = tuple(str(v) for v in design.data[spec.group][idx].tolist())
     band_cols: tuple[str, ...] = ()
     band: tuple[tuple[float | None, ...], ...] = ()
     if x_col is not None:
         xs = cols["x"]
         grid = np.linspace(float(xs.min()), float(xs.max()), BAND_STEPS)
         try:
-            Xg = design_for(design, pd.DataFrame({x_col: grid}))
+            Xg = design_for(design, {x_col: grid})
         except DatasetError:
             Xg = None
         if Xg is not None and Xg.shape[1] == len(fit.terms):
@@ -499,7 +507,7 @@ def _observations(
     b = bands(fit, design.X, weights)
     cols: dict[str, NDArray[np.generic]] = {"row": design.rows}
     for v in design.variables:
-        cols[v] = design.data[v].to_numpy(dtype=float)
+        cols[v] = design.data[v].astype(float)
     if design.response not in cols:
         cols[design.response] = design.y
     if weights is not None:

@@ -12,16 +12,20 @@ from __future__ import annotations
 
 import ast
 import difflib
+import json
 import keyword
 import re
+from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
-import pandas as pd
-from numpy.typing import NDArray
+from numpy.typing import ArrayLike, NDArray
 
+from sitegen import __version__
+from sitegen.cache import read_record, write_record
 from sitegen.errors import DataFileError, FitError, FormulaError
+from sitegen.table import Table, as_table, from_columns, to_float
 
 #: numpy functions a formula may call, as ``np.NAME`` or bare ``NAME``.
 SAFE_FUNCTIONS = frozenset(
@@ -79,8 +83,8 @@ class Design:
     dropped: tuple[tuple[int, str], ...]  # (CSV row, reason) of rows left out
     has_intercept: bool
     variables: tuple[str, ...]  # data columns the model uses, in formula order
-    data: pd.DataFrame  # used rows of `variables` (+ weights/group columns), indexed by CSV row
-    design_info: Any  # patsy DesignInfo of the right-hand side, to build predictions
+    data: Table  # used rows of `variables` (+ weights/group columns), with their CSV rows
+    design_info: Any  # a Plan (simple designs) or patsy's DesignInfo of the right-hand side, for predictions
     X_ext: NDArray[np.longdouble]  # the same design evaluated in extended precision
     y_ext: NDArray[np.longdouble]
     simple: bool = False  # every term is a product of numeric expressions: evaluated without patsy
@@ -93,25 +97,24 @@ def quote_name(column: str) -> str:
     return "Q(" + repr(column) + ")"
 
 
-def _mostly_numeric(series: pd.Series) -> bool:
+def _mostly_numeric(values: NDArray[Any]) -> bool:
     """Numeric, or text of which at least half the filled cells are numbers (so a stray word is reported)."""
-    if pd.api.types.is_numeric_dtype(series):
+    if values.dtype.kind in "fiub":
         return True
-    text = series.astype("string").str.strip()
-    filled = text[text.notna() & (text != "")]
-    if len(filled) == 0:
-        return True
-    return int(pd.to_numeric(filled, errors="coerce").notna().sum()) * 2 >= len(filled)
+    numbers, bad = to_float(values)
+    good = int(np.isfinite(numbers).sum() + np.isinf(numbers).sum())
+    filled = good + int(bad.sum())
+    return filled == 0 or good * 2 >= filled
 
 
-def assumed_formula(frame: pd.DataFrame) -> str | None:
+def assumed_formula(table: Table) -> str | None:
     """``second ~ first`` when the table has exactly two numeric columns, else None.
 
     A column that is numeric apart from a few stray cells still counts, so that
     fitting it reports the offending cells by row instead of "no model".
     """
-    if len(frame.columns) == 2 and all(_mostly_numeric(frame[c]) for c in frame.columns):
-        first, second = (str(c) for c in frame.columns)
+    if len(table.names) == 2 and all(_mostly_numeric(c) for c in table.columns):
+        first, second = table.names
         return f"{quote_name(second)} ~ {quote_name(first)}"
     return None
 
@@ -182,8 +185,6 @@ class _FactorChecker(ast.NodeVisitor):
 
 def _factor_codes(formula: str) -> tuple[list[str], list[str], bool]:
     """(lhs factor codes, rhs factor codes, has intercept) without evaluating anything."""
-    import patsy  # noqa: PLC0415 - patsy is only needed once a dataset is fitted
-
     if len(formula) > MAX_FORMULA_CHARS:
         raise FormulaError(
             f"the model is {len(formula):,} characters long, more than the {MAX_FORMULA_CHARS:,} allowed",
@@ -194,6 +195,14 @@ def _factor_codes(formula: str) -> tuple[list[str], list[str], bool]:
             f"the model {_show(formula)} has no '~'",
             hint='write it as "response ~ predictors", e.g. "y ~ x" (key \'model\')',
         )
+    known = _remembered("parse", formula)
+    if isinstance(known, dict):
+        try:
+            return [str(c) for c in known["lhs"]], [str(c) for c in known["rhs"]], bool(known["intercept"])
+        except (KeyError, TypeError):
+            pass
+    import patsy  # noqa: PLC0415 - only for a formula not parsed before
+
     try:
         desc = patsy.ModelDesc.from_formula(formula)
     except patsy.PatsyError as exc:
@@ -211,7 +220,48 @@ def _factor_codes(formula: str) -> tuple[list[str], list[str], bool]:
             f"the model {_show(formula)} has no response on the left of '~'",
             hint="name the response column first, e.g. \"y ~ x\" (key 'model')",
         )
+    _remember("parse", formula, {"lhs": lhs, "rhs": rhs, "intercept": intercept})
     return lhs, rhs, intercept
+
+
+# --- what patsy worked out about a formula, kept between builds ------------------------------------
+#
+# patsy (and pandas, which it imports) cost about half a second to import. What it decides about a
+# formula -- its factors, its terms and their column names -- depends only on the formula text, the
+# columns it uses and patsy's version, so it is kept in the user's cache and a rebuild that fits a
+# changed dataset with a known formula does not import patsy at all.
+
+_RECORD = "formulas.json"
+_MEMORY: dict[str, Any] = {}
+_LOADED = False
+
+
+def _key(kind: str, formula: str, used: tuple[str, ...] = ()) -> str:
+    from sitegen.versions import library_versions  # noqa: PLC0415
+
+    patsy_version = library_versions(("patsy",))["patsy"]
+    return json.dumps([kind, __version__, patsy_version, formula, list(used)])
+
+
+def _remembered(kind: str, formula: str, used: tuple[str, ...] = ()) -> Any:
+    global _LOADED  # noqa: PLW0603 - one read of the record per process
+    if not _LOADED:
+        stored = read_record(_RECORD)
+        if isinstance(stored, dict):
+            _MEMORY.update(stored)
+        _LOADED = True
+    return _MEMORY.get(_key(kind, formula, used))
+
+
+def _remember(kind: str, formula: str, value: Any, used: tuple[str, ...] = ()) -> None:
+    key = _key(kind, formula, used)
+    if _MEMORY.get(key) == value:
+        return
+    if len(_MEMORY) > 2000:  # bounded: the oldest entries go first
+        for old in list(_MEMORY)[:1000]:
+            del _MEMORY[old]
+    _MEMORY[key] = value
+    write_record(_RECORD, _MEMORY)
 
 
 def _too_deep(formula: str) -> FormulaError:
@@ -270,80 +320,90 @@ _DECIMAL_COMMA = re.compile(r"^[-+]?\d{1,3}(\.\d{3})*,\d+$|^[-+]?\d+,\d+$")
 _NUMBERISH = re.compile(r"^\s*$")
 
 
-def numeric_columns(frame: pd.DataFrame, columns: list[str], name: str) -> tuple[pd.DataFrame, list[str]]:
+def numeric_columns(table: Table, columns: list[str], name: str) -> tuple[Table, list[str]]:
     """Coerce ``columns`` to float; non-numeric text is an error naming row and column."""
-    out = {}
+    out: dict[str, NDArray[np.float64]] = {}
     notes: list[str] = []
     for col in columns:
-        series = frame[col]
-        if pd.api.types.is_bool_dtype(series):
-            series = series.astype(float)
-        if not pd.api.types.is_numeric_dtype(series):
-            text = series.astype("string")
-            converted = pd.to_numeric(text.str.strip(), errors="coerce")
-            bad = converted.isna() & text.notna() & ~text.fillna("").str.match(_NUMBERISH)
-            if bool(bad.any()):
-                rows = [int(r) for r in bad[bad].index[:5]]
-                sample = str(text.loc[rows[0]])[:30]
-                count = int(bad.sum())
-                where = f"row {rows[0]}" if count == 1 else "rows " + ", ".join(map(str, rows))
-                more = f" and {count - len(rows)} more" if count > len(rows) else ""
+        values = table[col]
+        numbers, bad = to_float(values)
+        if bool(bad.any()):
+            where_bad = np.flatnonzero(bad)
+            rows = [int(table.rows[i]) for i in where_bad[:5]]
+            sample = str(values[where_bad[0]])[:30]
+            count = int(bad.sum())
+            where = f"row {rows[0]}" if count == 1 else "rows " + ", ".join(map(str, rows))
+            more = f" and {count - len(rows)} more" if count > len(rows) else ""
+            hint = (
+                "fix or delete those cells (an empty cell counts as a missing value), "
+                "or leave the column out of the model"
+            )
+            if _DECIMAL_COMMA.match(sample.strip()):
                 hint = (
-                    "fix or delete those cells (an empty cell counts as a missing value), "
-                    "or leave the column out of the model"
+                    f"{sample.strip()!r} looks like a number written with a decimal comma: "
+                    'set decimal = "," in the sidecar (and delimiter = ";" if columns are separated by '
+                    "semicolons); otherwise " + hint
                 )
-                if _DECIMAL_COMMA.match(sample.strip()):
-                    hint = (
-                        f"{sample.strip()!r} looks like a number written with a decimal comma: "
-                        'set decimal = "," in the sidecar (and delimiter = ";" if columns are separated by '
-                        "semicolons); otherwise " + hint
-                    )
-                raise DataFileError(
-                    f"{name}: column {col!r} has text where a number is expected "
-                    f"({sample!r} on row {rows[0]}); {count} cell(s) in all, on {where}{more}",
-                    hint=hint,
-                )
-            series = converted
-        out[col] = series.astype(float)
-    return pd.DataFrame(out, index=frame.index), notes
+            raise DataFileError(
+                f"{name}: column {col!r} has text where a number is expected "
+                f"({sample!r} on row {rows[0]}); {count} cell(s) in all, on {where}{more}",
+                hint=hint,
+            )
+        out[col] = numbers
+    return from_columns(out, table.rows), notes
 
 
-def build_design(formula: str, frame: pd.DataFrame, name: str, extra: tuple[str, ...] = ()) -> Design:
-    """Turn the table into a design matrix, leaving out rows with missing or non-finite values."""
+def _missing(values: NDArray[Any]) -> NDArray[np.bool_]:
+    """Cells with no value: NaN in a float column, None in a text column."""
+    if values.dtype.kind == "f":
+        return np.asarray(np.isnan(values), dtype=bool)
+    if values.dtype.kind == "O":
+        return np.array([v is None for v in values.tolist()], dtype=bool)
+    return np.zeros(values.shape, dtype=bool)
 
-    columns = [str(c) for c in frame.columns]
+
+def build_design(formula: str, frame: Table | Any, name: str, extra: tuple[str, ...] = ()) -> Design:
+    """Turn the table into a design matrix, leaving out rows with missing or non-finite values.
+
+    ``frame`` is a :class:`~sitegen.table.Table` (a pandas DataFrame indexed by CSV row is accepted too).
+    """
+    table = as_table(frame)
+    columns = list(table.names)
     try:
         used = check_formula(formula, columns)
         _, _, intercept = _factor_codes(formula)
     except FormulaError as exc:
         raise FormulaError(f"{name}: {exc.message}", hint=exc.hint) from exc
-    numeric, _ = numeric_columns(frame, list(used), name)
+    numeric, _ = numeric_columns(table, list(used), name)
     for col in extra:
         if col not in columns:
             raise FormulaError(
                 f"{name}: column {col!r} (named by key 'weights' or 'group') is not in the data",
                 hint=f"available columns: {', '.join(map(repr, columns))}",
             )
-    for col in numeric.columns:
-        if bool(numeric[col].isna().all()):
+    for col, values in zip(numeric.names, numeric.columns, strict=True):
+        if bool(np.isnan(values).all()):
             raise DataFileError(
                 f"{name}: column {col!r}, which the model uses, is empty in every row",
                 hint="fill the column in, or name another column in key 'model'",
             )
-    dropped = _dropped_rows(numeric, frame, extra)
-    finite = np.isfinite(numeric.to_numpy(dtype=float)).all(axis=1)
-    extra_ok = frame[list(extra)].notna().all(axis=1).to_numpy() if extra else np.ones(len(frame), bool)
-    keep = finite & extra_ok
+    dropped = _dropped_rows(numeric, table, extra)
+    finite = np.ones(len(table), dtype=bool)
+    for values in numeric.columns:
+        finite &= np.isfinite(values)
+    keep = finite
+    for col in extra:
+        keep = keep & ~_missing(table[col])
     if not bool(keep.any()):
         raise FitError(
             f"{name}: no row has a finite value in every column the model uses "
             f"({', '.join(map(repr, (*used, *extra)))})",
             hint="fill in the missing values, or check that key 'model' names the right columns",
         )
-    data = numeric[keep]
+    data = numeric.take(keep)
     for col in extra:
-        if col not in data.columns:
-            data = data.assign(**{col: frame.loc[keep, col]})
+        if col not in data:
+            data = data.assign(col, table[col][keep])
     plan = _plan(formula, used)
     if plan is not None:
         evaluated = _evaluate_design(plan, data, np.longdouble)
@@ -363,7 +423,7 @@ def build_design(formula: str, frame: pd.DataFrame, name: str, extra: tuple[str,
 
 def _patsy_design(
     formula: str,
-    data: pd.DataFrame,
+    data: Table,
     *,
     dropped: list[tuple[int, str]],
     intercept: bool,
@@ -376,11 +436,11 @@ def _patsy_design(
     env = _environment()
     try:
         with np.errstate(all="ignore"):
-            y_df, x_df = patsy.dmatrices(
+            y_dm, x_dm = patsy.dmatrices(
                 formula,
-                data,
+                data.as_dict(),
                 eval_env=env,
-                return_type="dataframe",
+                return_type="matrix",
                 # The data hold finite numbers only; a NaN can only come from a transformation
                 # (log of a negative value …) and is left in, to be reported row by row below.
                 NA_action=patsy.NAAction(NA_types=[]),
@@ -395,33 +455,34 @@ def _patsy_design(
             f"{name}: the model {_show(formula)} cannot be evaluated: {str(exc)[:200]}",
             hint="check key 'model'",
         ) from exc
-    if y_df.shape[1] != 1:
+    if y_dm.shape[1] != 1:
         raise FormulaError(
             f"{name}: the model {_show(formula)} must have exactly one numeric response on the left of '~'",
             hint="check key 'model'",
         )
-    y = y_df.to_numpy(dtype=float)[:, 0]
-    X = x_df.to_numpy(dtype=float)
-    rows = np.asarray(x_df.index, dtype=np.int64)
+    y = np.asarray(y_dm, dtype=float)[:, 0]
+    X = np.asarray(x_dm, dtype=float)
+    rows = data.rows
     ok = _defined_rows(X, y, rows, dropped=dropped, name=name, formula=formula)
     if not bool(ok.all()):
         X, y, rows = X[ok], y[ok], rows[ok]
-        data = data.loc[rows]
-    _check_constant_terms(X, x_df.columns, intercept, name)
-    X_ext, y_ext = _extended(x_df.design_info, y_df.design_info, data, X, y)
+        data = data.take(ok)
+    names = tuple(str(c) for c in x_dm.design_info.column_names)
+    _check_constant_terms(X, names, intercept, name)
+    X_ext, y_ext = _extended(x_dm.design_info, y_dm.design_info, data, X, y)
     return Design(
         X_ext=X_ext,
         y_ext=y_ext,
         X=np.ascontiguousarray(X),
         y=y,
-        terms=tuple(str(c) for c in x_df.columns),
-        response=str(y_df.columns[0]),
+        terms=names,
+        response=str(y_dm.design_info.column_names[0]),
         rows=rows,
         dropped=tuple(sorted(dropped)),
         has_intercept=intercept,
         variables=used,
         data=data,
-        design_info=x_df.design_info,
+        design_info=x_dm.design_info,
     )
 
 
@@ -446,15 +507,16 @@ def _defined_rows(
     return ok
 
 
-def _dropped_rows(numeric: pd.DataFrame, frame: pd.DataFrame, extra: tuple[str, ...]) -> list[tuple[int, str]]:
+def _dropped_rows(numeric: Table, table: Table, extra: tuple[str, ...]) -> list[tuple[int, str]]:
     """(CSV row, reason naming the column) of each row with a missing or infinite value the model needs."""
-    values = numeric.to_numpy(dtype=float)
+    n = len(table)
+    values = np.column_stack(numeric.columns) if numeric.columns else np.empty((n, 0))
     missing = np.isnan(values)
     infinite = np.isinf(values)
-    extra_missing = frame[list(extra)].isna().to_numpy() if extra else np.zeros((len(frame), 0), dtype=bool)
+    extra_missing = np.column_stack([_missing(table[c]) for c in extra]) if extra else np.zeros((n, 0), dtype=bool)
     out: list[tuple[int, str]] = []
-    names = [str(c) for c in numeric.columns]
-    csv_rows = [int(r) for r in numeric.index]
+    names = list(numeric.names)
+    csv_rows = [int(r) for r in table.rows]
     bad_rows = np.flatnonzero(missing.any(axis=1) | infinite.any(axis=1) | extra_missing.any(axis=1))
     for i in (int(k) for k in bad_rows):
         j_miss = np.flatnonzero(missing[i])
@@ -484,18 +546,26 @@ def _check_constant_terms(X: NDArray[np.float64], names: Any, intercept: bool, n
             )
 
 
-def design_for(design: Design, new: pd.DataFrame) -> NDArray[np.float64]:
-    """Design matrix rows for new predictor values (for predictions)."""
-    import patsy  # noqa: PLC0415
-
+def design_for(design: Design, new: Mapping[str, ArrayLike] | Any) -> NDArray[np.float64]:
+    """Design matrix rows for new predictor values (for predictions); ``new`` maps column names to values."""
+    columns = {str(k): np.asarray(new[k]) for k in new.keys()}  # noqa: SIM118 - a DataFrame is accepted too
     if design.simple:
-        cols = _evaluate_terms(design.design_info, new.astype(float), np.float64)
+        try:
+            floats = from_columns({k: v.astype(float) for k, v in columns.items()})
+        except (TypeError, ValueError) as exc:
+            raise FormulaError("prediction values do not fit the model: the model's columns need numbers") from exc
+        cols = _evaluate_terms(design.design_info.x_terms, floats, np.float64)
         if cols is not None:
             return cols
+        missing = [v for v in design.variables if v not in columns]
+        raise FormulaError(
+            "prediction values do not fit the model" + (f": no value for {missing[-1]!r}" if missing else "")
+        )
+    import patsy  # noqa: PLC0415
 
     try:
         with np.errstate(all="ignore"):
-            (mat,) = patsy.build_design_matrices([design.design_info], new, NA_action="raise")
+            (mat,) = patsy.build_design_matrices([design.design_info], columns, NA_action="raise")
     except patsy.PatsyError as exc:
         raise FormulaError(f"prediction values do not fit the model: {_patsy_message(exc)}") from exc
     return np.asarray(mat, dtype=float)
@@ -512,7 +582,7 @@ def _evaluate(code: str, namespace: dict[str, Any]) -> NDArray[np.longdouble]:
 
 
 def _extended(
-    x_info: Any, y_info: Any, data: pd.DataFrame, X: NDArray[np.float64], y: NDArray[np.float64]
+    x_info: Any, y_info: Any, data: Table, X: NDArray[np.float64], y: NDArray[np.float64]
 ) -> tuple[NDArray[np.longdouble], NDArray[np.longdouble]]:
     """Re-evaluate the design in extended precision so powers such as x**10 keep their digits.
 
@@ -523,31 +593,21 @@ def _extended(
     codes = [f.code for t in x_info.terms for f in t.factors] + [f.code for t in y_info.terms for f in t.factors]
     if any(s in code for code in codes for s in _STATEFUL) or X.shape[1] != len(x_info.terms):
         return fallback
-    namespace: dict[str, Any] = {
-        c: data[c].to_numpy(dtype=np.longdouble) for c in data.columns if pd.api.types.is_numeric_dtype(data[c])
-    }
-    namespace |= {
-        "np": np,
-        "numpy": np,
-        "I": lambda v: v,
-        "Q": lambda name: namespace[name],
-        "__rows__": data.index,
-    }
-    namespace |= {f: getattr(np, f) for f in SAFE_FUNCTIONS}
     try:
-        with np.errstate(all="ignore"):
-            cols = []
-            for term in x_info.terms:
-                col = np.ones(len(data), dtype=np.longdouble)
-                for factor in term.factors:
-                    col = col * _evaluate(factor.code, namespace)
-                cols.append(col)
-            (yterm,) = y_info.terms
-            (yfactor,) = yterm.factors
-            y_ext = _evaluate(yfactor.code, namespace)
-    except (TypeError, ValueError, KeyError, NameError, ArithmeticError):
+        (yterm,) = y_info.terms
+        (yfactor,) = yterm.factors
+    except ValueError:
         return fallback
-    X_ext = np.column_stack(cols) if cols else np.empty((len(data), 0), dtype=np.longdouble)
+    plan = Plan(
+        x_terms=tuple(tuple(f.code for f in t.factors) for t in x_info.terms),
+        x_names=tuple(str(c) for c in x_info.column_names),
+        y_code=yfactor.code,
+        y_name=str(y_info.column_names[0]),
+    )
+    evaluated = _evaluate_design(plan, data, np.longdouble)
+    if evaluated is None:
+        return fallback
+    X_ext, y_ext = evaluated
     with np.errstate(all="ignore"):
         same = np.allclose(X_ext.astype(float), X, rtol=1e-12, atol=0) and np.allclose(
             y_ext.astype(float), y, rtol=1e-12, atol=0
@@ -562,50 +622,80 @@ def _environment() -> Any:
 
 
 @dataclass(frozen=True, slots=True)
-class _Plan:
-    """patsy's description of a formula whose terms are all numeric expressions."""
+class Plan:
+    """The terms of a formula whose terms are all products of numeric expressions, as patsy names them."""
 
-    x_info: Any
-    y_info: Any
+    x_terms: tuple[tuple[str, ...], ...]  # the factor codes of each right-hand term (none: the intercept)
+    x_names: tuple[str, ...]  # the design's column names
+    y_code: str
+    y_name: str
 
 
-_PLANS: dict[tuple[str, tuple[str, ...]], _Plan | None] = {}
 _PROBE = (2.0, 3.0, 5.0, 7.0)
 
 
-def _plan(formula: str, used: tuple[str, ...]) -> _Plan | None:
+def _plan(formula: str, used: tuple[str, ...]) -> Plan | None:
     """Term structure of a purely numeric formula, worked out once per formula and column set.
 
     Every column a formula uses is numeric here, so patsy's term order, names and
     column counts do not depend on the data: patsy runs once on a small probe table,
     and each dataset's design is then evaluated directly (in extended precision),
-    checked once against patsy's own evaluation of the probe.
+    checked once against patsy's own evaluation of the probe. The result is kept
+    between builds (see :func:`_remember`).
     """
-    key = (formula, used)
-    if key in _PLANS:
-        return _PLANS[key]
-    plan: _Plan | None = None
-    if not any(name in formula for name in _STATEFUL):
-        import patsy  # noqa: PLC0415
-
-        probe = pd.DataFrame({c: list(_PROBE) for c in used}, index=pd.RangeIndex(1, len(_PROBE) + 1))
+    known = _remembered("plan", formula, used)
+    if isinstance(known, dict):
+        if not known:
+            return None
         try:
-            with np.errstate(all="ignore"):
-                y_df, x_df = patsy.dmatrices(
-                    formula, probe, eval_env=_environment(), return_type="dataframe",
-                    NA_action=patsy.NAAction(NA_types=[]),
-                )  # fmt: skip
-        except (patsy.PatsyError, ValueError, TypeError, ArithmeticError, KeyError, NameError):
-            y_df = x_df = None
-        if x_df is not None and y_df is not None and y_df.shape[1] == 1:
-            candidate = _Plan(x_df.design_info, y_df.design_info)
-            mine = _evaluate_design(candidate, probe, np.float64)
-            if mine is not None and _same(mine[0], x_df.to_numpy(float)) and _same(mine[1], y_df.to_numpy(float)[:, 0]):
-                plan = candidate
-    if len(_PLANS) > 256:
-        _PLANS.clear()
-    _PLANS[key] = plan
+            return Plan(
+                x_terms=tuple(tuple(str(c) for c in t) for t in known["x_terms"]),
+                x_names=tuple(str(c) for c in known["x_names"]),
+                y_code=str(known["y_code"]),
+                y_name=str(known["y_name"]),
+            )
+        except (KeyError, TypeError):
+            pass
+    plan = _probe_plan(formula, used)
+    stored = (
+        {"x_terms": [list(t) for t in plan.x_terms], "x_names": list(plan.x_names), "y_code": plan.y_code,
+         "y_name": plan.y_name}
+        if plan is not None
+        else {}
+    )  # fmt: skip
+    _remember("plan", formula, stored, used)
     return plan
+
+
+def _probe_plan(formula: str, used: tuple[str, ...]) -> Plan | None:
+    if any(name in formula for name in _STATEFUL):
+        return None
+    import patsy  # noqa: PLC0415
+
+    probe = from_columns({c: np.array(_PROBE) for c in used})
+    try:
+        with np.errstate(all="ignore"):
+            y_dm, x_dm = patsy.dmatrices(
+                formula, probe.as_dict(), eval_env=_environment(), return_type="matrix",
+                NA_action=patsy.NAAction(NA_types=[]),
+            )  # fmt: skip
+        x_info, y_info = x_dm.design_info, y_dm.design_info
+        (yterm,) = y_info.terms
+        (yfactor,) = yterm.factors
+    except (patsy.PatsyError, ValueError, TypeError, ArithmeticError, KeyError, NameError):
+        return None
+    if y_dm.shape[1] != 1 or x_dm.shape[1] != len(x_info.terms):
+        return None
+    candidate = Plan(
+        x_terms=tuple(tuple(f.code for f in t.factors) for t in x_info.terms),
+        x_names=tuple(str(c) for c in x_info.column_names),
+        y_code=yfactor.code,
+        y_name=str(y_info.column_names[0]),
+    )
+    mine = _evaluate_design(candidate, probe, np.float64)
+    if mine is None or not (_same(mine[0], np.asarray(x_dm)) and _same(mine[1], np.asarray(y_dm)[:, 0])):
+        return None
+    return candidate
 
 
 def _same(a: NDArray[Any], b: NDArray[Any]) -> bool:
@@ -614,57 +704,57 @@ def _same(a: NDArray[Any], b: NDArray[Any]) -> bool:
         return a.shape == b.shape and bool(np.allclose(a, b, rtol=1e-12, atol=0, equal_nan=True))
 
 
-def _namespace(frame: pd.DataFrame, dtype: Any) -> dict[str, Any]:
+def _namespace(table: Table, dtype: Any) -> dict[str, Any]:
     namespace: dict[str, Any] = {
-        str(c): frame[c].to_numpy(dtype=dtype) for c in frame.columns if pd.api.types.is_numeric_dtype(frame[c])
+        name: values.astype(dtype)
+        for name, values in zip(table.names, table.columns, strict=True)
+        if values.dtype.kind in "fiub"
     }
     namespace |= {
         "np": np,
         "numpy": np,
         "I": lambda v: v,
         "Q": lambda name: namespace[name],
-        "__rows__": frame.index,
+        "__rows__": table.rows,
     }
     namespace |= {f: getattr(np, f) for f in SAFE_FUNCTIONS}
     return namespace
 
 
-def _evaluate_terms(x_info: Any, frame: pd.DataFrame, dtype: Any) -> NDArray[Any] | None:
-    """The design columns of ``x_info``'s terms over ``frame``, or None when they cannot be evaluated here."""
-    namespace = _namespace(frame, dtype)
+def _evaluate_terms(x_terms: tuple[tuple[str, ...], ...], table: Table, dtype: Any) -> NDArray[Any] | None:
+    """The design columns of the terms over ``table``, or None when they cannot be evaluated here."""
+    namespace = _namespace(table, dtype)
     try:
         with np.errstate(all="ignore"):
             cols = []
-            for term in x_info.terms:
-                col = np.ones(len(frame), dtype=dtype)
-                for factor in term.factors:
-                    col = col * _evaluate(factor.code, namespace).astype(dtype)
+            for factors in x_terms:
+                col = np.ones(len(table), dtype=dtype)
+                for code in factors:
+                    col = col * _evaluate(code, namespace).astype(dtype)
                 cols.append(col)
     except (TypeError, ValueError, KeyError, NameError, ArithmeticError, AttributeError):
         return None
-    return np.column_stack(cols) if cols else np.empty((len(frame), 0), dtype=dtype)
+    return np.column_stack(cols) if cols else np.empty((len(table), 0), dtype=dtype)
 
 
-def _evaluate_design(plan: _Plan, frame: pd.DataFrame, dtype: Any) -> tuple[NDArray[Any], NDArray[Any]] | None:
-    X = _evaluate_terms(plan.x_info, frame, dtype)
+def _evaluate_design(plan: Plan, table: Table, dtype: Any) -> tuple[NDArray[Any], NDArray[Any]] | None:
+    X = _evaluate_terms(plan.x_terms, table, dtype)
     if X is None:
         return None
-    namespace = _namespace(frame, dtype)
+    namespace = _namespace(table, dtype)
     try:
-        (yterm,) = plan.y_info.terms
-        (yfactor,) = yterm.factors
         with np.errstate(all="ignore"):
-            y = _evaluate(yfactor.code, namespace).astype(dtype)
+            y = _evaluate(plan.y_code, namespace).astype(dtype)
     except (TypeError, ValueError, KeyError, NameError, ArithmeticError, AttributeError):
         return None
     return X, y
 
 
 def _finish_simple(
-    plan: _Plan,
+    plan: Plan,
     *,
     evaluated: tuple[NDArray[Any], NDArray[Any]],
-    data: pd.DataFrame,
+    data: Table,
     dropped: list[tuple[int, str]],
     intercept: bool,
     used: tuple[str, ...],
@@ -674,12 +764,12 @@ def _finish_simple(
     X_ext, y_ext = evaluated
     X = X_ext.astype(float)
     y = y_ext.astype(float)
-    rows = np.asarray(data.index, dtype=np.int64)
+    rows = data.rows
     ok = _defined_rows(X, y, rows, dropped=dropped, name=name, formula=formula)
     if not bool(ok.all()):
         X, y, rows, X_ext, y_ext = X[ok], y[ok], rows[ok], X_ext[ok], y_ext[ok]
-        data = data.loc[rows]
-    terms = tuple(str(c) for c in plan.x_info.column_names)
+        data = data.take(ok)
+    terms = plan.x_names
     _check_constant_terms(X, terms, intercept, name)
     return Design(
         X_ext=np.ascontiguousarray(X_ext),
@@ -687,12 +777,12 @@ def _finish_simple(
         X=np.ascontiguousarray(X),
         y=y,
         terms=terms,
-        response=str(plan.y_info.column_names[0]),
+        response=plan.y_name,
         rows=rows,
         dropped=tuple(sorted(dropped)),
         has_intercept=intercept,
         variables=used,
         data=data,
-        design_info=plan.x_info,
+        design_info=plan,
         simple=True,
     )

@@ -1,7 +1,12 @@
 """Read one dataset's CSV file into a table, with a clear message for every way it can fail.
 
-pandas is the CSV engine; its exceptions are translated here (the one boundary
-for pandas I/O) into :class:`~sitegen.errors.DataFileError` and chained.
+Plain files (UTF-8, no quotes, every cell a number or empty, every line as long
+as the header, under two megabytes) are split here directly; everything else
+goes to pandas' C reader, whose exceptions are translated here (the one boundary
+for pandas I/O) into :class:`~sitegen.errors.DataFileError` and chained. Both
+give the same :class:`~sitegen.table.Table` (the tests read every file of the
+broken-input corpus both ways), and a process that only reads plain files never
+imports pandas.
 Row numbers reported anywhere are 1-based data rows (the header is row 0), so
 blank lines inside the data are kept as empty rows rather than skipped; blank
 lines at the very end of the file are not rows.
@@ -31,15 +36,21 @@ import re
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
-import pandas as pd
+import numpy as np
 
 from sitegen.errors import DataFileError, DataLimitError
 from sitegen.spec import DatasetSpec, Limits
+from sitegen.table import NUMBER, Table, from_columns, from_frame, is_integer_text
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 _CANDIDATE_DELIMITERS = (",", ";", "\t", "|")
 _DELIM_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "vertical bar"}
 _HEAD_BYTES = 1 << 16
+_PLAIN_MAX_BYTES = 2_000_000  # above this, pandas' C reader is faster than splitting lines here
 _LINE_BREAK = re.compile(r"\r\n|\r|\n")
 _SEP_LINE = re.compile(r"^\ufeff?\"?sep=(.)\"?[ \t]*$")
 #: File signatures of things people save with a .csv name by mistake.
@@ -60,9 +71,9 @@ _WIDE_BOMS = (
 
 @dataclass(frozen=True, slots=True)
 class LoadedTable:
-    """A CSV file read into a frame, plus what the reader had to decide."""
+    """A CSV file read into a table, plus what the reader had to decide."""
 
-    frame: pd.DataFrame
+    table: Table
     delimiter: str
     decimal: str
     encoding: str
@@ -300,24 +311,83 @@ def read_table(raw: bytes, spec: DatasetSpec, limits: Limits, name: str) -> Load
             hint=f"remove key 'delimiter' or set it to {_show_char(found)}",
         )
     trailing_blank = _check_header(header, name, limits, decimal)
-    frame = _parse(raw, delimiter, decimal, encoding, name, skip=skip, max_rows=limits.max_rows)
-    frame, dropped = _drop_unnamed(frame, header, trailing_blank, name)
-    if dropped:
-        notes.append(f"{name}: {dropped} unnamed empty column(s) at the end of each line were ignored")
-    if len(frame.columns) > limits.max_columns:
+    how = _Layout(delimiter, decimal, encoding, skip)
+    table = _body(raw, header, how, trailing_blank=trailing_blank, notes=notes, name=name, limits=limits)
+    if len(table.names) > limits.max_columns:
         raise DataLimitError(
-            f"{name} has {len(frame.columns):,} columns, over the limit of {limits.max_columns:,}",
+            f"{name} has {len(table.names):,} columns, over the limit of {limits.max_columns:,}",
             hint="raise [limits] max_columns in site.toml if tables this wide are expected",
         )
-    if len(frame) == 0:
+    if len(table) == 0:
         raise DataFileError(f"{name} has a header but no data rows", hint="add data rows below the header")
-    if len(frame) > limits.max_rows:
+    if len(table) > limits.max_rows:
         raise DataLimitError(
             f"{name} has more than {limits.max_rows:,} data rows, the limit",
             hint="raise [limits] max_rows in site.toml if tables this long are expected",
         )
-    frame.index = pd.RangeIndex(1, len(frame) + 1)
-    return LoadedTable(frame=frame, delimiter=delimiter, decimal=decimal, encoding=wide or encoding, notes=tuple(notes))
+    return LoadedTable(table=table, delimiter=delimiter, decimal=decimal, encoding=wide or encoding, notes=tuple(notes))
+
+
+@dataclass(frozen=True, slots=True)
+class _Layout:
+    delimiter: str
+    decimal: str
+    encoding: str
+    skip: int  # lines before the header
+
+
+def _body(
+    raw: bytes, header: list[str], how: _Layout, *, trailing_blank: int, notes: list[str], name: str, limits: Limits
+) -> Table:
+    """The data rows: split here when the file is plain, else by pandas."""
+    if not trailing_blank and how.decimal == "." and how.encoding == "utf-8-sig":
+        plain = read_plain(raw, how.delimiter, skip=how.skip, width=len(header))
+        if plain is not None:
+            return plain
+    frame = _parse(raw, how.delimiter, how.decimal, how.encoding, name, skip=how.skip, max_rows=limits.max_rows)
+    frame, dropped = _drop_unnamed(frame, header, trailing_blank, name)
+    if dropped:
+        notes.append(f"{name}: {dropped} unnamed empty column(s) at the end of each line were ignored")
+    table = from_frame(frame)
+    return Table(table.names, table.columns, np.arange(1, len(frame) + 1, dtype=np.int64))
+
+
+def read_plain(raw: bytes, delimiter: str, *, skip: int, width: int) -> Table | None:
+    """The table of a plain file, or None when the file needs the general reader.
+
+    Plain: at most two megabytes of UTF-8 without quotation marks, every line holding
+    ``width`` fields, and every cell a number (as :data:`~sitegen.table.NUMBER`) or empty.
+    A column of whole numbers without gaps is read as integers, as pandas reads it.
+    """
+    if len(raw) > _PLAIN_MAX_BYTES or b'"' in raw:
+        return None
+    try:
+        text = raw.decode("utf-8-sig")
+    except UnicodeDecodeError:
+        return None
+    lines = _LINE_BREAK.split(text)
+    if lines and lines[-1] == "":
+        lines.pop()  # the last line's own line end
+    header = lines[skip].split(delimiter) if len(lines) > skip else []
+    body = lines[skip + 1 :]
+    if len(header) != width:
+        return None
+    cells: list[list[str]] = [[] for _ in range(width)]
+    for line in body:
+        fields = line.split(delimiter)
+        if len(fields) != width:
+            return None  # blank lines, short or long lines: the general reader words these
+        for column, cell in zip(cells, fields, strict=True):
+            column.append(cell)
+    columns: dict[str, np.ndarray] = {}
+    for name, column in zip((h.strip() for h in header), cells, strict=True):
+        if not all(c == "" or NUMBER.fullmatch(c) for c in column):
+            return None
+        if column and "" not in column and is_integer_text(column):
+            columns[name] = np.array([int(c) for c in column], dtype=np.int64)
+        else:
+            columns[name] = np.array([float(c) if c else np.nan for c in column], dtype=np.float64)
+    return from_columns(columns)
 
 
 def _header(head: str, delimiter: str, name: str) -> list[str]:
@@ -401,6 +471,8 @@ def _parse(
         if delimiter == ","
         else ""
     )
+    import pandas as pd  # noqa: PLC0415 - only files that are not plain need it
+
     try:
         with warnings.catch_warnings():
             # pandas warns (and drops values) when the first data line has more fields than the header.

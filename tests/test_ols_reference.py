@@ -265,7 +265,8 @@ def test_bands_at_new_values_match_get_prediction(case: Case) -> None:
     if case.weights is None:
         pred = ref.get_prediction(exog=case.new)
     else:
-        exog_new = patsy.build_design_matrices([design.design_info], case.new, return_type="dataframe")[0]
+        _, x_ref = patsy.dmatrices(case.formula, case.frame, return_type="dataframe")  # patsy's own design
+        exog_new = patsy.build_design_matrices([x_ref.design_info], case.new, return_type="dataframe")[0]
         pred = ref.get_prediction(exog=exog_new, weights=w_new)
     _assert_bands_match(bands(fit, X_new, w_new), pred.summary_frame(alpha=1 - case.level))
 

@@ -12,6 +12,7 @@ import os
 import shutil
 from pathlib import Path
 
+from sitegen.cache import cache_dir
 from sitegen.report.theme import Theme
 
 BUNDLE = "assets/vendor/vega-bundle.js"
@@ -26,12 +27,6 @@ def bundle_version() -> str:
         f"vl-convert {getattr(vlc, '__version__', '?')}; vega {vlc.get_vega_version()}; "
         f"vega-lite {vlc.get_vegalite_versions()[-1]}; vega-embed {vlc.get_vega_embed_version()}\n"
     )
-
-
-def cache_dir() -> Path:
-    """sitegen's folder in the user's cache (chart bundle, compiled templates)."""
-    base = os.environ.get("XDG_CACHE_HOME") or str(Path.home() / ".cache")
-    return Path(base) / "sitegen"
 
 
 def _bundle_text() -> str:

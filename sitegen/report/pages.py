@@ -64,7 +64,7 @@ def _show_char(value: str) -> str:
 
 def _bytecode_cache() -> jinja2.BytecodeCache | None:
     """Compiled templates kept in the user's cache folder (keyed by template source), if it is writable."""
-    from sitegen.report.assets import cache_dir  # noqa: PLC0415
+    from sitegen.cache import cache_dir  # noqa: PLC0415
 
     folder = cache_dir() / "templates"
     try:
