@@ -372,6 +372,14 @@ class _Build:
     ) -> None:
         self.work, self.prev, self.sources, self.prints = work, prev, sources, prints
         self.config, self.site_key, self.run, self.progress = config, site_key, run, progress
+        self.fit_shas: dict[str, str] = {}  # reused datasets: the checked sha256 of their (linked) fit.json
+        self.then_files: dict[str, dict[str, int]] = {}  # the previous manifest by dataset folder
+        files = prev.body.get("files")
+        if isinstance(files, dict):
+            for key, size in files.items():
+                if key.startswith("datasets/"):
+                    slug, _, name = key[len("datasets/") :].partition("/")
+                    self.then_files.setdefault(slug, {})[name] = size
 
     def _stored_light(self, entry: dict[str, Any], old: Path, slug: str) -> FitReport | None:
         """The stored result, light: from build.json when its fit.json is unchanged, else parsed from fit.json."""
@@ -381,7 +389,9 @@ class _Build:
         if isinstance(index, dict) and entry.get("fit_sha256") and index.get("status") != "error":
             try:
                 if _file_sha256(old / "fit.json") == entry["fit_sha256"]:
-                    return report_from_index_entry(index, str(entry.get("input_sha256", "")))
+                    report = report_from_index_entry(index, str(entry.get("input_sha256", "")))
+                    self.fit_shas[slug] = str(entry["fit_sha256"])
+                    return report
             except (OSError, KeyError, TypeError, ValueError):
                 pass
         return _stored_report(old, slug)
@@ -395,24 +405,24 @@ class _Build:
         report = self._stored_light(entry, old, src.slug)
         if report is None:
             return None
-        prefix = f"datasets/{src.slug}/"
-        then = self.prev.body.get("files")
-        then_here = {k: v for k, v in then.items() if k.startswith(prefix)} if isinstance(then, dict) else {}
-        if not then_here or then_here != {prefix + k: v for k, v in _manifest(old).items()}:
+        then_here = self.then_files.get(src.slug)
+        here = _manifest(old)
+        if not then_here or then_here != here:
+            self.fit_shas.pop(src.slug, None)
             return None  # a file of its folder is missing or changed since the previous build wrote it
         new = self.work / "datasets" / src.slug
         new.mkdir(parents=True, exist_ok=True)
         files = []
-        for path in sorted(old.iterdir()):
-            if not path.is_file() or path.name == "index.html":
+        for name in here:  # sorted; files only
+            if name == "index.html" or "/" in name:
                 continue
-            if path.name.startswith("chart-") and path.name.endswith(".svg"):
+            if name.startswith("chart-") and name.endswith(".svg"):
                 # Static chart images belong to the page: kept only while the site asks for them.
                 if self.config.static_images:
-                    _link_or_copy(path, new / path.name)
+                    _link_or_copy(old / name, new / name)
                 continue
-            _link_or_copy(path, new / path.name)
-            files.append(path.name)
+            _link_or_copy(old / name, new / name)
+            files.append(name)
         return report, tuple(files)
 
     def execute(self, theme: Theme) -> tuple[tuple[Outcome, ...], int, list[str], tuple[tuple[str, str], ...]]:
@@ -509,7 +519,8 @@ class _Build:
         import platform  # noqa: PLC0415
 
         for entry in entries:  # lets a rebuild trust a stored result without parsing it
-            entry["fit_sha256"] = _file_sha256(self.work / "datasets" / entry["dataset"] / "fit.json")
+            known = self.fit_shas.get(entry["dataset"]) if entry["reused"] else None
+            entry["fit_sha256"] = known or _file_sha256(self.work / "datasets" / entry["dataset"] / "fit.json")
         body = {
             "generator": "sitegen",
             "sitegen_version": __version__,

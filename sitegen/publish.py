@@ -175,7 +175,7 @@ def pack(site: Path, target: Path) -> int:
                 info = zipfile.ZipInfo(f"{top}/{rel}", date_time=(2000, 1, 1, 0, 0, 0))
                 info.compress_type = zipfile.ZIP_DEFLATED
                 info.external_attr = 0o644 << 16
-                zf.writestr(info, path.read_bytes())
+                zf.writestr(info, path.read_bytes(), compresslevel=9)  # a ZipInfo does not take the archive's
         tmp.replace(target)
     except OSError as exc:
         tmp.unlink(missing_ok=True)

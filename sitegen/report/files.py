@@ -16,10 +16,11 @@ if TYPE_CHECKING:
 from sitegen.discover import DatasetSource
 from sitegen.jsontext import json_text
 from sitegen.model import FitReport, to_json
-from sitegen.report.tables import clean_rows, frame_from_columns, rows_from_columns, rows_to_csv_bytes, write_csv
-from sitegen.report.xlsx import workbook_bytes
+from sitegen.report.tables import clean_rows, rows_from_columns, rows_to_csv_bytes, write_large_csv
+from sitegen.report.xlsx import Sheet, workbook, workbook_bytes
 
 XLSX_MAX_ROWS = 50_000  # larger observation tables are offered as CSV only
+WORKBOOK = "tables.xlsx"  # every table of a dataset, a sheet each
 SUMMARY_COLUMNS = (
     "dataset",
     "title",
@@ -158,26 +159,24 @@ def summary_files(work: Path, reports: Sequence[FitReport]) -> None:
     (work / "summary.json").write_text(json_text(body), encoding="utf-8")
 
 
-def _table(folder: Path, name: str, columns: Sequence[str], rows: Sequence[Sequence[Any]], xlsx: bool) -> list[str]:
+def _table(folder: Path, name: str, columns: Sequence[str], rows: Sequence[Sequence[Any]], book: list[Sheet]) -> str:
+    """Write ``name``.csv; the table also goes into the dataset's workbook."""
     header, cells = clean_rows(columns, rows)
     (folder / f"{name}.csv").write_bytes(rows_to_csv_bytes(header, cells))
-    out = [f"{name}.csv"]
-    if xlsx:
-        (folder / f"{name}.xlsx").write_bytes(workbook_bytes(header, cells, name))
-        out.append(f"{name}.xlsx")
-    return out
+    book.append((name, header, cells))
+    return f"{name}.csv"
 
 
-def _observations(folder: Path, obs: Observations) -> list[str]:
+def _observations(folder: Path, obs: Observations, book: list[Sheet]) -> str:
     n = len(obs.values[0]) if obs.values else 0
-    if n > XLSX_MAX_ROWS:  # large: pandas streams the CSV in chunks; no workbook
-        write_csv(frame_from_columns(obs.columns, obs.values), folder / "observations.csv")
-        return ["observations.csv"]
+    if n > XLSX_MAX_ROWS:  # large: pandas streams the CSV in chunks; not in the workbook
+        write_large_csv(obs.columns, obs.values, folder / "observations.csv")
+        return "observations.csv"
     header, _ = clean_rows(obs.columns, [])
     cells = rows_from_columns(obs.values)
     (folder / "observations.csv").write_bytes(rows_to_csv_bytes(header, cells))
-    (folder / "observations.xlsx").write_bytes(workbook_bytes(header, cells, "observations"))
-    return ["observations.csv", "observations.xlsx"]
+    book.append(("observations", header, cells))
+    return "observations.csv"
 
 
 def dataset_files(
@@ -197,20 +196,16 @@ def dataset_files(
             pass
     if r.status == "error":
         return sorted(files)
+    book: list[Sheet] = []
     coef_rows = [[getattr(c, k) for k in COEFFICIENT_COLUMNS] for c in r.coefficients]
     extra = ("robust_std_error", "robust_ci_low", "robust_ci_high", "robust_p_value")
     if r.coefficients and r.coefficients[0].robust_std_error is not None:
         coef_rows = [row + [getattr(c, k) for k in extra] for row, c in zip(coef_rows, r.coefficients, strict=True)]
-        files += _table(folder, "coefficients", COEFFICIENT_COLUMNS + extra, coef_rows, True)
+        files.append(_table(folder, "coefficients", COEFFICIENT_COLUMNS + extra, coef_rows, book))
     else:
-        files += _table(folder, "coefficients", COEFFICIENT_COLUMNS, coef_rows, True)
-    files += _table(
-        folder,
-        "anova",
-        ("source", "df", "sum_sq", "mean_sq", "f_stat", "p_value"),
-        [list(asdict(a).values()) for a in r.anova],
-        False,
-    )
+        files.append(_table(folder, "coefficients", COEFFICIENT_COLUMNS, coef_rows, book))
+    anova_cols = ("source", "df", "sum_sq", "mean_sq", "f_stat", "p_value")
+    files.append(_table(folder, "anova", anova_cols, [list(asdict(a).values()) for a in r.anova], book))
     if r.lines:
         cols: tuple[str, ...] = (
             "method",
@@ -223,17 +218,18 @@ def dataset_files(
             "interval_method",
             "label",
         )
-        files += _table(folder, "lines", cols, [[getattr(ln, c) for c in cols] for ln in r.lines], True)
+        files.append(_table(folder, "lines", cols, [[getattr(ln, c) for c in cols] for ln in r.lines], book))
     if r.calibration:
         cal_cols = ("response", "estimate", "std_error", "ci_low", "ci_high", "readings", "method", "bounded")
-        files += _table(
-            folder, "calibration", cal_cols, [[getattr(c, k) for k in cal_cols] for c in r.calibration], True
-        )
+        cal_rows = [[getattr(c, k) for k in cal_cols] for c in r.calibration]
+        files.append(_table(folder, "calibration", cal_cols, cal_rows, book))
     if r.predictions:
         names = sorted({k for p in r.predictions for k, _ in p.at})
         pred_cols = ("fitted", "std_error", "mean_ci_low", "mean_ci_high", "pred_low", "pred_high")
         rows = [[dict(p.at).get(n) for n in names] + [getattr(p, c) for c in pred_cols] for p in r.predictions]
-        files += _table(folder, "predictions", (*names, *pred_cols), rows, True)
+        files.append(_table(folder, "predictions", (*names, *pred_cols), rows, book))
     if obs is not None:
-        files += _observations(folder, obs)
+        files.append(_observations(folder, obs, book))
+    (folder / WORKBOOK).write_bytes(workbook(book))
+    files.append(WORKBOOK)
     return sorted(files)

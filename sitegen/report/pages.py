@@ -198,9 +198,8 @@ def _downloads(r: FitReport, files: Sequence[str]) -> list[tuple[str, str, str]]
     for name, what in _DESCRIBED.items():
         if name in files:
             out.append((name, name, what))
-            book = name.removesuffix(".csv") + ".xlsx"
-            if name.endswith(".csv") and book in files:
-                out.append((book, book, "the same as a workbook"))
+    if "tables.xlsx" in files:
+        out.append(("tables.xlsx", "tables.xlsx", "the tables above in one workbook, a sheet each"))
     original = r.source.rsplit("/", 1)[-1]
     out += [
         (f, f"original file ({original})", "the data file exactly as delivered")

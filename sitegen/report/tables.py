@@ -15,7 +15,6 @@ from pathlib import Path
 from typing import Any
 
 import numpy as np
-import pandas as pd
 
 #: First characters that make a spreadsheet read a text cell as a formula (common practice:
 #: = + - @ tab CR), plus their full-width forms, which some spreadsheet input methods convert.
@@ -68,20 +67,6 @@ def rows_from_columns(values: Sequence[np.ndarray[Any, Any]]) -> list[list[Any]]
     return [list(r) for r in zip(*cols, strict=True)]
 
 
-def frame_from_columns(columns: Sequence[str], values: Sequence[np.ndarray[Any, Any]]) -> pd.DataFrame:
-    """A frame from column arrays (fast path for large observation tables)."""
-    data: dict[str, Any] = {}
-    for name, arr in zip(columns, values, strict=True):
-        key = neutralise(str(name))
-        if arr.dtype.kind == "f":
-            data[key] = np.where(np.isfinite(arr), arr, np.nan)
-        elif arr.dtype.kind in "iub":
-            data[key] = arr
-        else:
-            data[key] = [_cell(v) for v in arr.tolist()]
-    return pd.DataFrame(data)
-
-
 def _one_line_end(value: Any) -> Any:
     # With LF line ends the CSV writer quotes a cell holding "\n" but not one holding a bare "\r",
     # which readers take for a line break: text line ends become "\n" so such cells are quoted.
@@ -90,25 +75,21 @@ def _one_line_end(value: Any) -> Any:
     return value
 
 
-def write_csv(frame: pd.DataFrame, path: Path) -> None:
-    """CSV like :func:`rows_to_csv_bytes`, streamed to a file in chunks (large tables never sit in memory as text)."""
+def write_large_csv(columns: Sequence[str], values: Sequence[np.ndarray[Any, Any]], path: Path) -> None:
+    """CSV like :func:`rows_to_csv_bytes` for a large table, streamed in chunks by pandas.
+
+    Large tables never sit in memory as text; pandas is imported only here.
+    """
+    import pandas as pd  # noqa: PLC0415
+
+    data: dict[str, Any] = {}
+    for name, arr in zip(columns, values, strict=True):
+        key = _one_line_end(neutralise(str(name)))
+        if arr.dtype.kind == "f":
+            data[key] = np.where(np.isfinite(arr), arr, np.nan)
+        elif arr.dtype.kind in "iub":
+            data[key] = arr
+        else:
+            data[key] = [_one_line_end(_cell(v)) for v in arr.tolist()]
     with path.open("w", encoding="utf-8", newline="") as fh:
-        _prepared(frame).to_csv(fh, index=False, na_rep="", lineterminator="\n", chunksize=20_000)
-
-
-def _prepared(frame: pd.DataFrame) -> pd.DataFrame:
-    """Text cells with a bare carriage return get LF line ends, so the CSV writer quotes them."""
-    fixed: dict[int, list[Any]] = {}
-    for i in range(frame.shape[1]):
-        col = frame.iloc[:, i]
-        if pd.api.types.is_numeric_dtype(col):
-            continue
-        values = col.tolist()
-        if any(isinstance(v, str) and "\r" in v for v in values):
-            fixed[i] = [_one_line_end(v) for v in values]
-    if fixed or any("\r" in str(c) for c in frame.columns):
-        frame = frame.copy()
-        for i, values in fixed.items():
-            frame.isetitem(i, values)
-        frame.columns = [_one_line_end(str(c)) for c in frame.columns]
-    return frame
+        pd.DataFrame(data).to_csv(fh, index=False, na_rep="", lineterminator="\n", chunksize=20_000)

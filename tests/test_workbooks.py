@@ -1,0 +1,59 @@
+"""Each dataset's workbook (tables.xlsx) holds every table of its folder, cell for cell as in the CSV files.
+
+openpyxl, an independent reader of the format, opens each workbook; numbers must come
+back as numbers equal to the CSV's shortest round-trip text, text as text.
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+from pathlib import Path
+
+from conftest import Built
+from openpyxl import load_workbook
+
+
+def _csv_cell(text: str) -> object:
+    if text == "":
+        return None
+    try:
+        return float(text)
+    except ValueError:
+        return text
+
+
+def _book_cell(value: object) -> object:
+    if isinstance(value, bool) or value is None or isinstance(value, str):
+        return value
+    assert isinstance(value, int | float)
+    return float(value)
+
+
+def test_every_table_is_a_sheet_with_the_csv_values(example_build: Built) -> None:
+    folders = sorted(p for p in (example_build.site / "datasets").iterdir() if (p / "tables.xlsx").is_file())
+    assert len(folders) >= 10
+    for folder in folders:
+        wb = load_workbook(folder / "tables.xlsx", read_only=True)
+        tables = sorted(p.stem for p in folder.glob("*.csv") if not p.name.startswith("source-"))
+        assert sorted(wb.sheetnames) == tables, folder.name
+        for name in tables:
+            with (folder / f"{name}.csv").open(encoding="utf-8", newline="") as fh:
+                expected = [[_csv_cell(c) for c in row] for row in csv.reader(fh)]
+            got = [[_book_cell(c) for c in row] for row in wb[name].iter_rows(values_only=True)]
+            assert len(got) == len(expected), (folder.name, name)
+            for row_got, row_expected in zip(got, expected, strict=True):
+                for a, b in zip(row_got, row_expected, strict=True):
+                    if isinstance(b, float) and math.isnan(b):
+                        continue
+                    if isinstance(a, bool):  # a true/false cell; the CSV writes True/False
+                        a = str(a)
+                    if isinstance(b, float) and isinstance(a, str):
+                        b = _text(folder / f"{name}.csv", a)  # a text cell that happens to look numeric
+                    assert a == b, (folder.name, name, a, b)
+        wb.close()
+
+
+def _text(path: Path, value: str) -> str:
+    assert value in path.read_text(encoding="utf-8")
+    return value
