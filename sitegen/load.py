@@ -219,6 +219,8 @@ def _lines(text: str, limit: int) -> list[str]:
 
 
 def _fields(line: str, delimiter: str) -> list[str]:
+    if '"' not in line:
+        return line.split(delimiter)  # nothing quoted: the csv module would split it the same way
     try:
         return next(csv.reader([line], delimiter=delimiter), [])
     except csv.Error:

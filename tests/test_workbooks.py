@@ -43,17 +43,17 @@ def test_every_table_is_a_sheet_with_the_csv_values(example_build: Built) -> Non
             got = [[_book_cell(c) for c in row] for row in wb[name].iter_rows(values_only=True)]
             assert len(got) == len(expected), (folder.name, name)
             for row_got, row_expected in zip(got, expected, strict=True):
-                for a, b in zip(row_got, row_expected, strict=True):
-                    if isinstance(b, float) and math.isnan(b):
-                        continue
-                    if isinstance(a, bool):  # a true/false cell; the CSV writes True/False
-                        a = str(a)
-                    if isinstance(b, float) and isinstance(a, str):
-                        b = _text(folder / f"{name}.csv", a)  # a text cell that happens to look numeric
-                    assert a == b, (folder.name, name, a, b)
+                for cell, want in zip(row_got, row_expected, strict=True):
+                    _check_cell(cell, want, folder / f"{name}.csv")
         wb.close()
 
 
-def _text(path: Path, value: str) -> str:
-    assert value in path.read_text(encoding="utf-8")
-    return value
+def _check_cell(cell: object, want: object, path: Path) -> None:
+    if isinstance(want, float) and math.isnan(want):
+        return
+    if isinstance(cell, bool):  # a true/false cell; the CSV writes True/False
+        assert str(cell) == want, (path, cell, want)
+    elif isinstance(want, float) and isinstance(cell, str):  # a text cell that happens to look numeric
+        assert cell in path.read_text(encoding="utf-8"), (path, cell)
+    else:
+        assert cell == want, (path, cell, want)

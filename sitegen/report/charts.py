@@ -461,18 +461,23 @@ def _short(value: Any) -> Any:
     return value
 
 
+_PLAIN = frozenset((float, int, type(None)))
+
+
 def _short_column(values: Sequence[Any]) -> list[Any]:
     """A column cut to the digits a chart can show: SIGNIFICANT digits of the column's largest value."""
-    if not all(v is None or isinstance(v, float | int) for v in values):
+    if not _PLAIN.issuperset(map(type, values)):
         return [_short(v) for v in values]
-    arr = np.array([np.nan if v is None else v for v in values], dtype=float)
+    arr = np.array(values, dtype=float)  # None becomes NaN
     finite = np.isfinite(arr)
     top = float(np.max(np.abs(arr[finite]))) if finite.any() else 0.0
     if top == 0.0:
         return [None if v is None else v for v in values]
     decimals = SIGNIFICANT - 1 - math.floor(math.log10(top))
-    rounded = np.round(arr, decimals).tolist() if decimals < 300 else arr.tolist()
-    return [v if math.isfinite(v) else None for v in rounded]
+    rounded: list[Any] = np.round(arr, decimals).tolist() if decimals < 300 else arr.tolist()
+    for i in np.flatnonzero(~finite).tolist():
+        rounded[i] = None
+    return rounded
 
 
 def _records(columns: Sequence[str], rows: Sequence[Sequence[Any]]) -> list[dict[str, Any]]:

@@ -315,9 +315,32 @@ def _norm_ppf_one(p: float) -> float:
 
 
 def norm_ppf(q: ArrayLike) -> NDArray[np.float64]:
-    """Standard normal quantiles."""
+    """Standard normal quantiles (elementwise; the same steps as for one value, on whole arrays)."""
     arr = np.asarray(q, dtype=float)
-    return np.array([_norm_ppf_one(v) for v in arr.ravel().tolist()], dtype=np.float64).reshape(arr.shape)
+    p = arr.ravel()
+    tail = np.minimum(p, 1.0 - p)  # exact for p ≥ ½
+    inside = (tail > 0.0) & ~np.isnan(p)
+    t = np.where(inside, tail, 0.5)
+    z = np.empty_like(t)
+    low = t < _P_LOW
+    if low.any():
+        r = np.sqrt(-2.0 * np.log(t[low]))
+        num = ((((_C[0] * r + _C[1]) * r + _C[2]) * r + _C[3]) * r + _C[4]) * r + _C[5]
+        z[low] = num / ((((_D[0] * r + _D[1]) * r + _D[2]) * r + _D[3]) * r + 1.0)
+    mid = ~low
+    if mid.any():
+        c = t[mid] - 0.5
+        r = c * c
+        num = (((((_A[0] * r + _A[1]) * r + _A[2]) * r + _A[3]) * r + _A[4]) * r + _A[5]) * c
+        z[mid] = num / (((((_B[0] * r + _B[1]) * r + _B[2]) * r + _B[3]) * r + _B[4]) * r + 1.0)
+    for _ in range(2):  # Halley steps on the exact lower tail
+        upper = np.fromiter(map(math.erfc, (-z / math.sqrt(2.0)).tolist()), dtype=float, count=z.size)
+        u = (0.5 * upper - t) * math.sqrt(2.0 * math.pi) * np.exp(z * z / 2.0)
+        z = z - u / (1.0 + z * u / 2.0)
+    out = np.where(p <= 0.5, z, -z)
+    out = np.where(inside, out, np.where(p == 0.0, -np.inf, np.where(p == 1.0, np.inf, np.nan)))
+    out[t == 0.5] = 0.0
+    return np.asarray(out, dtype=np.float64).reshape(arr.shape)
 
 
 def norm_sf(z: float) -> float:

@@ -8,6 +8,7 @@ import scipy.stats.
 
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Sequence
 
@@ -33,11 +34,17 @@ def _poly(c: Sequence[float], x: float) -> float:
     return r
 
 
+@functools.lru_cache(maxsize=64)
 def _weights(n: int) -> np.ndarray[tuple[int], np.dtype[np.float64]]:
-    """Royston's coefficients for the lower half of the ordered sample (positive)."""
+    """Royston's coefficients for the lower half of the ordered sample (positive); they depend on n only.
+
+    The cached array is read-only, so no caller can change it for the next dataset.
+    """
     half = n // 2
     if n == 3:
-        return np.array([math.sqrt(0.5)])
+        three = np.array([math.sqrt(0.5)])
+        three.flags.writeable = False
+        return three
     m_all = norm_ppf((np.arange(1, n + 1) - 0.375) / (n + 0.25))
     m = -m_all[:half]  # positive
     summ2 = float(np.sum(m_all**2))
@@ -52,6 +59,7 @@ def _weights(n: int) -> np.ndarray[tuple[int], np.dtype[np.float64]]:
     else:
         fac = math.sqrt((summ2 - 2 * m[0] ** 2) / (1 - 2 * a[0] ** 2))
         a[1:] = m[1:] / fac
+    a.flags.writeable = False
     return a
 
 
