@@ -96,22 +96,58 @@ def _file_sha256(path: Path) -> str:
         return hashlib.file_digest(fh, "sha256").hexdigest()
 
 
-def _fingerprint(src: DatasetSource, config: SiteConfig, versions: dict[str, str]) -> tuple[str, str]:
-    """(input sha256, fingerprint of everything that shapes the dataset's numbers)."""
+#: A file whose modification time is this close to the moment its hash was recorded is hashed
+#: again next time, as its content may still change within the file system's clock resolution
+#: (common practice: git's rule for "racily clean" files).
+_RACY_NS = 2_000_000_000
+
+
+def _stat(path: Path) -> list[int] | None:
     try:
-        csv_sha = _file_sha256(src.csv_path)
+        st = path.stat()
     except OSError:
-        return "", ""
-    sidecar = b""
-    if src.sidecar_path is not None:
+        return None
+    return [st.st_size, st.st_mtime_ns, st.st_ino]
+
+
+def _known_sha(stat: list[int] | None, record: Any, name: str) -> str | None:
+    """The recorded sha256 of file ``name`` when its size, time and inode are as recorded, else None."""
+    if stat is None or not isinstance(record, dict) or record.get(name) != stat:
+        return None
+    sha = record.get(f"{name}_sha256")
+    return sha if isinstance(sha, str) and len(sha) == 64 else None
+
+
+def _fingerprint(
+    src: DatasetSource, config: SiteConfig, versions: dict[str, str], record: Any = None
+) -> tuple[str, str, dict[str, Any]]:
+    """(input sha256, fingerprint of everything that shapes the dataset's numbers, stat record).
+
+    Files whose size, modification time and inode match the previous build's record are not
+    read again; their recorded hashes stand (the record is kept in build.json).
+    """
+    now = time.time_ns()
+    csv_stat = _stat(src.csv_path)
+    csv_sha = _known_sha(csv_stat, record, "csv")
+    if csv_sha is None:
         try:
-            sidecar = src.sidecar_path.read_bytes()
+            csv_sha = _file_sha256(src.csv_path)
         except OSError:
-            sidecar = b"<unreadable>"
+            return "", "", {}
+    side_stat = _stat(src.sidecar_path) if src.sidecar_path is not None else None
+    side_sha = _known_sha(side_stat, record, "sidecar") if src.sidecar_path else _sha256(b"")
+    if side_sha is None:
+        sidecar = b""
+        if src.sidecar_path is not None:
+            try:
+                sidecar = src.sidecar_path.read_bytes()
+            except OSError:
+                sidecar = b"<unreadable>"
+        side_sha = _sha256(sidecar)
     payload = json.dumps(
         {
             "csv": csv_sha,
-            "sidecar": _sha256(sidecar),
+            "sidecar": side_sha,
             "defaults": [[k, v] for k, v in config.defaults],
             "limits": [config.limits.max_megabytes, config.limits.max_rows, config.limits.max_columns],
             "path": [src.relpath, src.slug, src.section],
@@ -122,7 +158,12 @@ def _fingerprint(src: DatasetSource, config: SiteConfig, versions: dict[str, str
         sort_keys=True,
         default=str,
     )
-    return csv_sha, _sha256(payload.encode())
+
+    def settled(stat: list[int] | None) -> list[int] | None:
+        return stat if stat is not None and stat[1] < now - _RACY_NS else None
+
+    stats = {"csv": settled(csv_stat), "csv_sha256": csv_sha, "sidecar": settled(side_stat), "sidecar_sha256": side_sha}
+    return csv_sha, _sha256(payload.encode()), stats
 
 
 def _site_key(config: SiteConfig, theme: Theme) -> str:
@@ -252,9 +293,13 @@ def run_build(
     site_key = _site_key(config, theme)
     with build_folder(out_dir) as work:
         prev = _previous(out_dir) if not options.refit else _Previous(None, {}, "", {})
-        prints = {s.slug: _fingerprint(s, config, versions) for s in sources}
+        measured = {
+            s.slug: _fingerprint(s, config, versions, prev.entries.get(s.slug, {}).get("stat")) for s in sources
+        }
+        prints = {slug: (m[0], m[1]) for slug, m in measured.items()}
+        stats = {slug: m[2] for slug, m in measured.items()}
         if _nothing_changed(prev, sources, prints, site_key):
-            outcomes = _touch_build_json(out_dir, prev)
+            outcomes = _touch_build_json(out_dir, prev, stats)
             return BuildSummary(out_dir, outcomes, 0, len(sources), time.perf_counter() - started, tuple(warnings))
         from sitegen.executor import make_executor  # noqa: PLC0415 - a process pool only when there is work
 
@@ -269,6 +314,7 @@ def run_build(
                 run=run,
                 progress=progress,
             )
+            state.stats = stats
             summary = state.execute(theme)
         swap_in(work, out_dir)
     return BuildSummary(
@@ -293,14 +339,29 @@ def _nothing_changed(
         e = prev.entries[s.slug]
         if e.get("fingerprint") != prints[s.slug][1] or not prints[s.slug][1] or e.get("status") == "error":
             return False
-        stored = prev.site / "datasets" / s.slug / "fit.json"
-        try:
-            if not e.get("fit_sha256") or _file_sha256(stored) != e["fit_sha256"]:
-                return False  # missing, changed or corrupt since the previous build wrote it
-        except OSError:
-            return False
+        if not _fit_json_intact(prev.site / "datasets" / s.slug / "fit.json", e):
+            return False  # missing, changed or corrupt since the previous build wrote it
     # every file the previous build wrote is still there at its size, and nothing else is
     return prev.body.get("files") == _manifest(prev.site)
+
+
+def _fit_json_intact(path: Path, entry: dict[str, Any]) -> bool:
+    """The stored fit.json is the one the previous build recorded: same size, time and inode, or same sha256.
+
+    Our own output, recorded right after it was written; a file rewritten since has a new time.
+    """
+    sha = entry.get("fit_sha256")
+    if not sha:
+        return False
+    stat = _stat(path)
+    if stat is None:
+        return False
+    if stat == entry.get("fit_stat"):
+        return True
+    try:
+        return bool(_file_sha256(path) == sha)
+    except OSError:
+        return False
 
 
 def _manifest(site: Path) -> dict[str, int]:
@@ -333,11 +394,11 @@ def _stored_report(folder: Path, slug: str) -> FitReport | None:
     return report
 
 
-def _touch_build_json(out_dir: Path, prev: _Previous) -> tuple[Outcome, ...]:
+def _touch_build_json(out_dir: Path, prev: _Previous, stats: dict[str, dict[str, Any]]) -> tuple[Outcome, ...]:
     """Nothing changed: record this build in build.json (atomically) and leave the rest."""
     body = dict(prev.body)
     body["built_at"] = datetime.now(UTC).isoformat(timespec="seconds")
-    body["datasets"] = [dict(e, reused=True) for e in body.get("datasets", [])]
+    body["datasets"] = [dict(e, reused=True, stat=stats.get(e.get("dataset"), {})) for e in body.get("datasets", [])]
     tmp = out_dir / f".build.json.{os.getpid()}.tmp"
     tmp.write_text(json_text(body), encoding="utf-8")
     tmp.replace(out_dir / "build.json")
@@ -372,6 +433,7 @@ class _Build:
     ) -> None:
         self.work, self.prev, self.sources, self.prints = work, prev, sources, prints
         self.config, self.site_key, self.run, self.progress = config, site_key, run, progress
+        self.stats: dict[str, dict[str, Any]] = {}  # per dataset: file stats and hashes, for the next build
         self.fit_shas: dict[str, str] = {}  # reused datasets: the checked sha256 of their (linked) fit.json
         self.then_files: dict[str, dict[str, int]] = {}  # the previous manifest by dataset folder
         files = prev.body.get("files")
@@ -386,9 +448,11 @@ class _Build:
         from sitegen.report.files import report_from_index_entry  # noqa: PLC0415
 
         index = entry.get("index")
+        if entry.get("fit_sha256") and not _fit_json_intact(old / "fit.json", entry):
+            return None  # changed since the previous build wrote it: fit again rather than trust it
         if isinstance(index, dict) and entry.get("fit_sha256") and index.get("status") != "error":
             try:
-                if _file_sha256(old / "fit.json") == entry["fit_sha256"]:
+                if _fit_json_intact(old / "fit.json", entry):
                     report = report_from_index_entry(index, str(entry.get("input_sha256", "")))
                     self.fit_shas[slug] = str(entry["fit_sha256"])
                     return report
@@ -511,6 +575,7 @@ class _Build:
                     "status": report.status,
                     "message": summary_row(report)["message"],
                     "index": index_entry(report),
+                    "stat": self.stats.get(src.slug, {}),
                 }
             )
         return entries, jobs
@@ -519,8 +584,10 @@ class _Build:
         import platform  # noqa: PLC0415
 
         for entry in entries:  # lets a rebuild trust a stored result without parsing it
+            stored = self.work / "datasets" / entry["dataset"] / "fit.json"
             known = self.fit_shas.get(entry["dataset"]) if entry["reused"] else None
-            entry["fit_sha256"] = known or _file_sha256(self.work / "datasets" / entry["dataset"] / "fit.json")
+            entry["fit_sha256"] = known or _file_sha256(stored)
+            entry["fit_stat"] = _stat(stored)
         body = {
             "generator": "sitegen",
             "sitegen_version": __version__,

@@ -11,7 +11,7 @@ from __future__ import annotations
 import os
 import re
 from dataclasses import dataclass
-from pathlib import Path, PurePosixPath
+from pathlib import Path
 
 SITE_CONFIG_NAME = "site.toml"
 
@@ -70,40 +70,47 @@ def printable_path(rel: str) -> str:
     return rel
 
 
-def _is_file(path: Path) -> bool:
+def _isfile(path: str) -> bool:
+    # os.path rather than pathlib: this runs for every file of the data folder on every build,
+    # including the ones with nothing to do.
     try:
-        return path.is_file()
-    except OSError:  # unreadable folder entry, e.g. no permission
+        return os.path.isfile(path)  # noqa: PTH113
+    except (OSError, ValueError):  # unreadable folder entry, e.g. no permission
         return False
 
 
 def discover(data_dir: Path) -> tuple[DatasetSource, ...]:
     """List every dataset under ``data_dir`` in sorted path order."""
     found: list[str] = []
-    for dirpath, dirnames, filenames in os.walk(data_dir, followlinks=False):
+    sidecars: set[str] = set()
+    root = str(data_dir)
+    for dirpath, dirnames, filenames in os.walk(root, followlinks=False):
         dirnames[:] = sorted(d for d in dirnames if not _hidden(d))
-        base = Path(dirpath)
+        rel_dir = os.path.relpath(dirpath, root)
+        prefix = "" if rel_dir == "." else Path(rel_dir).as_posix() + "/"
+        names = set(filenames)
         for name in sorted(filenames):
             if _hidden(name) or not name.lower().endswith(".csv"):
                 continue
-            path = base / name
-            if not _is_file(path):  # broken link, fifo, link loop, …
+            if not _isfile(os.path.join(dirpath, name)):  # noqa: PTH118 - broken link, fifo, link loop, …
                 continue
-            found.append(path.relative_to(data_dir).as_posix())
+            found.append(prefix + name)
+            toml = name[: -len(".csv")] + ".toml"
+            if toml in names and _isfile(os.path.join(dirpath, toml)):  # noqa: PTH118
+                sidecars.add(prefix + name)
     slugs = assign_slugs(found)
     sources = []
     for rel in sorted(found):
         csv_path = data_dir / rel
-        sidecar = csv_path.with_name(csv_path.name[: -len(".csv")] + ".toml")
         shown = printable_path(rel)
-        section = str(PurePosixPath(shown).parent)
+        section = shown.rsplit("/", 1)[0] if "/" in shown else ""
         sources.append(
             DatasetSource(
                 slug=slugs[rel],
                 relpath=shown,
                 csv_path=csv_path,
-                sidecar_path=sidecar if _is_file(sidecar) else None,
-                section="" if section == "." else section,
+                sidecar_path=csv_path.with_name(csv_path.name[: -len(".csv")] + ".toml") if rel in sidecars else None,
+                section=section,
             )
         )
     return tuple(sources)

@@ -12,8 +12,6 @@ detected by its owner's process id and removed.
 from __future__ import annotations
 
 import contextlib
-import ctypes
-import ctypes.util
 import fcntl
 import os
 import shutil
@@ -124,6 +122,9 @@ def _read_owner(work: Path) -> int | None:
 
 def _exchange(a: Path, b: Path) -> bool:
     """Atomically exchange two paths with renameat2; False when the system cannot."""
+    import ctypes  # noqa: PLC0415 - only a swap needs it
+    import ctypes.util  # noqa: PLC0415
+
     libc_name = ctypes.util.find_library("c")
     if not libc_name:
         return False
