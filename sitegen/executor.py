@@ -9,13 +9,14 @@ items run. One pool serves a whole build (workers keep what they imported).
 
 from __future__ import annotations
 
-import multiprocessing
 import os
 import sys
 from collections.abc import Callable, Iterator
-from concurrent.futures import Future, ProcessPoolExecutor, as_completed
 from types import TracebackType
-from typing import Protocol, Self, TypeVar
+from typing import TYPE_CHECKING, Protocol, Self, TypeVar
+
+if TYPE_CHECKING:
+    from concurrent.futures import Future, ProcessPoolExecutor
 
 T = TypeVar("T")
 R = TypeVar("R")
@@ -56,6 +57,9 @@ class PoolExecutor:
         self._pool: ProcessPoolExecutor | None = None
 
     def _ensure(self) -> ProcessPoolExecutor:
+        import multiprocessing  # noqa: PLC0415 - a build with one item to fit never starts a pool
+        from concurrent.futures import ProcessPoolExecutor  # noqa: PLC0415
+
         if self._pool is None:
             method = "fork" if sys.platform.startswith("linux") else None
             self._pool = ProcessPoolExecutor(
@@ -71,6 +75,8 @@ class PoolExecutor:
             return iter(())
         if len(items) == 1 and self._pool is None:
             return InlineExecutor().run(fn, items)
+        from concurrent.futures import as_completed  # noqa: PLC0415
+
         pool = self._ensure()
         futures: dict[Future[R], int] = {pool.submit(fn, item): i for i, item in enumerate(items)}
         return ((futures[f], f.result()) for f in as_completed(futures))

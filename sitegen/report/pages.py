@@ -7,10 +7,9 @@ import re
 from collections.abc import Sequence
 from dataclasses import dataclass
 from functools import cache
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import jinja2
-from markdown_it import MarkdownIt
 from markupsafe import Markup
 
 from sitegen import __version__
@@ -20,10 +19,17 @@ from sitegen.report import charts, fmt
 from sitegen.report.theme import Theme
 from sitegen.spec import SiteConfig
 
+if TYPE_CHECKING:
+    from markdown_it import MarkdownIt
+
 _SAFE_SCHEMES = ("http:", "https:", "mailto:", "#", "/", "./", "../")
 
 
+@cache
 def _markdown() -> MarkdownIt:
+    """The Markdown renderer, made on first use (most pages have no description to render)."""
+    from markdown_it import MarkdownIt  # noqa: PLC0415
+
     md = MarkdownIt("commonmark", {"html": False, "linkify": False, "typographer": False})
     default_validate = md.validateLink
 
@@ -37,12 +43,11 @@ def _markdown() -> MarkdownIt:
     return md
 
 
-_MD = _markdown()
-
-
 def render_markdown(text: str) -> Markup:
     """Markdown to HTML with raw HTML disabled and unsafe links dropped."""
-    return Markup(_MD.render(text or ""))  # noqa: S704 - markdown-it escapes everything; html is off
+    if not text:
+        return Markup("")
+    return Markup(_markdown().render(text))  # noqa: S704 - markdown-it escapes everything; html is off
 
 
 def json_for_script(value: object) -> Markup:

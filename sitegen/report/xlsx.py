@@ -13,7 +13,6 @@ import math
 import re
 import zipfile
 from collections.abc import Iterable, Sequence
-from xml.sax.saxutils import escape
 
 _FIXED_TIME = (2000, 1, 1, 0, 0, 0)
 _NUMBERS = frozenset((float, int, type(None)))
@@ -47,7 +46,7 @@ def _content_types(count: int) -> str:
 
 def _workbook(names: Sequence[str]) -> str:
     sheets = "".join(
-        f'<sheet name="{escape(_sheet_name(n), {chr(34): "&quot;"})}" sheetId="{i}" r:id="rId{i}"/>'
+        f'<sheet name="{escape(_sheet_name(n)).replace(chr(34), "&quot;")}" sheetId="{i}" r:id="rId{i}"/>'
         for i, n in enumerate(names, start=1)
     )
     return f'{_XML_HEAD}<workbook xmlns="{_MAIN}" xmlns:r="{_REL}"><sheets>{sheets}</sheets></workbook>'
@@ -64,6 +63,11 @@ def _workbook_rels(count: int) -> str:
 def _sheet_name(name: str) -> str:
     """At most 31 characters, none of the ones spreadsheets refuse in a sheet name."""
     return "".join("_" if ch in "[]:*?/\\" else ch for ch in name)[:31] or "data"
+
+
+def escape(text: str) -> str:
+    """XML character data: &, < and > escaped (xml.sax.saxutils would import urllib and ssl for this)."""
+    return text.replace("&", "&amp;").replace("<", "&lt;").replace(">", "&gt;")
 
 
 _CONTROL = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f]")
