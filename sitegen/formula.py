@@ -647,15 +647,18 @@ def _plan(formula: str, used: tuple[str, ...]) -> Plan | None:
     if isinstance(known, dict):
         if not known:
             return None
+        cached: Plan | None
         try:
-            return Plan(
+            cached = Plan(
                 x_terms=tuple(tuple(str(c) for c in t) for t in known["x_terms"]),
                 x_names=tuple(str(c) for c in known["x_names"]),
                 y_code=str(known["y_code"]),
                 y_name=str(known["y_name"]),
             )
         except (KeyError, TypeError):
-            pass
+            cached = None
+        if cached is not None and _codes_allowed(cached, used):
+            return cached
     plan = _probe_plan(formula, used)
     stored = (
         {"x_terms": [list(t) for t in plan.x_terms], "x_names": list(plan.x_names), "y_code": plan.y_code,
@@ -665,6 +668,20 @@ def _plan(formula: str, used: tuple[str, ...]) -> Plan | None:
     )  # fmt: skip
     _remember("plan", formula, stored, used)
     return plan
+
+
+def _codes_allowed(plan: Plan, used: tuple[str, ...]) -> bool:
+    """Every code of a plan read from the cache passes the same check as a sidecar's formula.
+
+    The codes are evaluated; a cache file edited by hand must not get past the whitelist.
+    """
+    checker = _FactorChecker(set(used))
+    try:
+        for code in (*(c for term in plan.x_terms for c in term), plan.y_code):
+            checker.visit(ast.parse(code.strip(), mode="eval"))
+    except (FormulaError, SyntaxError, RecursionError, MemoryError, ValueError):
+        return False
+    return not checker.missing
 
 
 def _probe_plan(formula: str, used: tuple[str, ...]) -> Plan | None:
