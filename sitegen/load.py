@@ -42,7 +42,7 @@ import numpy as np
 
 from sitegen.errors import DataFileError, DataLimitError
 from sitegen.spec import DatasetSpec, Limits
-from sitegen.table import NUMBER, Table, from_columns, from_frame, is_integer_text
+from sitegen.table import NUMBER, Table, from_columns, from_frame, integer_kind
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -385,7 +385,10 @@ def read_plain(raw: bytes, delimiter: str, *, skip: int, width: int) -> Table | 
     for name, column in zip((h.strip() for h in header), cells, strict=True):
         if not all(c == "" or NUMBER.fullmatch(c) for c in column):
             return None
-        if column and "" not in column and is_integer_text(column):
+        kind = integer_kind(column) if column and "" not in column else "other"
+        if kind == "wide":
+            return None  # whole numbers beyond 64 bits: the general reader decides what they are
+        if kind == "int":
             columns[name] = np.array([int(c) for c in column], dtype=np.int64)
         else:
             columns[name] = np.array([float(c) if c else np.nan for c in column], dtype=np.float64)

@@ -147,6 +147,9 @@ def to_float(values: NDArray[Any]) -> tuple[NDArray[np.float64], NDArray[np.bool
     return out, bad
 
 
-def is_integer_text(cells: list[str]) -> bool:
-    """Every cell is a whole number that fits a 64-bit integer (read as integers, as the general reader does)."""
-    return all(_INTEGER.fullmatch(c) and -(2**63) <= int(c) < 2**63 for c in cells)
+def integer_kind(cells: list[str]) -> str:
+    """ "int" when every cell is a whole number within 64 bits (read as integers, as the general reader
+    does), "wide" when they are whole numbers but some do not fit, else "other"."""
+    if not all(_INTEGER.fullmatch(c) for c in cells):
+        return "other"
+    return "int" if all(-(2**63) <= int(c) < 2**63 for c in cells) else "wide"
