@@ -15,6 +15,7 @@ rebuild with nothing to do stays fast.
 
 from __future__ import annotations
 
+import contextlib
 import hashlib
 import json
 import os
@@ -212,15 +213,27 @@ class FitJob:
     folder: Path
     offer_source: bool
     input_sha256: str = ""  # of the file when the build started, to notice a change during the build
+    page: Neighbours | None = None  # also write the page, between these neighbours (saves a second round)
+
+
+@dataclass(frozen=True, slots=True)
+class Neighbours:
+    """What a dataset page needs besides its report: the site, and the datasets before and after it."""
+
+    ctx: SiteContext
+    prev: tuple[str, str] | None
+    next: tuple[str, str] | None
 
 
 @dataclass(frozen=True, slots=True)
 class FitDone:
-    """The report of a fitted dataset and the files written for it."""
+    """What a fitted dataset sends back: its index values (or, failed, its report) and the files written."""
 
-    report: FitReport
+    report: FitReport | None  # a failed dataset's report (small); else None
+    entry: dict[str, Any] | None  # index values of a fitted one (all the build needs; the rest is in fit.json)
     files: tuple[str, ...]
     debug_trace: str | None
+    paged: Neighbours | None = None  # the page was written, between these neighbours
 
 
 def fit_job(job: FitJob) -> FitDone:
@@ -243,8 +256,14 @@ def fit_job(job: FitJob) -> FitDone:
         report = replace(report, messages=(Message("warning", text), *report.messages), status=status)
         result = replace(result, report=report)
     job.folder.mkdir(parents=True, exist_ok=True)
-    files = dataset_files(job.folder, result.report, result.observations, job.source, job.offer_source)
-    return FitDone(result.report, tuple(files), result.debug_trace)
+    files = tuple(dataset_files(job.folder, result.report, result.observations, job.source, job.offer_source))
+    if job.page is not None:
+        write_page(job.page, result.report, files, job.folder / "index.html")
+    if result.report.status == "error":
+        return FitDone(result.report, None, files, result.debug_trace, job.page)
+    from sitegen.report.files import index_entry  # noqa: PLC0415
+
+    return FitDone(None, index_entry(result.report), files, result.debug_trace, job.page)
 
 
 @dataclass(frozen=True, slots=True)
@@ -262,16 +281,23 @@ class PageJob:
 def page_job(job: PageJob) -> str:
     """Worker: render a dataset page to its file."""
     from sitegen.model import from_json  # noqa: PLC0415
-    from sitegen.report.pages import render_dataset  # noqa: PLC0415
 
     report = job.report or from_json((job.target.parent / "fit.json").read_text(encoding="utf-8"))
-    files = [f for f in job.files if not f.startswith("chart-")]
-    if job.ctx.config.static_images and report.status != "error":
+    write_page(Neighbours(job.ctx, job.prev, job.next), report, job.files, job.target)
+    return report.dataset
+
+
+def write_page(where: Neighbours, report: FitReport, files: tuple[str, ...], target: Path) -> None:
+    """Render a dataset page (and its static chart images when the site asks for them)."""
+    from sitegen.report.pages import render_dataset  # noqa: PLC0415
+
+    ctx = where.ctx
+    listed = [f for f in files if not f.startswith("chart-")]
+    if ctx.config.static_images and report.status != "error":
         from sitegen.report.images import write_chart_images  # noqa: PLC0415
 
-        files += write_chart_images(report, job.target.parent, job.ctx.theme.chart_colors)
-    job.target.write_text(render_dataset(job.ctx, report, sorted(files), job.prev, job.next), encoding="utf-8")
-    return report.dataset
+        listed += write_chart_images(report, target.parent, ctx.theme.chart_colors)
+    target.write_text(render_dataset(ctx, report, sorted(listed), where.prev, where.next), encoding="utf-8")
 
 
 # --- the build --------------------------------------------------------------------------
@@ -491,13 +517,15 @@ class _Build:
 
     def execute(self, theme: Theme) -> tuple[tuple[Outcome, ...], int, list[str], tuple[tuple[str, str], ...]]:
         from sitegen.report import assets, history, pages  # noqa: PLC0415
-        from sitegen.report.files import summary_files, summary_row  # noqa: PLC0415
+        from sitegen.report.files import report_from_index_entry, summary_files, summary_row  # noqa: PLC0415
         from sitegen.report.tags import tag_blocks  # noqa: PLC0415
 
         done: dict[str, tuple[FitReport, tuple[str, ...]]] = {}
         traces: list[tuple[str, str]] = []
         jobs: list[FitJob] = []
-        for src in self.sources:
+        ctx = pages.SiteContext(self.config, theme)
+        titles: list[tuple[str, str]] = []
+        for i, src in enumerate(self.sources):
             reused = self._reuse(src)
             if reused is not None:
                 done[src.slug] = reused
@@ -505,13 +533,19 @@ class _Build:
                 folder = self.work / "datasets" / src.slug
                 sha = self.prints[src.slug][0]
                 config = self.config
-                jobs.append(FitJob(src, config.defaults, config.limits, folder, config.offer_source, sha))
+                titles = titles or self._expected_titles()
+                around = Neighbours(ctx, titles[i - 1] if i else None, titles[i + 1] if i + 1 < len(titles) else None)
+                jobs.append(FitJob(src, config.defaults, config.limits, folder, config.offer_source, sha, around))
         total = len(self.sources)
         count = len(done)
         if self.progress:
             self.progress(count, total, "")
+        paged: dict[str, Neighbours | None] = {}
         for i, res in self.run.run(fit_job, jobs):
-            done[jobs[i].source.slug] = (res.report, res.files)
+            slug = jobs[i].source.slug
+            report = res.report or report_from_index_entry(res.entry or {}, self.prints[slug][0])
+            done[slug] = (report, res.files)
+            paged[slug] = res.paged
             if res.debug_trace:
                 traces.append((jobs[i].source.relpath, res.debug_trace))
             count += 1
@@ -519,8 +553,7 @@ class _Build:
                 self.progress(count, total, jobs[i].source.relpath)
         refitted = {j.source.slug for j in jobs}
         reports = [_with_sha(done[s.slug][0], self.prints[s.slug][0]) for s in self.sources]
-        ctx = pages.SiteContext(self.config, theme)
-        entries, page_jobs = self._plan_pages(ctx, reports, done, refitted)
+        entries, page_jobs = self._plan_pages(ctx, reports, done, refitted, paged)
         pending = self.run.run(page_job, page_jobs)  # the pool renders pages while this process does the rest
         index = pages.render_index(ctx, reports, tag_blocks(reports))
         (self.work / "index.html").write_text(index, encoding="utf-8")
@@ -540,6 +573,7 @@ class _Build:
         reports: Sequence[FitReport],
         done: dict[str, tuple[FitReport, tuple[str, ...]]],
         refitted: set[str],
+        paged: dict[str, Neighbours | None],
     ) -> tuple[list[dict[str, Any]], list[PageJob]]:
         from sitegen.report.files import index_entry, summary_row  # noqa: PLC0415
 
@@ -554,7 +588,10 @@ class _Build:
             target = self.work / "datasets" / src.slug / "index.html"
             old_entry = self.prev.entries.get(src.slug, {})
             old_page = self.prev.site / "datasets" / src.slug / "index.html" if self.prev.site else None
-            if (
+            written = paged.get(src.slug)
+            if written is not None and (written.prev, written.next) == (prev_r, next_r):
+                pass  # written by the worker that fitted it, with the right neighbours
+            elif (
                 src.slug not in refitted
                 and old_page is not None
                 and old_entry.get("page_key") == key
@@ -562,7 +599,7 @@ class _Build:
             ):
                 _link_or_copy(old_page, target)
             else:
-                full = report if src.slug in refitted else None
+                full = report if report.status == "error" else None  # else read from its fit.json
                 jobs.append(PageJob(ctx, full, files, prev_r, next_r, target))
             entries.append(
                 {
@@ -579,6 +616,23 @@ class _Build:
                 }
             )
         return entries, jobs
+
+    def _expected_titles(self) -> list[tuple[str, str]]:
+        """(slug, title) of every dataset as its page will name it: the sidecar's title, else the file name.
+
+        Read here so that the worker that fits a dataset can write its page too; should a fitted
+        title differ after all, the neighbouring pages are simply rendered again.
+        """
+        from sitegen.errors import DatasetError  # noqa: PLC0415
+        from sitegen.spec import read_sidecar  # noqa: PLC0415
+
+        out = []
+        for src in self.sources:
+            title = Path(src.relpath).stem
+            with contextlib.suppress(DatasetError, OSError, TypeError, ValueError):
+                title = read_sidecar(src.sidecar_path, dict(self.config.defaults), src.relpath).title or title
+            out.append((src.slug, title))
+        return out
 
     def _write_build_json(self, entries: list[dict[str, Any]]) -> None:
         import platform  # noqa: PLC0415

@@ -26,6 +26,7 @@ significant digits of a p-value remain).
 
 from __future__ import annotations
 
+import functools
 import math
 from typing import Any
 
@@ -193,8 +194,9 @@ def _t_upper_quantile(a: float, df: float) -> float:
     return t
 
 
+@functools.lru_cache(maxsize=1024)
 def t_ppf(q: float, df: float) -> float:
-    """The ``q`` quantile of Student's t."""
+    """The ``q`` quantile of Student's t (remembered: datasets of one size share their quantiles)."""
     if not 0.0 < q < 1.0:
         return -math.inf if q == 0.0 else math.inf if q == 1.0 else math.nan
     if q == 0.5:
@@ -202,6 +204,7 @@ def t_ppf(q: float, df: float) -> float:
     return _t_upper_quantile(1.0 - q, float(df)) if q > 0.5 else -_t_upper_quantile(q, float(df))
 
 
+@functools.lru_cache(maxsize=1024)
 def t_isf(a: float, df: float) -> float:
     """The upper ``a`` quantile of Student's t (accurate for tiny ``a``)."""
     if not 0.0 < a < 1.0:
@@ -227,6 +230,7 @@ def f_sf(x: float, d1: float, d2: float) -> float:
     return _beta_tails(d2 / 2.0, d1 / 2.0, d2 / s, d1 * x / s)[0]
 
 
+@functools.lru_cache(maxsize=1024)
 def f_ppf(q: float, d1: float, d2: float) -> float:
     """The ``q`` quantile of the F distribution."""
     if not 0.0 < q < 1.0:
