@@ -10,7 +10,6 @@ from __future__ import annotations
 import argparse
 import os
 import sys
-import traceback
 from collections.abc import Callable, Sequence
 from pathlib import Path
 from typing import NoReturn, TextIO
@@ -165,6 +164,8 @@ def _watch(args: argparse.Namespace, out: _Printer) -> int:
             return EXIT_NOTHING_WRITTEN
         except Exception:
             if args.debug:
+                import traceback  # noqa: PLC0415 - only --debug prints one
+
                 traceback.print_exc(file=out.stream)
             out.error("the build hit an internal error; the published site is unchanged (run with --debug)")
             return EXIT_NOTHING_WRITTEN
@@ -254,6 +255,8 @@ def main(argv: Sequence[str] | None = None, stream: TextIO | None = None) -> int
         return EXIT_NOTHING_WRITTEN
     except Exception:
         if getattr(args, "debug", False):
+            import traceback  # noqa: PLC0415
+
             traceback.print_exc(file=stream)
         out.error("sitegen hit an internal error and wrote nothing; run again with --debug and report the output")
         return EXIT_NOTHING_WRITTEN

@@ -19,6 +19,9 @@ def _block(value: Any) -> str:
     if isinstance(value, list) and value:
         return "[\n  " + ",\n  ".join(_dumps(v) for v in value) + "\n ]"
     if isinstance(value, dict) and value:
+        if all(v is None or isinstance(v, str | int | float) for v in value.values()):  # flat: one encoder call
+            flat = json.dumps(value, sort_keys=True, ensure_ascii=False, allow_nan=False, separators=(",\n  ", ": "))
+            return "{\n  " + flat[1:-1] + "\n }"
         return "{\n  " + ",\n  ".join(f"{_dumps(k)}: {_dumps(v)}" for k, v in sorted(value.items())) + "\n }"
     return _dumps(value)
 

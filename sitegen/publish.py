@@ -15,7 +15,6 @@ import contextlib
 import fcntl
 import os
 import shutil
-import zipfile
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -167,6 +166,8 @@ def pack(site: Path, target: Path) -> int:
         raise PackError(f"{site} is not a site built by sitegen", hint="run sitegen build first")
     if target.resolve().is_relative_to(site.resolve()):
         raise PackError("the zip file cannot be written inside the site it packs")
+    import zipfile  # noqa: PLC0415 - only pack needs it
+
     top = site.resolve().name
     tmp = target.with_name(f".{target.name}.partial")
     try:

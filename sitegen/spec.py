@@ -8,7 +8,6 @@ boundary for TOML) into :class:`~sitegen.errors.SidecarError` or
 
 from __future__ import annotations
 
-import difflib
 import math
 import tomllib
 from collections.abc import Callable, Mapping
@@ -199,6 +198,8 @@ assert set(_KEYS) == {f.name for f in fields(DatasetSpec)} - {"unknown_keys"}
 
 
 def _closest(word: str, choices: tuple[str, ...] | list[str]) -> str | None:
+    import difflib  # noqa: PLC0415 - only a misspelt key needs it
+
     match = difflib.get_close_matches(word, choices, n=1, cutoff=0.6)
     return match[0] if match else None
 
