@@ -13,6 +13,7 @@ import shutil
 import subprocess
 import sys
 import tempfile
+import time
 from collections.abc import Callable
 from pathlib import Path
 
@@ -47,6 +48,18 @@ def _timed_once(cmd: list[str]) -> tuple[float, float, int]:
     return float(s), int(m) / 1024, int(rc)
 
 
+def file_creation_ms(folder: Path, count: int = 300) -> float:
+    """Milliseconds to create one small file in ``folder`` (the file system's share of a build)."""
+    probe = folder / "creation-probe"
+    probe.mkdir()
+    start = time.perf_counter()
+    for i in range(count):
+        (probe / f"f{i}").write_bytes(b"x" * 1000)
+    elapsed = time.perf_counter() - start
+    shutil.rmtree(probe)
+    return 1000 * elapsed / count
+
+
 def size_mb(folder: Path) -> float:
     return sum(p.stat().st_size for p in folder.rglob("*") if p.is_file()) / 1e6
 
@@ -69,6 +82,8 @@ def main() -> None:
         noop, noop_mem, _ = timed(sitegen, args.repeat)
         one, one_mem, _ = timed(sitegen, args.repeat, before=lambda: touch_one(data))
         results = {
+            "folder": str(tmp.parent),
+            "file_creation_ms": round(file_creation_ms(tmp), 3),
             "datasets": args.datasets,
             "rows": args.rows,
             "sitegen_full_s": round(full, 2),
