@@ -593,17 +593,9 @@ def _extended(
     codes = [f.code for t in x_info.terms for f in t.factors] + [f.code for t in y_info.terms for f in t.factors]
     if any(s in code for code in codes for s in _STATEFUL) or X.shape[1] != len(x_info.terms):
         return fallback
-    try:
-        (yterm,) = y_info.terms
-        (yfactor,) = yterm.factors
-    except ValueError:
+    plan = _plan_of(x_info, y_info)
+    if plan is None:
         return fallback
-    plan = Plan(
-        x_terms=tuple(tuple(f.code for f in t.factors) for t in x_info.terms),
-        x_names=tuple(str(c) for c in x_info.column_names),
-        y_code=yfactor.code,
-        y_name=str(y_info.column_names[0]),
-    )
     evaluated = _evaluate_design(plan, data, np.longdouble)
     if evaluated is None:
         return fallback
@@ -670,6 +662,21 @@ def _plan(formula: str, used: tuple[str, ...]) -> Plan | None:
     return plan
 
 
+def _plan_of(x_info: Any, y_info: Any) -> Plan | None:
+    """patsy's design infos as a :class:`Plan`, or None when the response is not a single factor."""
+    try:
+        (yterm,) = y_info.terms
+        (yfactor,) = yterm.factors
+    except ValueError:
+        return None
+    return Plan(
+        x_terms=tuple(tuple(f.code for f in t.factors) for t in x_info.terms),
+        x_names=tuple(str(c) for c in x_info.column_names),
+        y_code=yfactor.code,
+        y_name=str(y_info.column_names[0]),
+    )
+
+
 def _codes_allowed(plan: Plan, used: tuple[str, ...]) -> bool:
     """Every code of a plan read from the cache passes the same check as a sidecar's formula.
 
@@ -696,19 +703,11 @@ def _probe_plan(formula: str, used: tuple[str, ...]) -> Plan | None:
                 formula, probe.as_dict(), eval_env=_environment(), return_type="matrix",
                 NA_action=patsy.NAAction(NA_types=[]),
             )  # fmt: skip
-        x_info, y_info = x_dm.design_info, y_dm.design_info
-        (yterm,) = y_info.terms
-        (yfactor,) = yterm.factors
     except (patsy.PatsyError, ValueError, TypeError, ArithmeticError, KeyError, NameError):
         return None
-    if y_dm.shape[1] != 1 or x_dm.shape[1] != len(x_info.terms):
+    candidate = _plan_of(x_dm.design_info, y_dm.design_info)
+    if candidate is None or y_dm.shape[1] != 1 or x_dm.shape[1] != len(candidate.x_terms):
         return None
-    candidate = Plan(
-        x_terms=tuple(tuple(f.code for f in t.factors) for t in x_info.terms),
-        x_names=tuple(str(c) for c in x_info.column_names),
-        y_code=yfactor.code,
-        y_name=str(y_info.column_names[0]),
-    )
     mine = _evaluate_design(candidate, probe, np.float64)
     if mine is None or not (_same(mine[0], np.asarray(x_dm)) and _same(mine[1], np.asarray(y_dm)[:, 0])):
         return None
