@@ -339,8 +339,8 @@ def run_build(
                 site_key=site_key,
                 run=run,
                 progress=progress,
+                stats=stats,
             )
-            state.stats = stats
             summary = state.execute(theme)
         swap_in(work, out_dir)
     return BuildSummary(
@@ -456,10 +456,11 @@ class _Build:
         site_key: str,
         run: Executor,
         progress: Progress | None,
+        stats: dict[str, dict[str, Any]],
     ) -> None:
         self.work, self.prev, self.sources, self.prints = work, prev, sources, prints
         self.config, self.site_key, self.run, self.progress = config, site_key, run, progress
-        self.stats: dict[str, dict[str, Any]] = {}  # per dataset: file stats and hashes, for the next build
+        self.stats = stats  # per dataset: file stats and hashes, recorded for the next build
         self.fit_shas: dict[str, str] = {}  # reused datasets: the checked sha256 of their (linked) fit.json
         self.then_files: dict[str, dict[str, int]] = {}  # the previous manifest by dataset folder
         files = prev.body.get("files")
