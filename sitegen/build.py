@@ -525,7 +525,6 @@ class _Build:
         traces: list[tuple[str, str]] = []
         jobs: list[FitJob] = []
         ctx = pages.SiteContext(self.config, theme)
-        pages.load_templates(theme)  # compiled once here, before the workers start, and shared with them
         titles: list[tuple[str, str]] = []
         for i, src in enumerate(self.sources):
             reused = self._reuse(src)

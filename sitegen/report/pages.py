@@ -279,16 +279,6 @@ def render_page(ctx: SiteContext, template: str, page: str, **values: Any) -> st
     return _render(environment(ctx.theme), template, **_common(ctx, "", page), **values)
 
 
-def load_templates(theme: Theme) -> None:
-    """Compile the page templates now (a process that forks workers afterwards shares them)."""
-    env = environment(theme)
-    for name in ("dataset.html", "index.html"):
-        try:
-            env.get_template(name)
-        except jinja2.TemplateError:
-            return  # reported properly when the page is rendered
-
-
 def _render(env: jinja2.Environment, name: str, **values: Any) -> str:
     """Render a theme template; Jinja's errors (a user theme's typo) become a message naming file and line."""
     try:
