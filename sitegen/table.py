@@ -11,7 +11,7 @@ from __future__ import annotations
 
 import math
 import re
-from collections.abc import Iterable, Mapping
+from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
@@ -21,8 +21,8 @@ from numpy.typing import ArrayLike, NDArray
 #: A number as a CSV cell may write it (what both CSV readers agree on; common practice).
 #: Written so that no two parts can match the same digits: a failed match costs linear time,
 #: even on a cell of many thousand digits followed by a letter.
-NUMBER = re.compile(r"[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?")
-_INTEGER = re.compile(r"[+-]?\d+")
+NUMBER = re.compile(r"[+-]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][+-]?\d+)?", re.ASCII)  # ASCII digits only, as pandas
+_INTEGER = re.compile(r"[+-]?\d+", re.ASCII)
 _SPECIAL = {"inf": math.inf, "+inf": math.inf, "-inf": -math.inf, "infinity": math.inf, "+infinity": math.inf}
 _SPECIAL["-infinity"] = -math.inf
 
@@ -48,25 +48,15 @@ class Table:
         """The rows selected by a boolean mask or an index array."""
         return Table(self.names, tuple(c[keep] for c in self.columns), self.rows[keep])
 
-    def with_rows(self, rows: NDArray[np.int64]) -> Table:
-        """The entries for the given CSV rows (each must be present)."""
-        where = np.searchsorted(self.rows, rows)
-        return self.take(where)
-
-    def select(self, names: Iterable[str]) -> Table:
-        chosen = tuple(names)
-        return Table(chosen, tuple(self[n] for n in chosen), self.rows)
-
     def assign(self, name: str, values: NDArray[Any]) -> Table:
+        """This table with column ``name`` set to ``values`` (added at the end if it is new)."""
         if name in self.names:
             cols = tuple(values if n == name else c for n, c in zip(self.names, self.columns, strict=True))
             return Table(self.names, cols, self.rows)
         return Table((*self.names, name), (*self.columns, values), self.rows)
 
-    def numeric(self, name: str) -> bool:
-        return self[name].dtype.kind in "fiub"
-
     def as_dict(self) -> dict[str, NDArray[Any]]:
+        """The columns by name (what patsy takes as data)."""
         return dict(zip(self.names, self.columns, strict=True))
 
 
