@@ -104,11 +104,26 @@ _RACY_NS = 2_000_000_000
 
 
 def _stat(path: Path) -> list[int] | None:
+    """Size, modification time and inode of one of our own output files (which we hard-link between
+    generations, so its change time moves with every build)."""
     try:
         st = path.stat()
     except OSError:
         return None
     return [st.st_size, st.st_mtime_ns, st.st_ino]
+
+
+def _input_stat(path: Path) -> list[int] | None:
+    """Size, modification time, inode, change time and device of an input file.
+
+    The change time cannot be set back (a copy that restores the modification time, such as
+    ``cp -p`` or ``rsync -t``, still moves it), so an edit is always noticed (common practice, as git).
+    """
+    try:
+        st = path.stat()
+    except OSError:
+        return None
+    return [st.st_size, st.st_mtime_ns, st.st_ino, st.st_ctime_ns, st.st_dev]
 
 
 def _known_sha(stat: list[int] | None, record: Any, name: str) -> str | None:
@@ -128,14 +143,14 @@ def _fingerprint(
     read again; their recorded hashes stand (the record is kept in build.json).
     """
     now = time.time_ns()
-    csv_stat = _stat(src.csv_path)
+    csv_stat = _input_stat(src.csv_path)
     csv_sha = _known_sha(csv_stat, record, "csv")
     if csv_sha is None:
         try:
             csv_sha = _file_sha256(src.csv_path)
         except OSError:
             return "", "", {}
-    side_stat = _stat(src.sidecar_path) if src.sidecar_path is not None else None
+    side_stat = _input_stat(src.sidecar_path) if src.sidecar_path is not None else None
     side_sha = _known_sha(side_stat, record, "sidecar") if src.sidecar_path else _sha256(b"")
     if side_sha is None:
         sidecar = b""
@@ -161,7 +176,7 @@ def _fingerprint(
     )
 
     def settled(stat: list[int] | None) -> list[int] | None:
-        return stat if stat is not None and stat[1] < now - _RACY_NS else None
+        return stat if stat is not None and max(stat[1], stat[3]) < now - _RACY_NS else None
 
     stats = {"csv": settled(csv_stat), "csv_sha256": csv_sha, "sidecar": settled(side_stat), "sidecar_sha256": side_sha}
     return csv_sha, _sha256(payload.encode()), stats
@@ -624,13 +639,13 @@ class _Build:
         Read here so that the worker that fits a dataset can write its page too; should a fitted
         title differ after all, the neighbouring pages are simply rendered again.
         """
-        from sitegen.errors import DatasetError  # noqa: PLC0415
         from sitegen.spec import read_sidecar  # noqa: PLC0415
 
         out = []
         for src in self.sources:
             title = Path(src.relpath).stem
-            with contextlib.suppress(DatasetError, OSError, TypeError, ValueError):
+            # Only a guess: whatever goes wrong here is reported when the dataset itself is fitted.
+            with contextlib.suppress(Exception):
                 title = read_sidecar(src.sidecar_path, dict(self.config.defaults), src.relpath).title or title
             out.append((src.slug, title))
         return out

@@ -213,3 +213,17 @@ def test_a_partial_rebuild_equals_a_fresh_build(tmp_path: Path) -> None:
         rel = p.relative_to(fresh).as_posix()
         if p.is_file() and rel not in skip:
             assert (site / rel).read_bytes() == p.read_bytes(), rel
+
+
+def test_a_sidecar_nested_too_deeply_fails_its_dataset_only(tmp_path: Path) -> None:
+    """Python's TOML reader gives up on deep nesting with a RecursionError; the other datasets are built."""
+    data = tmp_path / "data"
+    data.mkdir()
+    for name in ("a", "b", "c"):
+        (data / f"{name}.csv").write_text("x,y\n1,2.1\n2,3.9\n3,6.2\n4,7.8\n", encoding="utf-8")
+    (data / "b.toml").write_text('title = "B"\nz = ' + "[" * 5000 + "]" * 5000 + "\n", encoding="utf-8")
+    result = cli("build", data, "-o", tmp_path / "site")
+    assert result.code == 1, result.output
+    assert (tmp_path / "site" / "datasets" / "a" / "index.html").is_file()
+    assert (tmp_path / "site" / "datasets" / "c" / "index.html").is_file()
+    assert "Traceback" not in result.output

@@ -61,9 +61,29 @@ def test_same_size_damage_to_a_stored_fit_json_means_a_refit(tmp_path: Path) -> 
 def test_unchanged_inputs_are_not_read_again(tmp_path: Path) -> None:
     """The recorded hash stands while the stat matches: build.json keeps it with the stat."""
     data, site = _data(tmp_path), tmp_path / "site"
+    time.sleep(2.1)  # the change time (which cannot be set back) must be older than the 2 s racy window
     assert cli("build", data, "-o", site).code == 0
     record = _datasets(site)["alpha"]["stat"]
     assert isinstance(record, dict)
     st = (data / "alpha.csv").stat()
-    assert record["csv"] == [st.st_size, st.st_mtime_ns, st.st_ino]
+    assert record["csv"] == [st.st_size, st.st_mtime_ns, st.st_ino, st.st_ctime_ns, st.st_dev]
     assert record["csv_sha256"] == _datasets(site)["alpha"]["input_sha256"]
+
+
+def test_an_edit_that_puts_the_old_modification_time_back_is_noticed(tmp_path: Path) -> None:
+    """cp -p, rsync -t --inplace and os.utime restore the modification time; the change time still moves."""
+    data, site = _data(tmp_path), tmp_path / "site"
+    assert cli("build", data, "-o", site).code == 0
+    assert cli("build", data, "-o", site).code == 0
+    path = data / "alpha.csv"
+    before = path.stat()
+    text = path.read_text(encoding="utf-8")
+    with path.open("r+", encoding="utf-8") as fh:  # in place: same inode, same size
+        fh.write(text.replace("3.9", "9.3"))
+    os.utime(path, ns=(before.st_atime_ns, before.st_mtime_ns))
+    after = path.stat()
+    assert (after.st_size, after.st_mtime_ns, after.st_ino) == (before.st_size, before.st_mtime_ns, before.st_ino)
+    time.sleep(0.01)
+    assert cli("build", data, "-o", site).code == 0
+    assert _datasets(site)["alpha"]["reused"] is False
+    assert "9.3" in (site / "datasets" / "alpha" / "observations.csv").read_text(encoding="utf-8")
