@@ -330,7 +330,16 @@ def _predictions(design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[
             return ()
         rows = [{x_col: float(v)} for v in spec.predict_at if not isinstance(v, tuple)]
     names = list(dict.fromkeys(k for row in rows for k in row))
-    frame = {k: _column([row.get(k) for row in rows]) for k in names}
+    for i, row in enumerate(rows, start=1):
+        missing = [k for k in names if k not in row]
+        if missing:
+            messages.append(
+                Message(
+                    "warning", f"predict_at: entry {i} has no value for {missing[0]!r}; give every entry the same keys"
+                )
+            )
+            return ()
+    frame = {k: _column([row[k] for row in rows]) for k in names}
     try:
         X_new = design_for(design, frame)
     except DatasetError as exc:

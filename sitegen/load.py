@@ -364,7 +364,7 @@ def read_plain(raw: bytes, delimiter: str, *, skip: int, width: int) -> Table | 
     if len(raw) > _PLAIN_MAX_BYTES or b'"' in raw:
         return None
     try:
-        text = raw.decode("utf-8-sig")
+        text = raw.decode("utf-8-sig").lstrip("\ufeff")  # every leading byte-order mark, as the header reader
     except UnicodeDecodeError:
         return None
     lines = _LINE_BREAK.split(text)
@@ -381,13 +381,16 @@ def read_plain(raw: bytes, delimiter: str, *, skip: int, width: int) -> Table | 
             return None  # blank lines, short or long lines: the general reader words these
         for column, cell in zip(cells, fields, strict=True):
             column.append(cell)
+    names = [h.strip() for h in header]
+    if len(set(names)) != len(names):
+        return None
     columns: dict[str, np.ndarray] = {}
-    for name, column in zip((h.strip() for h in header), cells, strict=True):
+    for name, column in zip(names, cells, strict=True):
         if not all(c == "" or NUMBER.fullmatch(c) for c in column):
             return None
+        if any(len(c) > 18 and integer_kind([c]) == "wide" for c in column):
+            return None  # a whole number beyond 64 bits: the general reader decides what the column is
         kind = integer_kind(column) if column and "" not in column else "other"
-        if kind == "wide":
-            return None  # whole numbers beyond 64 bits: the general reader decides what they are
         if kind == "int":
             columns[name] = np.array([int(c) for c in column], dtype=np.int64)
         else:

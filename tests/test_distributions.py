@@ -149,3 +149,29 @@ def test_fitting_does_not_import_scipy() -> None:
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.strip() == "False"
+
+
+def test_edges_give_the_limits_or_nan_quickly() -> None:
+    """Inputs the statistics never pass today still get an answer, not a hang or an exception (scipy as reference)."""
+    import time
+
+    start = time.perf_counter()
+    np.testing.assert_array_equal(dist.norm_ppf(np.array([0.0, 1.0])), [-np.inf, np.inf])
+    assert np.isnan(dist.norm_ppf(np.array([np.nan])))[0]
+    for df in (np.nan, 0.0, -1.0):
+        assert math.isnan(dist.t_ppf(0.975, df))
+        assert math.isnan(float(dist.t_sf(2.0, df)))
+        assert math.isnan(dist.chi2_sf(1.0, df))
+    assert float(dist.t_sf(2.0, math.inf)) == pytest.approx(float(stats.norm.sf(2.0)), rel=1e-14)
+    assert dist.t_ppf(0.975, math.inf) == pytest.approx(float(stats.norm.ppf(0.975)), rel=1e-13)
+    assert dist.chi2_sf(-math.inf, 3) == 1.0
+    assert dist.chi2_sf(math.inf, 3) == 0.0
+    # scipy gives -inf here; 50-digit mpmath puts P(T > 1.033110836044646e100) at 1.00000000000002e-300
+    assert dist.t_isf(1e-300, 3) == pytest.approx(1.033110836044646e100, rel=1e-12)
+    assert dist.t_ppf(1e-20, 0.5) == pytest.approx(float(stats.t.ppf(1e-20, 0.5)), rel=1e-9)
+    assert dist.f_ppf(0.999999, 1e6, 1) == pytest.approx(float(stats.f.ppf(0.999999, 1e6, 1)), rel=1e-6)
+    assert dist.f_ppf(0.05, 3, 12) == pytest.approx(float(stats.f.ppf(0.05, 3, 12)), rel=1e-11)
+    assert dist.beta_ppf(0.0, 2, 3) == 0.0
+    assert dist.beta_ppf(1.0, 2, 3) == 1.0
+    assert float(dist.t_sf(1e200, 3)) == 0.0  # 1.1e-600 (mpmath): below the smallest double
+    assert time.perf_counter() - start < 2.0

@@ -87,3 +87,23 @@ def test_small_plain_files_match_pandas(text: str) -> None:
 def test_whole_numbers_beyond_64_bits_go_to_the_general_reader() -> None:
     raw = b"x,y\n99999999999999999999,1\n2,3\n"
     assert read_plain(raw, ",", skip=0, width=2) is None
+
+
+@pytest.mark.parametrize(
+    "raw",
+    [
+        b"x,g\n18446744073709551616,1\n1.5,2\n",  # a wide whole number among decimals: pandas reads text
+        "\ufeff\ufeffx,\ufeffx\n1,2\n3,4\n".encode(),  # a doubled byte-order mark
+    ],
+)
+def test_files_the_plain_reader_leaves_to_pandas_or_reads_as_pandas(raw: bytes) -> None:
+    loaded = read_table(raw, _spec(), Limits(), "t.csv")
+    plain = read_plain(raw, ",", skip=0, width=len(loaded.table.names))
+    frame = _parse(raw, ",", ".", "utf-8-sig", "t.csv", skip=0, max_rows=10**7)
+    general = from_frame(frame)
+    if plain is not None:
+        assert plain.names == general.names
+        for a, b in zip(plain.columns, general.columns, strict=True):
+            assert a.dtype.kind == b.dtype.kind
+            np.testing.assert_array_equal(a, b)
+    assert loaded.table.names == general.names

@@ -227,3 +227,16 @@ def test_a_sidecar_nested_too_deeply_fails_its_dataset_only(tmp_path: Path) -> N
     assert (tmp_path / "site" / "datasets" / "a" / "index.html").is_file()
     assert (tmp_path / "site" / "datasets" / "c" / "index.html").is_file()
     assert "Traceback" not in result.output
+
+
+def test_predict_at_entries_without_the_same_keys_are_refused_with_a_reason(tmp_path: Path) -> None:
+    data = tmp_path / "data"
+    data.mkdir()
+    (data / "p.csv").write_text("a,b,y\n1,2,3.1\n2,1,3.9\n3,5,8.2\n4,3,7.1\n5,4,9.0\n", encoding="utf-8")
+    (data / "p.toml").write_text('model = "y ~ a + b"\npredict_at = [{ a = 1, b = 2 }, { a = 3 }]\n', encoding="utf-8")
+    result = cli("build", data, "-o", tmp_path / "site")
+    assert result.code == 0, result.output
+    fit = json.loads((tmp_path / "site" / "datasets" / "p" / "fit.json").read_text(encoding="utf-8"))
+    assert fit["predictions"] == []
+    texts = [m["text"] for m in fit["messages"]]
+    assert any("entry 2 has no value for 'b'" in t for t in texts), texts

@@ -141,14 +141,29 @@ def _gamma_upper(a: float, x: float) -> float:
 # --- Student's t -------------------------------------------------------------------------------
 
 
+def _valid(*params: float) -> bool:
+    """Degrees of freedom and shape parameters must be positive numbers (NaN is not)."""
+    return all(p > 0 for p in params)
+
+
+def _t_xy(t: float, df: float) -> tuple[float, float]:
+    """(df / (df + t²), t² / (df + t²)) without overflow for huge |t|."""
+    if abs(t) > 1e150:
+        x = math.exp(math.log(df) - 2.0 * math.log(abs(t)))
+        return x, 1.0 - x
+    t2 = t * t
+    return df / (df + t2), t2 / (df + t2)
+
+
 def _t_sf_one(t: float, df: float) -> float:
-    if math.isnan(t):
+    if math.isnan(t) or not _valid(df):
         return math.nan
+    if math.isinf(df):
+        return 0.5 * math.erfc(t / math.sqrt(2.0))
     if math.isinf(t):
         return 0.0 if t > 0 else 1.0
-    t2 = t * t
     # P(|T| > |t|) = I_x(df/2, 1/2) with x = df / (df + t²), y = t² / (df + t²)
-    x, y = df / (df + t2), t2 / (df + t2)
+    x, y = _t_xy(t, df)
     two_sided = _beta_tails(df / 2.0, 0.5, x, y)[0]
     return 0.5 * two_sided if t > 0 else 1.0 - 0.5 * two_sided
 
@@ -162,32 +177,43 @@ def t_sf(x: ArrayLike, df: float) -> Any:
 
 
 def _t_log_pdf(t: float, df: float) -> float:
-    return -_lbeta(df / 2.0, 0.5) - 0.5 * math.log(df) - (df + 1.0) / 2.0 * math.log1p(t * t / df)
+    spread = 2.0 * math.log(abs(t)) - math.log(df) if abs(t) > 1e150 else math.log1p(t * t / df)
+    return -_lbeta(df / 2.0, 0.5) - 0.5 * math.log(df) - (df + 1.0) / 2.0 * spread
 
 
 def _t_upper_quantile(a: float, df: float) -> float:
-    """t with P(T > t) = a, for 0 < a < ½."""
+    """t with P(T > t) = a, for 0 < a < ½ and finite df > 0."""
     if df == 1.0:
         return 1.0 / math.tan(math.pi * a)
     if df == 2.0:
         return (1.0 - 2.0 * a) / math.sqrt(2.0 * a * (1.0 - a))
     z = -_norm_ppf_one(a)
-    t = z + (z**3 + z) / (4 * df) + (5 * z**5 + 16 * z**3 + 3 * z) / (96 * df * df)  # Cornish–Fisher start
-    if not t > 0:
+    try:  # Cornish–Fisher start
+        t = z + (z**3 + z) / (4 * df) + (5 * z**5 + 16 * z**3 + 3 * z) / (96 * df * df)
+    except OverflowError:
         t = z
+    if not (t > 0 and math.isfinite(t)):
+        t = z if z > 0 else 1.0
     log_a = math.log(a)
     lo, hi = 0.0, math.inf
-    for _ in range(200):
+    for _ in range(400):
         sf = _t_sf_one(t, df)
         if sf > a:
             lo = t
         else:
             hi = t
-        # Newton on log P(T > t) in log t: nearly linear in both the normal and the heavy-tailed regimes.
-        slope = -t * math.exp(_t_log_pdf(t, df)) / sf
-        new = t * math.exp(-(math.log(sf) - log_a) / slope)
-        if not lo < new < hi:
-            new = 0.5 * (lo + hi) if math.isfinite(hi) else 2.0 * t
+        new = math.nan
+        if 0.0 < sf < 1.0:
+            # Newton on log P(T > t) in log t: nearly linear in both the normal and the heavy-tailed regimes.
+            try:
+                log_sf = math.log(sf)
+                new = t * math.exp((log_sf - log_a) * math.exp(log_sf - math.log(t) - _t_log_pdf(t, df)))
+            except (OverflowError, ValueError, ZeroDivisionError):
+                new = math.nan
+        if not lo < new < hi:  # outside the bracket: grow, or bisect (geometrically once bracketed)
+            new = 2.0 * t if math.isinf(hi) else math.sqrt(lo * hi) if lo > 0 else 0.5 * hi
+        if not math.isfinite(new):
+            return math.inf  # the quantile is beyond the largest double
         if abs(new - t) <= 4 * _EPS * new:
             return new
         t = new
@@ -197,20 +223,24 @@ def _t_upper_quantile(a: float, df: float) -> float:
 @functools.lru_cache(maxsize=1024)
 def t_ppf(q: float, df: float) -> float:
     """The ``q`` quantile of Student's t (remembered: datasets of one size share their quantiles)."""
-    if not 0.0 < q < 1.0:
-        return -math.inf if q == 0.0 else math.inf if q == 1.0 else math.nan
+    if not 0.0 < q < 1.0 or not _valid(df):
+        return -math.inf if q == 0.0 and _valid(df) else math.inf if q == 1.0 and _valid(df) else math.nan
     if q == 0.5:
         return 0.0
+    if math.isinf(df):
+        return _norm_ppf_one(q)
     return _t_upper_quantile(1.0 - q, float(df)) if q > 0.5 else -_t_upper_quantile(q, float(df))
 
 
 @functools.lru_cache(maxsize=1024)
 def t_isf(a: float, df: float) -> float:
     """The upper ``a`` quantile of Student's t (accurate for tiny ``a``)."""
-    if not 0.0 < a < 1.0:
-        return math.inf if a == 0.0 else -math.inf if a == 1.0 else math.nan
+    if not 0.0 < a < 1.0 or not _valid(df):
+        return math.inf if a == 0.0 and _valid(df) else -math.inf if a == 1.0 and _valid(df) else math.nan
     if a == 0.5:
         return 0.0
+    if math.isinf(df):
+        return -_norm_ppf_one(a)
     return _t_upper_quantile(a, float(df)) if a < 0.5 else -_t_upper_quantile(1.0 - a, float(df))
 
 
@@ -220,12 +250,14 @@ def t_isf(a: float, df: float) -> float:
 def f_sf(x: float, d1: float, d2: float) -> float:
     """P(F > x) for the F distribution."""
     x = float(x)
-    if math.isnan(x):
+    if math.isnan(x) or not _valid(d1, d2) or math.isinf(d1):
         return math.nan
     if x <= 0.0:
         return 1.0
     if math.isinf(x):
         return 0.0
+    if math.isinf(d2):
+        return chi2_sf(d1 * x, d1)
     s = d2 + d1 * x
     return _beta_tails(d2 / 2.0, d1 / 2.0, d2 / s, d1 * x / s)[0]
 
@@ -233,15 +265,26 @@ def f_sf(x: float, d1: float, d2: float) -> float:
 @functools.lru_cache(maxsize=1024)
 def f_ppf(q: float, d1: float, d2: float) -> float:
     """The ``q`` quantile of the F distribution."""
-    if not 0.0 < q < 1.0:
-        return 0.0 if q == 0.0 else math.inf if q == 1.0 else math.nan
+    if not _valid(d1, d2) or math.isinf(d1) or math.isinf(d2) or not 0.0 <= q <= 1.0:
+        return math.nan
+    if q in (0.0, 1.0):
+        return 0.0 if q == 0.0 else math.inf
     a, b = d1 / 2.0, d2 / 2.0
-    x = beta_ppf(q, a, b)
-    return d2 * x / (d1 * (1.0 - x))
+    if q <= 0.5:
+        x = beta_ppf(q, a, b)
+        y = 1.0 - x
+    else:  # the upper tail from the complementary beta, so that 1 − x does not cancel
+        y = beta_ppf(1.0 - q, b, a)
+        x = 1.0 - y
+    return d2 * x / (d1 * y) if y > 0 else math.inf
 
 
 def beta_ppf(q: float, a: float, b: float) -> float:
     """The ``q`` quantile of the beta distribution (Newton's method inside a shrinking bracket)."""
+    if not _valid(a, b) or not 0.0 <= q <= 1.0:
+        return math.nan
+    if q in (0.0, 1.0):
+        return q
     lo, hi = 0.0, 1.0
     x = a / (a + b)
     lb = _lbeta(a, b)
@@ -264,21 +307,27 @@ def beta_ppf(q: float, a: float, b: float) -> float:
 def chi2_sf(x: float, df: float) -> float:
     """P(χ² > x)."""
     x = float(x)
-    if math.isnan(x):
+    if math.isnan(x) or not _valid(df) or math.isinf(df):
         return math.nan
+    if x <= 0.0:
+        return 1.0
     return 0.0 if math.isinf(x) else _gamma_upper(df / 2.0, x / 2.0)
 
 
 def beta_cdf(x: float, a: float, b: float) -> float:
     """P(B ≤ x) for the beta distribution."""
     x = float(x)
-    return math.nan if math.isnan(x) else _beta_tails(a, b, min(max(x, 0.0), 1.0), 1.0 - min(max(x, 0.0), 1.0))[0]
+    if math.isnan(x) or not _valid(a, b) or math.isinf(a) or math.isinf(b):
+        return math.nan
+    return _beta_tails(a, b, min(max(x, 0.0), 1.0), 1.0 - min(max(x, 0.0), 1.0))[0]
 
 
 def beta_sf(x: float, a: float, b: float) -> float:
     """P(B > x) for the beta distribution."""
     x = float(x)
-    return math.nan if math.isnan(x) else _beta_tails(a, b, min(max(x, 0.0), 1.0), 1.0 - min(max(x, 0.0), 1.0))[1]
+    if math.isnan(x) or not _valid(a, b) or math.isinf(a) or math.isinf(b):
+        return math.nan
+    return _beta_tails(a, b, min(max(x, 0.0), 1.0), 1.0 - min(max(x, 0.0), 1.0))[1]
 
 
 # --- normal --------------------------------------------------------------------------------------
@@ -342,8 +391,8 @@ def norm_ppf(q: ArrayLike) -> NDArray[np.float64]:
         u = (0.5 * upper - t) * math.sqrt(2.0 * math.pi) * np.exp(z * z / 2.0)
         z = z - u / (1.0 + z * u / 2.0)
     out = np.where(p <= 0.5, z, -z)
+    out[inside & (tail == 0.5)] = 0.0
     out = np.where(inside, out, np.where(p == 0.0, -np.inf, np.where(p == 1.0, np.inf, np.nan)))
-    out[t == 0.5] = 0.0
     return np.asarray(out, dtype=np.float64).reshape(arr.shape)
 
 
