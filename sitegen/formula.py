@@ -198,7 +198,9 @@ def _factor_codes(formula: str) -> tuple[list[str], list[str], bool]:
     known = _remembered("parse", formula)
     if isinstance(known, dict):
         try:
-            return [str(c) for c in known["lhs"]], [str(c) for c in known["rhs"]], bool(known["intercept"])
+            lhs, rhs = [str(c) for c in known["lhs"]], [str(c) for c in known["rhs"]]
+            if _same_names(formula, lhs + rhs):
+                return lhs, rhs, bool(known["intercept"])
         except (KeyError, TypeError):
             pass
     import patsy  # noqa: PLC0415 - only for a formula not parsed before
@@ -222,6 +224,18 @@ def _factor_codes(formula: str) -> tuple[list[str], list[str], bool]:
         )
     _remember("parse", formula, {"lhs": lhs, "rhs": rhs, "intercept": intercept})
     return lhs, rhs, intercept
+
+
+_IDENTIFIER = re.compile(r"[A-Za-z_][A-Za-z0-9_]*")
+
+
+def _same_names(formula: str, codes: list[str]) -> bool:
+    """Every name in the formula text appears in the remembered factor codes.
+
+    patsy's codes are pieces of the formula, so a genuine record always passes; a record edited to pair
+    a formula with harmless codes does not, and the formula is parsed (and checked) afresh.
+    """
+    return set(_IDENTIFIER.findall(formula)) <= set(_IDENTIFIER.findall(" ".join(codes)))
 
 
 # --- what patsy worked out about a formula, kept between builds ------------------------------------

@@ -66,3 +66,25 @@ def test_a_doctored_cache_cannot_run_code(tmp_path: Path) -> None:
     assert not marker.exists()
     fit = json.loads((tmp_path / "one" / "datasets" / "a" / "fit.json").read_text(encoding="utf-8"))
     assert [c["term"] for c in fit["coefficients"]] == ["Intercept", "x"]
+
+
+def test_a_doctored_parse_record_does_not_let_a_formula_past_the_check(tmp_path: Path) -> None:
+    """A record pairing a harmful formula with harmless codes is not believed: the formula is parsed and refused."""
+    data, cache = tmp_path / "data", tmp_path / "cache"
+    data.mkdir()
+    write_csv(data / "a.csv", "x,y\n1,2.1\n2,3.9\n3,6.2\n4,7.8\n5,10.1\n")
+    assert _build(data, tmp_path / "one", cache).returncode == 0
+    path = cache / "sitegen" / "formulas.json"
+    record = json.loads(path.read_text(encoding="utf-8"))
+    marker = tmp_path / "ran"
+    evil = f"y ~ x + I(__import__('os').system('touch {marker}'))"
+    honest_key = next(k for k in record if k.startswith('["parse"'))
+    record[honest_key.replace('"y ~ x"', json.dumps(evil))] = {"lhs": ["y"], "rhs": ["x"], "intercept": True}
+    path.write_text(json.dumps(record), encoding="utf-8")
+    write_toml(data / "a.toml", {"model": evil})
+    result = _build(data, tmp_path / "one", cache)
+    assert result.returncode == 1
+    assert not marker.exists()
+    fit = json.loads((tmp_path / "one" / "datasets" / "a" / "fit.json").read_text(encoding="utf-8"))
+    assert fit["status"] == "error"
+    assert "not allowed" in fit["messages"][-1]["text"]
