@@ -47,17 +47,22 @@ def test_a_known_formula_is_fitted_without_importing_patsy(tmp_path: Path) -> No
     assert [c["term"] for c in two["coefficients"]] == ["Intercept", "x", "I(x ** 2)"]
 
 
-def test_a_doctored_cache_cannot_run_code(tmp_path: Path) -> None:
+def _built_once(tmp_path: Path) -> tuple[Path, Path, Path, dict[str, object]]:
+    """(data folder, cache folder, the cache record's path, its content) after one build of y ~ x."""
     data, cache = tmp_path / "data", tmp_path / "cache"
     data.mkdir()
     write_csv(data / "a.csv", "x,y\n1,2.1\n2,3.9\n3,6.2\n4,7.8\n5,10.1\n")
     assert _build(data, tmp_path / "one", cache).returncode == 0
     path = cache / "sitegen" / "formulas.json"
-    record = json.loads(path.read_text(encoding="utf-8"))
+    return data, cache, path, json.loads(path.read_text(encoding="utf-8"))
+
+
+def test_a_doctored_cache_cannot_run_code(tmp_path: Path) -> None:
+    data, cache, path, record = _built_once(tmp_path)
     marker = tmp_path / "ran"
     evil = f"np.lib.format.os.system('touch {marker}')"
     for key, value in record.items():
-        if key.startswith('["plan"') and value:
+        if key.startswith('["plan"') and isinstance(value, dict) and value:
             value["x_terms"] = [[], [evil]]
     path.write_text(json.dumps(record), encoding="utf-8")
     (data / "a.csv").write_text("x,y\n1,2.0\n2,4.1\n3,5.9\n4,8.2\n5,9.9\n", encoding="utf-8")
@@ -70,12 +75,7 @@ def test_a_doctored_cache_cannot_run_code(tmp_path: Path) -> None:
 
 def test_a_doctored_parse_record_does_not_let_a_formula_past_the_check(tmp_path: Path) -> None:
     """A record pairing a harmful formula with harmless codes is not believed: the formula is parsed and refused."""
-    data, cache = tmp_path / "data", tmp_path / "cache"
-    data.mkdir()
-    write_csv(data / "a.csv", "x,y\n1,2.1\n2,3.9\n3,6.2\n4,7.8\n5,10.1\n")
-    assert _build(data, tmp_path / "one", cache).returncode == 0
-    path = cache / "sitegen" / "formulas.json"
-    record = json.loads(path.read_text(encoding="utf-8"))
+    data, cache, path, record = _built_once(tmp_path)
     marker = tmp_path / "ran"
     evil = f"y ~ x + I(__import__('os').system('touch {marker}'))"
     honest_key = next(k for k in record if k.startswith('["parse"'))
