@@ -343,28 +343,8 @@ _D = (7.784695709041462e-03, 3.224671290700398e-01, 2.445134137142996e00, 3.7544
 _P_LOW = 0.02425
 
 
-def _norm_lower_quantile(p: float) -> float:
-    """z with Φ(z) = p for 0 < p ≤ ½."""
-    if p < _P_LOW:
-        q = math.sqrt(-2.0 * math.log(p))
-        num = ((((_C[0] * q + _C[1]) * q + _C[2]) * q + _C[3]) * q + _C[4]) * q + _C[5]
-        z = num / ((((_D[0] * q + _D[1]) * q + _D[2]) * q + _D[3]) * q + 1.0)
-    else:
-        q = p - 0.5
-        r = q * q
-        num = (((((_A[0] * r + _A[1]) * r + _A[2]) * r + _A[3]) * r + _A[4]) * r + _A[5]) * q
-        z = num / (((((_B[0] * r + _B[1]) * r + _B[2]) * r + _B[3]) * r + _B[4]) * r + 1.0)
-    for _ in range(2):  # Halley steps on the exact lower tail
-        e = 0.5 * math.erfc(-z / math.sqrt(2.0)) - p
-        u = e * math.sqrt(2.0 * math.pi) * math.exp(z * z / 2.0)
-        z -= u / (1.0 + z * u / 2.0)
-    return z
-
-
 def _norm_ppf_one(p: float) -> float:
-    if not 0.0 < p < 1.0:
-        return -math.inf if p == 0.0 else math.inf if p == 1.0 else math.nan
-    return _norm_lower_quantile(p) if p <= 0.5 else -_norm_lower_quantile(1.0 - p)
+    return float(norm_ppf(np.array(p)))
 
 
 def norm_ppf(q: ArrayLike) -> NDArray[np.float64]:
