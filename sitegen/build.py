@@ -104,8 +104,7 @@ _RACY_NS = 2_000_000_000
 
 
 def _stat(path: Path) -> list[int] | None:
-    """Size, modification time and inode of one of our own output files (which we hard-link between
-    generations, so its change time moves with every build)."""
+    """Size, modification time and inode of one of our own output files."""
     try:
         st = path.stat()
     except OSError:
@@ -249,6 +248,7 @@ class FitDone:
     files: tuple[str, ...]
     debug_trace: str | None
     paged: Neighbours | None = None  # the page was written, between these neighbours
+    page_files: tuple[str, ...] = ()  # what writing the page wrote (index.html, chart images)
 
 
 def fit_job(job: FitJob) -> FitDone:
@@ -272,13 +272,12 @@ def fit_job(job: FitJob) -> FitDone:
         result = replace(result, report=report)
     job.folder.mkdir(parents=True, exist_ok=True)
     files = tuple(dataset_files(job.folder, result.report, result.observations, job.source, job.offer_source))
-    if job.page is not None:
-        write_page(job.page, result.report, files, job.folder / "index.html")
+    page_files = write_page(job.page, result.report, files, job.folder / "index.html") if job.page else ()
     if result.report.status == "error":
-        return FitDone(result.report, None, files, result.debug_trace, job.page)
+        return FitDone(result.report, None, files, result.debug_trace, job.page, page_files)
     from sitegen.report.files import index_entry  # noqa: PLC0415
 
-    return FitDone(None, index_entry(result.report), files, result.debug_trace, job.page)
+    return FitDone(None, index_entry(result.report), files, result.debug_trace, job.page, page_files)
 
 
 @dataclass(frozen=True, slots=True)
@@ -293,26 +292,27 @@ class PageJob:
     target: Path
 
 
-def page_job(job: PageJob) -> str:
-    """Worker: render a dataset page to its file."""
+def page_job(job: PageJob) -> tuple[str, ...]:
+    """Worker: render a dataset page to its file; returns the names written."""
     from sitegen.model import from_json  # noqa: PLC0415
 
     report = job.report or from_json((job.target.parent / "fit.json").read_text(encoding="utf-8"))
-    write_page(Neighbours(job.ctx, job.prev, job.next), report, job.files, job.target)
-    return report.dataset
+    return write_page(Neighbours(job.ctx, job.prev, job.next), report, job.files, job.target)
 
 
-def write_page(where: Neighbours, report: FitReport, files: tuple[str, ...], target: Path) -> None:
-    """Render a dataset page (and its static chart images when the site asks for them)."""
+def write_page(where: Neighbours, report: FitReport, files: tuple[str, ...], target: Path) -> tuple[str, ...]:
+    """Render a dataset page (and its static chart images when the site asks for them); returns the names written."""
     from sitegen.report.pages import render_dataset  # noqa: PLC0415
 
     ctx = where.ctx
     listed = [f for f in files if not f.startswith("chart-")]
+    images: list[str] = []
     if ctx.config.static_images and report.status != "error":
         from sitegen.report.images import write_chart_images  # noqa: PLC0415
 
-        listed += write_chart_images(report, target.parent, ctx.theme.chart_colors)
-    target.write_text(render_dataset(ctx, report, sorted(listed), where.prev, where.next), encoding="utf-8")
+        images = write_chart_images(report, target.parent, ctx.theme.chart_colors)
+    target.write_text(render_dataset(ctx, report, sorted(listed + images), where.prev, where.next), encoding="utf-8")
+    return (target.name, *images)
 
 
 # --- the build --------------------------------------------------------------------------
@@ -342,11 +342,13 @@ def run_build(
         if _nothing_changed(prev, sources, prints, site_key):
             outcomes = _touch_build_json(out_dir, prev, stats)
             return BuildSummary(out_dir, outcomes, 0, len(sources), time.perf_counter() - started, tuple(warnings))
+        spare = _open_spare(work, trusted=prev.site is not None)
         from sitegen.executor import make_executor  # noqa: PLC0415 - a process pool only when there is work
 
         with executor or make_executor(options.jobs) as run:
             state = _Build(
                 work=work,
+                spare=spare,
                 prev=prev,
                 sources=sources,
                 prints=prints,
@@ -449,12 +451,89 @@ def _touch_build_json(out_dir: Path, prev: _Previous, stats: dict[str, dict[str,
     )
 
 
-def _link_or_copy(src: Path, dst: Path) -> None:
-    """Hard-link an unchanged file from the previous site (nothing rewrites files in place)."""
-    try:
-        os.link(src, dst)
-    except OSError:
-        shutil.copyfile(src, dst)
+def _files_by_folder(body: dict[str, Any]) -> dict[str, dict[str, int]]:
+    """A build.json's file manifest, grouped by dataset folder: slug -> {name: size}."""
+    out: dict[str, dict[str, int]] = {}
+    files = body.get("files")
+    if isinstance(files, dict):
+        for key, size in files.items():
+            if key.startswith("datasets/"):
+                slug, _, name = key[len("datasets/") :].partition("/")
+                out.setdefault(slug, {})[name] = size
+    return out
+
+
+def _is_data_file(name: str) -> bool:
+    """A dataset folder's download (not its page or the page's chart images)."""
+    return name != "index.html" and not (name.startswith("chart-") and name.endswith(".svg"))
+
+
+@dataclass(frozen=True, slots=True)
+class _Spare:
+    """The build folder as the build before the previous one left it (see :mod:`sitegen.publish`)."""
+
+    entries: dict[str, dict[str, Any]]  # its build.json's datasets when it may be trusted, else empty
+    recorded: dict[str, dict[str, int]]  # its build.json's file manifest by dataset folder
+    folders: dict[str, dict[str, int]]  # what its dataset folders hold now: name -> size
+
+
+def _open_spare(work: Path, *, trusted: bool) -> _Spare:
+    """Read the spare's record, then unseal it and clear out what a site of ours cannot hold.
+
+    Its build.json goes first: a build killed while updating the spare leaves one that is never
+    trusted again (its files are still rewritten in place, which is what saves the time).
+    Files with other hard links (a ``cp -al`` backup, say) are removed, so that nothing written
+    here can change a file elsewhere.
+    """
+    entries: dict[str, dict[str, Any]] = {}
+    recorded: dict[str, dict[str, int]] = {}
+    if trusted:
+        spare = _previous(work)
+        entries, recorded = spare.entries, _files_by_folder(spare.body)
+    _remove(work / "build.json")
+    folders: dict[str, dict[str, int]] = {}
+    with os.scandir(work) as top:
+        for entry in top:
+            if entry.name == "datasets" and entry.is_dir(follow_symlinks=False):
+                with os.scandir(entry.path) as sets:
+                    for folder in sets:
+                        if folder.is_dir(follow_symlinks=False):
+                            folders[folder.name] = _own_files(folder.path, nested=False)
+                        else:
+                            _remove(Path(folder.path))
+            elif entry.is_dir(follow_symlinks=False):
+                _own_files(entry.path, nested=True)
+            elif not entry.is_file(follow_symlinks=False) or entry.stat(follow_symlinks=False).st_nlink > 1:
+                _remove(Path(entry.path))
+    return _Spare(entries, recorded, folders)
+
+
+def _own_files(folder: str, *, nested: bool) -> dict[str, int]:
+    """Sizes of the plain, singly linked files in ``folder``; removes anything else (sub-folders unless ``nested``)."""
+    out: dict[str, int] = {}
+    with os.scandir(folder) as entries:
+        for entry in entries:
+            if entry.is_dir(follow_symlinks=False):
+                if nested:
+                    _own_files(entry.path, nested=True)
+                else:
+                    _remove(Path(entry.path))
+                continue
+            st = entry.stat(follow_symlinks=False) if entry.is_file(follow_symlinks=False) else None
+            if st is None or st.st_nlink > 1:
+                _remove(Path(entry.path))
+            else:
+                out[entry.name] = st.st_size
+    return out
+
+
+def _remove(path: Path) -> None:
+    """Delete a file, link or folder tree, if there."""
+    if path.is_dir() and not path.is_symlink():
+        shutil.rmtree(path, ignore_errors=True)
+    else:
+        with contextlib.suppress(OSError):
+            path.unlink(missing_ok=True)
 
 
 class _Build:
@@ -464,6 +543,7 @@ class _Build:
         self,
         *,
         work: Path,
+        spare: _Spare,
         prev: _Previous,
         sources: Sequence[DatasetSource],
         prints: dict[str, tuple[str, str]],
@@ -473,42 +553,57 @@ class _Build:
         progress: Progress | None,
         stats: dict[str, dict[str, Any]],
     ) -> None:
-        self.work, self.prev, self.sources, self.prints = work, prev, sources, prints
+        self.work, self.spare, self.prev, self.sources, self.prints = work, spare, prev, sources, prints
         self.config, self.site_key, self.run, self.progress = config, site_key, run, progress
         self.stats = stats  # per dataset: file stats and hashes, recorded for the next build
-        self.fit_shas: dict[str, str] = {}  # reused datasets: the checked sha256 of their (linked) fit.json
-        self.then_files: dict[str, dict[str, int]] = {}  # the previous manifest by dataset folder
-        files = prev.body.get("files")
-        if isinstance(files, dict):
-            for key, size in files.items():
-                if key.startswith("datasets/"):
-                    slug, _, name = key[len("datasets/") :].partition("/")
-                    self.then_files.setdefault(slug, {})[name] = size
+        self.fit_shas: dict[str, str] = {}  # reused datasets: the checked sha256 of their fit.json
+        self.then_files = _files_by_folder(prev.body)  # the previous manifest by dataset folder
+        self.kept: set[str] = set()  # reused datasets whose folder in the spare was already right
 
-    def _stored_light(self, entry: dict[str, Any], old: Path, slug: str) -> FitReport | None:
-        """The stored result, light: from build.json when its fit.json is unchanged, else parsed from fit.json."""
+    def _stored_light(self, entry: dict[str, Any], old: Path, slug: str, record: dict[str, Any]) -> FitReport | None:
+        """The stored result, light: from build.json when its fit.json is unchanged, else parsed from fit.json.
+
+        ``record`` is the build.json entry that recorded ``old/fit.json`` (its sha256 and stat).
+        """
         from sitegen.report.files import report_from_index_entry  # noqa: PLC0415
 
         index = entry.get("index")
-        if entry.get("fit_sha256") and not _fit_json_intact(old / "fit.json", entry):
-            return None  # changed since the previous build wrote it: fit again rather than trust it
-        if isinstance(index, dict) and entry.get("fit_sha256") and index.get("status") != "error":
-            try:
-                if _fit_json_intact(old / "fit.json", entry):
+        if entry.get("fit_sha256"):
+            if not _fit_json_intact(old / "fit.json", record):
+                return None  # changed since the build that wrote it: fit again rather than trust it
+            if isinstance(index, dict) and index.get("status") != "error":
+                try:
                     report = report_from_index_entry(index, str(entry.get("input_sha256", "")))
                     self.fit_shas[slug] = str(entry["fit_sha256"])
                     return report
-            except (OSError, KeyError, TypeError, ValueError):
-                pass
+                except (KeyError, TypeError, ValueError):
+                    pass
         return _stored_report(old, slug)
+
+    def _spare_holds(self, slug: str, entry: dict[str, Any]) -> bool:
+        """The spare's folder for ``slug`` holds the same result as the published one, whole."""
+        mine = self.spare.entries.get(slug)
+        return (
+            mine is not None
+            and bool(entry.get("fit_sha256"))
+            and mine.get("fingerprint") == entry.get("fingerprint")
+            and mine.get("fit_sha256") == entry.get("fit_sha256")
+            and self.spare.recorded.get(slug) == self.spare.folders.get(slug)
+        )
 
     def _reuse(self, src: DatasetSource) -> tuple[FitReport, tuple[str, ...]] | None:
         entry = self.prev.entries.get(src.slug)
         fp = self.prints[src.slug][1]
         if self.prev.site is None or entry is None or entry.get("fingerprint") != fp or not fp:
             return None
+        new = self.work / "datasets" / src.slug
+        if self._spare_holds(src.slug, entry):
+            report = self._stored_light(entry, new, src.slug, self.spare.entries[src.slug])
+            if report is not None:
+                self.kept.add(src.slug)
+                return report, tuple(n for n in sorted(self.spare.folders[src.slug]) if _is_data_file(n))
         old = self.prev.site / "datasets" / src.slug
-        report = self._stored_light(entry, old, src.slug)
+        report = self._stored_light(entry, old, src.slug, entry)
         if report is None:
             return None
         then_here = self.then_files.get(src.slug)
@@ -516,19 +611,10 @@ class _Build:
         if not then_here or then_here != here:
             self.fit_shas.pop(src.slug, None)
             return None  # a file of its folder is missing or changed since the previous build wrote it
-        new = self.work / "datasets" / src.slug
         new.mkdir(parents=True, exist_ok=True)
-        files = []
-        for name in here:  # sorted; files only
-            if name == "index.html" or "/" in name:
-                continue
-            if name.startswith("chart-") and name.endswith(".svg"):
-                # Static chart images belong to the page: kept only while the site asks for them.
-                if self.config.static_images:
-                    _link_or_copy(old / name, new / name)
-                continue
-            _link_or_copy(old / name, new / name)
-            files.append(name)
+        files = [name for name in here if "/" not in name and _is_data_file(name)]  # sorted
+        for name in files:
+            shutil.copyfile(old / name, new / name)  # into the spare's own file where it has one
         return report, tuple(files)
 
     def execute(self, theme: Theme) -> tuple[tuple[Outcome, ...], int, list[str], tuple[tuple[str, str], ...]]:
@@ -556,12 +642,12 @@ class _Build:
         count = len(done)
         if self.progress:
             self.progress(count, total, "")
-        paged: dict[str, Neighbours | None] = {}
+        paged: dict[str, tuple[Neighbours | None, tuple[str, ...]]] = {}
         for i, res in self.run.run(fit_job, jobs):
             slug = jobs[i].source.slug
             report = res.report or report_from_index_entry(res.entry or {}, self.prints[slug][0])
             done[slug] = (report, res.files)
-            paged[slug] = res.paged
+            paged[slug] = (res.paged, res.page_files)
             if res.debug_trace:
                 traces.append((jobs[i].source.relpath, res.debug_trace))
             count += 1
@@ -569,16 +655,16 @@ class _Build:
                 self.progress(count, total, jobs[i].source.relpath)
         refitted = {j.source.slug for j in jobs}
         reports = [_with_sha(done[s.slug][0], self.prints[s.slug][0]) for s in self.sources]
-        entries, page_jobs = self._plan_pages(ctx, reports, done, refitted, paged)
+        entries, page_jobs, page_files = self._plan_pages(ctx, reports, done, refitted, paged)
         pending = self.run.run(page_job, page_jobs)  # the pool renders pages while this process does the rest
         index = pages.render_index(ctx, reports, tag_blocks(reports))
         (self.work / "index.html").write_text(index, encoding="utf-8")
         summary_files(self.work, reports)
         hist_warnings = history.write(self.work, ctx, reports, self.prev.site)
-        assets.write_bundle(self.work, self.prev.site)
-        assets.write_static(self.work, theme)
-        for _ in pending:
-            pass
+        site_assets = {*assets.write_bundle(self.work, self.prev.site), *assets.write_static(self.work, theme)}
+        for i, names in pending:
+            page_files[page_jobs[i].target.parent.name] = names
+        self._tidy({slug: {*files, *page_files[slug]} for slug, (_, files) in done.items()}, site_assets)
         self._write_build_json(entries)
         outcomes = tuple(Outcome(r.dataset, r.source, r.status, str(summary_row(r)["message"])) for r in reports)
         return outcomes, len(jobs), hist_warnings, tuple(traces)
@@ -589,12 +675,14 @@ class _Build:
         reports: Sequence[FitReport],
         done: dict[str, tuple[FitReport, tuple[str, ...]]],
         refitted: set[str],
-        paged: dict[str, Neighbours | None],
-    ) -> tuple[list[dict[str, Any]], list[PageJob]]:
+        paged: dict[str, tuple[Neighbours | None, tuple[str, ...]]],
+    ) -> tuple[list[dict[str, Any]], list[PageJob], dict[str, tuple[str, ...]]]:
+        """Which pages to keep, copy or render; their build.json entries; the names of pages already in place."""
         from sitegen.report.files import index_entry, summary_row  # noqa: PLC0415
 
         entries: list[dict[str, Any]] = []
         jobs: list[PageJob] = []
+        in_place: dict[str, tuple[str, ...]] = {}
         for i, (src, report) in enumerate(zip(self.sources, reports, strict=True)):
             files = done[src.slug][1]
             prev_r = (reports[i - 1].dataset, reports[i - 1].title) if i > 0 else None
@@ -604,16 +692,24 @@ class _Build:
             target = self.work / "datasets" / src.slug / "index.html"
             old_entry = self.prev.entries.get(src.slug, {})
             old_page = self.prev.site / "datasets" / src.slug / "index.html" if self.prev.site else None
-            written = paged.get(src.slug)
+            written, written_files = paged.get(src.slug, (None, ()))
             if written is not None and (written.prev, written.next) == (prev_r, next_r):
-                pass  # written by the worker that fitted it, with the right neighbours
+                in_place[src.slug] = written_files  # written by the worker that fitted it, with the right neighbours
+            elif src.slug in self.kept and self.spare.entries[src.slug].get("page_key") == key:
+                in_place[src.slug] = tuple(n for n in self.spare.folders[src.slug] if not _is_data_file(n))
             elif (
                 src.slug not in refitted
                 and old_page is not None
                 and old_entry.get("page_key") == key
                 and old_page.is_file()
             ):
-                _link_or_copy(old_page, target)
+                names = ["index.html"]
+                if self.config.static_images:  # the page's chart images come with it
+                    then = self.then_files.get(src.slug, {})
+                    names += [n for n in then if n != "index.html" and not _is_data_file(n)]
+                for name in names:
+                    shutil.copyfile(old_page.parent / name, target.parent / name)
+                in_place[src.slug] = tuple(names)
             else:
                 full = report if report.status == "error" else None  # else read from its fit.json
                 jobs.append(PageJob(ctx, full, files, prev_r, next_r, target))
@@ -631,7 +727,32 @@ class _Build:
                     "stat": self.stats.get(src.slug, {}),
                 }
             )
-        return entries, jobs
+        return entries, jobs, in_place
+
+    def _tidy(self, wanted: dict[str, set[str]], site_assets: set[str]) -> None:
+        """Remove from the build folder what the spare held and this site does not: datasets that are
+        gone, files a dataset no longer has, site files of other versions."""
+        from sitegen.publish import MARKER  # noqa: PLC0415
+        from sitegen.report.files import SUMMARY_FILES  # noqa: PLC0415
+        from sitegen.report.history import HISTORY_FILES  # noqa: PLC0415
+
+        folders = self.work / "datasets"
+        for slug, names in self.spare.folders.items():
+            keep = wanted.get(slug)
+            if keep is None:
+                _remove(folders / slug)
+                continue
+            for name in names:
+                if name not in keep:
+                    _remove(folders / slug / name)
+        top = {"datasets", "assets", "index.html", "build.json", ".owner", MARKER, *SUMMARY_FILES, *HISTORY_FILES}
+        with os.scandir(self.work) as entries:
+            for entry in entries:
+                if entry.name not in top:
+                    _remove(Path(entry.path))
+        for path in (self.work / "assets").rglob("*"):
+            if path.is_file() and path.relative_to(self.work).as_posix() not in site_assets:
+                _remove(path)
 
     def _expected_titles(self) -> list[tuple[str, str]]:
         """(slug, title) of every dataset as its page will name it: the sidecar's title, else the file name.
@@ -653,7 +774,7 @@ class _Build:
     def _write_build_json(self, entries: list[dict[str, Any]]) -> None:
         import platform  # noqa: PLC0415
 
-        for entry in entries:  # lets a rebuild trust a stored result without parsing it
+        for entry in entries:  # lets a rebuild trust a stored result without parsing it (and keep it in place)
             stored = self.work / "datasets" / entry["dataset"] / "fit.json"
             known = self.fit_shas.get(entry["dataset"]) if entry["reused"] else None
             entry["fit_sha256"] = known or _file_sha256(stored)

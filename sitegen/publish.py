@@ -1,12 +1,19 @@
 """Write a site safely: refuse unsafe output folders, build beside, swap in whole.
 
-The site is built in a temporary folder next to the output folder
-(``.NAME.sitegen-build``), whose creation also serves as the build lock. When
-the build is complete the two folders are exchanged atomically (Linux
-``renameat2(RENAME_EXCHANGE)``; elsewhere two renames with recovery), so a
-reader, a crash or ``kill -9`` at any moment sees either the old site or the
-new one, never a mixture. A stale build folder left by a killed build is
-detected by its owner's process id and removed.
+The site is built in a folder next to the output folder (``.NAME.sitegen-build``),
+guarded by a lock file beside it. When the build is complete the two folders are
+exchanged atomically (Linux ``renameat2(RENAME_EXCHANGE)``; elsewhere two renames
+with recovery), so a reader, a crash or ``kill -9`` at any moment sees either the
+old site or the new one, never a mixture.
+
+After the exchange the build folder holds the previous site. It is kept as the
+*spare*: the next build updates it in place (rewriting existing files, deleting
+what is no longer wanted) and exchanges again. Creating files is the dearest
+thing a build does on many file systems (a new inode costs 0.3–0.9 ms on the
+machine we measure on, rewriting an existing file 0.05 ms), so two generations
+that take turns cost far less than a new folder tree per build. The spare shares
+no files with the published site (no hard links), so rewriting it can never
+change what readers see; deleting it only makes the next build slower.
 """
 
 from __future__ import annotations
@@ -49,7 +56,7 @@ def check_output_folder(data_dir: Path, out_dir: Path) -> None:
 
 
 def build_dir_for(out_dir: Path) -> Path:
-    """The temporary build folder that sits beside the output folder."""
+    """The build folder beside the output folder (between builds: the spare, the previous site)."""
     out = out_dir.resolve()
     return out.parent / f".{out.name}.sitegen-build"
 
@@ -58,6 +65,19 @@ def lock_path_for(out_dir: Path) -> Path:
     """The lock file of the build folder, beside the output folder (removed when a build ends)."""
     out = out_dir.resolve()
     return out.parent / f".{out.name}.sitegen-build.lock"
+
+
+_held = -1  # the descriptor of the lock this process holds, if any
+
+
+def _close_in_child() -> None:
+    """A forked worker does not keep the build lock: once the build's own process is gone
+    (ended or killed), the lock is free at once, however long its workers take to follow."""
+    if _held >= 0:
+        os.close(_held)
+
+
+os.register_at_fork(after_in_child=_close_in_child)
 
 
 def _acquire(lock: Path) -> int:
@@ -85,14 +105,16 @@ def _acquire(lock: Path) -> int:
 
 @contextlib.contextmanager
 def build_folder(out_dir: Path) -> Iterator[Path]:
-    """Lock the output folder and create the temporary build folder beside it; clean both up however the build ends.
+    """Lock the output folder and open the build folder beside it; release the lock however the build ends.
 
     The lock is an ``flock`` on a small file beside the output folder, so the kernel
-    releases it if the build is killed; a build folder left by a killed build is removed.
+    releases it if the build is killed. The build folder is kept (see the module's
+    docstring); anything at its path that is not a plain folder is removed first.
     """
     work = build_dir_for(out_dir)
     work.parent.mkdir(parents=True, exist_ok=True)
     lock = lock_path_for(out_dir)
+    global _held  # noqa: PLW0603 - the fork hook needs it
     fd = _acquire(lock)
     if fd < 0:
         owner = _read_owner(work)
@@ -101,14 +123,18 @@ def build_folder(out_dir: Path) -> Iterator[Path]:
             f"another sitegen build{who} is writing {out_dir}",
             hint="wait for it to finish, or stop it; the published site is not affected",
         )
+    _held = fd
     try:
-        shutil.rmtree(work, ignore_errors=True)  # left by a build that was killed
-        work.mkdir()
+        if work.is_symlink() or (work.exists() and not work.is_dir()):
+            work.unlink()
+        work.mkdir(exist_ok=True)
         (work / _OWNER).write_text(str(os.getpid()), encoding="utf-8")
         yield work
     finally:
-        shutil.rmtree(work, ignore_errors=True)
+        with contextlib.suppress(OSError):
+            (work / _OWNER).unlink(missing_ok=True)
         lock.unlink(missing_ok=True)  # still ours: unlinked before the lock is released
+        _held = -1
         os.close(fd)
 
 
@@ -138,15 +164,18 @@ def _exchange(a: Path, b: Path) -> bool:
 
 
 def swap_in(site: Path, out_dir: Path) -> None:
-    """Replace ``out_dir`` by the finished ``site`` folder in one step; ``site`` ends up holding the old one."""
+    """Replace ``out_dir`` by the finished ``site`` folder in one step; ``site`` ends up holding the old one
+    (or, on a first build, no longer exists)."""
     (site / _OWNER).unlink(missing_ok=True)
     (site / MARKER).write_text(MARKER_TEXT, encoding="utf-8")
     out = out_dir.resolve()
     if not out.exists():
-        site.rename(out)
-        site.mkdir()
+        site.rename(out)  # a first build: there is no previous site to keep as the spare
         return
     if _exchange(site, out):
+        if not (site / MARKER).exists():  # the output folder was empty: nothing to keep as the spare
+            with contextlib.suppress(OSError):
+                site.rmdir()
         return
     old = out.parent / f".{out.name}.sitegen-old"  # pragma: no cover - systems without renameat2
     shutil.rmtree(old, ignore_errors=True)

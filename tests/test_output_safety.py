@@ -132,8 +132,12 @@ def test_folder_made_by_sitegen_is_rebuilt(small_data: Path, tmp_path: Path) -> 
     result = cli("build", small_data, "-o", site, "-j", "1")
     assert result.code == 0, result.output
     assert (site / "datasets" / "delta" / "fit.json").is_file()
-    # No build folder is left beside the site.
-    assert sorted(p.name for p in tmp_path.iterdir()) == ["data", "site"]
+    # Beside the site only the spare is left: the previous site, whole, and no lock.
+    assert sorted(p.name for p in tmp_path.iterdir()) == [".site.sitegen-build", "data", "site"]
+    spare = tmp_path / ".site.sitegen-build"
+    assert (spare / "build.json").is_file()
+    assert not (spare / "datasets" / "delta").exists()
+    assert not (spare / ".owner").exists()
 
 
 def test_empty_existing_folder_is_accepted(small_data: Path, tmp_path: Path) -> None:

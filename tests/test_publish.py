@@ -64,7 +64,7 @@ def test_second_build_into_a_locked_folder_is_refused(tmp_path: Path) -> None:
         assert holder.stdout is not None
         assert holder.stdout.readline().strip() == "held"
         work = build_dir_for(out)
-        work.mkdir()
+        work.mkdir(exist_ok=True)
         (work / ".owner").write_text(str(holder.pid), encoding="utf-8")
         res = cli("build", data, "-o", out, "-j", "1")
         assert res.code == 2
@@ -77,7 +77,7 @@ def test_second_build_into_a_locked_folder_is_refused(tmp_path: Path) -> None:
         holder.communicate()
     # The holder is gone (the kernel released its lock): its leftover folder is stale and the next build proceeds.
     assert cli("build", data, "-o", out, "-j", "1").code == 0
-    assert not build_dir_for(out).exists()
+    assert not (build_dir_for(out) / ".owner").exists()  # the build folder is kept as the spare, unowned
     assert not lock.exists()
 
 
@@ -99,7 +99,7 @@ def test_builds_started_together_never_both_write(tmp_path: Path) -> None:
         with (out / "summary.csv").open(encoding="utf-8") as fh:
             assert len(list(csv.DictReader(fh))) == 4
         assert (out / "index.html").is_file()
-    assert not build_dir_for(out).exists()
+    assert not (build_dir_for(out) / ".owner").exists()
     assert not lock_path_for(out).exists()
 
 
@@ -122,7 +122,7 @@ def test_kill_9_at_any_moment_leaves_the_published_site_whole(tmp_path: Path) ->
             assert len(list(csv.DictReader(fh))) == 12
     res = cli("build", data, "-o", out, "-j", "1")
     assert res.code == 0, res.output
-    assert not build_dir_for(out).exists()
+    assert not (build_dir_for(out) / ".owner").exists()
 
 
 def test_pack_makes_a_zip_that_works_unzipped_anywhere(tmp_path: Path) -> None:

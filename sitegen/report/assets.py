@@ -36,23 +36,34 @@ def _bundle_text() -> str:
     return text
 
 
-def write_bundle(out: Path, previous: Path | None) -> None:
-    """Put the chart bundle into ``out`` (the site being built)."""
+def _read(path: Path) -> str | None:
+    try:
+        return path.read_text(encoding="utf-8")
+    except (OSError, ValueError):
+        return None
+
+
+def write_bundle(out: Path, previous: Path | None) -> tuple[str, str]:
+    """Put the chart bundle into ``out`` (the site being built); returns the paths written."""
     version = bundle_version()
     target = out / BUNDLE
+    written = (BUNDLE, BUNDLE_VERSION)
     target.parent.mkdir(parents=True, exist_ok=True)
-    (out / BUNDLE_VERSION).write_text(version, encoding="utf-8")
     if previous is not None:
-        old_version = previous / BUNDLE_VERSION
         old_bundle = previous / BUNDLE
-        if old_version.is_file() and old_bundle.is_file() and old_version.read_text(encoding="utf-8") == version:
-            shutil.copyfile(old_bundle, target)
-            return
+        if _read(previous / BUNDLE_VERSION) == version and old_bundle.is_file():
+            size = old_bundle.stat().st_size
+            # ``out`` may already hold it (a build folder that held an earlier site of the same versions)
+            if not (_read(out / BUNDLE_VERSION) == version and target.is_file() and target.stat().st_size == size):
+                shutil.copyfile(old_bundle, target)
+            (out / BUNDLE_VERSION).write_text(version, encoding="utf-8")
+            return written
+    (out / BUNDLE_VERSION).write_text(version, encoding="utf-8")
     key = "".join(c if c.isalnum() else "-" for c in version.strip())
     cached = cache_dir() / f"vega-bundle-{key}.js"
     if cached.is_file():
         shutil.copyfile(cached, target)
-        return
+        return written
     text = _bundle_text()
     target.write_text(text, encoding="utf-8")
     try:
@@ -62,15 +73,20 @@ def write_bundle(out: Path, previous: Path | None) -> None:
         tmp.replace(cached)
     except OSError:
         pass  # the cache is an optimisation only
+    return written
 
 
-def write_static(out: Path, theme: Theme) -> None:
-    """Copy the theme's static files (user theme over default) into ``assets/``."""
+def write_static(out: Path, theme: Theme) -> list[str]:
+    """Copy the theme's static files (user theme over default) into ``assets/``; returns the paths written."""
     dest = out / "assets"
     dest.mkdir(parents=True, exist_ok=True)
+    written = []
     for folder in reversed(theme.static_dirs):
         for path in sorted(folder.rglob("*")):
             if path.is_file() and not path.name.startswith("."):
-                target = dest / path.relative_to(folder)
+                rel = path.relative_to(folder)
+                target = dest / rel
                 target.parent.mkdir(parents=True, exist_ok=True)
                 shutil.copyfile(path, target)
+                written.append(f"assets/{rel.as_posix()}")
+    return written

@@ -149,6 +149,10 @@ def _json_value(v: Any) -> Any:
     return v
 
 
+#: The site-wide tables :func:`summary_files` writes.
+SUMMARY_FILES = ("summary.csv", "summary.json", "summary.xlsx")
+
+
 def summary_files(work: Path, reports: Sequence[FitReport]) -> None:
     """summary.csv, summary.json and summary.xlsx."""
     rows = [summary_row(r) for r in reports]

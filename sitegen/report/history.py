@@ -19,6 +19,8 @@ from sitegen.model import FitReport
 from sitegen.report import charts, pages
 
 MAX_BUILDS = 30
+#: The files :func:`write` writes.
+HISTORY_FILES = ("history.json", "changes.json", "changes.html")
 
 
 def snapshot(reports: Sequence[FitReport]) -> dict[str, dict[str, Any]]:

@@ -1,0 +1,176 @@
+"""The spare: the previous site kept beside the output folder and updated in place by the next build.
+
+What must hold (publish.py's promise): a rebuild through the spare gives exactly the
+site a fresh build into an empty folder gives; the published site and the spare never
+share a file; a damaged, doctored or half-updated spare only means more work.
+Everything runs for real: real folders, real builds, a real SIGKILL.
+"""
+
+from __future__ import annotations
+
+import os
+import re
+import shutil
+import signal
+import subprocess
+import sys
+import time
+from collections.abc import Callable
+from pathlib import Path
+
+import pytest
+from conftest import cli, site_bytes, write_csv, write_toml
+
+from sitegen.publish import build_dir_for
+
+# Files that record the sequence of builds rather than the data: they differ from a fresh build on purpose.
+SEQUENCE_FILES = ("build.json", "history.json", "changes.json", "changes.html")
+
+
+def _build(data: Path, site: Path, *extra: str) -> None:
+    res = cli("build", data, "-o", site, "-j", "1", *extra)
+    assert res.code == 0, res.output
+
+
+def _fresh(data: Path, where: Path) -> dict[str, bytes]:
+    _build(data, where)
+    return site_bytes(where, SEQUENCE_FILES)
+
+
+def _images_alike(files: dict[str, bytes]) -> dict[str, bytes]:
+    """Chart images with their clip-path ids blanked: the converter numbers them per process, not per chart."""
+    return {k: re.sub(rb"clip\d+", b"clip", v) if k.endswith(".svg") else v for k, v in files.items()}
+
+
+def _inodes(folder: Path) -> dict[int, str]:
+    return {p.stat().st_ino: p.as_posix() for p in folder.rglob("*") if p.is_file()}
+
+
+def _assert_independent(site: Path) -> None:
+    """Every file of the site is its own: one link, and no inode shared with the spare."""
+    for p in site.rglob("*"):
+        if p.is_file():
+            assert p.stat().st_nlink == 1, p
+    spare = build_dir_for(site)
+    if spare.exists():
+        assert not set(_inodes(site)) & set(_inodes(spare))
+
+
+def _append(path: Path, text: str) -> None:
+    with path.open("a", encoding="utf-8") as fh:
+        fh.write(text)
+
+
+def _data(root: Path) -> Path:
+    data = root / "data"
+    for i, slope in enumerate((0.5, 1.5, -0.8, 2.2)):
+        rows = "".join(f"{x},{1 + slope * x + ((x * 3 + i) % 5 - 2) * 0.07:.3f}\n" for x in range(1, 13))
+        write_csv(data / ("part" if i == 3 else "") / f"line_{i}.csv", "x,y\n" + rows)
+    write_toml(data / "line_1.toml", {"title": "Line one", "model": "y ~ x"})
+    return data
+
+
+STEPS: list[tuple[str, Callable[[Path], object]]] = [
+    ("append a row", lambda d: _append(d / "line_0.csv", "13,7.61\n")),
+    ("add a dataset", lambda d: write_csv(d / "line_9.csv", "x,y\n1,2\n2,4.1\n3,5.9\n4,8.2\n")),
+    ("retitle (neighbours' pages change)", lambda d: write_toml(d / "line_1.toml", {"title": "Line 1 (renamed)"})),
+    ("remove a dataset", lambda d: (d / "line_2.csv").unlink()),
+    ("offer the source files", lambda d: write_toml(d / "site.toml", "offer_source = true\n")),
+    ("nothing", lambda d: None),
+    ("stop offering them", lambda d: (d / "site.toml").unlink()),
+    ("break one dataset", lambda d: write_csv(d / "line_0.csv", "x,y\n1,a\n")),
+    ("mend it", lambda d: write_csv(d / "line_0.csv", "x,y\n1,2\n2,3.1\n3,3.9\n4,5.2\n")),
+]
+
+
+def test_every_rebuild_equals_a_fresh_build(tmp_path: Path) -> None:
+    data = _data(tmp_path)
+    site = tmp_path / "site"
+    _build(data, site)
+    for k, (what, change) in enumerate(STEPS):
+        change(data)
+        res = cli("build", data, "-o", site, "-j", "1")
+        assert res.code in (0, 1), res.output
+        fresh = tmp_path / f"fresh-{k}"
+        cli("build", data, "-o", fresh, "-j", "1")
+        assert site_bytes(site, SEQUENCE_FILES) == site_bytes(fresh, SEQUENCE_FILES), what
+        _assert_independent(site)
+    assert build_dir_for(site).is_dir()  # kept for the next build
+
+
+def test_static_images_come_and_go_with_the_setting(tmp_path: Path) -> None:
+    data = _data(tmp_path)
+    site = tmp_path / "site"
+    _build(data, site)
+    _build(data, site)  # now a spare exists
+    write_toml(data / "site.toml", "static_images = true\n")
+    _build(data, site)
+    assert list((site / "datasets" / "line-0").glob("chart-*.svg"))
+    assert _images_alike(site_bytes(site, SEQUENCE_FILES)) == _images_alike(_fresh(data, tmp_path / "fresh-on"))
+    (data / "site.toml").unlink()
+    _build(data, site)
+    _build(data, site)  # and through the spare that held the images
+    assert not list(site.rglob("chart-*.svg"))
+    assert site_bytes(site, SEQUENCE_FILES) == _fresh(data, tmp_path / "fresh-off")
+    _assert_independent(site)
+
+
+def test_unchanged_datasets_are_left_in_place(tmp_path: Path) -> None:
+    """Two builds after a change, an unchanged dataset's files are the very ones the spare held."""
+    data = _data(tmp_path)
+    site = tmp_path / "site"
+    _build(data, site)
+    _build(data, site, "--refit")
+    spare = build_dir_for(site)
+    before = {p.name: p.stat().st_ino for p in (spare / "datasets" / "part-line-3").iterdir()}
+    _append(data / "line_0.csv", "13,7.61\n")
+    _build(data, site)
+    after = {p.name: p.stat().st_ino for p in (site / "datasets" / "part-line-3").iterdir()}
+    assert after == before
+
+
+def test_a_doctored_spare_costs_work_not_correctness(tmp_path: Path) -> None:
+    data = _data(tmp_path)
+    site = tmp_path / "site"
+    _build(data, site)
+    _build(data, site, "--refit")
+    spare = build_dir_for(site)
+    outside = tmp_path / "keep-me.txt"
+    outside.write_text("precious\n", encoding="utf-8")
+    # A file edited at the same size, one deleted, a stray file and folder, a hard link to a file
+    # elsewhere where a download belongs, a symbolic link where a dataset folder belongs.
+    fit = spare / "datasets" / "line-0" / "fit.json"
+    text = fit.read_text(encoding="utf-8")
+    fit.write_text(text.replace('"ok"', '"ko"', 1), encoding="utf-8")
+    (spare / "datasets" / "line-1" / "coefficients.csv").unlink()
+    (spare / "stray.txt").write_text("x", encoding="utf-8")
+    (spare / "datasets" / "line-1" / "junk").mkdir()
+    (spare / "datasets" / "line-2" / "anova.csv").unlink()
+    os.link(outside, spare / "datasets" / "line-2" / "anova.csv")
+    target = spare / "datasets" / "part-line-3"
+    shutil.rmtree(target)
+    target.symlink_to(tmp_path)
+    _append(data / "line_0.csv", "13,7.61\n")  # a change, so that the build goes through the spare
+    _build(data, site)
+    assert outside.read_text(encoding="utf-8") == "precious\n"
+    assert site_bytes(site, SEQUENCE_FILES) == _fresh(data, tmp_path / "fresh")
+    _assert_independent(site)
+
+
+@pytest.mark.slow
+def test_a_build_killed_while_updating_the_spare(tmp_path: Path) -> None:
+    data = _data(tmp_path)
+    for i in range(12):
+        rows = "".join(f"{x},{2 + 0.3 * x + (x * i % 7) * 0.05:.3f}\n" for x in range(1, 40))
+        write_csv(data / f"more_{i:02d}.csv", "x,y\n" + rows)
+    site = tmp_path / "site"
+    _build(data, site)
+    _build(data, site)
+    cmd = [sys.executable, "-m", "sitegen", "build", str(data), "-o", str(site), "--refit", "-q", "-j", "2"]
+    for delay in (0.2, 0.6, 1.2):
+        proc = subprocess.Popen(cmd, start_new_session=True)
+        time.sleep(delay)
+        os.killpg(proc.pid, signal.SIGKILL)
+        proc.wait()
+        _build(data, site)
+        assert site_bytes(site, SEQUENCE_FILES) == _fresh(data, tmp_path / f"fresh-{delay}")
