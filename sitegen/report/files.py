@@ -17,7 +17,7 @@ from sitegen.discover import DatasetSource
 from sitegen.jsontext import json_text
 from sitegen.model import FitReport, to_json
 from sitegen.report.tables import clean_rows, rows_from_columns, rows_to_csv_bytes, write_large_csv
-from sitegen.report.xlsx import Sheet, workbook, workbook_bytes
+from sitegen.report.xlsx import Sheet, csv_lines, workbook, workbook_bytes
 
 XLSX_MAX_ROWS = 50_000  # larger observation tables are offered as CSV only
 WORKBOOK = "tables.xlsx"  # every table of a dataset, a sheet each
@@ -178,8 +178,10 @@ def _observations(folder: Path, obs: Observations, book: list[Sheet]) -> str:
         return "observations.csv"
     header, _ = clean_rows(obs.columns, [])
     cells = rows_from_columns(obs.values)
-    (folder / "observations.csv").write_bytes(rows_to_csv_bytes(header, cells))
-    book.append(("observations", header, cells))
+    text = rows_to_csv_bytes(header, cells)
+    (folder / "observations.csv").write_bytes(text)
+    lines = csv_lines(text.decode("utf-8"), ["n" if arr.dtype.kind in "fiu" else "t" for arr in obs.values])
+    book.append(("observations", header, cells if lines is None else lines))  # the sheet reuses the CSV's text
     return "observations.csv"
 
 

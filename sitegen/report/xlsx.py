@@ -26,8 +26,26 @@ _ROOT_RELS = (
     f'<Relationship Id="rId1" Type="{_REL}/officeDocument" Target="xl/workbook.xml"/></Relationships>'
 )
 
-#: A table for a workbook: (sheet name, header, rows).
-Sheet = tuple[str, Sequence[str], Sequence[Sequence[object]]]
+class CsvLines(str):
+    """A table's rows as the CSV writer wrote them (LF ends, no quoted cells): ``numbers`` columns
+    of numbers or empty cells, then text columns.
+
+    The CSV writer has already turned each number into its shortest round-trip text; a sheet is
+    made from these lines by string replacement instead of formatting every cell again.
+    """
+
+    __slots__ = ("numbers", "width")
+    numbers: int
+    width: int
+
+    def __new__(cls, text: str, numbers: int, width: int) -> CsvLines:
+        self = super().__new__(cls, text)
+        self.numbers, self.width = numbers, width
+        return self
+
+
+#: A table for a workbook: (sheet name, header, rows or their CSV lines).
+Sheet = tuple[str, Sequence[str], Sequence[Sequence[object]] | CsvLines]
 
 
 def _content_types(count: int) -> str:
@@ -107,10 +125,46 @@ def _column_cells(values: Sequence[object]) -> list[str]:
     return [_cell(v) for v in values]
 
 
-def _sheet_xml(header: Sequence[str], rows: Sequence[Sequence[object]]) -> str:
-    columns = [_column_cells(col) for col in zip(*rows, strict=True)] if rows else []
+def _text_cell(text: str) -> str:
+    return _cell(text) if text else "<c/>"
+
+
+def _csv_rows(lines: CsvLines) -> str:
+    k, rows = lines.numbers, []
+    for r, line in enumerate(lines.split("\n")[:-1], start=2):
+        if line == '""':  # the CSV writer's way of writing a row that is one empty cell
+            line = ""  # noqa: PLW2901
+        texts: list[str] = []
+        if k < lines.width:
+            parts = line.split(",")
+            line, texts = ",".join(parts[:k]), parts[k:]
+        cells = f"<c><v>{line.replace(',', '</v></c><c><v>')}</v></c>" if k else ""
+        rows.append(f'<row r="{r}">{cells}{"".join(map(_text_cell, texts))}</row>')
+    return "".join(rows).replace("<c><v></v></c>", "<c/>")  # empty number cells
+
+
+def csv_lines(text: str, kinds: Sequence[str]) -> CsvLines | None:
+    """The rows of a CSV text (header line first) for :func:`_sheet_xml`, when its layout allows.
+
+    ``kinds`` names each column's kind: ``"n"`` numbers, ``"t"`` text. Numbers must come first
+    and no cell may be quoted (a row that is one empty cell, written ``""``, excepted).
+    """
+    body = text.partition("\n")[2]
+    k = len(kinds) - len("".join(kinds).lstrip("n"))
+    if "t" in kinds[:k] or "n" in kinds[k:]:
+        return None
+    if '"' in body and any('"' in line and line != '""' for line in body.split("\n")):
+        return None
+    return CsvLines(body, k, len(kinds))
+
+
+def _sheet_xml(header: Sequence[str], rows: Sequence[Sequence[object]] | CsvLines) -> str:
     body = [f'<row r="1">{"".join(map(_cell, header))}</row>']
-    body += [f'<row r="{r}">{"".join(cells)}</row>' for r, cells in enumerate(zip(*columns, strict=True), start=2)]
+    if isinstance(rows, CsvLines):
+        body.append(_csv_rows(rows))
+    else:
+        columns = [_column_cells(col) for col in zip(*rows, strict=True)] if rows else []
+        body += [f'<row r="{r}">{"".join(cells)}</row>' for r, cells in enumerate(zip(*columns, strict=True), start=2)]
     return f'{_XML_HEAD}<worksheet xmlns="{_MAIN}"><sheetData>{"".join(body)}</sheetData></worksheet>'
 
 
