@@ -10,8 +10,12 @@ import csv
 import math
 from pathlib import Path
 
+import numpy as np
 from conftest import Built
 from openpyxl import load_workbook
+
+from sitegen.report.tables import clean_rows, rows_from_columns, rows_to_csv_bytes
+from sitegen.report.xlsx import _sheet_xml, csv_lines
 
 
 def _csv_cell(text: str) -> object:
@@ -61,11 +65,6 @@ def _check_cell(cell: object, want: object, path: Path) -> None:
 
 def test_sheets_from_csv_lines_equal_sheets_from_cells() -> None:
     """The short cut for tables of numbers then text (the CSV's own lines) writes the same XML as cell by cell."""
-    import numpy as np  # noqa: PLC0415
-
-    from sitegen.report.tables import clean_rows, rows_from_columns, rows_to_csv_bytes  # noqa: PLC0415
-    from sitegen.report.xlsx import _sheet_xml, csv_lines  # noqa: PLC0415
-
     columns = [
         np.array([1, 2, 3, -4], dtype=np.int64),
         np.array([0.1, np.nan, -2.5e-300, 1e22]),

@@ -26,6 +26,7 @@ _ROOT_RELS = (
     f'<Relationship Id="rId1" Type="{_REL}/officeDocument" Target="xl/workbook.xml"/></Relationships>'
 )
 
+
 class CsvLines(str):
     """A table's rows as the CSV writer wrote them (LF ends, no quoted cells): ``numbers`` columns
     of numbers or empty cells, then text columns.
@@ -132,13 +133,12 @@ def _text_cell(text: str) -> str:
 def _csv_rows(lines: CsvLines) -> str:
     k, rows = lines.numbers, []
     for r, line in enumerate(lines.split("\n")[:-1], start=2):
-        if line == '""':  # the CSV writer's way of writing a row that is one empty cell
-            line = ""  # noqa: PLW2901
+        numbers = "" if line == '""' else line  # '""': the CSV writer's way of writing one empty cell
         texts: list[str] = []
         if k < lines.width:
-            parts = line.split(",")
-            line, texts = ",".join(parts[:k]), parts[k:]
-        cells = f"<c><v>{line.replace(',', '</v></c><c><v>')}</v></c>" if k else ""
+            parts = numbers.split(",")
+            numbers, texts = ",".join(parts[:k]), parts[k:]
+        cells = f"<c><v>{numbers.replace(',', '</v></c><c><v>')}</v></c>" if k else ""
         rows.append(f'<row r="{r}">{cells}{"".join(map(_text_cell, texts))}</row>')
     return "".join(rows).replace("<c><v></v></c>", "<c/>")  # empty number cells
 
