@@ -14,7 +14,7 @@ import numpy as np
 from conftest import Built
 from openpyxl import load_workbook
 
-from sitegen.report.tables import clean_rows, rows_from_columns, rows_to_csv_bytes
+from sitegen.report.tables import clean_rows, columns_to_csv, rows_from_columns, rows_to_csv_bytes
 from sitegen.report.xlsx import _sheet_xml, csv_lines
 
 
@@ -86,3 +86,27 @@ def test_sheets_from_csv_lines_equal_sheets_from_cells() -> None:
     assert csv_lines("a,b\nx,1\n", ["t", "n"]) is None
     assert csv_lines('a,b\n1,"x,y"\n', ["n", "t"]) is None
     assert csv_lines('a\n"x""y"\n', ["t"]) is None
+
+
+def test_csv_made_column_by_column_equals_the_csv_module() -> None:
+    """The column-wise CSV writer gives the csv module's bytes, or declines."""
+    columns = [
+        np.array([1, 2, 3, -4], dtype=np.int64),
+        np.array([0.1, np.nan, -2.5e-300, 1e22]),
+        np.array([np.inf, 3.0, -np.inf, 123456789.125]),
+        np.array([np.nan, np.nan, np.nan, np.nan]),
+        np.array(["", "high leverage; outlier", "=1+2", "a < b & c > d"], dtype=object),
+        np.array(["", "", "-x", "é"], dtype=object),
+        np.array([5, 6, 7, 8], dtype=np.uint8),
+    ]
+    for values in (columns, columns[:1], columns[4:6], columns[2:4], [c[:0] for c in columns]):
+        header, _ = clean_rows([f"c{i}" for i in range(len(values))], [])
+        made = columns_to_csv(header, values)
+        assert made == rows_to_csv_bytes(header, rows_from_columns(values))
+    # Cells the csv module would quote, a row of one empty cell, yes/no values: declined.
+    assert columns_to_csv(["t"], [columns[4]]) is None
+    for odd in (["a,b"], ['say "x"'], ["two\nlines"], ["cr\r"]):
+        assert columns_to_csv(["t"], [np.array(odd, dtype=object)]) is None
+    assert columns_to_csv(["t"], [np.array([np.nan, 1.0])]) is None
+    assert columns_to_csv(["t"], [np.array([True, False])]) is None
+    assert columns_to_csv(["t"], [np.array([1.5, "x"], dtype=object)]) is None

@@ -16,7 +16,13 @@ if TYPE_CHECKING:
 from sitegen.discover import DatasetSource
 from sitegen.jsontext import json_text
 from sitegen.model import FitReport, to_json
-from sitegen.report.tables import clean_rows, rows_from_columns, rows_to_csv_bytes, write_large_csv
+from sitegen.report.tables import (
+    clean_rows,
+    columns_to_csv,
+    rows_from_columns,
+    rows_to_csv_bytes,
+    write_large_csv,
+)
 from sitegen.report.xlsx import Sheet, csv_lines, workbook, workbook_bytes
 
 XLSX_MAX_ROWS = 50_000  # larger observation tables are offered as CSV only
@@ -177,11 +183,17 @@ def _observations(folder: Path, obs: Observations, book: list[Sheet]) -> str:
         write_large_csv(obs.columns, obs.values, folder / "observations.csv")
         return "observations.csv"
     header, _ = clean_rows(obs.columns, [])
-    cells = rows_from_columns(obs.values)
-    text = rows_to_csv_bytes(header, cells)
+    text = columns_to_csv(header, obs.values)
+    cells: list[list[Any]] | None = None
+    if text is None:
+        cells = rows_from_columns(obs.values)
+        text = rows_to_csv_bytes(header, cells)
     (folder / "observations.csv").write_bytes(text)
     lines = csv_lines(text.decode("utf-8"), ["n" if arr.dtype.kind in "fiu" else "t" for arr in obs.values])
-    book.append(("observations", header, cells if lines is None else lines))  # the sheet reuses the CSV's text
+    if lines is None:  # the sheet reuses the CSV's text where it can
+        book.append(("observations", header, cells if cells is not None else rows_from_columns(obs.values)))
+    else:
+        book.append(("observations", header, lines))
     return "observations.csv"
 
 

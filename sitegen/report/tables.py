@@ -10,6 +10,7 @@ from __future__ import annotations
 import csv
 import io
 import math
+import re
 from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
@@ -51,6 +52,41 @@ def rows_to_csv_bytes(header: Sequence[str], rows: Sequence[Sequence[Any]]) -> b
     writer = csv.writer(buf, lineterminator="\n")
     writer.writerow(header)
     writer.writerows(rows)
+    return buf.getvalue().encode("utf-8")
+
+
+_NEEDS_QUOTES = re.compile(r'[,"\n\r]')
+
+
+def columns_to_csv(header: Sequence[str], values: Sequence[np.ndarray[Any, Any]]) -> bytes | None:
+    """The bytes :func:`rows_to_csv_bytes` writes for these columns, made column by column; None when a
+    column is neither numbers nor plain text that needs no quoting (the caller then goes row by row)."""
+    cols: list[list[str]] = []
+    for arr in values:
+        kind = arr.dtype.kind
+        if kind == "f":
+            col = list(map(repr, arr.tolist()))
+            finite = np.isfinite(arr)
+            if not finite.all():
+                for i in np.flatnonzero(~finite).tolist():
+                    col[i] = ""
+        elif kind in "iu":
+            col = list(map(str, arr.tolist()))
+        else:
+            items = arr.tolist()
+            if not all(type(v) is str for v in items):
+                return None
+            col = [neutralise(v) for v in items]
+            if _NEEDS_QUOTES.search("".join(col)):
+                return None
+        cols.append(col)
+    if len(cols) == 1 and "" in cols[0]:
+        return None  # a row of one empty cell is written as "" by the csv module
+    buf = io.StringIO()
+    csv.writer(buf, lineterminator="\n").writerow(header)
+    if cols and cols[0]:
+        buf.write("\n".join(map(",".join, zip(*cols, strict=True))))
+        buf.write("\n")
     return buf.getvalue().encode("utf-8")
 
 
