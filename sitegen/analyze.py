@@ -21,7 +21,7 @@ from numpy.typing import NDArray
 from sitegen import derive
 from sitegen.derive import Observations
 from sitegen.discover import DatasetSource
-from sitegen.errors import DatasetError, FitError, FormulaError
+from sitegen.errors import INTERNAL_ERROR_WORDS, DatasetError, FitError, FormulaError
 from sitegen.formula import Design, assumed_formula, build_design
 from sitegen.load import LoadedTable, read_source, read_table
 from sitegen.model import AnovaLine, Coefficient, FitReport, Message, Status
@@ -90,7 +90,7 @@ def analyze(task: FitTask) -> DatasetResult:
         return DatasetResult(replace(base, messages=tuple(messages)), None)
     except Exception as exc:
         text = (
-            f"sitegen could not process {src.relpath} because of an internal error "
+            f"sitegen could not process {src.relpath} {INTERNAL_ERROR_WORDS} "
             f"({type(exc).__name__}: {exc}); please report it with the file"
         )
         return DatasetResult(replace(base, messages=(Message("error", text),)), None, traceback.format_exc())

@@ -29,7 +29,7 @@ from typing import TYPE_CHECKING, Any
 
 from sitegen import __version__
 from sitegen.discover import SITE_CONFIG_NAME, DatasetSource, discover
-from sitegen.errors import ConfigError
+from sitegen.errors import INTERNAL_ERROR_WORDS, ConfigError
 from sitegen.jsontext import json_text
 from sitegen.publish import build_folder, check_output_folder, swap_in
 from sitegen.report.theme import Theme, load_theme
@@ -380,12 +380,17 @@ def _nothing_changed(
         return False
     for s in sources:
         e = prev.entries[s.slug]
-        if e.get("fingerprint") != prints[s.slug][1] or not prints[s.slug][1] or e.get("status") == "error":
+        if e.get("fingerprint") != prints[s.slug][1] or not prints[s.slug][1] or _internal_error(e):
             return False
         if not _fit_json_intact(prev.site / "datasets" / s.slug / "fit.json", e):
             return False  # missing, changed or corrupt since the previous build wrote it
     # every file the previous build wrote is still there at its size, and nothing else is
     return prev.body.get("files") == _manifest(prev.site)
+
+
+def _internal_error(entry: dict[str, Any]) -> bool:
+    """The recorded result is sitegen's own failure (never reused), not a problem of the data."""
+    return entry.get("status") == "error" and INTERNAL_ERROR_WORDS in str(entry.get("message", ""))
 
 
 def _fit_json_intact(path: Path, entry: dict[str, Any]) -> bool:
@@ -432,7 +437,12 @@ def _stored_report(folder: Path, slug: str) -> FitReport | None:
         report = from_json((folder / "fit.json").read_text(encoding="utf-8"), light=True)
     except (OSError, ValueError):
         return None
-    if report.dataset != slug or report.status == "error" or not report.coefficients or report.n is None:
+    if report.dataset != slug:
+        return None
+    if report.status == "error":  # the same input fails the same way; sitegen's own failures are tried again
+        errors = [m.text for m in report.messages if m.level == "error"]
+        return report if errors and not any(INTERNAL_ERROR_WORDS in t for t in errors) else None
+    if not report.coefficients or report.n is None:
         return None  # a fit.json that parses but lost its numbers is not a result
     return report
 

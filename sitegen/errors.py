@@ -23,6 +23,10 @@ exit codes.
 
 from __future__ import annotations
 
+#: The words of a dataset's error message when sitegen itself failed (a bug, not the data).
+#: Such results are never reused by a rebuild: the next build tries again and shows the traceback.
+INTERNAL_ERROR_WORDS = "because of an internal error"
+
 
 class SitegenError(Exception):
     """A problem sitegen can explain to its user."""

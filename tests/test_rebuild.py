@@ -20,7 +20,7 @@ from pathlib import Path
 from typing import Any
 
 import pytest
-from conftest import Built, cli, site_bytes, write_csv, write_toml
+from conftest import LINE_CSV, Built, cli, site_bytes, write_csv, write_toml
 
 SLUGS = ["alpha", "beta", "section-gamma"]
 
@@ -44,6 +44,11 @@ def reused(site: Path) -> dict[str, bool]:
 def summary_slugs(site: Path) -> list[str]:
     with (site / "summary.csv").open(newline="", encoding="utf-8") as f:
         return [r["dataset"] for r in csv.DictReader(f)]
+
+
+def summary_status(site: Path) -> dict[str, str]:
+    with (site / "summary.csv").open(newline="", encoding="utf-8") as f:
+        return {r["dataset"]: r["status"] for r in csv.DictReader(f)}
 
 
 def change_section(site: Path, section_id: str) -> str | None:
@@ -252,13 +257,23 @@ def test_refit_option_refits_everything(built: tuple[Path, Path]) -> None:
     assert site_bytes(site, skip=("build.json",)) == before
 
 
-def test_failed_dataset_is_tried_again_and_recovers(built: tuple[Path, Path]) -> None:
+def test_failed_dataset_keeps_failing_until_mended(built: tuple[Path, Path]) -> None:
+    """Keyed on content: the same input fails the same way, so an unchanged failure is reused (and still
+    reported, with exit status 1); a mended file is fitted."""
     data, site = built
     write_csv(data / "broken.csv", "x,y\n1,2\n2,oops\n3,4\n4,5\n")
     write_toml(data / "broken.toml", {"model": "y ~ x"})
     assert build(data, site) == 1
-    assert build(data, site) == 1, "an error is never reused as a success"
-    assert reused(site)["broken"] is False
+    first = cli("build", data, "-o", site, "-j", "1")
+    assert first.code == 1, "an error is never reused as a success"
+    assert "broken.csv" in first.stream
+    assert "oops" in first.stream
+    assert reused(site)["broken"] is True
+    assert summary_status(site)["broken"] == "error"
+    (data / "alpha.csv").write_text(LINE_CSV + "9,19.2\n", encoding="utf-8")  # another change: not a no-op
+    assert build(data, site) == 1
+    assert reused(site)["broken"] is True
+    assert summary_status(site)["broken"] == "error"
     write_csv(data / "broken.csv", "x,y\n1,2\n2,3.1\n3,4\n4,5.2\n")
     assert build(data, site) == 0
     fit = json.loads((site / "datasets" / "broken" / "fit.json").read_text(encoding="utf-8"))
