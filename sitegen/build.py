@@ -249,6 +249,7 @@ class FitDone:
     debug_trace: str | None
     paged: Neighbours | None = None  # the page was written, between these neighbours
     page_files: tuple[str, ...] = ()  # what writing the page wrote (index.html, chart images)
+    fit_sha256: str = ""  # of the fit.json written (hashed here, in parallel, rather than by the build)
 
 
 def fit_job(job: FitJob) -> FitDone:
@@ -273,11 +274,12 @@ def fit_job(job: FitJob) -> FitDone:
     job.folder.mkdir(parents=True, exist_ok=True)
     files = tuple(dataset_files(job.folder, result.report, result.observations, job.source, job.offer_source))
     page_files = write_page(job.page, result.report, files, job.folder / "index.html") if job.page else ()
+    sha = _file_sha256(job.folder / "fit.json")
     if result.report.status == "error":
-        return FitDone(result.report, None, files, result.debug_trace, job.page, page_files)
+        return FitDone(result.report, None, files, result.debug_trace, job.page, page_files, sha)
     from sitegen.report.files import index_entry  # noqa: PLC0415
 
-    return FitDone(None, index_entry(result.report), files, result.debug_trace, job.page, page_files)
+    return FitDone(None, index_entry(result.report), files, result.debug_trace, job.page, page_files, sha)
 
 
 @dataclass(frozen=True, slots=True)
@@ -566,7 +568,7 @@ class _Build:
         self.work, self.spare, self.prev, self.sources, self.prints = work, spare, prev, sources, prints
         self.config, self.site_key, self.run, self.progress = config, site_key, run, progress
         self.stats = stats  # per dataset: file stats and hashes, recorded for the next build
-        self.fit_shas: dict[str, str] = {}  # reused datasets: the checked sha256 of their fit.json
+        self.fit_shas: dict[str, str] = {}  # the known sha256 of each dataset's fit.json (checked or just written)
         self.then_files = _files_by_folder(prev.body)  # the previous manifest by dataset folder
         self.kept: set[str] = set()  # reused datasets whose folder in the spare was already right
 
@@ -658,6 +660,8 @@ class _Build:
             report = res.report or report_from_index_entry(res.entry or {}, self.prints[slug][0])
             done[slug] = (report, res.files)
             paged[slug] = (res.paged, res.page_files)
+            if res.fit_sha256:
+                self.fit_shas[slug] = res.fit_sha256
             if res.debug_trace:
                 traces.append((jobs[i].source.relpath, res.debug_trace))
             count += 1
@@ -786,7 +790,7 @@ class _Build:
 
         for entry in entries:  # lets a rebuild trust a stored result without parsing it (and keep it in place)
             stored = self.work / "datasets" / entry["dataset"] / "fit.json"
-            known = self.fit_shas.get(entry["dataset"]) if entry["reused"] else None
+            known = self.fit_shas.get(entry["dataset"])
             entry["fit_sha256"] = known or _file_sha256(stored)
             entry["fit_stat"] = _stat(stored)
         body = {
