@@ -133,6 +133,8 @@ def build_folder(out_dir: Path) -> Iterator[Path]:
     finally:
         with contextlib.suppress(OSError):
             (work / _OWNER).unlink(missing_ok=True)
+        with contextlib.suppress(OSError):
+            work.rmdir()  # only when empty: a build with nothing to do keeps no folder
         lock.unlink(missing_ok=True)  # still ours: unlinked before the lock is released
         _held = -1
         os.close(fd)

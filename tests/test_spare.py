@@ -83,6 +83,14 @@ STEPS: list[tuple[str, Callable[[Path], object]]] = [
 ]
 
 
+def test_a_first_build_and_a_build_with_nothing_to_do_leave_nothing_beside(tmp_path: Path) -> None:
+    data = _data(tmp_path)
+    site = tmp_path / "site"
+    _build(data, site)
+    _build(data, site)
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["data", "site"]
+
+
 def test_every_rebuild_equals_a_fresh_build(tmp_path: Path) -> None:
     data = _data(tmp_path)
     site = tmp_path / "site"
