@@ -3,6 +3,8 @@
 Prints full build, no-op rebuild, one-changed rebuild, per-dataset cost, peak
 memory and site size for both. Usage: ``python bench/run.py [--datasets N] [--rows R]``.
 Goals (issue 4): full build ≤ 0.10 of the baseline; no-op ≤ 5 % of full; one changed ≤ 10 % of full.
+Rebuilds are timed as separate ``sitegen build`` runs and, beside them, inside one long-running
+process as ``sitegen watch`` runs them (no Python start-up or imports per rebuild).
 """
 
 from __future__ import annotations
@@ -55,6 +57,35 @@ def _timed_once(cmd: list[str]) -> tuple[float, float, int]:
     return float(s), int(m) / 1024, int(rc)
 
 
+_IN_PROCESS = """
+import json, statistics, sys, time
+from pathlib import Path
+sys.path.insert(0, sys.argv[3])
+from datasets import touch_one
+from sitegen.build import BuildOptions, run_build
+options = BuildOptions(Path(sys.argv[1]), Path(sys.argv[2]))
+run_build(options)  # warm: imports done, as in a watch that has built once
+one, noop = [], []
+for _ in range(int(sys.argv[4])):
+    touch_one(options.data_dir)
+    t = time.perf_counter(); run_build(options); one.append(time.perf_counter() - t)
+    t = time.perf_counter(); run_build(options); noop.append(time.perf_counter() - t)
+print(json.dumps([statistics.median(one), statistics.median(noop)]))
+"""
+
+
+def in_process(data: Path, site: Path, repeat: int) -> tuple[float, float]:
+    """Median one-changed and no-op rebuild inside one long-running process (as ``sitegen watch`` runs them)."""
+    out = subprocess.run(
+        [sys.executable, "-c", _IN_PROCESS, str(data), str(site), str(HERE), str(repeat)],
+        capture_output=True,
+        text=True,
+        check=True,
+    )
+    one, noop = json.loads(out.stdout.strip().splitlines()[-1])
+    return float(one), float(noop)
+
+
 def file_creation_ms(folder: Path, count: int = 300) -> float:
     """Milliseconds to create one small file in ``folder`` (the file system's share of a build)."""
     probe = folder / "creation-probe"
@@ -93,6 +124,7 @@ def main() -> None:
         fresh, _, _ = timed_each(lambda: [*sitegen[:-3], "-o", str(next(fresh_sites)), "-q"], args.repeat)
         noop, noop_mem, _ = timed(sitegen, args.repeat)
         one, one_mem, _ = timed(sitegen, args.repeat, before=lambda: touch_one(data))
+        watch_one, watch_noop = in_process(data, site, max(3, args.repeat))
         results = {
             "folder": str(tmp.parent),
             "file_creation_ms": round(file_creation_ms(tmp), 3),
@@ -107,6 +139,10 @@ def main() -> None:
             "sitegen_site_mb": round(size_mb(site), 1),
             "noop_fraction_of_full": round(noop / full, 3),
             "one_changed_fraction_of_full": round(one / full, 3),
+            # inside a long-running process (sitegen watch): no start-up or imports per rebuild
+            "watch_one_changed_s": round(watch_one, 3),
+            "watch_noop_s": round(watch_noop, 3),
+            "watch_one_changed_fraction_of_full": round(watch_one / full, 3),
         }
         if not args.skip_baseline:
             base_out = tmp / "baseline"

@@ -22,6 +22,7 @@ def test_bench_runs_on_a_tiny_folder() -> None:
         "sitegen_full_s", "sitegen_fresh_s", "sitegen_noop_s", "sitegen_one_changed_s", "sitegen_per_dataset_ms",
         "sitegen_peak_mb", "sitegen_site_mb", "baseline_full_s", "baseline_peak_mb", "baseline_site_mb",
         "full_fraction_of_baseline", "noop_fraction_of_full", "one_changed_fraction_of_full", "file_creation_ms",
+        "watch_one_changed_s", "watch_noop_s", "watch_one_changed_fraction_of_full",
     ):  # fmt: skip
         assert isinstance(figures[key], int | float), key
         assert figures[key] >= 0, key
