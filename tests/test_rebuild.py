@@ -15,6 +15,8 @@ import csv
 import hashlib
 import json
 import re
+import subprocess
+import sys
 from collections.abc import Callable
 from pathlib import Path
 from typing import Any
@@ -278,3 +280,17 @@ def test_failed_dataset_keeps_failing_until_mended(built: tuple[Path, Path]) -> 
     assert build(data, site) == 0
     fit = json.loads((site / "datasets" / "broken" / "fit.json").read_text(encoding="utf-8"))
     assert fit["status"] in ("ok", "warn")
+
+
+def test_a_rebuild_that_fits_one_dataset_loads_no_chart_converter(built: tuple[Path, Path]) -> None:
+    """The chart converter's native library is loaded only to make the bundle or images, not to learn its
+    versions again (they are remembered per installed version)."""
+    data, site = built
+    write_csv(data / "beta.csv", "dose,response\n0,0.12\n1,0.52\n2,0.87\n3,1.33\n4,1.71\n5,2.08\n")
+    script = (
+        "import sys; from pathlib import Path; from sitegen.build import BuildOptions, run_build; "
+        f"s = run_build(BuildOptions(Path({str(data)!r}), Path({str(site)!r}), jobs=1)); "
+        "print(s.fitted, 'vl_convert' in sys.modules)"
+    )
+    out = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, check=True)
+    assert out.stdout.split() == ["1", "False"]

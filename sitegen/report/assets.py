@@ -20,7 +20,25 @@ BUNDLE_VERSION = "assets/vendor/vega-bundle.version"
 
 
 def bundle_version() -> str:
-    """Versions of the libraries inside the bundle."""
+    """Versions of the libraries inside the bundle.
+
+    Asking vl-convert means loading its native library (a visible part of a small rebuild), so the
+    answer is remembered in the user cache for each installed version of the package.
+    """
+    from sitegen.cache import read_record, write_record  # noqa: PLC0415
+    from sitegen.versions import library_versions  # noqa: PLC0415
+
+    installed = library_versions(("vl-convert-python",))["vl-convert-python"]
+    name = "bundle-versions.json"
+    known = read_record(name)
+    if isinstance(known, dict) and isinstance(known.get(installed), str) and installed != "unknown":
+        return str(known[installed])
+    text = _ask_bundle_version()
+    write_record(name, {installed: text})
+    return text
+
+
+def _ask_bundle_version() -> str:
     import vl_convert as vlc  # noqa: PLC0415
 
     return (
