@@ -231,7 +231,7 @@ def test_charts_share_one_copy_of_the_points(browser: Any, site: Path) -> None:
         _open(page, site, f"datasets/{SHOWCASE}/index.html")
         lent = page.evaluate(
             "() => JSON.parse(document.querySelector('script.vl-spec[data-target=vis-fit]').textContent)"
-            ".datasets.points.length"
+            ".datasets.points[0].row.length"
         )
         for vis in ("residual_fitted", "scale_location", "qq", "leverage"):
             symbols = page.locator(f"#vis-{vis} svg g.mark-symbol.role-mark > path").count()

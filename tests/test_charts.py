@@ -190,7 +190,7 @@ def test_shared_points_are_written_once() -> None:
     pts = _points(["observations"] * 3, set())
     specs = {k: charts.fill(k, {"points": pts}) for k in ("scale_location", "residual_fitted")}
     charts.share_points(specs)
-    assert specs["scale_location"]["datasets"]["points"] == pts
+    assert specs["scale_location"]["datasets"]["points"] == [charts.as_columns(pts)]
     assert specs["scale_location"]["usermeta"] == {"sitegen": {"lend": {"points": "scale_location"}}}
     assert specs["residual_fitted"]["datasets"]["points"] == []
     assert specs["residual_fitted"]["usermeta"] == {"sitegen": {"borrow": {"points": "scale_location"}}}
@@ -201,9 +201,25 @@ def test_standalone_copies_carry_their_own_points() -> None:
     specs = {k: charts.fill(k, {"points": pts}) for k in ("scale_location", "residual_fitted")}
     charts.share_points(specs)
     alone = charts.standalone(specs)
-    assert all(spec["datasets"]["points"] == pts for spec in alone.values())
+    assert all(spec["datasets"]["points"] == [charts.as_columns(pts)] for spec in alone.values())
     assert all("usermeta" not in spec for spec in alone.values())
     assert specs["residual_fitted"]["datasets"]["points"] == []  # the page's specs are left as they were
+
+
+def test_points_go_by_column_and_every_layer_that_draws_them_flattens_them_back() -> None:
+    """One record of parallel lists, and a Vega-Lite ``flatten`` of every field: the rows come back as given."""
+    pts = _points(["a", "b", "a", "b"], {1})
+    for kind in ("fit", "residual_fitted", "qq", "scale_location", "leverage"):
+        spec = charts.fill(kind, {"points": pts, "band": [{"x": 0.0, "fit": 0.0}]})
+        (columns,) = spec["datasets"]["points"]
+        fields = sorted(columns)
+        drawing = [node for node in (spec, *spec.get("layer", [])) if node.get("data", {}).get("name") == "points"]
+        assert drawing, kind
+        for node in drawing:
+            assert node["transform"][0] == {"flatten": fields}, kind
+        rows = [dict(zip(fields, values, strict=True)) for values in zip(*(columns[f] for f in fields), strict=True)]
+        assert rows == pts
+    assert "points" not in charts.fill("qq", {"points": []})["datasets"]  # nothing to draw: no layer, no data
 
 
 def test_numbers_for_drawing_are_shortened_but_exact_where_short() -> None:
