@@ -29,7 +29,7 @@ from typing import TYPE_CHECKING, Any
 
 from sitegen import __version__
 from sitegen.discover import SITE_CONFIG_NAME, DatasetSource, discover
-from sitegen.errors import INTERNAL_ERROR_WORDS, ConfigError
+from sitegen.errors import INTERNAL_ERROR_WORDS, UNREADABLE_WORDS, ConfigError
 from sitegen.jsontext import json_text
 from sitegen.publish import build_folder, check_output_folder, swap_in
 from sitegen.report.theme import Theme, load_theme
@@ -382,17 +382,26 @@ def _nothing_changed(
         return False
     for s in sources:
         e = prev.entries[s.slug]
-        if e.get("fingerprint") != prints[s.slug][1] or not prints[s.slug][1] or _internal_error(e):
+        if e.get("fingerprint") != prints[s.slug][1] or not prints[s.slug][1]:
             return False
+        if e.get("status") == "error" and e.get("failure_kept") is not True:
+            return False  # a failure is reused only when it came from the input itself
         if not _fit_json_intact(prev.site / "datasets" / s.slug / "fit.json", e):
             return False  # missing, changed or corrupt since the previous build wrote it
     # every file the previous build wrote is still there at its size, and nothing else is
     return prev.body.get("files") == _manifest(prev.site)
 
 
-def _internal_error(entry: dict[str, Any]) -> bool:
-    """The recorded result is sitegen's own failure (never reused), not a problem of the data."""
-    return entry.get("status") == "error" and INTERNAL_ERROR_WORDS in str(entry.get("message", ""))
+def _failure_from_input(report: FitReport, csv_sha: str) -> bool:
+    """A failed result that the input itself decides: read from the bytes the fingerprint covers, and not
+    sitegen's own failure or a file that could not be read at the time (those are tried again)."""
+    errors = [m.text for m in report.messages if m.level == "error"]
+    return (
+        bool(errors)
+        and bool(csv_sha)
+        and report.input_sha256 == csv_sha
+        and not any(INTERNAL_ERROR_WORDS in t or UNREADABLE_WORDS in t for t in errors)
+    )
 
 
 def _fit_json_intact(path: Path, entry: dict[str, Any]) -> bool:
@@ -431,7 +440,7 @@ def _manifest(site: Path) -> dict[str, int]:
     return dict(sorted(out.items()))
 
 
-def _stored_report(folder: Path, slug: str) -> FitReport | None:
+def _stored_report(folder: Path, slug: str, csv_sha: str) -> FitReport | None:
     """The stored result in ``folder/fit.json`` when it is whole and reusable, else None."""
     from sitegen.model import from_json  # noqa: PLC0415
 
@@ -441,9 +450,8 @@ def _stored_report(folder: Path, slug: str) -> FitReport | None:
         return None
     if report.dataset != slug:
         return None
-    if report.status == "error":  # the same input fails the same way; sitegen's own failures are tried again
-        errors = [m.text for m in report.messages if m.level == "error"]
-        return report if errors and not any(INTERNAL_ERROR_WORDS in t for t in errors) else None
+    if report.status == "error":  # the same input fails the same way
+        return report if _failure_from_input(report, csv_sha) else None
     if not report.coefficients or report.n is None:
         return None  # a fit.json that parses but lost its numbers is not a result
     return report
@@ -590,7 +598,7 @@ class _Build:
                     return report
                 except (KeyError, TypeError, ValueError):
                     pass
-        return _stored_report(old, slug)
+        return _stored_report(old, slug, self.prints[slug][0])
 
     def _spare_holds(self, slug: str, entry: dict[str, Any]) -> bool:
         """The spare's folder for ``slug`` holds the same result as the published one, whole."""
@@ -739,6 +747,7 @@ class _Build:
                     "message": summary_row(report)["message"],
                     "index": index_entry(report),
                     "stat": self.stats.get(src.slug, {}),
+                    "failure_kept": report.status == "error" and _failure_from_input(report, self.prints[src.slug][0]),
                 }
             )
         return entries, jobs, in_place

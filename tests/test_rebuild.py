@@ -24,6 +24,8 @@ from typing import Any
 import pytest
 from conftest import LINE_CSV, Built, cli, site_bytes, write_csv, write_toml
 
+from sitegen.build import BuildOptions, run_build
+
 SLUGS = ["alpha", "beta", "section-gamma"]
 
 
@@ -294,3 +296,56 @@ def test_a_rebuild_that_fits_one_dataset_loads_no_chart_converter(built: tuple[P
     )
     out = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, check=True)
     assert out.stdout.split() == ["1", "False"]
+
+
+class _Meddling:
+    """An executor (the build's seam for running work) that does something to one dataset's file while
+    that dataset is being fitted, then puts the file back: what a sync tool or an editor can do."""
+
+    def __init__(self, slug: str, meddle: Callable[[Path], Callable[[], None]]) -> None:
+        self.slug, self.meddle = slug, meddle
+
+    def run(self, fn: Callable[[Any], Any], items: list[Any]) -> Any:
+        def one(item: Any) -> Any:
+            src = getattr(item, "source", None)
+            if src is None or src.slug != self.slug:
+                return fn(item)
+            restore = self.meddle(src.csv_path)
+            try:
+                return fn(item)
+            finally:
+                restore()
+
+        return ((i, one(item)) for i, item in enumerate(items))
+
+    def __enter__(self) -> _Meddling:
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        return None
+
+
+def _away(path: Path) -> Callable[[], None]:
+    hidden = path.with_name("away.tmp")
+    path.rename(hidden)
+    return lambda: hidden.rename(path)
+
+
+def _garbled(path: Path) -> Callable[[], None]:
+    good = path.read_bytes()
+    path.write_bytes(b"x,y\n1,oops\n")
+    return lambda: path.write_bytes(good)
+
+
+@pytest.mark.parametrize("meddle", [_away, _garbled], ids=["file away for a moment", "file garbled for a moment"])
+def test_a_failure_the_input_did_not_cause_is_tried_again(
+    built: tuple[Path, Path], meddle: Callable[[Path], Callable[[], None]]
+) -> None:
+    data, site = built
+    write_csv(data / "beta.csv", "dose,response\n0,0.12\n1,0.52\n2,0.87\n3,1.33\n4,1.71\n5,2.08\n")
+    options = BuildOptions(data, site, jobs=1)
+    during = run_build(options, executor=_Meddling("beta", meddle))
+    assert {o.dataset: o.status for o in during.outcomes}["beta"] == "error"
+    after = run_build(options)  # the file is back as it was when the build began
+    assert {o.dataset: o.status for o in after.outcomes}["beta"] == "ok"
+    assert reused(site)["beta"] is False
