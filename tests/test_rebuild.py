@@ -328,13 +328,21 @@ class _Meddling:
 def _away(path: Path) -> Callable[[], None]:
     hidden = path.with_name("away.tmp")
     path.rename(hidden)
-    return lambda: hidden.rename(path)
+
+    def back() -> None:
+        hidden.rename(path)
+
+    return back
 
 
 def _garbled(path: Path) -> Callable[[], None]:
     good = path.read_bytes()
     path.write_bytes(b"x,y\n1,oops\n")
-    return lambda: path.write_bytes(good)
+
+    def back() -> None:
+        path.write_bytes(good)
+
+    return back
 
 
 @pytest.mark.parametrize("meddle", [_away, _garbled], ids=["file away for a moment", "file garbled for a moment"])
