@@ -313,7 +313,9 @@ def write_page(where: Neighbours, report: FitReport, files: tuple[str, ...], tar
         from sitegen.report.images import write_chart_images  # noqa: PLC0415
 
         images = write_chart_images(report, target.parent, ctx.theme.chart_colors)
-    target.write_text(render_dataset(ctx, report, sorted(listed + images), where.prev, where.next), encoding="utf-8")
+    html = render_dataset(ctx, report, sorted(listed + images), where.prev, where.next)
+    target.unlink(missing_ok=True)  # a new file: whoever still reads the old one keeps reading it whole
+    target.write_text(html, encoding="utf-8")
     return (target.name, *images)
 
 
@@ -423,9 +425,10 @@ def _fit_json_intact(path: Path, entry: dict[str, Any]) -> bool:
         return False
 
 
-def _manifest(site: Path) -> dict[str, int]:
-    """Size of every file of a built site, except build.json and sitegen's own top-level dot files."""
-    out: dict[str, int] = {}
+def _manifest(site: Path) -> dict[str, list[int]]:
+    """Size, modification time, inode and change time of every file of a built site, except build.json and
+    sitegen's own top-level dot files (a file changed since, even to the same size and time, no longer matches)."""
+    out: dict[str, list[int]] = {}
 
     def walk(folder: str, prefix: str) -> None:
         with os.scandir(folder) as entries:
@@ -434,7 +437,8 @@ def _manifest(site: Path) -> dict[str, int]:
                 if entry.is_dir(follow_symlinks=False):
                     walk(entry.path, rel + "/")
                 elif entry.is_file(follow_symlinks=False) and rel != "build.json" and not rel.startswith("."):
-                    out[rel] = entry.stat(follow_symlinks=False).st_size
+                    st = entry.stat(follow_symlinks=False)
+                    out[rel] = [st.st_size, st.st_mtime_ns, st.st_ino, st.st_ctime_ns]
 
     walk(str(site), "")
     return dict(sorted(out.items()))
@@ -471,9 +475,9 @@ def _touch_build_json(out_dir: Path, prev: _Previous, stats: dict[str, dict[str,
     )
 
 
-def _files_by_folder(body: dict[str, Any]) -> dict[str, dict[str, int]]:
-    """A build.json's file manifest, grouped by dataset folder: slug -> {name: size}."""
-    out: dict[str, dict[str, int]] = {}
+def _files_by_folder(body: dict[str, Any]) -> dict[str, dict[str, Any]]:
+    """A build.json's file manifest, grouped by dataset folder: slug -> {name: [size, mtime, inode, ctime]}."""
+    out: dict[str, dict[str, Any]] = {}
     files = body.get("files")
     if isinstance(files, dict):
         for key, size in files.items():
@@ -493,25 +497,26 @@ class _Spare:
     """The build folder as the build before the previous one left it (see :mod:`sitegen.publish`)."""
 
     entries: dict[str, dict[str, Any]]  # its build.json's datasets when it may be trusted, else empty
-    recorded: dict[str, dict[str, int]]  # its build.json's file manifest by dataset folder
-    folders: dict[str, dict[str, int]]  # what its dataset folders hold now: name -> size
+    recorded: dict[str, dict[str, Any]]  # its build.json's file manifest by dataset folder
+    folders: dict[str, dict[str, list[int]]]  # what its dataset folders hold now: name -> [size, times, inode]
 
 
 def _open_spare(work: Path, *, trusted: bool) -> _Spare:
     """Read the spare's record, then unseal it and clear out what a site of ours cannot hold.
 
     Its build.json goes first: a build killed while updating the spare leaves one that is never
-    trusted again (its files are still rewritten in place, which is what saves the time).
-    Files with other hard links (a ``cp -al`` backup, say) are removed, so that nothing written
-    here can change a file elsewhere.
+    trusted again. The site-wide files go too (every build writes them anew), and so do symbolic
+    links and other odd entries. Nothing in the spare is ever rewritten in place: a file is
+    replaced by a new one, so whoever still reads a file of an earlier site keeps reading it whole,
+    and nothing written here can change a file elsewhere (a ``cp -al`` backup, say).
     """
     entries: dict[str, dict[str, Any]] = {}
-    recorded: dict[str, dict[str, int]] = {}
+    recorded: dict[str, dict[str, Any]] = {}
     if trusted:
         spare = _previous(work)
         entries, recorded = spare.entries, _files_by_folder(spare.body)
     _remove(work / "build.json")
-    folders: dict[str, dict[str, int]] = {}
+    folders: dict[str, dict[str, list[int]]] = {}
     with os.scandir(work) as top:
         for entry in top:
             if entry.name == "datasets" and entry.is_dir(follow_symlinks=False):
@@ -523,14 +528,18 @@ def _open_spare(work: Path, *, trusted: bool) -> _Spare:
                             _remove(Path(folder.path))
             elif entry.is_dir(follow_symlinks=False):
                 _own_files(entry.path, nested=True)
-            elif not entry.is_file(follow_symlinks=False) or entry.stat(follow_symlinks=False).st_nlink > 1:
+            elif entry.name not in _KEEP_AT_TOP or not entry.is_file(follow_symlinks=False):
                 _remove(Path(entry.path))
     return _Spare(entries, recorded, folders)
 
 
-def _own_files(folder: str, *, nested: bool) -> dict[str, int]:
-    """Sizes of the plain, singly linked files in ``folder``; removes anything else (sub-folders unless ``nested``)."""
-    out: dict[str, int] = {}
+_KEEP_AT_TOP = (".sitegen", ".owner")  # the marker and the running build's owner file (publish.py)
+
+
+def _own_files(folder: str, *, nested: bool) -> dict[str, list[int]]:
+    """Size, time and inode of the plain, singly linked files in ``folder``; removes anything else
+    (sub-folders unless ``nested``)."""
+    out: dict[str, list[int]] = {}
     with os.scandir(folder) as entries:
         for entry in entries:
             if entry.is_dir(follow_symlinks=False):
@@ -543,8 +552,19 @@ def _own_files(folder: str, *, nested: bool) -> dict[str, int]:
             if st is None or st.st_nlink > 1:
                 _remove(Path(entry.path))
             else:
-                out[entry.name] = st.st_size
+                out[entry.name] = [st.st_size, st.st_mtime_ns, st.st_ino, st.st_ctime_ns]
     return out
+
+
+def _sizes(manifest: dict[str, Any]) -> dict[str, Any]:
+    """The sizes of a manifest's files (a build.json of an earlier version recorded sizes alone)."""
+    return {name: stat[0] if isinstance(stat, list) and stat else stat for name, stat in manifest.items()}
+
+
+def _copy_anew(src: Path, dst: Path) -> None:
+    """Copy ``src`` to a new file at ``dst`` (never into the file that is there)."""
+    dst.unlink(missing_ok=True)
+    shutil.copyfile(src, dst)
 
 
 def _remove(path: Path) -> None:
@@ -579,6 +599,7 @@ class _Build:
         self.fit_shas: dict[str, str] = {}  # the known sha256 of each dataset's fit.json (checked or just written)
         self.then_files = _files_by_folder(prev.body)  # the previous manifest by dataset folder
         self.kept: set[str] = set()  # reused datasets whose folder in the spare was already right
+        self.checked: set[str] = set()  # reused datasets whose published folder was checked file by file
 
     def _stored_light(self, entry: dict[str, Any], old: Path, slug: str, record: dict[str, Any]) -> FitReport | None:
         """The stored result, light: from build.json when its fit.json is unchanged, else parsed from fit.json.
@@ -628,13 +649,16 @@ class _Build:
             return None
         then_here = self.then_files.get(src.slug)
         here = _manifest(old)
-        if not then_here or then_here != here:
+        # By size: a published site copied elsewhere (new inodes and times) is still reused; its fit.json
+        # was checked by hash. The spare, our own hidden copy, is held to the full record (_spare_holds).
+        if not then_here or _sizes(then_here) != _sizes(here):
             self.fit_shas.pop(src.slug, None)
             return None  # a file of its folder is missing or changed since the previous build wrote it
+        self.checked.add(src.slug)
         new.mkdir(parents=True, exist_ok=True)
         files = [name for name in here if "/" not in name and _is_data_file(name)]  # sorted
         for name in files:
-            shutil.copyfile(old / name, new / name)  # into the spare's own file where it has one
+            _copy_anew(old / name, new / name)
         return report, tuple(files)
 
     def execute(self, theme: Theme) -> tuple[tuple[Outcome, ...], int, list[str], tuple[tuple[str, str], ...]]:
@@ -653,6 +677,8 @@ class _Build:
                 done[src.slug] = reused
             else:
                 folder = self.work / "datasets" / src.slug
+                for name in self.spare.folders.get(src.slug, {}):  # written anew by the fit, or no longer wanted
+                    (folder / name).unlink(missing_ok=True)
                 sha = self.prints[src.slug][0]
                 config = self.config
                 titles = titles or self._expected_titles()
@@ -720,18 +746,12 @@ class _Build:
             elif src.slug in self.kept and self.spare.entries[src.slug].get("page_key") == key:
                 in_place[src.slug] = tuple(n for n in self.spare.folders[src.slug] if not _is_data_file(n))
             elif (
-                src.slug not in refitted
+                src.slug in self.checked  # its published folder was found as recorded
                 and old_page is not None
                 and old_entry.get("page_key") == key
-                and old_page.is_file()
+                and self._copy_page(old_page.parent, target.parent)
             ):
-                names = ["index.html"]
-                if self.config.static_images:  # the page's chart images come with it
-                    then = self.then_files.get(src.slug, {})
-                    names += [n for n in then if n != "index.html" and not _is_data_file(n)]
-                for name in names:
-                    shutil.copyfile(old_page.parent / name, target.parent / name)
-                in_place[src.slug] = tuple(names)
+                in_place[src.slug] = self._page_names(src.slug)
             else:
                 full = report if report.status == "error" else None  # else read from its fit.json
                 jobs.append(PageJob(ctx, full, files, prev_r, next_r, target))
@@ -751,6 +771,21 @@ class _Build:
                 }
             )
         return entries, jobs, in_place
+
+    def _page_names(self, slug: str) -> tuple[str, ...]:
+        names = ["index.html"]
+        if self.config.static_images:  # the page's chart images come with it
+            names += [n for n in self.then_files.get(slug, {}) if n != "index.html" and not _is_data_file(n)]
+        return tuple(names)
+
+    def _copy_page(self, old: Path, new: Path) -> bool:
+        """Copy a dataset's page (and its chart images) from the published site; False if that failed."""
+        try:
+            for name in self._page_names(new.name):
+                _copy_anew(old / name, new / name)
+        except OSError:
+            return False
+        return True
 
     def _tidy(self, wanted: dict[str, set[str]], site_assets: set[str]) -> None:
         """Remove from the build folder what the spare held and this site does not: datasets that are
@@ -773,9 +808,11 @@ class _Build:
             for entry in entries:
                 if entry.name not in top:
                     _remove(Path(entry.path))
-        for path in (self.work / "assets").rglob("*"):
+        for path in sorted((self.work / "assets").rglob("*"), reverse=True):  # files before their folders
             if path.is_file() and path.relative_to(self.work).as_posix() not in site_assets:
                 _remove(path)
+            elif path.is_dir() and not any(path.iterdir()):
+                path.rmdir()
 
     def _expected_titles(self) -> list[tuple[str, str]]:
         """(slug, title) of every dataset as its page will name it: the sidecar's title, else the file name.

@@ -182,3 +182,75 @@ def test_a_build_killed_while_updating_the_spare(tmp_path: Path) -> None:
         proc.wait()
         _build(data, site)
         assert site_bytes(site, SEQUENCE_FILES) == _fresh(data, tmp_path / f"fresh-{delay}")
+
+
+def test_a_reader_of_an_earlier_site_keeps_reading_what_it_opened(tmp_path: Path) -> None:
+    """A download or copy in progress across rebuilds gets the file it opened, whole: files of the spare
+    are replaced by new files, never rewritten in place."""
+    data = _data(tmp_path)
+    site = tmp_path / "site"
+    _build(data, site)
+    path = site / "datasets" / "line-0" / "observations.csv"
+    expected = path.read_bytes()
+    with path.open("rb") as reader:
+        first = reader.read(10)
+        for k in range(3):  # the opened site becomes the spare, then is brought up to date twice
+            _append(data / "line_0.csv", f"{20 + k},{9 + k}.5\n")
+            _append(data / "part" / "line_3.csv", f"{20 + k},{40 + k}.5\n")
+            _build(data, site)
+        assert first + reader.read() == expected
+
+
+def test_a_same_size_edit_in_the_spare_is_not_published(tmp_path: Path) -> None:
+    data = _data(tmp_path)
+    site = tmp_path / "site"
+    _build(data, site)
+    _append(data / "line_0.csv", "13,7.61\n")
+    _build(data, site)  # the spare now holds the first site
+    target = build_dir_for(site) / "datasets" / "line-1" / "coefficients.csv"
+    text = target.read_bytes()
+    digit = next(c for c in b"0123456789" if bytes([c]) in text.split(b"\n", 1)[1])
+    target.write_bytes(text.replace(bytes([digit]), b"9" if digit != ord("9") else b"8", 1))
+    _append(data / "line_0.csv", "14,8.2\n")
+    _build(data, site)
+    assert site_bytes(site, SEQUENCE_FILES) == _fresh(data, tmp_path / "fresh")
+
+
+def test_a_page_is_copied_from_the_published_site_only_when_that_folder_is_as_recorded(tmp_path: Path) -> None:
+    """A dataset kept from the spare whose page must change: its published page is not trusted unchecked."""
+    data = _data(tmp_path)
+    write_toml(data / "site.toml", "static_images = true\n")
+    site = tmp_path / "site"
+    outside = tmp_path / "outside.html"
+    outside.write_text("not a page of this site", encoding="utf-8")
+    _build(data, site)
+    write_csv(data / "line_1a.csv", "x,y\n1,2\n2,4.1\n3,5.9\n4,8.2\n")  # line-1's next neighbour changes
+    _build(data, site)
+    published = site / "datasets" / "line-1"
+    next(published.glob("chart-*.svg")).unlink()
+    (published / "index.html").unlink()
+    (published / "index.html").symlink_to(outside)
+    _append(data / "line_0.csv", "13,7.61\n")
+    _build(data, site)
+    assert outside.read_text(encoding="utf-8") == "not a page of this site"
+    page = site / "datasets" / "line-1" / "index.html"
+    assert not page.is_symlink()
+    assert "not a page of this site" not in page.read_text(encoding="utf-8")
+    assert _images_alike(site_bytes(site, SEQUENCE_FILES)) == _images_alike(_fresh(data, tmp_path / "fresh"))
+
+
+def test_folders_a_theme_no_longer_has_leave_the_site(tmp_path: Path) -> None:
+    data = _data(tmp_path)
+    theme = data / "_brand"
+    (theme / "static" / "img").mkdir(parents=True)
+    (theme / "static" / "img" / "logo.svg").write_text("<svg xmlns='http://www.w3.org/2000/svg'/>", "utf-8")
+    write_toml(data / "site.toml", 'theme = "_brand"\n')
+    site = tmp_path / "site"
+    _build(data, site)
+    assert (site / "assets" / "img" / "logo.svg").is_file()
+    shutil.rmtree(theme / "static" / "img")
+    _build(data, site)
+    _append(data / "line_0.csv", "13,7.61\n")  # a change: the next build goes through the spare, which had the folder
+    _build(data, site)
+    assert not (site / "assets" / "img").exists()
+    assert site_bytes(site, SEQUENCE_FILES) == _fresh(data, tmp_path / "fresh")

@@ -54,6 +54,17 @@ def _bundle_text() -> str:
     return text
 
 
+def _write_anew(path: Path, text: str) -> None:
+    """A new file at ``path`` (the build folder's files are never rewritten in place; see publish.py)."""
+    path.unlink(missing_ok=True)
+    path.write_text(text, encoding="utf-8")
+
+
+def _copy_anew(src: Path, dst: Path) -> None:
+    dst.unlink(missing_ok=True)
+    shutil.copyfile(src, dst)
+
+
 def _read(path: Path) -> str | None:
     try:
         return path.read_text(encoding="utf-8")
@@ -73,17 +84,17 @@ def write_bundle(out: Path, previous: Path | None) -> tuple[str, str]:
             size = old_bundle.stat().st_size
             # ``out`` may already hold it (a build folder that held an earlier site of the same versions)
             if not (_read(out / BUNDLE_VERSION) == version and target.is_file() and target.stat().st_size == size):
-                shutil.copyfile(old_bundle, target)
-            (out / BUNDLE_VERSION).write_text(version, encoding="utf-8")
+                _copy_anew(old_bundle, target)
+                _write_anew(out / BUNDLE_VERSION, version)
             return written
-    (out / BUNDLE_VERSION).write_text(version, encoding="utf-8")
+    _write_anew(out / BUNDLE_VERSION, version)
     key = "".join(c if c.isalnum() else "-" for c in version.strip())
     cached = cache_dir() / f"vega-bundle-{key}.js"
     if cached.is_file():
-        shutil.copyfile(cached, target)
+        _copy_anew(cached, target)
         return written
     text = _bundle_text()
-    target.write_text(text, encoding="utf-8")
+    _write_anew(target, text)
     try:
         cached.parent.mkdir(parents=True, exist_ok=True)
         tmp = cached.with_suffix(f".{os.getpid()}.tmp")
@@ -105,6 +116,6 @@ def write_static(out: Path, theme: Theme) -> list[str]:
                 rel = path.relative_to(folder)
                 target = dest / rel
                 target.parent.mkdir(parents=True, exist_ok=True)
-                shutil.copyfile(path, target)
+                _copy_anew(path, target)
                 written.append(f"assets/{rel.as_posix()}")
     return written
