@@ -14,7 +14,7 @@ import numpy as np
 from conftest import Built
 from openpyxl import load_workbook
 
-from sitegen.report.tables import clean_rows, columns_to_csv, rows_from_columns, rows_to_csv_bytes
+from sitegen.report.tables import cell_kinds, clean_rows, columns_to_csv, rows_from_columns, rows_to_csv_bytes
 from sitegen.report.xlsx import _sheet_xml, csv_lines
 
 
@@ -110,3 +110,13 @@ def test_csv_made_column_by_column_equals_the_csv_module() -> None:
     assert columns_to_csv(["t"], [np.array([np.nan, 1.0])]) is None
     assert columns_to_csv(["t"], [np.array([True, False])]) is None
     assert columns_to_csv(["t"], [np.array([1.5, "x"], dtype=object)]) is None
+
+
+def test_only_numbers_and_all_text_columns_take_the_short_cut() -> None:
+    """Yes/no values, mixed cells and extended precision go cell by cell (their sheet cells differ)."""
+    mixed = [np.array([1.5]), np.array([2], dtype=np.int32), np.array(["a"], dtype=object)]
+    assert cell_kinds(mixed) == ["n", "n", "t"]
+    assert cell_kinds([np.array([True, False])]) is None
+    assert cell_kinds([np.array(["a", 1.5], dtype=object)]) is None
+    assert cell_kinds([np.array([1.5], dtype=np.longdouble)]) is None
+    assert columns_to_csv(["t"], [np.array([1.5, 2.5], dtype=np.longdouble)]) is None

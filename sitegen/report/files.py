@@ -17,6 +17,7 @@ from sitegen.discover import DatasetSource
 from sitegen.jsontext import json_text
 from sitegen.model import FitReport, to_json
 from sitegen.report.tables import (
+    cell_kinds,
     clean_rows,
     columns_to_csv,
     rows_from_columns,
@@ -189,7 +190,8 @@ def _observations(folder: Path, obs: Observations, book: list[Sheet]) -> str:
         cells = rows_from_columns(obs.values)
         text = rows_to_csv_bytes(header, cells)
     (folder / "observations.csv").write_bytes(text)
-    lines = csv_lines(text.decode("utf-8"), ["n" if arr.dtype.kind in "fiu" else "t" for arr in obs.values])
+    kinds = cell_kinds(obs.values)
+    lines = csv_lines(text.decode("utf-8"), kinds) if kinds is not None else None
     if lines is None:  # the sheet reuses the CSV's text where it can
         book.append(("observations", header, cells if cells is not None else rows_from_columns(obs.values)))
     else:

@@ -64,6 +64,8 @@ def columns_to_csv(header: Sequence[str], values: Sequence[np.ndarray[Any, Any]]
     cols: list[list[str]] = []
     for arr in values:
         kind = arr.dtype.kind
+        if kind == "f" and arr.dtype.itemsize > 8:
+            return None  # extended precision: its scalars are not Python floats
         if kind == "f":
             col = list(map(repr, arr.tolist()))
             finite = np.isfinite(arr)
@@ -88,6 +90,20 @@ def columns_to_csv(header: Sequence[str], values: Sequence[np.ndarray[Any, Any]]
         buf.write("\n".join(map(",".join, zip(*cols, strict=True))))
         buf.write("\n")
     return buf.getvalue().encode("utf-8")
+
+
+def cell_kinds(values: Sequence[np.ndarray[Any, Any]]) -> list[str] | None:
+    """Each column's kind for a sheet made from CSV lines: "n" numbers (floats up to 64 bits, integers),
+    "t" text (every cell a string); None when some column is neither (yes/no values, mixed cells)."""
+    kinds = []
+    for arr in values:
+        if (arr.dtype.kind == "f" and arr.dtype.itemsize <= 8) or arr.dtype.kind in "iu":
+            kinds.append("n")
+        elif arr.dtype.kind == "O" and all(type(v) is str for v in arr.tolist()):
+            kinds.append("t")
+        else:
+            return None
+    return kinds
 
 
 def rows_from_columns(values: Sequence[np.ndarray[Any, Any]]) -> list[list[Any]]:
