@@ -61,7 +61,11 @@ class PoolExecutor:
         from concurrent.futures import ProcessPoolExecutor  # noqa: PLC0415
 
         if self._pool is None:
-            method = "fork" if sys.platform.startswith("linux") else None
+            # Forking copies only the calling thread: a library that runs threads of its own (the chart
+            # converter's JavaScript engine, once loaded here) would leave a forked worker waiting for ever
+            # on a lock one of those threads held. Then the workers start afresh instead.
+            threaded = any(name in sys.modules for name in _THREADED_LIBRARIES)
+            method = "fork" if sys.platform.startswith("linux") and not threaded else "spawn"
             import gc  # noqa: PLC0415
 
             # Forked workers share the parent's objects; frozen, the workers' collector leaves them alone
@@ -98,6 +102,10 @@ class PoolExecutor:
             import gc  # noqa: PLC0415
 
             gc.unfreeze()  # a long-running watch must not keep each build's objects for ever
+
+
+#: Native libraries that start threads of their own when used (see :meth:`PoolExecutor._ensure`).
+_THREADED_LIBRARIES = ("vl_convert",)
 
 
 def _die_with_parent(parent: int) -> None:

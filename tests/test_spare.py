@@ -254,3 +254,21 @@ def test_folders_a_theme_no_longer_has_leave_the_site(tmp_path: Path) -> None:
     _build(data, site)
     assert not (site / "assets" / "img").exists()
     assert site_bytes(site, SEQUENCE_FILES) == _fresh(data, tmp_path / "fresh")
+
+
+def test_pages_rendered_by_workers_after_the_chart_converter_ran_here_do_not_hang(tmp_path: Path) -> None:
+    """Static images: one dataset refitted in the build's own process (which runs the chart converter and
+    its threads there), then two pages rendered by a pool of workers. Forked, those workers would wait
+    for ever on a lock of the converter's threads; they must start afresh and finish."""
+    data = tmp_path / "data"
+    for name, slope in (("a", 0.5), ("b", 1.5), ("c", 2.5)):
+        rows = "".join(f"{i},{1 + slope * i + ((i * 7) % 5 - 2) * 0.05:.4f}\n" for i in range(1, 11))
+        write_csv(data / f"{name}.csv", "x,y\n" + rows)
+    write_toml(data / "site.toml", "static_images = true\n")
+    site = tmp_path / "site"
+    cmd = [sys.executable, "-m", "sitegen", "build", str(data), "-o", str(site), "-j", "2", "-q"]
+    subprocess.run(cmd, check=True, timeout=120)
+    write_toml(data / "b.toml", {"title": "B renamed"})  # b refits alone; a's and c's pages change
+    done = subprocess.run(cmd, check=False, timeout=120, capture_output=True, text=True)
+    assert done.returncode == 0, done.stderr
+    assert "B renamed" in (site / "datasets" / "a" / "index.html").read_text(encoding="utf-8")
