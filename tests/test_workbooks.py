@@ -9,6 +9,7 @@ from __future__ import annotations
 import csv
 import math
 from pathlib import Path
+from typing import Any
 
 import numpy as np
 from conftest import Built
@@ -63,14 +64,21 @@ def _check_cell(cell: object, want: object, path: Path) -> None:
         assert cell == want, (path, cell, want)
 
 
-def test_sheets_from_csv_lines_equal_sheets_from_cells() -> None:
-    """The short cut for tables of numbers then text (the CSV's own lines) writes the same XML as cell by cell."""
-    columns = [
+def _odd_columns() -> list[np.ndarray[Any, Any]]:
+    """Columns with the awkward cells: negative, tiny and huge numbers, gaps, infinities, formula-like text."""
+    return [
         np.array([1, 2, 3, -4], dtype=np.int64),
         np.array([0.1, np.nan, -2.5e-300, 1e22]),
         np.array([np.inf, 3.0, -np.inf, 123456789.125]),
         np.array([np.nan, np.nan, np.nan, np.nan]),
         np.array(["", "high leverage; outlier", "=1+2", "a < b & c > d"], dtype=object),
+    ]
+
+
+def test_sheets_from_csv_lines_equal_sheets_from_cells() -> None:
+    """The short cut for tables of numbers then text (the CSV's own lines) writes the same XML as cell by cell."""
+    columns = [
+        *_odd_columns(),
         np.array(["", "", "@x", "é"], dtype=object),
         np.array(["", "", "", ""], dtype=object),
     ]
@@ -91,11 +99,7 @@ def test_sheets_from_csv_lines_equal_sheets_from_cells() -> None:
 def test_csv_made_column_by_column_equals_the_csv_module() -> None:
     """The column-wise CSV writer gives the csv module's bytes, or declines."""
     columns = [
-        np.array([1, 2, 3, -4], dtype=np.int64),
-        np.array([0.1, np.nan, -2.5e-300, 1e22]),
-        np.array([np.inf, 3.0, -np.inf, 123456789.125]),
-        np.array([np.nan, np.nan, np.nan, np.nan]),
-        np.array(["", "high leverage; outlier", "=1+2", "a < b & c > d"], dtype=object),
+        *_odd_columns(),
         np.array(["", "", "-x", "é"], dtype=object),
         np.array([5, 6, 7, 8], dtype=np.uint8),
     ]
