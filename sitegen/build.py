@@ -390,7 +390,7 @@ def _nothing_changed(
             return False  # a failure is reused only when it came from the input itself
         if not _fit_json_intact(prev.site / "datasets" / s.slug / "fit.json", e):
             return False  # missing, changed or corrupt since the previous build wrote it
-    # every file the previous build wrote is still there at its size, and nothing else is
+    # every file the previous build wrote is still there as it was written, and nothing else is
     return prev.body.get("files") == _manifest(prev.site)
 
 
@@ -480,10 +480,10 @@ def _files_by_folder(body: dict[str, Any]) -> dict[str, dict[str, Any]]:
     out: dict[str, dict[str, Any]] = {}
     files = body.get("files")
     if isinstance(files, dict):
-        for key, size in files.items():
+        for key, stat in files.items():
             if key.startswith("datasets/"):
                 slug, _, name = key[len("datasets/") :].partition("/")
-                out.setdefault(slug, {})[name] = size
+                out.setdefault(slug, {})[name] = stat
     return out
 
 
