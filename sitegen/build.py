@@ -29,7 +29,7 @@ from typing import TYPE_CHECKING, Any
 
 from sitegen import __version__
 from sitegen.discover import SITE_CONFIG_NAME, DatasetSource, discover
-from sitegen.errors import INTERNAL_ERROR_WORDS, UNREADABLE_WORDS, ConfigError
+from sitegen.errors import INTERNAL_ERROR_WORDS, ConfigError
 from sitegen.jsontext import json_text
 from sitegen.publish import build_folder, check_output_folder, swap_in
 from sitegen.report.theme import Theme, load_theme
@@ -135,8 +135,9 @@ def _known_sha(stat: list[int] | None, record: Any, name: str) -> str | None:
 
 def _fingerprint(
     src: DatasetSource, config: SiteConfig, versions: dict[str, str], record: Any = None
-) -> tuple[str, str, dict[str, Any]]:
-    """(input sha256, fingerprint of everything that shapes the dataset's numbers, stat record).
+) -> tuple[str, str, dict[str, Any], tuple[list[int] | None, list[int] | None]]:
+    """(input sha256, fingerprint of everything that shapes the dataset's numbers, stat record, and the CSV's and
+    sidecar's stats as they are now).
 
     Files whose size, modification time and inode match the previous build's record are not
     read again; their recorded hashes stand (the record is kept in build.json).
@@ -148,7 +149,7 @@ def _fingerprint(
         try:
             csv_sha = _file_sha256(src.csv_path)
         except OSError:
-            return "", "", {}
+            return "", "", {}, (None, None)
     side_stat = _input_stat(src.sidecar_path) if src.sidecar_path is not None else None
     side_sha = _known_sha(side_stat, record, "sidecar") if src.sidecar_path else _sha256(b"")
     if side_sha is None:
@@ -178,7 +179,7 @@ def _fingerprint(
         return stat if stat is not None and max(stat[1], stat[3]) < now - _RACY_NS else None
 
     stats = {"csv": settled(csv_stat), "csv_sha256": csv_sha, "sidecar": settled(side_stat), "sidecar_sha256": side_sha}
-    return csv_sha, _sha256(payload.encode()), stats
+    return csv_sha, _sha256(payload.encode()), stats, (csv_stat, side_stat)
 
 
 def _site_key(config: SiteConfig, theme: Theme) -> str:
@@ -343,13 +344,16 @@ def run_build(
         }
         prints = {slug: (m[0], m[1]) for slug, m in measured.items()}
         stats = {slug: m[2] for slug, m in measured.items()}
+        inputs = {slug: m[3] for slug, m in measured.items()}
         if _nothing_changed(prev, sources, prints, site_key):
             outcomes = _touch_build_json(out_dir, prev, stats)
             return BuildSummary(out_dir, outcomes, 0, len(sources), time.perf_counter() - started, tuple(warnings))
         spare = _open_spare(work, trusted=prev.site is not None)
         from sitegen.executor import make_executor  # noqa: PLC0415 - a process pool only when there is work
 
-        with executor or make_executor(options.jobs) as run:
+        # Chart images run the chart converter, whose threads must stay out of this process (a pool
+        # forked from it later could wait for ever on their locks): then even a lone job goes to a worker.
+        with executor or make_executor(options.jobs, inline_single=not config.static_images) as run:
             state = _Build(
                 work=work,
                 spare=spare,
@@ -361,6 +365,7 @@ def run_build(
                 run=run,
                 progress=progress,
                 stats=stats,
+                inputs=inputs,
             )
             summary = state.execute(theme)
         swap_in(work, out_dir)
@@ -395,14 +400,14 @@ def _nothing_changed(
 
 
 def _failure_from_input(report: FitReport, csv_sha: str) -> bool:
-    """A failed result that the input itself decides: read from the bytes the fingerprint covers, and not
-    sitegen's own failure or a file that could not be read at the time (those are tried again)."""
+    """A failed result read from the bytes the fingerprint covers (or refused before reading) and not
+    sitegen's own failure. The build also checks that no input file changed while it ran."""
     errors = [m.text for m in report.messages if m.level == "error"]
     return (
         bool(errors)
         and bool(csv_sha)
-        and report.input_sha256 == csv_sha
-        and not any(INTERNAL_ERROR_WORDS in t or UNREADABLE_WORDS in t for t in errors)
+        and report.input_sha256 in ("", csv_sha)
+        and not any(INTERNAL_ERROR_WORDS in t for t in errors)
     )
 
 
@@ -592,10 +597,12 @@ class _Build:
         run: Executor,
         progress: Progress | None,
         stats: dict[str, dict[str, Any]],
+        inputs: dict[str, tuple[list[int] | None, list[int] | None]],
     ) -> None:
         self.work, self.spare, self.prev, self.sources, self.prints = work, spare, prev, sources, prints
         self.config, self.site_key, self.run, self.progress = config, site_key, run, progress
         self.stats = stats  # per dataset: file stats and hashes, recorded for the next build
+        self.inputs = inputs  # per dataset: the CSV's and sidecar's stats when the build began
         self.fit_shas: dict[str, str] = {}  # the known sha256 of each dataset's fit.json (checked or just written)
         self.then_files = _files_by_folder(prev.body)  # the previous manifest by dataset folder
         self.kept: set[str] = set()  # reused datasets whose folder in the spare was already right
@@ -637,6 +644,8 @@ class _Build:
         fp = self.prints[src.slug][1]
         if self.prev.site is None or entry is None or entry.get("fingerprint") != fp or not fp:
             return None
+        if entry.get("status") == "error" and entry.get("failure_kept") is not True:
+            return None  # a failure is reused only when the input itself decided it
         new = self.work / "datasets" / src.slug
         if self._spare_holds(src.slug, entry):
             report = self._stored_light(entry, new, src.slug, self.spare.entries[src.slug])
@@ -709,7 +718,7 @@ class _Build:
         (self.work / "index.html").write_text(index, encoding="utf-8")
         summary_files(self.work, reports)
         hist_warnings = history.write(self.work, ctx, reports, self.prev.site)
-        site_assets = {*assets.write_bundle(self.work, self.prev.site), *assets.write_static(self.work, theme)}
+        site_assets = {*assets.write_bundle(self.work), *assets.write_static(self.work, theme)}
         for i, names in pending:
             page_files[page_jobs[i].target.parent.name] = names
         self._tidy({slug: {*files, *page_files[slug]} for slug, (_, files) in done.items()}, site_assets)
@@ -767,10 +776,19 @@ class _Build:
                     "message": summary_row(report)["message"],
                     "index": index_entry(report),
                     "stat": self.stats.get(src.slug, {}),
-                    "failure_kept": report.status == "error" and _failure_from_input(report, self.prints[src.slug][0]),
+                    "failure_kept": self._failure_kept(src, done[src.slug][0]),
                 }
             )
         return entries, jobs, in_place
+
+    def _failure_kept(self, src: DatasetSource, report: FitReport) -> bool:
+        """The dataset failed because of its input, read as the fingerprint saw it: no input file changed
+        while this build ran (a file away, garbled or too large for a moment is tried again next time)."""
+        if report.status != "error" or not _failure_from_input(report, self.prints[src.slug][0]):
+            return False
+        csv_then, sidecar_then = self.inputs.get(src.slug, (None, None))
+        sidecar_now = _input_stat(src.sidecar_path) if src.sidecar_path is not None else None
+        return csv_then is not None and _input_stat(src.csv_path) == csv_then and sidecar_now == sidecar_then
 
     def _page_names(self, slug: str) -> tuple[str, ...]:
         names = ["index.html"]

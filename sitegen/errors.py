@@ -26,9 +26,6 @@ from __future__ import annotations
 #: The words of a dataset's error message when sitegen itself failed (a bug, not the data).
 #: Such results are never reused by a rebuild: the next build tries again and shows the traceback.
 INTERNAL_ERROR_WORDS = "because of an internal error"
-#: The words of a dataset's error message when a file could not be read (gone for a moment, locked, …):
-#: the input may be fine next time, so such results are never reused either.
-UNREADABLE_WORDS = "cannot be read"
 
 
 class SitegenError(Exception):

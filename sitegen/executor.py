@@ -52,8 +52,9 @@ class InlineExecutor:
 class PoolExecutor:
     """A local process pool (``fork`` on Linux, so workers start with the parent's imports)."""
 
-    def __init__(self, jobs: int) -> None:
+    def __init__(self, jobs: int, *, inline_single: bool = True) -> None:
         self.jobs = max(1, jobs)
+        self.inline_single = inline_single  # a lone item runs here rather than starting a pool for it
         self._pool: ProcessPoolExecutor | None = None
 
     def _ensure(self) -> ProcessPoolExecutor:
@@ -82,7 +83,7 @@ class PoolExecutor:
     def run(self, fn: Callable[[T], R], items: list[T]) -> Iterator[tuple[int, R]]:
         if not items:
             return iter(())
-        if len(items) == 1 and self._pool is None:
+        if len(items) == 1 and self._pool is None and self.inline_single:
             return InlineExecutor().run(fn, items)
         from concurrent.futures import as_completed  # noqa: PLC0415
 
@@ -133,7 +134,8 @@ def default_jobs() -> int:
         return os.cpu_count() or 1
 
 
-def make_executor(jobs: int | None) -> InlineExecutor | PoolExecutor:
-    """The executor for ``--jobs``: None means all cores."""
+def make_executor(jobs: int | None, *, inline_single: bool = True) -> InlineExecutor | PoolExecutor:
+    """The executor for ``--jobs``: None means all cores. ``inline_single=False`` sends even a lone item to
+    a worker process (for work that must not run in this one)."""
     n = default_jobs() if jobs is None else jobs
-    return InlineExecutor() if n <= 1 else PoolExecutor(n)
+    return InlineExecutor() if n <= 1 else PoolExecutor(n, inline_single=inline_single)

@@ -357,3 +357,38 @@ def test_a_failure_the_input_did_not_cause_is_tried_again(
     after = run_build(options)  # the file is back as it was when the build began
     assert {o.dataset: o.status for o in after.outcomes}["beta"] == "ok"
     assert reused(site)["beta"] is False
+
+
+def _sidecar_garbled(path: Path) -> Callable[[], None]:
+    sidecar = path.with_suffix(".toml")
+    good = sidecar.read_bytes()
+    sidecar.write_bytes(b"title = [unclosed\n")
+
+    def back() -> None:
+        sidecar.write_bytes(good)
+
+    return back
+
+
+def test_a_sidecar_garbled_for_a_moment_is_tried_again(built: tuple[Path, Path]) -> None:
+    data, site = built
+    write_csv(data / "alpha.csv", LINE_CSV + "7,14.2\n")
+    options = BuildOptions(data, site, jobs=1)
+    during = run_build(options, executor=_Meddling("alpha", _sidecar_garbled))
+    assert {o.dataset: o.status for o in during.outcomes}["alpha"] == "error"
+    after = run_build(options)
+    assert {o.dataset: o.status for o in after.outcomes}["alpha"] == "ok"
+
+
+def test_a_file_that_is_not_text_fails_once_and_then_costs_nothing(built: tuple[Path, Path]) -> None:
+    """A failure the input decides (here a CSV holding NUL bytes) is kept: the next build has nothing to do."""
+    data, site = built
+    (data / "binary.csv").write_bytes(b"x,y\n1,\x002\n")
+    assert build(data, site) == 1
+    page = site / "datasets" / "binary" / "index.html"
+    before = page.stat().st_ino
+    again = cli("build", data, "-o", site, "-j", "1")
+    assert again.code == 1
+    assert "0 fitted" in again.stream
+    assert page.stat().st_ino == before  # nothing was rewritten
+    assert next(e for e in build_json(site)["datasets"] if e["dataset"] == "binary")["failure_kept"] is True

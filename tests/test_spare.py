@@ -272,3 +272,34 @@ def test_pages_rendered_by_workers_after_the_chart_converter_ran_here_do_not_han
     done = subprocess.run(cmd, check=False, timeout=120, capture_output=True, text=True)
     assert done.returncode == 0, done.stderr
     assert "B renamed" in (site / "datasets" / "a" / "index.html").read_text(encoding="utf-8")
+
+
+def test_the_chart_bundle_is_the_cached_one_byte_for_byte(tmp_path: Path) -> None:
+    data = _data(tmp_path)
+    site = tmp_path / "site"
+    _build(data, site)
+    _append(data / "line_0.csv", "13,7.61\n")
+    _build(data, site)
+    bundle = build_dir_for(site) / "assets" / "vendor" / "vega-bundle.js"
+    text = bundle.read_bytes()
+    bundle.write_bytes(text[:100] + b"X" * 10 + text[110:])  # same size, doctored
+    _append(data / "line_0.csv", "14,8.2\n")
+    _build(data, site)
+    assert site_bytes(site, SEQUENCE_FILES) == _fresh(data, tmp_path / "fresh")
+
+
+def test_static_images_for_one_changed_dataset_are_drawn_in_a_worker(tmp_path: Path) -> None:
+    """The chart converter never runs in the build's own process (its threads would be inherited by forks)."""
+    data = _data(tmp_path)
+    write_toml(data / "site.toml", "static_images = true\n")
+    site = tmp_path / "site"
+    _build(data, site)
+    _append(data / "line_0.csv", "13,7.61\n")
+    script = (
+        "import sys; from pathlib import Path; from sitegen.build import BuildOptions, run_build; "
+        f"s = run_build(BuildOptions(Path({str(data)!r}), Path({str(site)!r}), jobs=2)); "
+        "print(s.fitted, 'vl_convert' in sys.modules)"
+    )
+    out = subprocess.run([sys.executable, "-c", script], capture_output=True, text=True, check=True, timeout=120)
+    assert out.stdout.split() == ["1", "False"]
+    assert list((site / "datasets" / "line-0").glob("chart-*.svg"))

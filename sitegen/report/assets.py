@@ -1,15 +1,17 @@
 """Shared assets: the Vega / Vega-Lite / vega-embed bundle, the theme's stylesheet and scripts.
 
 Producing the JavaScript bundle with vl-convert takes over a second and about
-130 MB the first time in a process, so it is reused from the previous build of
-the same site when the versions match, else from the user's cache folder
-(``$XDG_CACHE_HOME/sitegen`` or ``~/.cache/sitegen``), and made only when neither has it.
+130 MB, so it is made once per set of library versions, in a separate process,
+and kept in the user's cache folder (``$XDG_CACHE_HOME/sitegen`` or
+``~/.cache/sitegen``); each site gets a byte-for-byte copy.
 """
 
 from __future__ import annotations
 
 import os
 import shutil
+import subprocess
+import sys
 from pathlib import Path
 
 from sitegen.cache import cache_dir
@@ -38,71 +40,69 @@ def bundle_version() -> str:
     return text
 
 
+_ASK_VERSION = (
+    "import sys, vl_convert as v; sys.stdout.write("
+    "f\"vl-convert {getattr(v, '__version__', '?')}; vega {v.get_vega_version()}; \""
+    'f"vega-lite {v.get_vegalite_versions()[-1]}; vega-embed {v.get_vega_embed_version()}\\n")'
+)
+_ASK_BUNDLE = "import sys, vl_convert as v; sys.stdout.buffer.write(v.javascript_bundle().encode('utf-8'))"
+
+
+def _ask(code: str) -> bytes:
+    """Run ``code`` in a separate Python process and return what it wrote.
+
+    The chart converter starts threads of its own when used; kept out of the build's process, a
+    process pool forked from it can never inherit their locks (see executor.py).
+    """
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, check=False)
+    if done.returncode != 0:
+        raise RuntimeError(f"the chart converter failed: {done.stderr.decode('utf-8', 'replace')[-400:]}")
+    return done.stdout
+
+
 def _ask_bundle_version() -> str:
-    import vl_convert as vlc  # noqa: PLC0415
-
-    return (
-        f"vl-convert {getattr(vlc, '__version__', '?')}; vega {vlc.get_vega_version()}; "
-        f"vega-lite {vlc.get_vegalite_versions()[-1]}; vega-embed {vlc.get_vega_embed_version()}\n"
-    )
+    return _ask(_ASK_VERSION).decode("utf-8")
 
 
-def _bundle_text() -> str:
-    import vl_convert as vlc  # noqa: PLC0415
-
-    text: str = vlc.javascript_bundle()  # type: ignore[call-arg]  # the stub misses the default snippet
-    return text
-
-
-def _write_anew(path: Path, text: str) -> None:
+def _write_anew(path: Path, data: bytes) -> None:
     """A new file at ``path`` (the build folder's files are never rewritten in place; see publish.py)."""
     path.unlink(missing_ok=True)
-    path.write_text(text, encoding="utf-8")
+    path.write_bytes(data)
 
 
-def _copy_anew(src: Path, dst: Path) -> None:
-    dst.unlink(missing_ok=True)
-    shutil.copyfile(src, dst)
-
-
-def _read(path: Path) -> str | None:
+def _read(path: Path) -> bytes | None:
     try:
-        return path.read_text(encoding="utf-8")
-    except (OSError, ValueError):
+        return path.read_bytes()
+    except OSError:
         return None
 
 
-def write_bundle(out: Path, previous: Path | None) -> tuple[str, str]:
-    """Put the chart bundle into ``out`` (the site being built); returns the paths written."""
-    version = bundle_version()
+def write_bundle(out: Path) -> tuple[str, str]:
+    """Put the chart bundle into ``out`` (the site being built); returns the paths written.
+
+    The bundle comes from the user cache, where it is made once per set of library versions; a copy
+    already in ``out`` (a spare of the same versions) stays when it is byte for byte the cached one.
+    """
+    version = bundle_version().encode("utf-8")
     target = out / BUNDLE
-    written = (BUNDLE, BUNDLE_VERSION)
     target.parent.mkdir(parents=True, exist_ok=True)
-    if previous is not None:
-        old_bundle = previous / BUNDLE
-        if _read(previous / BUNDLE_VERSION) == version and old_bundle.is_file():
-            size = old_bundle.stat().st_size
-            # ``out`` may already hold it (a build folder that held an earlier site of the same versions)
-            if not (_read(out / BUNDLE_VERSION) == version and target.is_file() and target.stat().st_size == size):
-                _copy_anew(old_bundle, target)
-                _write_anew(out / BUNDLE_VERSION, version)
-            return written
-    _write_anew(out / BUNDLE_VERSION, version)
-    key = "".join(c if c.isalnum() else "-" for c in version.strip())
+    key = "".join(c if c.isalnum() else "-" for c in version.decode("utf-8").strip())
     cached = cache_dir() / f"vega-bundle-{key}.js"
-    if cached.is_file():
-        _copy_anew(cached, target)
-        return written
-    text = _bundle_text()
-    _write_anew(target, text)
-    try:
-        cached.parent.mkdir(parents=True, exist_ok=True)
-        tmp = cached.with_suffix(f".{os.getpid()}.tmp")
-        tmp.write_text(text, encoding="utf-8")
-        tmp.replace(cached)
-    except OSError:
-        pass  # the cache is an optimisation only
-    return written
+    text = _read(cached)
+    if text is None:
+        text = _ask(_ASK_BUNDLE)
+        try:
+            cached.parent.mkdir(parents=True, exist_ok=True)
+            tmp = cached.with_suffix(f".{os.getpid()}.tmp")
+            tmp.write_bytes(text)
+            tmp.replace(cached)
+        except OSError:
+            pass  # the cache is an optimisation only
+    if _read(target) != text:
+        _write_anew(target, text)
+    if _read(out / BUNDLE_VERSION) != version:
+        _write_anew(out / BUNDLE_VERSION, version)
+    return (BUNDLE, BUNDLE_VERSION)
 
 
 def write_static(out: Path, theme: Theme) -> list[str]:
@@ -116,6 +116,7 @@ def write_static(out: Path, theme: Theme) -> list[str]:
                 rel = path.relative_to(folder)
                 target = dest / rel
                 target.parent.mkdir(parents=True, exist_ok=True)
-                _copy_anew(path, target)
+                target.unlink(missing_ok=True)  # a new file, never one rewritten in place
+                shutil.copyfile(path, target)
                 written.append(f"assets/{rel.as_posix()}")
     return written
