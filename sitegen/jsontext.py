@@ -15,10 +15,6 @@ def _dumps(value: Any) -> str:
     return json.dumps(value, sort_keys=True, ensure_ascii=False, allow_nan=False)
 
 
-def _plain(x: Any) -> bool:
-    return x is None or isinstance(x, str | int | float)
-
-
 def _block(value: Any) -> str:
     if isinstance(value, list) and value:
         return "[\n  " + ",\n  ".join(_dumps(v) for v in value) + "\n ]"
@@ -26,9 +22,10 @@ def _block(value: Any) -> str:
         if all(v is None or isinstance(v, str | int | float) for v in value.values()):  # flat: one encoder call
             flat = json.dumps(value, sort_keys=True, ensure_ascii=False, allow_nan=False, separators=(",\n  ", ": "))
             return "{\n  " + flat[1:-1] + "\n }"
-        if all(isinstance(v, list) and all(_plain(x) for x in v) for v in value.values()):
-            # lists of plain values (a file manifest): one encoder call, then a line break before each key.
-            # Inside a JSON string a quote is escaped, so '],"' only ever ends a list and starts the next key.
+        if all(isinstance(v, list) for v in value.values()):
+            # lists (a file manifest): one encoder call, then a line break before each key. Inside a JSON
+            # string a quote is escaped, so '],"' is always between two values: a line break there is
+            # whitespace between tokens (before the next key, or inside a nested list), never in a string.
             flat = json.dumps(value, sort_keys=True, ensure_ascii=False, allow_nan=False, separators=(",", ":"))
             return "{\n  " + flat[1:-1].replace('],"', '],\n  "') + "\n }"
         return "{\n  " + ",\n  ".join(f"{_dumps(k)}: {_dumps(v)}" for k, v in sorted(value.items())) + "\n }"

@@ -13,7 +13,12 @@ from sitegen.jsontext import json_text
 _PLAIN = st.one_of(st.none(), st.booleans(), st.integers(), st.floats(allow_nan=False, allow_infinity=False), st.text())
 
 
-@given(st.dictionaries(st.text(), st.lists(_PLAIN, max_size=4), max_size=6), st.dictionaries(st.text(), _PLAIN))
+_NESTED = st.recursive(
+    _PLAIN, lambda inner: st.lists(inner, max_size=3) | st.dictionaries(st.text(), inner, max_size=3)
+)
+
+
+@given(st.dictionaries(st.text(), st.lists(_NESTED, max_size=4), max_size=6), st.dictionaries(st.text(), _PLAIN))
 def test_manifests_and_flat_mappings_read_back_as_written(
     manifest: dict[str, list[object]], flat: dict[str, object]
 ) -> None:
