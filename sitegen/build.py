@@ -31,7 +31,7 @@ from sitegen import __version__
 from sitegen.discover import SITE_CONFIG_NAME, DatasetSource, discover
 from sitegen.errors import INTERNAL_ERROR_WORDS, ConfigError
 from sitegen.jsontext import json_text
-from sitegen.publish import build_folder, check_output_folder, swap_in
+from sitegen.publish import build_folder, check_output_folder, copy_new, swap_in, write_new
 from sitegen.report.theme import Theme, load_theme
 from sitegen.spec import Limits, SiteConfig, read_site_config
 from sitegen.versions import library_versions
@@ -315,8 +315,7 @@ def write_page(where: Neighbours, report: FitReport, files: tuple[str, ...], tar
 
         images = write_chart_images(report, target.parent, ctx.theme.chart_colors)
     html = render_dataset(ctx, report, sorted(listed + images), where.prev, where.next)
-    target.unlink(missing_ok=True)  # a new file: whoever still reads the old one keeps reading it whole
-    target.write_text(html, encoding="utf-8")
+    write_new(target, html)  # whoever still reads the old page keeps reading it whole
     return (target.name, *images)
 
 
@@ -566,12 +565,6 @@ def _sizes(manifest: dict[str, Any]) -> dict[str, Any]:
     return {name: stat[0] if isinstance(stat, list) and stat else stat for name, stat in manifest.items()}
 
 
-def _copy_anew(src: Path, dst: Path) -> None:
-    """Copy ``src`` to a new file at ``dst`` (never into the file that is there)."""
-    dst.unlink(missing_ok=True)
-    shutil.copyfile(src, dst)
-
-
 def _remove(path: Path) -> None:
     """Delete a file, link or folder tree, if there."""
     if path.is_dir() and not path.is_symlink():
@@ -667,7 +660,7 @@ class _Build:
         new.mkdir(parents=True, exist_ok=True)
         files = [name for name in here if "/" not in name and _is_data_file(name)]  # sorted
         for name in files:
-            _copy_anew(old / name, new / name)
+            copy_new(old / name, new / name)
         return report, tuple(files)
 
     def execute(self, theme: Theme) -> tuple[tuple[Outcome, ...], int, list[str], tuple[tuple[str, str], ...]]:
@@ -800,7 +793,7 @@ class _Build:
         """Copy a dataset's page (and its chart images) from the published site; False if that failed."""
         try:
             for name in self._page_names(new.name):
-                _copy_anew(old / name, new / name)
+                copy_new(old / name, new / name)
         except OSError:
             return False
         return True

@@ -57,6 +57,21 @@ def check_output_folder(data_dir: Path, out_dir: Path) -> None:
         )
 
 
+def write_new(path: Path, data: bytes | str) -> None:
+    """Write ``data`` to a new file at ``path``, never into the file that is there (see the module's docstring)."""
+    path.unlink(missing_ok=True)
+    if isinstance(data, str):
+        path.write_text(data, encoding="utf-8")
+    else:
+        path.write_bytes(data)
+
+
+def copy_new(src: Path, dst: Path) -> None:
+    """Copy ``src`` to a new file at ``dst``, never into the file that is there."""
+    dst.unlink(missing_ok=True)
+    shutil.copyfile(src, dst)
+
+
 def build_dir_for(out_dir: Path) -> Path:
     """The build folder beside the output folder (between builds: the spare, the previous site)."""
     out = out_dir.resolve()
@@ -176,9 +191,8 @@ def swap_in(site: Path, out_dir: Path) -> None:
         same = marker.read_text(encoding="utf-8") == MARKER_TEXT
     except (OSError, ValueError):
         same = False
-    if not same:  # a new file, as everything the spare gets
-        marker.unlink(missing_ok=True)
-        marker.write_text(MARKER_TEXT, encoding="utf-8")
+    if not same:
+        write_new(marker, MARKER_TEXT)
     out = out_dir.resolve()
     if not out.exists():
         site.rename(out)  # a first build: there is no previous site to keep as the spare

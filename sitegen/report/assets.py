@@ -9,12 +9,12 @@ and kept in the user's cache folder (``$XDG_CACHE_HOME/sitegen`` or
 from __future__ import annotations
 
 import os
-import shutil
 import subprocess
 import sys
 from pathlib import Path
 
 from sitegen.cache import cache_dir
+from sitegen.publish import copy_new, write_new
 from sitegen.report.theme import Theme
 
 BUNDLE = "assets/vendor/vega-bundle.js"
@@ -64,12 +64,6 @@ def _ask_bundle_version() -> str:
     return _ask(_ASK_VERSION).decode("utf-8")
 
 
-def _write_anew(path: Path, data: bytes) -> None:
-    """A new file at ``path`` (the build folder's files are never rewritten in place; see publish.py)."""
-    path.unlink(missing_ok=True)
-    path.write_bytes(data)
-
-
 def _read(path: Path) -> bytes | None:
     try:
         return path.read_bytes()
@@ -99,9 +93,9 @@ def write_bundle(out: Path) -> tuple[str, str]:
         except OSError:
             pass  # the cache is an optimisation only
     if _read(target) != text:
-        _write_anew(target, text)
+        write_new(target, text)
     if _read(out / BUNDLE_VERSION) != version:
-        _write_anew(out / BUNDLE_VERSION, version)
+        write_new(out / BUNDLE_VERSION, version)
     return (BUNDLE, BUNDLE_VERSION)
 
 
@@ -116,7 +110,6 @@ def write_static(out: Path, theme: Theme) -> list[str]:
                 rel = path.relative_to(folder)
                 target = dest / rel
                 target.parent.mkdir(parents=True, exist_ok=True)
-                target.unlink(missing_ok=True)  # a new file, never one rewritten in place
-                shutil.copyfile(path, target)
+                copy_new(path, target)
                 written.append(f"assets/{rel.as_posix()}")
     return written
