@@ -123,13 +123,18 @@ def test_static_images_come_and_go_with_the_setting(tmp_path: Path) -> None:
     _assert_independent(site)
 
 
-def test_unchanged_datasets_are_left_in_place(tmp_path: Path) -> None:
-    """Two builds after a change, an unchanged dataset's files are the very ones the spare held."""
+def _site_and_spare(tmp_path: Path) -> tuple[Path, Path, Path]:
+    """The example data built twice: a published site and its spare (data, site, spare)."""
     data = _data(tmp_path)
     site = tmp_path / "site"
     _build(data, site)
     _build(data, site, "--refit")
-    spare = build_dir_for(site)
+    return data, site, build_dir_for(site)
+
+
+def test_unchanged_datasets_are_left_in_place(tmp_path: Path) -> None:
+    """Two builds after a change, an unchanged dataset's files are the very ones the spare held."""
+    data, site, spare = _site_and_spare(tmp_path)
     before = {p.name: p.stat().st_ino for p in (spare / "datasets" / "part-line-3").iterdir()}
     _append(data / "line_0.csv", "13,7.61\n")
     _build(data, site)
@@ -138,11 +143,7 @@ def test_unchanged_datasets_are_left_in_place(tmp_path: Path) -> None:
 
 
 def test_a_doctored_spare_costs_work_not_correctness(tmp_path: Path) -> None:
-    data = _data(tmp_path)
-    site = tmp_path / "site"
-    _build(data, site)
-    _build(data, site, "--refit")
-    spare = build_dir_for(site)
+    data, site, spare = _site_and_spare(tmp_path)
     outside = tmp_path / "keep-me.txt"
     outside.write_text("precious\n", encoding="utf-8")
     # A file edited at the same size, one deleted, a stray file and folder, a hard link to a file
