@@ -9,7 +9,6 @@ traceback kept for ``--debug``.
 
 from __future__ import annotations
 
-import hashlib
 import traceback
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -20,6 +19,7 @@ from numpy.typing import NDArray
 
 from sitegen import derive
 from sitegen.derive import Observations
+from sitegen.digest import sha256_hex
 from sitegen.discover import DatasetSource
 from sitegen.errors import INTERNAL_ERROR_WORDS, DatasetError, FitError, FormulaError
 from sitegen.formula import Design, assumed_formula, build_design
@@ -70,7 +70,7 @@ def analyze(task: FitTask) -> DatasetResult:
         return DatasetResult(replace(base, messages=(Message("error", msg),)), None)
     except DatasetError as exc:
         return DatasetResult(replace(base, messages=(Message("error", str(exc)),)), None)
-    base = replace(base, input_sha256=hashlib.sha256(raw).hexdigest())
+    base = replace(base, input_sha256=sha256_hex(raw))
     spec: DatasetSpec | None = None
     sidecar_name = src.relpath[: -len(".csv")] + ".toml"
     try:

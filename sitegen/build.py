@@ -16,28 +16,27 @@ rebuild with nothing to do stays fast.
 from __future__ import annotations
 
 import contextlib
-import hashlib
 import json
 import os
-import shutil
 import time
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
-from datetime import UTC, datetime
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from sitegen import __version__
+from sitegen.digest import file_sha256, sha256_hex
 from sitegen.discover import SITE_CONFIG_NAME, DatasetSource, discover
 from sitegen.errors import INTERNAL_ERROR_WORDS, ConfigError
 from sitegen.jsontext import json_text
-from sitegen.publish import build_folder, check_output_folder, copy_new, swap_in, write_new
+from sitegen.publish import build_folder, check_output_folder, copy_new, swap_in
 from sitegen.report.theme import Theme, load_theme
-from sitegen.spec import Limits, SiteConfig, read_site_config
+from sitegen.spec import SiteConfig, read_site_config
 from sitegen.versions import library_versions
 
 if TYPE_CHECKING:
     from sitegen.executor import Executor
+    from sitegen.jobs import FitJob, Neighbours, PageJob
     from sitegen.model import FitReport
     from sitegen.report.pages import SiteContext
 
@@ -87,14 +86,9 @@ class BuildSummary:
         return sum(1 for o in self.outcomes if o.status == "warn")
 
 
-def _sha256(data: bytes) -> str:
-    return hashlib.sha256(data).hexdigest()
-
-
-def _file_sha256(path: Path) -> str:
-    """SHA-256 of a file read in chunks (a file far over the size limit is never held in memory)."""
-    with path.open("rb") as fh:
-        return hashlib.file_digest(fh, "sha256").hexdigest()
+def _now() -> str:
+    """The time of the build, UTC, to the second (ISO 8601, as ``datetime.isoformat`` writes it)."""
+    return time.strftime("%Y-%m-%dT%H:%M:%S+00:00", time.gmtime())
 
 
 #: A file whose modification time is this close to the moment its hash was recorded is hashed
@@ -147,11 +141,11 @@ def _fingerprint(
     csv_sha = _known_sha(csv_stat, record, "csv")
     if csv_sha is None:
         try:
-            csv_sha = _file_sha256(src.csv_path)
+            csv_sha = file_sha256(src.csv_path)
         except OSError:
             return "", "", {}, (None, None)
     side_stat = _input_stat(src.sidecar_path) if src.sidecar_path is not None else None
-    side_sha = _known_sha(side_stat, record, "sidecar") if src.sidecar_path else _sha256(b"")
+    side_sha = _known_sha(side_stat, record, "sidecar") if src.sidecar_path else sha256_hex(b"")
     if side_sha is None:
         sidecar = b""
         if src.sidecar_path is not None:
@@ -159,7 +153,7 @@ def _fingerprint(
                 sidecar = src.sidecar_path.read_bytes()
             except OSError:
                 sidecar = b"<unreadable>"
-        side_sha = _sha256(sidecar)
+        side_sha = sha256_hex(sidecar)
     payload = json.dumps(
         {
             "csv": csv_sha,
@@ -179,20 +173,18 @@ def _fingerprint(
         return stat if stat is not None and max(stat[1], stat[3]) < now - _RACY_NS else None
 
     stats = {"csv": settled(csv_stat), "csv_sha256": csv_sha, "sidecar": settled(side_stat), "sidecar_sha256": side_sha}
-    return csv_sha, _sha256(payload.encode()), stats, (csv_stat, side_stat)
+    return csv_sha, sha256_hex(payload.encode()), stats, (csv_stat, side_stat)
 
 
 def _site_key(config: SiteConfig, theme: Theme) -> str:
     """Fingerprint of everything besides a dataset's own inputs that shapes its page."""
-    h = hashlib.sha256(repr(config).encode())
-    h.update(__version__.encode())
-    h.update(json.dumps(library_versions(RENDER_LIBRARIES), sort_keys=True).encode())
+    parts = [repr(config).encode(), __version__.encode()]
+    parts.append(json.dumps(library_versions(RENDER_LIBRARIES), sort_keys=True).encode())
     for folder in (*theme.template_dirs, *theme.static_dirs):
         for path in sorted(p for p in folder.rglob("*") if p.is_file()):
-            h.update(path.relative_to(folder).as_posix().encode())
-            h.update(path.read_bytes())
-    h.update(theme.charts_json.encode())
-    return h.hexdigest()
+            parts += [path.relative_to(folder).as_posix().encode(), path.read_bytes()]
+    parts.append(theme.charts_json.encode())
+    return sha256_hex(b"".join(parts))
 
 
 @dataclass(frozen=True, slots=True)
@@ -203,120 +195,18 @@ class _Previous:
     entries: dict[str, dict[str, Any]]
     site_key: str
     body: dict[str, Any]
+    text: str = ""  # build.json as read
 
 
 def _previous(out_dir: Path) -> _Previous:
     path = out_dir / "build.json"
     try:
-        body = json.loads(path.read_text(encoding="utf-8"))
+        text = path.read_text(encoding="utf-8")
+        body = json.loads(text)
         entries = {str(e["dataset"]): e for e in body["datasets"] if isinstance(e, dict)}
-        return _Previous(out_dir, entries, str(body.get("site_key", "")), body)
+        return _Previous(out_dir, entries, str(body.get("site_key", "")), body, text)
     except (OSError, ValueError, KeyError, TypeError):
         return _Previous(out_dir if out_dir.is_dir() else None, {}, "", {})
-
-
-# --- work items run by the executor (plain picklable data in and out) ---------------------
-
-
-@dataclass(frozen=True, slots=True)
-class FitJob:
-    """Fit one dataset and write its tables into ``folder``."""
-
-    source: DatasetSource
-    defaults: tuple[tuple[str, Any], ...]
-    limits: Limits
-    folder: Path
-    offer_source: bool
-    input_sha256: str = ""  # of the file when the build started, to notice a change during the build
-    page: Neighbours | None = None  # also write the page, between these neighbours (saves a second round)
-
-
-@dataclass(frozen=True, slots=True)
-class Neighbours:
-    """What a dataset page needs besides its report: the site, and the datasets before and after it."""
-
-    ctx: SiteContext
-    prev: tuple[str, str] | None
-    next: tuple[str, str] | None
-
-
-@dataclass(frozen=True, slots=True)
-class FitDone:
-    """What a fitted dataset sends back: its index values (or, failed, its report) and the files written."""
-
-    report: FitReport | None  # a failed dataset's report (small); else None
-    entry: dict[str, Any] | None  # index values of a fitted one (all the build needs; the rest is in fit.json)
-    files: tuple[str, ...]
-    debug_trace: str | None
-    paged: Neighbours | None = None  # the page was written, between these neighbours
-    page_files: tuple[str, ...] = ()  # what writing the page wrote (index.html, chart images)
-    fit_sha256: str = ""  # of the fit.json written (hashed here, in parallel, rather than by the build)
-
-
-def fit_job(job: FitJob) -> FitDone:
-    """Worker: fit one dataset and write its downloads."""
-    from sitegen.analyze import FitTask, analyze  # noqa: PLC0415
-    from sitegen.report.files import dataset_files  # noqa: PLC0415
-
-    result = analyze(FitTask(job.source, job.defaults, job.limits))
-    report = result.report
-    if job.input_sha256 and report.input_sha256 and report.input_sha256 != job.input_sha256:
-        from dataclasses import replace  # noqa: PLC0415
-
-        from sitegen.model import Message  # noqa: PLC0415
-
-        text = (
-            f"{job.source.relpath} changed while the build was running; this page shows the file as it was "
-            "read for fitting — build again once the file is complete"
-        )
-        status = "warn" if report.status == "ok" else report.status
-        report = replace(report, messages=(Message("warning", text), *report.messages), status=status)
-        result = replace(result, report=report)
-    job.folder.mkdir(parents=True, exist_ok=True)
-    files = tuple(dataset_files(job.folder, result.report, result.observations, job.source, job.offer_source))
-    page_files = write_page(job.page, result.report, files, job.folder / "index.html") if job.page else ()
-    sha = _file_sha256(job.folder / "fit.json")
-    if result.report.status == "error":
-        return FitDone(result.report, None, files, result.debug_trace, job.page, page_files, sha)
-    from sitegen.report.files import index_entry  # noqa: PLC0415
-
-    return FitDone(None, index_entry(result.report), files, result.debug_trace, job.page, page_files, sha)
-
-
-@dataclass(frozen=True, slots=True)
-class PageJob:
-    """Render one dataset page."""
-
-    ctx: SiteContext
-    report: FitReport | None  # None: read the full report from the folder's fit.json
-    files: tuple[str, ...]
-    prev: tuple[str, str] | None
-    next: tuple[str, str] | None
-    target: Path
-
-
-def page_job(job: PageJob) -> tuple[str, ...]:
-    """Worker: render a dataset page to its file; returns the names written."""
-    from sitegen.model import from_json  # noqa: PLC0415
-
-    report = job.report or from_json((job.target.parent / "fit.json").read_text(encoding="utf-8"))
-    return write_page(Neighbours(job.ctx, job.prev, job.next), report, job.files, job.target)
-
-
-def write_page(where: Neighbours, report: FitReport, files: tuple[str, ...], target: Path) -> tuple[str, ...]:
-    """Render a dataset page (and its static chart images when the site asks for them); returns the names written."""
-    from sitegen.report.pages import render_dataset  # noqa: PLC0415
-
-    ctx = where.ctx
-    listed = [f for f in files if not f.startswith("chart-")]
-    images: list[str] = []
-    if ctx.config.static_images and report.status != "error":
-        from sitegen.report.images import write_chart_images  # noqa: PLC0415
-
-        images = write_chart_images(report, target.parent, ctx.theme.chart_colors)
-    html = render_dataset(ctx, report, sorted(listed + images), where.prev, where.next)
-    write_new(target, html)  # whoever still reads the old page keeps reading it whole
-    return (target.name, *images)
 
 
 # --- the build --------------------------------------------------------------------------
@@ -424,7 +314,7 @@ def _fit_json_intact(path: Path, entry: dict[str, Any]) -> bool:
     if stat == entry.get("fit_stat"):
         return True
     try:
-        return bool(_file_sha256(path) == sha)
+        return bool(file_sha256(path) == sha)
     except OSError:
         return False
 
@@ -468,15 +358,29 @@ def _stored_report(folder: Path, slug: str, csv_sha: str) -> FitReport | None:
 def _touch_build_json(out_dir: Path, prev: _Previous, stats: dict[str, dict[str, Any]]) -> tuple[Outcome, ...]:
     """Nothing changed: record this build in build.json (atomically) and leave the rest."""
     body = dict(prev.body)
-    body["built_at"] = datetime.now(UTC).isoformat(timespec="seconds")
+    body["built_at"] = _now()
     body["datasets"] = [dict(e, reused=True, stat=stats.get(e.get("dataset"), {})) for e in body.get("datasets", [])]
     tmp = out_dir / f".build.json.{os.getpid()}.tmp"
-    tmp.write_text(json_text(body), encoding="utf-8")
+    tmp.write_text(_retimed(prev, body) or json_text(body), encoding="utf-8")
     tmp.replace(out_dir / "build.json")
     return tuple(
         Outcome(e["dataset"], e.get("source", ""), e.get("status", "ok"), e.get("message", ""))
         for e in body["datasets"]
     )
+
+
+def _retimed(prev: _Previous, body: dict[str, Any]) -> str | None:
+    """The previous build.json's text with only its build time changed, when that is all that differs from
+    ``body`` (a rebuild with nothing to do after one that reused everything); else None.
+
+    Top-level keys are the only lines that begin with a line break and one space (see :mod:`sitegen.jsontext`).
+    """
+    if body["datasets"] != prev.body.get("datasets") or "built_at" not in prev.body:
+        return None
+    old = '\n "built_at": ' + json.dumps(prev.body["built_at"], ensure_ascii=False) + ",\n"
+    if prev.text.count(old) != 1:
+        return None
+    return prev.text.replace(old, '\n "built_at": ' + json.dumps(body["built_at"], ensure_ascii=False) + ",\n")
 
 
 def _files_by_folder(body: dict[str, Any]) -> dict[str, dict[str, Any]]:
@@ -568,6 +472,8 @@ def _sizes(manifest: dict[str, Any]) -> dict[str, Any]:
 def _remove(path: Path) -> None:
     """Delete a file, link or folder tree, if there."""
     if path.is_dir() and not path.is_symlink():
+        import shutil  # noqa: PLC0415 - not needed by a rebuild with nothing to do
+
         shutil.rmtree(path, ignore_errors=True)
     else:
         with contextlib.suppress(OSError):
@@ -600,6 +506,7 @@ class _Build:
         self.then_files = _files_by_folder(prev.body)  # the previous manifest by dataset folder
         self.kept: set[str] = set()  # reused datasets whose folder in the spare was already right
         self.checked: set[str] = set()  # reused datasets whose published folder was checked file by file
+        self.titles: dict[str, str] = {}  # expected titles of the neighbours of datasets being fitted
 
     def _stored_light(self, entry: dict[str, Any], old: Path, slug: str, record: dict[str, Any]) -> FitReport | None:
         """The stored result, light: from build.json when its fit.json is unchanged, else parsed from fit.json.
@@ -664,6 +571,7 @@ class _Build:
         return report, tuple(files)
 
     def execute(self, theme: Theme) -> tuple[tuple[Outcome, ...], int, list[str], tuple[tuple[str, str], ...]]:
+        from sitegen.jobs import FitJob, Neighbours, fit_job, page_job  # noqa: PLC0415
         from sitegen.report import assets, history, pages  # noqa: PLC0415
         from sitegen.report.files import report_from_index_entry, summary_files, summary_row  # noqa: PLC0415
         from sitegen.report.tags import tag_blocks  # noqa: PLC0415
@@ -672,7 +580,6 @@ class _Build:
         traces: list[tuple[str, str]] = []
         jobs: list[FitJob] = []
         ctx = pages.SiteContext(self.config, theme)
-        titles: list[tuple[str, str]] = []
         for i, src in enumerate(self.sources):
             reused = self._reuse(src)
             if reused is not None:
@@ -683,8 +590,7 @@ class _Build:
                     (folder / name).unlink(missing_ok=True)
                 sha = self.prints[src.slug][0]
                 config = self.config
-                titles = titles or self._expected_titles()
-                around = Neighbours(ctx, titles[i - 1] if i else None, titles[i + 1] if i + 1 < len(titles) else None)
+                around = Neighbours(ctx, self._expected_title(i - 1), self._expected_title(i + 1))
                 jobs.append(FitJob(src, config.defaults, config.limits, folder, config.offer_source, sha, around))
         total = len(self.sources)
         count = len(done)
@@ -728,6 +634,7 @@ class _Build:
         paged: dict[str, tuple[Neighbours | None, tuple[str, ...]]],
     ) -> tuple[list[dict[str, Any]], list[PageJob], dict[str, tuple[str, ...]]]:
         """Which pages to keep, copy or render; their build.json entries; the names of pages already in place."""
+        from sitegen.jobs import PageJob  # noqa: PLC0415
         from sitegen.report.files import index_entry, summary_row  # noqa: PLC0415
 
         entries: list[dict[str, Any]] = []
@@ -738,7 +645,7 @@ class _Build:
             prev_r = (reports[i - 1].dataset, reports[i - 1].title) if i > 0 else None
             next_r = (reports[i + 1].dataset, reports[i + 1].title) if i + 1 < len(reports) else None
             fp = self.prints[src.slug][1]
-            key = _sha256(json.dumps([fp, self.site_key, list(files), prev_r, next_r, report.status]).encode())
+            key = sha256_hex(json.dumps([fp, self.site_key, list(files), prev_r, next_r, report.status]).encode())
             target = self.work / "datasets" / src.slug / "index.html"
             old_entry = self.prev.entries.get(src.slug, {})
             old_page = self.prev.site / "datasets" / src.slug / "index.html" if self.prev.site else None
@@ -825,22 +732,25 @@ class _Build:
             elif path.is_dir() and not any(path.iterdir()):
                 path.rmdir()
 
-    def _expected_titles(self) -> list[tuple[str, str]]:
-        """(slug, title) of every dataset as its page will name it: the sidecar's title, else the file name.
+    def _expected_title(self, i: int) -> tuple[str, str] | None:
+        """(slug, title) of the ``i``-th dataset as its page will name it: the sidecar's title, else the file
+        name; None past either end.
 
         Read here so that the worker that fits a dataset can write its page too; should a fitted
         title differ after all, the neighbouring pages are simply rendered again.
         """
         from sitegen.spec import read_sidecar  # noqa: PLC0415
 
-        out = []
-        for src in self.sources:
+        if not 0 <= i < len(self.sources):
+            return None
+        src = self.sources[i]
+        if src.slug not in self.titles:
             title = Path(src.relpath).stem
             # Only a guess: whatever goes wrong here is reported when the dataset itself is fitted.
             with contextlib.suppress(Exception):
                 title = read_sidecar(src.sidecar_path, dict(self.config.defaults), src.relpath).title or title
-            out.append((src.slug, title))
-        return out
+            self.titles[src.slug] = title
+        return src.slug, self.titles[src.slug]
 
     def _write_build_json(self, entries: list[dict[str, Any]]) -> None:
         import platform  # noqa: PLC0415
@@ -848,14 +758,14 @@ class _Build:
         for entry in entries:  # lets a rebuild trust a stored result without parsing it (and keep it in place)
             stored = self.work / "datasets" / entry["dataset"] / "fit.json"
             known = self.fit_shas.get(entry["dataset"])
-            entry["fit_sha256"] = known or _file_sha256(stored)
+            entry["fit_sha256"] = known or file_sha256(stored)
             entry["fit_stat"] = _stat(stored)
         body = {
             "generator": "sitegen",
             "sitegen_version": __version__,
             "libraries": library_versions(LIBRARIES) | library_versions(RENDER_LIBRARIES),
             "python": platform.python_version(),
-            "built_at": datetime.now(UTC).isoformat(timespec="seconds"),
+            "built_at": _now(),
             "site_key": self.site_key,
             "mail_budget_megabytes": self.config.mail_budget_megabytes,
             "datasets": entries,

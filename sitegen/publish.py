@@ -23,7 +23,6 @@ from __future__ import annotations
 import contextlib
 import fcntl
 import os
-import shutil
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -69,6 +68,8 @@ def write_new(path: Path, data: bytes | str) -> None:
 def copy_new(src: Path, dst: Path) -> None:
     """Copy ``src`` to a new file at ``dst``, never into the file that is there."""
     dst.unlink(missing_ok=True)
+    import shutil  # noqa: PLC0415 - not needed by a rebuild with nothing to do
+
     shutil.copyfile(src, dst)
 
 
@@ -203,6 +204,8 @@ def swap_in(site: Path, out_dir: Path) -> None:
                 site.rmdir()
         return
     old = out.parent / f".{out.name}.sitegen-old"  # pragma: no cover - systems without renameat2
+    import shutil  # noqa: PLC0415
+
     shutil.rmtree(old, ignore_errors=True)
     out.rename(old)
     site.rename(out)

@@ -9,7 +9,6 @@ boundary for TOML) into :class:`~sitegen.errors.SidecarError` or
 from __future__ import annotations
 
 import math
-import tomllib
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, fields
 from pathlib import Path
@@ -208,6 +207,8 @@ _TOML_HINT = 'fix the place named; each setting is key = value, with text in dou
 
 
 def _toml_hint(exc: ValueError) -> str | None:
+    import tomllib  # noqa: PLC0415 - a rebuild with nothing to do reads no TOML
+
     return _TOML_HINT if isinstance(exc.__cause__, tomllib.TOMLDecodeError) else None
 
 
@@ -221,6 +222,8 @@ def _read_toml(path: Path) -> dict[str, Any]:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
         raise ValueError(f"is not UTF-8 text (byte {exc.start}); save it as UTF-8") from exc
+    import tomllib  # noqa: PLC0415 - a rebuild with nothing to do reads no TOML
+
     try:
         return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:

@@ -78,6 +78,24 @@ def test_unchanged_input_reuses_everything_and_gives_identical_pages(built: tupl
     assert site_bytes(site, skip=("build.json",)) == before
 
 
+def test_rebuild_with_nothing_to_do_writes_build_json_as_a_full_build_would(built: tuple[Path, Path]) -> None:
+    """The second of two no-op rebuilds changes only the build time in the text it had; the file is still the
+    canonical text of its content (the json module is the independent reader)."""
+    from sitegen.jsontext import json_text
+
+    data, site = built
+    assert build(data, site) == 0  # records every dataset as reused
+    first = (site / "build.json").read_text(encoding="utf-8")
+    assert build(data, site) == 0
+    second = (site / "build.json").read_text(encoding="utf-8")
+    body = json.loads(second)
+    assert second == json_text(body)
+    assert {k: v for k, v in body.items() if k != "built_at"} == {
+        k: v for k, v in json.loads(first).items() if k != "built_at"
+    }
+    assert body["built_at"] >= json.loads(first)["built_at"]
+
+
 def test_unchanged_example_reuses_everything(example_build: Built, tmp_path: Path) -> None:
     """The example site, copied, rebuilt in place: every dataset reused, every other file identical."""
     import shutil

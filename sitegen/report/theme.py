@@ -7,7 +7,6 @@ inherits the rest.
 from __future__ import annotations
 
 import json
-import tomllib
 from dataclasses import dataclass
 from functools import cache
 from pathlib import Path
@@ -43,6 +42,8 @@ def _read_theme_toml(folder: Path) -> dict[str, Any]:
     path = folder / "theme.toml"
     if not path.is_file():
         return {}
+    import tomllib  # noqa: PLC0415 - only a theme of the user's own has this file
+
     try:
         return tomllib.loads(path.read_text(encoding="utf-8"))
     except (OSError, UnicodeDecodeError, tomllib.TOMLDecodeError) as exc:
