@@ -127,8 +127,23 @@ def _known_sha(stat: list[int] | None, record: Any, name: str) -> str | None:
     return sha if isinstance(sha, str) and len(sha) == 64 else None
 
 
+def _shared_inputs(config: SiteConfig, versions: dict[str, str]) -> str:
+    """What shapes every dataset's numbers besides its own files, as text for :func:`_fingerprint`."""
+    return json.dumps(
+        {
+            "defaults": [[k, v] for k, v in config.defaults],
+            "limits": [config.limits.max_megabytes, config.limits.max_rows, config.limits.max_columns],
+            "offer_source": config.offer_source,
+            "sitegen": __version__,
+            "libraries": versions,
+        },
+        sort_keys=True,
+        default=str,
+    )
+
+
 def _fingerprint(
-    src: DatasetSource, config: SiteConfig, versions: dict[str, str], record: Any = None
+    src: DatasetSource, shared: str, record: Any = None
 ) -> tuple[str, str, dict[str, Any], tuple[list[int] | None, list[int] | None]]:
     """(input sha256, fingerprint of everything that shapes the dataset's numbers, stat record, and the CSV's and
     sidecar's stats as they are now).
@@ -154,20 +169,7 @@ def _fingerprint(
             except OSError:
                 sidecar = b"<unreadable>"
         side_sha = sha256_hex(sidecar)
-    payload = json.dumps(
-        {
-            "csv": csv_sha,
-            "sidecar": side_sha,
-            "defaults": [[k, v] for k, v in config.defaults],
-            "limits": [config.limits.max_megabytes, config.limits.max_rows, config.limits.max_columns],
-            "path": [src.relpath, src.slug, src.section],
-            "offer_source": config.offer_source,
-            "sitegen": __version__,
-            "libraries": versions,
-        },
-        sort_keys=True,
-        default=str,
-    )
+    payload = shared + "\n" + json.dumps([csv_sha, side_sha, src.relpath, src.slug, src.section])
 
     def settled(stat: list[int] | None) -> list[int] | None:
         return stat if stat is not None and max(stat[1], stat[3]) < now - _RACY_NS else None
@@ -224,13 +226,11 @@ def run_build(
     config, warnings = read_site_config(data_dir / SITE_CONFIG_NAME)
     theme = load_theme(config.theme, data_dir.resolve())
     sources = discover(data_dir)
-    versions = library_versions(LIBRARIES)
+    shared = _shared_inputs(config, library_versions(LIBRARIES))
     site_key = _site_key(config, theme)
     with build_folder(out_dir) as work:
         prev = _previous(out_dir) if not options.refit else _Previous(None, {}, "", {})
-        measured = {
-            s.slug: _fingerprint(s, config, versions, prev.entries.get(s.slug, {}).get("stat")) for s in sources
-        }
+        measured = {s.slug: _fingerprint(s, shared, prev.entries.get(s.slug, {}).get("stat")) for s in sources}
         prints = {slug: (m[0], m[1]) for slug, m in measured.items()}
         stats = {slug: m[2] for slug, m in measured.items()}
         inputs = {slug: m[3] for slug, m in measured.items()}

@@ -145,6 +145,24 @@ def test_changed_site_defaults_refit_every_dataset(built: tuple[Path, Path]) -> 
     assert reused(site) == dict.fromkeys(SLUGS, False)
 
 
+@pytest.mark.parametrize("site_toml", ["[limits]\nmax_rows = 1000\n", "offer_source = true\n"])
+def test_changed_site_settings_that_shape_results_refit_every_dataset(built: tuple[Path, Path], site_toml: str) -> None:
+    """Limits and the offer of the source file are part of every dataset's fingerprint."""
+    data, site = built
+    write_toml(data / "site.toml", site_toml)
+    assert build(data, site) == 0
+    assert reused(site) == dict.fromkeys(SLUGS, False)
+    assert build(data, site) == 0
+    assert reused(site) == dict.fromkeys(SLUGS, True)
+
+
+def test_renamed_csv_is_fitted_under_its_new_name(built: tuple[Path, Path]) -> None:
+    data, site = built
+    (data / "beta.csv").rename(data / "beta2.csv")
+    assert build(data, site) == 0
+    assert reused(site) == {"alpha": True, "beta2": False, "section-gamma": True}
+
+
 def test_deleted_csv_disappears(built: tuple[Path, Path]) -> None:
     data, site = built
     (data / "beta.csv").unlink()
