@@ -282,10 +282,19 @@ def _nothing_changed(
             return False
         if e.get("status") == "error" and e.get("failure_kept") is not True:
             return False  # a failure is reused only when it came from the input itself
-        if not _fit_json_intact(prev.site / "datasets" / s.slug / "fit.json", e):
-            return False  # missing, changed or corrupt since the previous build wrote it
     # every file the previous build wrote is still there as it was written, and nothing else is
-    return prev.body.get("files") == _manifest(prev.site)
+    files = _manifest(prev.site)
+    if prev.body.get("files") != files:
+        return False
+    for s in sources:  # each fit.json is the one whose sha256 was recorded (read from the walk: no more stats)
+        e = prev.entries[s.slug]
+        if not e.get("fit_sha256"):
+            return False
+        if e.get("fit_stat") != files.get(f"datasets/{s.slug}/fit.json", [])[:3] and not _fit_json_intact(
+            prev.site / "datasets" / s.slug / "fit.json", e
+        ):
+            return False  # missing, changed or corrupt since the previous build wrote it
+    return True
 
 
 def _failure_from_input(report: FitReport, csv_sha: str) -> bool:

@@ -58,18 +58,34 @@ class _Printer:
             print(f"done {done}/{total}: {name}", file=self.stream)
 
 
+class _Help(argparse.HelpFormatter):
+    """Help as wide as the terminal, measured without importing shutil (argparse's default does, for every
+    parser, even when no help is shown)."""
+
+    def __init__(self, prog: str) -> None:
+        try:
+            columns = int(os.environ["COLUMNS"])
+        except (KeyError, ValueError):
+            try:
+                columns = os.get_terminal_size(sys.__stdout__.fileno()).columns if sys.__stdout__ else 80
+            except (AttributeError, ValueError, OSError):
+                columns = 80
+        super().__init__(prog, width=max(columns, 40) - 2)
+
+
 def _parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
         prog="sitegen",
+        formatter_class=_Help,
         description="Fit straight lines to a folder of CSV datasets and publish the results as a static web site.",
     )
     p.add_argument("--version", action="version", version=f"sitegen {__version__}")
     sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
-    b = sub.add_parser("build", help="build (or rebuild) a site from a data folder")
+    b = sub.add_parser("build", formatter_class=_Help, help="build (or rebuild) a site from a data folder")
     b.add_argument("data_dir", type=Path, metavar="DATA_DIR")
     b.add_argument("-o", "--output", type=Path, required=True, metavar="SITE_DIR", dest="out_dir")
     _common_build_options(b)
-    w = sub.add_parser("watch", help="rebuild whenever files in the data folder change")
+    w = sub.add_parser("watch", formatter_class=_Help, help="rebuild whenever files in the data folder change")
     w.add_argument("data_dir", type=Path, metavar="DATA_DIR")
     w.add_argument("-o", "--output", type=Path, required=True, metavar="SITE_DIR", dest="out_dir")
     w.add_argument(
@@ -81,7 +97,9 @@ def _parser() -> argparse.ArgumentParser:
     w.add_argument("--max-builds", type=int, default=None, help=argparse.SUPPRESS)
     _common_build_options(w)
     k = sub.add_parser(
-        "pack", help="zip a built site for e-mail or a file share (or, with -o NAME.html, one single HTML file)"
+        "pack",
+        formatter_class=_Help,
+        help="zip a built site for e-mail or a file share (or, with -o NAME.html, one single HTML file)",
     )
     k.add_argument("site_dir", type=Path, metavar="SITE_DIR")
     k.add_argument("-o", "--output", type=Path, required=True, metavar="FILE.zip|FILE.html", dest="target")
@@ -92,7 +110,7 @@ def _parser() -> argparse.ArgumentParser:
         help="warn when the zip is larger than this many MB (default: site.toml's mail_budget_megabytes, "
         f"else {DEFAULT_MAIL_BUDGET_MB:g})",
     )
-    v = sub.add_parser("preview", help="serve a built site on http://127.0.0.1 for a quick look")
+    v = sub.add_parser("preview", formatter_class=_Help, help="serve a built site on http://127.0.0.1 for a quick look")
     v.add_argument("site_dir", type=Path, metavar="SITE_DIR")
     v.add_argument("--port", type=_port, default=8000, help="port to listen on (default 8000; 0 picks a free one)")
     for sub_parser in (k, v):
