@@ -12,7 +12,7 @@ import os
 import sys
 from collections.abc import Callable, Sequence
 from pathlib import Path
-from typing import NoReturn, TextIO
+from typing import Any, NoReturn, TextIO
 
 from sitegen import __version__
 from sitegen.errors import BuildLockedError, ConfigError, SitegenError
@@ -73,19 +73,25 @@ class _Help(argparse.HelpFormatter):
         super().__init__(prog, width=max(columns, 40) - 2)
 
 
+class _Parser(argparse.ArgumentParser):
+    """An argument parser with :class:`_Help`; its subcommands' parsers are of this class too."""
+
+    def __init__(self, **kwargs: Any) -> None:
+        super().__init__(formatter_class=_Help, **kwargs)
+
+
 def _parser() -> argparse.ArgumentParser:
-    p = argparse.ArgumentParser(
+    p = _Parser(
         prog="sitegen",
-        formatter_class=_Help,
         description="Fit straight lines to a folder of CSV datasets and publish the results as a static web site.",
     )
     p.add_argument("--version", action="version", version=f"sitegen {__version__}")
     sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
-    b = sub.add_parser("build", formatter_class=_Help, help="build (or rebuild) a site from a data folder")
+    b = sub.add_parser("build", help="build (or rebuild) a site from a data folder")
     b.add_argument("data_dir", type=Path, metavar="DATA_DIR")
     b.add_argument("-o", "--output", type=Path, required=True, metavar="SITE_DIR", dest="out_dir")
     _common_build_options(b)
-    w = sub.add_parser("watch", formatter_class=_Help, help="rebuild whenever files in the data folder change")
+    w = sub.add_parser("watch", help="rebuild whenever files in the data folder change")
     w.add_argument("data_dir", type=Path, metavar="DATA_DIR")
     w.add_argument("-o", "--output", type=Path, required=True, metavar="SITE_DIR", dest="out_dir")
     w.add_argument(
@@ -98,7 +104,6 @@ def _parser() -> argparse.ArgumentParser:
     _common_build_options(w)
     k = sub.add_parser(
         "pack",
-        formatter_class=_Help,
         help="zip a built site for e-mail or a file share (or, with -o NAME.html, one single HTML file)",
     )
     k.add_argument("site_dir", type=Path, metavar="SITE_DIR")
@@ -110,7 +115,7 @@ def _parser() -> argparse.ArgumentParser:
         help="warn when the zip is larger than this many MB (default: site.toml's mail_budget_megabytes, "
         f"else {DEFAULT_MAIL_BUDGET_MB:g})",
     )
-    v = sub.add_parser("preview", formatter_class=_Help, help="serve a built site on http://127.0.0.1 for a quick look")
+    v = sub.add_parser("preview", help="serve a built site on http://127.0.0.1 for a quick look")
     v.add_argument("site_dir", type=Path, metavar="SITE_DIR")
     v.add_argument("--port", type=_port, default=8000, help="port to listen on (default 8000; 0 picks a free one)")
     for sub_parser in (k, v):
