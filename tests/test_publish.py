@@ -125,6 +125,52 @@ def test_kill_9_at_any_moment_leaves_the_published_site_whole(tmp_path: Path) ->
     assert not (build_dir_for(out) / ".owner").exists()
 
 
+def _children(pid: int) -> set[int]:
+    """Processes whose parent is ``pid`` (read from /proc)."""
+    out = set()
+    for status in Path("/proc").glob("[0-9]*/status"):
+        try:
+            fields = dict(line.split(":\t", 1) for line in status.read_text().splitlines() if ":\t" in line)
+        except OSError:
+            continue
+        if fields.get("PPid", "").strip() == str(pid):
+            out.add(int(status.parent.name))
+    return out
+
+
+def _running(pid: int) -> bool:
+    """The process exists and is not a zombie waiting to be reaped."""
+    try:
+        state = next(ln for ln in Path(f"/proc/{pid}/status").read_text().splitlines() if ln.startswith("State:"))
+    except (OSError, StopIteration):
+        return False
+    return "Z" not in state.split()[1]
+
+
+@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="the parent-death signal is Linux's")
+def test_workers_end_when_the_build_is_killed_alone(tmp_path: Path) -> None:
+    """kill -9 of the build process alone (not its group) ends its worker processes too."""
+    data = _dataset_folder(tmp_path, 150)
+    cmd = [sys.executable, "-m", "sitegen", "build", str(data), "-o", str(tmp_path / "site"), "-q", "-j", "2"]
+    proc = subprocess.Popen(cmd)
+    try:
+        workers: set[int] = set()
+        deadline = time.monotonic() + 20
+        while len(workers) < 2 and proc.poll() is None and time.monotonic() < deadline:
+            workers |= _children(proc.pid)
+            time.sleep(0.01)
+        assert len(workers) >= 2, "the build should have started two workers"
+        os.kill(proc.pid, signal.SIGKILL)
+        proc.wait()
+        deadline = time.monotonic() + 10
+        while any(_running(w) for w in workers) and time.monotonic() < deadline:
+            time.sleep(0.05)
+        assert not any(_running(w) for w in workers), "workers outlived the killed build"
+    finally:
+        if proc.poll() is None:
+            proc.kill()
+
+
 def test_pack_makes_a_zip_that_works_unzipped_anywhere(tmp_path: Path) -> None:
     data = _dataset_folder(tmp_path, 2)
     out = tmp_path / "site"
