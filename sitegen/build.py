@@ -98,12 +98,13 @@ _RACY_NS = 2_000_000_000
 
 
 def _stat(path: Path) -> list[int] | None:
-    """Size, modification time and inode of one of our own output files."""
+    """Size, modification time, inode and change time of one of our own output files (as the site's file
+    manifest records them: a file rewritten in place, its modification time set back, still differs)."""
     try:
         st = path.stat()
     except OSError:
         return None
-    return [st.st_size, st.st_mtime_ns, st.st_ino]
+    return [st.st_size, st.st_mtime_ns, st.st_ino, st.st_ctime_ns]
 
 
 def _input_stat(path: Path) -> list[int] | None:
@@ -245,6 +246,7 @@ def run_build(
         with executor or make_executor(options.jobs, inline_single=not config.static_images) as run:
             state = _Build(
                 work=work,
+                published=out_dir,
                 spare=spare,
                 prev=prev,
                 sources=sources,
@@ -290,7 +292,7 @@ def _nothing_changed(
         e = prev.entries[s.slug]
         if not e.get("fit_sha256"):
             return False
-        if e.get("fit_stat") != files.get(f"datasets/{s.slug}/fit.json", [])[:3] and not _fit_json_intact(
+        if e.get("fit_stat") != files.get(f"datasets/{s.slug}/fit.json") and not _fit_json_intact(
             prev.site / "datasets" / s.slug / "fit.json", e
         ):
             return False  # missing, changed or corrupt since the previous build wrote it
@@ -496,6 +498,7 @@ class _Build:
         self,
         *,
         work: Path,
+        published: Path,
         spare: _Spare,
         prev: _Previous,
         sources: Sequence[DatasetSource],
@@ -508,6 +511,7 @@ class _Build:
         inputs: dict[str, tuple[list[int] | None, list[int] | None]],
     ) -> None:
         self.work, self.spare, self.prev, self.sources, self.prints = work, spare, prev, sources, prints
+        self.published = published  # the output folder
         self.config, self.site_key, self.run, self.progress = config, site_key, run, progress
         self.stats = stats  # per dataset: file stats and hashes, recorded for the next build
         self.inputs = inputs  # per dataset: the CSV's and sidecar's stats when the build began
@@ -625,7 +629,8 @@ class _Build:
         index = pages.render_index(ctx, reports, tag_blocks(reports))
         (self.work / "index.html").write_text(index, encoding="utf-8")
         summary_files(self.work, reports)
-        hist_warnings = history.write(self.work, ctx, reports, self.prev.site)
+        # The history goes on after --refit too (which reuses nothing else of the published site).
+        hist_warnings = history.write(self.work, ctx, reports, self.published if self.published.is_dir() else None)
         site_assets = {*assets.write_bundle(self.work), *assets.write_static(self.work, theme)}
         for i, names in pending:
             page_files[page_jobs[i].target.parent.name] = names

@@ -66,6 +66,8 @@ class _Help(argparse.HelpFormatter):
         try:
             columns = int(os.environ["COLUMNS"])
         except (KeyError, ValueError):
+            columns = 0
+        if columns <= 0:  # unset or nonsense: the terminal's width, else 80 (as shutil.get_terminal_size)
             try:
                 columns = os.get_terminal_size(sys.__stdout__.fileno()).columns if sys.__stdout__ else 80
             except (AttributeError, ValueError, OSError):

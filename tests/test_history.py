@@ -13,7 +13,8 @@ import random
 from pathlib import Path
 from typing import Any
 
-from conftest import write_csv
+import pytest
+from conftest import cli, write_csv
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
@@ -123,3 +124,82 @@ def test_history_stays_small_as_one_dataset_changes_build_after_build(tmp_path: 
     html = (site / "changes.html").read_text(encoding="utf-8")
     assert "drift-set-07" in html
     assert "drift-set-08" not in html
+
+
+def _small_site(tmp_path: Path) -> tuple[Path, Path]:
+    data, site = tmp_path / "data", tmp_path / "site"
+    write_csv(data / "a.csv", "x,y\n1,2.1\n2,3.9\n3,6.2\n4,7.8\n5,10.1\n")
+    write_csv(data / "b.csv", "x,y\n1,1.0\n2,1.4\n3,2.1\n4,2.4\n5,3.1\n")
+    assert cli("build", data, "-o", site).code == 0
+    return data, site
+
+
+_HOSTILE = [
+    "[",  # not JSON at all
+    "[" * 100_000 + "]" * 100_000,  # nested too deep for the parser
+    '{"format": 2, "builds": [1e999], "datasets": {}}',
+    '{"builds": [{"build": 1e999, "datasets": {}}]}',
+    '{"format": 2, "builds": [1], "datasets": {"ghost": [{"build": 1}]}}',
+    '{"format": 2, "builds": [1], "datasets": {"a": [{"build": 1}]}}',
+    '{"format": 2, "builds": [true], "datasets": {}}',
+    '{"format": 2, "builds": "12", "datasets": {}}',
+    '{"format": 2, "builds": [1], "datasets": {"a": "x"}}',
+    '{"format": 2, "builds": [2, 1], "datasets": {}}',
+    '{"builds": [{"build": 1, "datasets": {"a": {"title": 3}}}]}',
+    '{"builds": 5}',
+    '"history"',
+]
+
+
+@pytest.mark.parametrize("text", _HOSTILE, ids=range(len(_HOSTILE)))
+def test_a_damaged_history_is_set_aside_with_a_warning(tmp_path: Path, text: str) -> None:
+    data, site = _small_site(tmp_path)
+    (site / "history.json").write_text(text, encoding="utf-8")
+    res = cli("build", data, "-o", site)
+    assert res.code == 0, res.output
+    assert "history.json" in res.output
+    body = json.loads((site / "history.json").read_text(encoding="utf-8"))
+    assert body["builds"] == [1]
+
+
+@pytest.mark.parametrize(
+    ("field", "value"),
+    [("estimate", float("nan")), ("estimate", "1e999"), ("level", "abc"), ("low", None), ("build", True)],
+)
+def test_a_history_entry_with_bad_figures_is_set_aside(tmp_path: Path, field: str, value: Any) -> None:
+    """Figures that are not finite numbers (or missing ones) never reach a chart or a JSON file."""
+    data, site = _small_site(tmp_path)
+    body = json.loads((site / "history.json").read_text(encoding="utf-8"))
+    entry = body["datasets"]["a"][0]
+    if value is None:
+        del entry[field]
+    else:
+        entry[field] = value
+    (site / "history.json").write_text(json.dumps(body).replace('"1e999"', "1e999"), encoding="utf-8")
+    res = cli("build", data, "-o", site)
+    assert res.code == 0, res.output
+    assert "history.json" in res.output
+
+
+def test_a_damaged_change_set_does_not_matter(tmp_path: Path) -> None:
+    """changes.json is worked out from the history on every build, never read back."""
+    data, site = _small_site(tmp_path)
+    before = (site / "changes.json").read_text(encoding="utf-8")
+    (site / "changes.json").write_text('{"new": 5, "refitted": "x"}', encoding="utf-8")
+    res = cli("build", data, "-o", site)
+    assert res.code == 0, res.output
+    assert (site / "changes.json").read_text(encoding="utf-8") == before
+
+
+def test_refit_keeps_the_history_and_compares_with_the_previous_build(tmp_path: Path) -> None:
+    data, site = _small_site(tmp_path)
+    write_csv(data / "a.csv", "x,y\n1,2.1\n2,3.9\n3,6.2\n4,7.8\n5,10.1\n6,12.3\n")
+    assert cli("build", data, "-o", site, "--refit").code == 0
+    change = json.loads((site / "changes.json").read_text(encoding="utf-8"))
+    assert (change["build"], change["compared_with"]) == (2, 1)
+    assert [c["dataset"] for c in change["refitted"]] == ["a"]
+    assert change["new"] == []
+    assert json.loads((site / "history.json").read_text(encoding="utf-8"))["builds"] == [1, 2]
+    # nothing changed since: the same change set is shown again and no build is added
+    assert cli("build", data, "-o", site, "--refit").code == 0
+    assert json.loads((site / "changes.json").read_text(encoding="utf-8")) == change

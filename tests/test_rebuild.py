@@ -14,6 +14,7 @@ from __future__ import annotations
 import csv
 import hashlib
 import json
+import os
 import re
 import subprocess
 import sys
@@ -259,6 +260,23 @@ def test_corrupt_previous_fit_json_is_refitted_without_error(
     assert "Traceback" not in result.output
     assert reused(site) == {"alpha": False, "beta": not other_change, "section-gamma": True}
     assert target.read_bytes() == good
+
+
+def test_fit_json_rewritten_in_place_with_its_time_set_back_is_fitted_again(built: tuple[Path, Path]) -> None:
+    """Same size, same modification time, same inode: the change time still tells, and the stored result is
+    not trusted (a neighbour's page would otherwise be rendered from it later)."""
+    data, site = built
+    path = site / "datasets" / "alpha" / "fit.json"
+    st = path.stat()
+    good = path.read_bytes()
+    with path.open("r+b") as fh:  # in place: the inode stays
+        fh.write(b"#" * len(good))
+    os.utime(path, ns=(st.st_atime_ns, st.st_mtime_ns))
+    assert build(data, site) == 0
+    assert reused(site) == {"alpha": False, "beta": True, "section-gamma": True}
+    assert json.loads(path.read_text(encoding="utf-8"))["dataset"] == "alpha"
+    write_toml(data / "beta.toml", {"title": "Beta renamed"})  # alpha's page names its neighbour
+    assert build(data, site) == 0
 
 
 @pytest.mark.parametrize(

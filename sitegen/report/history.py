@@ -12,7 +12,9 @@ it on every rebuild, close to the size of one build.
 
 from __future__ import annotations
 
+import itertools
 import json
+import math
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -40,13 +42,18 @@ def snapshot(reports: Sequence[FitReport]) -> dict[str, Record]:
             "status": r.status,
             "input_sha256": r.input_sha256,
             "term": c.term if c else None,
-            "estimate": c.estimate if c else None,
-            "std_error": c.std_error if c else None,
-            "low": c.ci_low if c else None,
-            "high": c.ci_high if c else None,
-            "level": r.level,
+            "estimate": _finite(c.estimate) if c else None,
+            "std_error": _finite(c.std_error) if c else None,
+            "low": _finite(c.ci_low) if c else None,
+            "high": _finite(c.ci_high) if c else None,
+            "level": _finite(r.level),
         }
     return out
+
+
+def _finite(value: float | None) -> float | None:
+    """A number JSON can hold (NaN and infinities are recorded as missing)."""
+    return value if value is not None and math.isfinite(value) else None
 
 
 @dataclass(frozen=True, slots=True)
@@ -62,6 +69,15 @@ class History:
         for slug, entries in self.datasets.items():
             if entries and not entries[-1].get("removed"):
                 out[slug] = _figures(entries[-1])
+        return out
+
+    def at(self, build: int) -> dict[str, Record]:
+        """Every dataset's figures as they stood after a kept build."""
+        out: dict[str, Record] = {}
+        for slug, entries in self.datasets.items():
+            then = [e for e in entries if e["build"] <= build]
+            if then and not then[-1].get("removed"):
+                out[slug] = _figures(then[-1])
         return out
 
     def with_build(self, current: Mapping[str, Record], seq: int) -> History:
@@ -101,43 +117,93 @@ def _figures(entry: Record) -> Record:
     return {k: v for k, v in entry.items() if k != "build"}
 
 
+_TEXT_KEYS = ("title", "status", "input_sha256")
+_NUMBER_KEYS = ("estimate", "std_error", "low", "high", "level")
+FIGURE_KEYS = frozenset((*_TEXT_KEYS, "term", *_NUMBER_KEYS))
+
+
+def _build_number(value: Any) -> int:
+    if type(value) is not int or value < 1:
+        raise ValueError("a build number is a whole number from 1")
+    return value
+
+
+def _valid_figures(rec: Any) -> Record:
+    """One dataset's figures as :func:`snapshot` writes them; raises ``ValueError`` otherwise."""
+    if not isinstance(rec, dict) or set(rec) != FIGURE_KEYS:
+        raise ValueError("not a dataset's figures")
+    if not all(isinstance(rec[k], str) for k in _TEXT_KEYS) or rec["status"] not in ("ok", "warn", "error"):
+        raise ValueError("not a dataset's figures")
+    if not (rec["term"] is None or isinstance(rec["term"], str)):
+        raise ValueError("not a dataset's figures")
+    for k in _NUMBER_KEYS:
+        v = rec[k]
+        if v is not None and (type(v) not in (int, float) or not math.isfinite(v)):
+            raise ValueError("not a dataset's figures")
+    return rec
+
+
+def _valid_entry(entry: Any) -> Record:
+    if isinstance(entry, dict) and set(entry) == {"build", "removed"} and entry["removed"] is True:
+        _build_number(entry["build"])
+        return entry
+    if not isinstance(entry, dict):
+        raise ValueError("not a history entry")
+    _build_number(entry.get("build"))
+    _valid_figures(_figures(entry))
+    return entry
+
+
+def _increasing(numbers: Sequence[int]) -> bool:
+    return all(a < b for a, b in itertools.pairwise(numbers))
+
+
 def read_history(body: Any) -> History | None:
-    """The history in a parsed history.json, or None when it is not one.
+    """The history in a parsed history.json, or None when it is not one (every entry is checked: a file
+    edited by hand or damaged is set aside whole rather than half trusted).
 
     Reads this format and the first one (a full copy of every dataset per build).
     """
     try:
-        if not isinstance(body, dict):
+        if not isinstance(body, dict) or not isinstance(body.get("builds"), list):
             return None
         if body.get("format") == FORMAT:
-            builds = tuple(int(b) for b in body["builds"])
-            datasets = body["datasets"]
-            if not isinstance(datasets, dict):
+            builds = tuple(_build_number(b) for b in body["builds"])
+            datasets = body.get("datasets")
+            if not isinstance(datasets, dict) or not builds or not _increasing(builds):
                 return None
             out: dict[str, tuple[Record, ...]] = {}
             for slug, entries in datasets.items():
-                if not all(isinstance(e, dict) and isinstance(e.get("build"), int) for e in entries):
+                if not isinstance(entries, list) or not entries:
                     return None
-                out[str(slug)] = tuple(entries)
+                checked = tuple(_valid_entry(e) for e in entries)
+                if not _increasing([e["build"] for e in checked]) or checked[-1]["build"] > builds[-1]:
+                    return None
+                out[str(slug)] = checked
             return History(builds, out)
         history = EMPTY
         for b in body["builds"]:
-            snap = b["datasets"]
-            if not isinstance(snap, dict):
+            if not isinstance(b, dict) or not isinstance(b.get("datasets"), dict):
                 return None
-            history = history.with_build(snap, int(b["build"]))
+            seq = _build_number(b.get("build"))
+            if history.builds and seq <= history.builds[-1]:
+                return None
+            snap = {str(k): _valid_figures(v) for k, v in b["datasets"].items()}
+            history = history.with_build(snap, seq)
         return history
     except (KeyError, TypeError, ValueError):
         return None
 
 
-def _load(prev_site: Path | None, name: str) -> Any:
-    if prev_site is None:
-        return None
+def _load(prev_site: Path | None, name: str) -> tuple[bool, Any]:
+    """(whether the file is there, its parsed JSON or None when it cannot be read as JSON)."""
+    path = prev_site / name if prev_site is not None else None
+    if path is None or not path.is_file():
+        return False, None
     try:
-        return json.loads((prev_site / name).read_text(encoding="utf-8"))
-    except (OSError, ValueError):
-        return None
+        return True, json.loads(path.read_text(encoding="utf-8"))
+    except (OSError, ValueError, RecursionError):
+        return True, None
 
 
 def _moved(old: Mapping[str, Any], new: Mapping[str, Any]) -> dict[str, Any] | None:
@@ -211,22 +277,23 @@ def _drift(history: History, r: FitReport) -> dict[str, Any] | None:
 
 
 def write(work: Path, ctx: pages.SiteContext, reports: Sequence[FitReport], prev_site: Path | None) -> list[str]:
-    """Write history.json, changes.json and changes.html; returns warnings."""
+    """Write history.json, changes.json and changes.html; returns warnings.
+
+    The change set is worked out from the history itself (the last recorded build against the one
+    before it), so a build that changed nothing shows the latest change again.
+    """
     warnings: list[str] = []
-    body = _load(prev_site, "history.json")
-    history = read_history(body) if body is not None else EMPTY
+    present, body = _load(prev_site, "history.json")
+    history = read_history(body) if present else EMPTY
     if history is None:
-        warnings.append("the previous history.json was unreadable; the history starts again")
+        warnings.append("the previous history.json was unreadable or not one of sitegen's; the history starts again")
         history = EMPTY
     current = snapshot(reports)
-    last = history.latest() if history.builds else None
-    change = _load(prev_site, "changes.json")
-    if last is None or last != current or not isinstance(change, dict):
-        before = history.builds[-1] if history.builds else None
-        seq = before + 1 if before is not None else 1
-        change = changes(last, current, seq, before)
-        if last is None or last != current:
-            history = history.with_build(current, seq)
+    if not history.builds or history.latest() != current:
+        history = history.with_build(current, history.builds[-1] + 1 if history.builds else 1)
+    seq = history.builds[-1]
+    before = history.builds[-2] if len(history.builds) > 1 else None
+    change = changes(history.at(before) if before is not None else None, history.at(seq), seq, before)
     (work / "history.json").write_text(json_text(history.as_json()), "utf-8")
     (work / "changes.json").write_text(json_text(change), "utf-8")
     drift = [d for r in reports if (d := _drift(history, r)) is not None]
