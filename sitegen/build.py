@@ -29,7 +29,7 @@ from sitegen.digest import file_sha256, sha256_hex
 from sitegen.discover import SITE_CONFIG_NAME, DatasetSource, discover
 from sitegen.errors import INTERNAL_ERROR_WORDS, ConfigError
 from sitegen.jsontext import json_text
-from sitegen.publish import build_folder, check_output_folder, copy_new, swap_in
+from sitegen.publish import build_folder, check_output_folder, copy_new, marker_intact, swap_in
 from sitegen.report.theme import Theme, load_theme
 from sitegen.spec import SiteConfig, read_site_config
 from sitegen.versions import library_versions
@@ -284,6 +284,8 @@ def _nothing_changed(
             return False
         if e.get("status") == "error" and e.get("failure_kept") is not True:
             return False  # a failure is reused only when it came from the input itself
+    if not marker_intact(prev.site):
+        return False  # a build rewrites it
     # every file the previous build wrote is still there as it was written, and nothing else is
     files = _manifest(prev.site)
     if prev.body.get("files") != files:

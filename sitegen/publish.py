@@ -56,6 +56,15 @@ def check_output_folder(data_dir: Path, out_dir: Path) -> None:
         )
 
 
+def marker_intact(site: Path) -> bool:
+    """The site's marker is a plain file (not a link to something else) saying what sitegen writes."""
+    marker = site / MARKER
+    try:
+        return not marker.is_symlink() and marker.read_text(encoding="utf-8") == MARKER_TEXT
+    except (OSError, ValueError):
+        return False
+
+
 def write_new(path: Path, data: bytes | str) -> None:
     """Write ``data`` to a new file at ``path``, never into the file that is there (see the module's docstring)."""
     path.unlink(missing_ok=True)
@@ -187,13 +196,8 @@ def swap_in(site: Path, out_dir: Path) -> None:
     """Replace ``out_dir`` by the finished ``site`` folder in one step; ``site`` ends up holding the old one
     (or, on a first build, no longer exists)."""
     (site / _OWNER).unlink(missing_ok=True)
-    marker = site / MARKER
-    try:
-        same = marker.read_text(encoding="utf-8") == MARKER_TEXT
-    except (OSError, ValueError):
-        same = False
-    if not same:
-        write_new(marker, MARKER_TEXT)
+    if not marker_intact(site):
+        write_new(site / MARKER, MARKER_TEXT)
     out = out_dir.resolve()
     if not out.exists():
         site.rename(out)  # a first build: there is no previous site to keep as the spare

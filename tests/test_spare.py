@@ -91,6 +91,24 @@ def test_a_first_build_and_a_build_with_nothing_to_do_leave_nothing_beside(tmp_p
     assert sorted(p.name for p in tmp_path.iterdir()) == ["data", "site"]
 
 
+def test_a_marker_replaced_by_a_link_is_written_again(tmp_path: Path) -> None:
+    """The site's marker is sitegen's own plain file: a link in its place (to any file) is replaced, even
+    by a rebuild that otherwise has nothing to do."""
+    from sitegen.publish import MARKER, MARKER_TEXT
+
+    data = _data(tmp_path)
+    site = tmp_path / "site"
+    _build(data, site)
+    elsewhere = tmp_path / "elsewhere.txt"
+    elsewhere.write_text(MARKER_TEXT, encoding="utf-8")
+    (site / MARKER).unlink()
+    (site / MARKER).symlink_to(elsewhere)
+    _build(data, site)
+    assert not (site / MARKER).is_symlink()
+    assert (site / MARKER).read_text(encoding="utf-8") == MARKER_TEXT
+    assert elsewhere.read_text(encoding="utf-8") == MARKER_TEXT
+
+
 def test_every_rebuild_equals_a_fresh_build(tmp_path: Path) -> None:
     data = _data(tmp_path)
     site = tmp_path / "site"
