@@ -632,7 +632,7 @@ class _Build:
         (self.work / "index.html").write_text(index, encoding="utf-8")
         summary_files(self.work, reports)
         # The history goes on after --refit too (which reuses nothing else of the published site).
-        hist_warnings = history.write(self.work, ctx, reports, self.published if self.published.is_dir() else None)
+        hist_warnings = history.write(self.work, ctx, reports, self.published)
         site_assets = {*assets.write_bundle(self.work), *assets.write_static(self.work, theme)}
         for i, names in pending:
             page_files[page_jobs[i].target.parent.name] = names

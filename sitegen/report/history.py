@@ -65,11 +65,7 @@ class History:
 
     def latest(self) -> dict[str, Record]:
         """Every present dataset's figures as the last kept build left them."""
-        out: dict[str, Record] = {}
-        for slug, entries in self.datasets.items():
-            if entries and not entries[-1].get("removed"):
-                out[slug] = _figures(entries[-1])
-        return out
+        return self.at(self.builds[-1]) if self.builds else {}
 
     def at(self, build: int) -> dict[str, Record]:
         """Every dataset's figures as they stood after a kept build."""
@@ -144,13 +140,12 @@ def _valid_figures(rec: Any) -> Record:
 
 
 def _valid_entry(entry: Any) -> Record:
-    if isinstance(entry, dict) and set(entry) == {"build", "removed"} and entry["removed"] is True:
-        _build_number(entry["build"])
-        return entry
+    """A removal mark, or a dataset's figures at a build; raises ``ValueError`` otherwise."""
     if not isinstance(entry, dict):
         raise ValueError("not a history entry")
     _build_number(entry.get("build"))
-    _valid_figures(_figures(entry))
+    if set(entry) != {"build", "removed"} or entry["removed"] is not True:
+        _valid_figures(_figures(entry))
     return entry
 
 
