@@ -83,6 +83,8 @@ def make_dataset(folder: Path, rows: int, seed: int = 18) -> Path:
             y = 1.5 + 0.8 * x + rng.normal(0, 1.0, m)
             np.savetxt(fh, np.column_stack([x, y]), fmt="%.6f", delimiter=",")
     (folder / "log.toml").write_text('title = "Sensor log"\nmodel = "y ~ x"\n', encoding="utf-8")
+    limits = f"[limits]\nmax_rows = {max(rows, 10)}\nmax_megabytes = {max(1.0, 2 * path.stat().st_size / 1e6):.0f}\n"
+    (folder / "site.toml").write_text(limits, encoding="utf-8")
     return path
 
 
