@@ -24,8 +24,8 @@ from sitegen.discover import DatasetSource
 from sitegen.errors import INTERNAL_ERROR_WORDS, DatasetError, FitError, FormulaError
 from sitegen.formula import Design, assumed_formula, build_design
 from sitegen.load import LoadedTable, read_source, read_table
-from sitegen.requirements import judge
 from sitegen.model import AnovaLine, Coefficient, FitReport, Message, Status
+from sitegen.requirements import judge
 from sitegen.spec import DatasetSpec, Limits, read_sidecar
 from sitegen.stats.ols import OlsFit, anova_table, fit_ols
 from sitegen.table import to_float

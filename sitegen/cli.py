@@ -179,8 +179,7 @@ def _build(args: argparse.Namespace, out: _Printer) -> int:
     out.info(
         f"Built {summary.out_dir}/index.html: {n} dataset{'s' if n != 1 else ''} — {summary.fitted} fitted, "
         f"{summary.reused} reused, {summary.warned} with warnings, {summary.errors} failed, "
-        f"in {summary.seconds:.1f} s"
-        + (f"; {summary.unmet} with a requirement not met" if summary.unmet else "")
+        f"in {summary.seconds:.1f} s" + (f"; {summary.unmet} with a requirement not met" if summary.unmet else "")
     )
     if summary.errors:
         return EXIT_DATASET_FAILED

@@ -14,8 +14,8 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 
 from sitegen.model import Coefficient, FitReport, Requirement
-from sitegen.report.fmt import level as fmt_level
 from sitegen.report.fmt import given, num, rsquared
+from sitegen.report.fmt import level as fmt_level
 from sitegen.spec import BiasLimit, RequirementSpec
 from sitegen.stats.acceptance import BiasAt, ReadBack
 
@@ -66,7 +66,7 @@ def _not_judged(name: str, limit: float | tuple[float, float] | None, why: str, 
 
 
 def _window(
-    name: str, c: Coefficient | None, window: tuple[float, float], what: str, lvl: str, unit: str, why_missing: str
+    name: str, c: Coefficient | None, window: tuple[float, float], *, what: str, lvl: str, unit: str, why_missing: str
 ) -> Requirement:
     if c is None or not math.isfinite(c.estimate):
         return _not_judged(name, window, why_missing)
@@ -89,7 +89,7 @@ def _window(
 
 
 def _includes(
-    name: str, c: Coefficient | None, target: float, what: str, lvl: str, unit: str, why_missing: str
+    name: str, c: Coefficient | None, target: float, *, what: str, lvl: str, unit: str, why_missing: str
 ) -> Requirement:
     if c is None or not (math.isfinite(c.ci_low) and math.isfinite(c.ci_high)):
         return _not_judged(name, target, why_missing)
@@ -125,11 +125,12 @@ def _read_back(spec: RequirementSpec, ev: Evidence, x_unit: str) -> list[Require
     lowest = min(abs(b.nominal) for b in standards)
     at_lowest = [b for b in standards if abs(b.nominal) == lowest]
     rest = [b for b in standards if abs(b.nominal) != lowest] if lowest_limit is not None else standards
-    blank_note = (
-        f" {blanks} blank standard{'s' if blanks > 1 else ''} (nominal value 0) {'are' if blanks > 1 else 'is'} not judged."
-        if blanks
-        else ""
-    )
+    blank_note = ""
+    if blanks:
+        many = blanks > 1
+        blank_note = (
+            f" {blanks} blank standard{'s' if many else ''} (nominal value 0) {'are' if many else 'is'} not judged."
+        )
 
     def judge(name: str, group: Sequence[ReadBack], limit: float, what: str) -> Requirement:
         worst = max(group, key=lambda b: abs(b.percent))
@@ -151,7 +152,8 @@ def _read_back(spec: RequirementSpec, ev: Evidence, x_unit: str) -> list[Require
     else:
         out.append(_not_judged("back_calculated_within_percent", main, "every standard is at the lowest level"))
     if lowest_limit is not None:
-        out.append(judge("lowest_within_percent", at_lowest, lowest_limit, f"standards at the lowest level ({given(lowest)}{x_unit})"))
+        what = f"standards at the lowest level ({given(lowest)}{x_unit})"
+        out.append(judge("lowest_within_percent", at_lowest, lowest_limit, what))
     return out
 
 
@@ -166,15 +168,21 @@ def _bias(rule: BiasLimit, ev: Evidence, lvl: str, y_unit: str, x_unit: str) -> 
             continue
         met = abs(b.estimate) <= limit
         how = _limit_words(rule, b.at, y_unit)
-        figure = f"the bias at {given(b.at)}{x_unit} is {num(b.estimate)}{y_unit} ({lvl} interval {num(b.ci_low)} to {num(b.ci_high)})"
+        figure = (
+            f"the bias at {given(b.at)}{x_unit} is {num(b.estimate)}{y_unit} "
+            f"({lvl} interval {num(b.ci_low)} to {num(b.ci_high)})"
+        )
         if met:
             text = f"Met: {figure}, within ±{how}"
             if b.ci_low < -limit or b.ci_high > limit:
-                text += "; the interval reaches past the limit, so these data cannot show that the true bias is within it"
+                text += "; the interval reaches past the limit, so these data cannot show that the true bias is inside"
         else:
             text = f"Not met: {figure}, beyond ±{how}"
         if ev.x_range is not None and not ev.x_range[0] <= b.at <= ev.x_range[1]:
-            text += f"; {given(b.at)} lies outside the data ({num(ev.x_range[0])} to {num(ev.x_range[1])}), so the line is extended to reach it"
+            lo, hi = ev.x_range
+            text += (
+                f"; {given(b.at)} lies outside the data ({num(lo)} to {num(hi)}), so the line is extended to reach it"
+            )
         out.append(
             Requirement(
                 "max_bias", met, b.estimate, limit, text + ".", LABELS["max_bias"], (b.ci_low, b.ci_high), b.at,
@@ -235,16 +243,26 @@ def judge(report: FitReport, spec: RequirementSpec | None, ev: Evidence) -> tupl
                 text = text[:-1] + " (R² of the weighted fit)."
             out.append(Requirement("min_r_squared", met, r2, spec.min_r_squared, text, LABELS["min_r_squared"]))
     if spec.slope_within is not None:
-        out.append(_window("slope_within", slope, spec.slope_within, term, lvl, "", no_slope))
+        out.append(_window("slope_within", slope, spec.slope_within, what=term, lvl=lvl, unit="", why_missing=no_slope))
     if spec.intercept_within is not None:
-        out.append(_window("intercept_within", intercept, spec.intercept_within, "the intercept", lvl, y_unit, no_intercept))
+        out.append(
+            _window(
+                "intercept_within", intercept, spec.intercept_within,
+                what="the intercept", lvl=lvl, unit=y_unit, why_missing=no_intercept,
+            )
+        )  # fmt: skip
     if spec.slope_interval_includes is not None:
-        out.append(_includes("slope_interval_includes", slope, spec.slope_interval_includes, term, lvl, "", no_slope))
+        out.append(
+            _includes(
+                "slope_interval_includes", slope, spec.slope_interval_includes,
+                what=term, lvl=lvl, unit="", why_missing=no_slope,
+            )
+        )  # fmt: skip
     if spec.intercept_interval_includes is not None:
         out.append(
             _includes(
-                "intercept_interval_includes", intercept, spec.intercept_interval_includes, "the intercept", lvl,
-                y_unit, no_intercept,
+                "intercept_interval_includes", intercept, spec.intercept_interval_includes,
+                what="the intercept", lvl=lvl, unit=y_unit, why_missing=no_intercept,
             )
         )  # fmt: skip
     if spec.max_residual_sd is not None:
@@ -266,7 +284,9 @@ def _residual_sd(report: FitReport, limit: float, y_unit: str) -> Requirement:
     if sd is None or not math.isfinite(sd):
         return _not_judged(name, limit, "the residual standard deviation is not defined (no degrees of freedom left)")
     met = sd <= limit
-    what = "the standard deviation of the plain (unweighted) residuals" if report.weights else "the residual standard deviation"
+    what = "the residual standard deviation"
+    if report.weights:
+        what = "the standard deviation of the plain (unweighted) residuals"
     text = (
         f"{'Met' if met else 'Not met'}: {what} is {num(sd)}{y_unit}, "
         f"{'at most' if met else 'above'} {given(limit)}{y_unit}."

@@ -195,7 +195,8 @@ def _fit_sentence(r: FitReport) -> str:
 
 def unmet_words(r: FitReport) -> str:
     """The declared requirements not met, by name ("max_residual_sd, max_bias at 1"), or ""."""
-    return ", ".join(q.name + (f" at {fmt.given(q.at)}" if q.at is not None else "") for q in r.requirements if not q.met)
+    unmet = [q for q in r.requirements if not q.met]
+    return ", ".join(q.name + (f" at {fmt.given(q.at)}" if q.at is not None else "") for q in unmet)
 
 
 def _first_problem(r: FitReport) -> str:

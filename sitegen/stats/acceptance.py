@@ -41,10 +41,7 @@ def read_back(
     intercept: float, slope: float, x: FloatArray, y: FloatArray, rows: NDArray[np.integer]
 ) -> tuple[ReadBack, ...]:
     """Each standard's x found from its response, ``(y − intercept) / slope``, against its nominal x."""
-    if slope == 0 or not np.isfinite(slope):
-        found = np.full(x.shape, np.nan)
-    else:
-        found = (y - intercept) / slope
+    found = np.full(x.shape, np.nan) if slope == 0 or not np.isfinite(slope) else (y - intercept) / slope
     with np.errstate(divide="ignore", invalid="ignore"):
         percent = np.where(x != 0, 100.0 * (found - x) / np.abs(x), np.nan)
     return tuple(
