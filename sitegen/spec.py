@@ -16,7 +16,11 @@ from typing import Any
 
 from sitegen.errors import SidecarError, SiteConfigError
 
-LINE_CHOICES = ("reverse", "orthogonal", "deming", "geometric_mean")
+LINE_CHOICES = ("reverse", "orthogonal", "deming", "geometric_mean", "passing_bablok")
+PURPOSES = ("relation", "comparison", "calibration")
+WEIGHTING_CHOICES = ("choose", "none", "1/x", "1/x²", "1/y²")
+# Spellings of the weightings that are easier to type; each means the named choice.
+_WEIGHTING_SPELLINGS = {"1/x^2": "1/x²", "1/x2": "1/x²", "1/y^2": "1/y²", "1/y2": "1/y²"}
 DEFAULT_LEVEL = 0.95
 
 
@@ -43,6 +47,10 @@ class DatasetSpec:
     delimiter: str | None = None
     decimal: str = "."
     encoding: str = "utf-8"
+    purpose: str = "relation"
+    decision_levels: tuple[float, ...] = ()
+    weighting: str | None = None
+    percent_differences: bool = False
     unknown_keys: tuple[tuple[str, str | None], ...] = field(default=(), compare=False)
 
 
@@ -171,6 +179,25 @@ def _encoding(v: object) -> str:
     return s
 
 
+def _purpose(v: object) -> str:
+    s = _string(v)
+    if s not in PURPOSES:
+        hint = _closest(s, PURPOSES)
+        extra = f" (did you mean {hint!r}?)" if hint else ""
+        raise _BadValueError(f"one of {', '.join(repr(p) for p in PURPOSES)}{extra}")
+    return s
+
+
+def _weighting(v: object) -> str:
+    s = _string(v).strip().replace(" ", "")
+    s = _WEIGHTING_SPELLINGS.get(s, s)
+    if s not in WEIGHTING_CHOICES:
+        hint = _closest(s, WEIGHTING_CHOICES)
+        extra = f" (did you mean {hint!r}?)" if hint else ""
+        raise _BadValueError(f"one of {', '.join(repr(w) for w in WEIGHTING_CHOICES)}{extra}")
+    return s
+
+
 _KEYS: Mapping[str, Callable[[object], Any]] = {
     "title": _opt_string,
     "description": _string,
@@ -191,6 +218,10 @@ _KEYS: Mapping[str, Callable[[object], Any]] = {
     "delimiter": _delimiter,
     "decimal": _decimal,
     "encoding": _encoding,
+    "purpose": _purpose,
+    "decision_levels": _numbers,
+    "weighting": _weighting,
+    "percent_differences": _boolean,
 }
 SIDECAR_KEYS = tuple(sorted(_KEYS))
 assert set(_KEYS) == {f.name for f in fields(DatasetSpec)} - {"unknown_keys"}
@@ -262,6 +293,8 @@ def read_sidecar(path: Path | None, defaults: Mapping[str, Any], display: str) -
             raise SidecarError(f"{display} {exc}", hint=_toml_hint(exc)) from exc
         clean, unknown = validate_keys(table, display)
         values.update(clean)
+    if values.get("purpose") == "comparison" and "lines" not in values:
+        values["lines"] = ("passing_bablok",)  # the comparison's robust line, unless lines are chosen
     return DatasetSpec(**values, unknown_keys=tuple(unknown))
 
 
