@@ -51,7 +51,10 @@ def browse(index: Path, repeat: int) -> dict[str, float]:
         browser = pw.chromium.launch(executable_path=CHROMIUM)
         try:
             loads = []
+            page = None
             for _ in range(repeat):
+                if page is not None:
+                    page.close()
                 page = browser.new_page()
                 start = time.perf_counter()
                 page.goto(index.as_uri(), wait_until="load")
@@ -60,8 +63,7 @@ def browse(index: Path, repeat: int) -> dict[str, float]:
                     timeout=120_000,
                 )
                 loads.append(time.perf_counter() - start)
-                if len(loads) < repeat:
-                    page.close()
+            assert page is not None
             out["load_s"] = statistics.median(loads)
             out["dom_nodes"] = float(page.evaluate("document.getElementsByTagName('*').length"))
             buttons = page.evaluate("document.querySelectorAll('#datasets thead button').length")
