@@ -38,6 +38,7 @@ from sitegen.purposes import (
     comparison,
     comparison_bias,
     passing_bablok_line,
+    plain_response,
 )
 from sitegen.requirements import Evidence
 from sitegen.spec import DatasetSpec
@@ -309,7 +310,7 @@ def _calibration(
 ) -> tuple[tuple[Calibration, ...], DetectionLimits | None]:
     if not spec.calibrate:
         return (), None
-    if x_col is None or weighted or design.response not in design.variables:
+    if x_col is None or weighted or not plain_response(design):
         messages.append(
             Message(
                 "warning",

@@ -10,6 +10,7 @@ page, never the end of the fit.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import asdict, dataclass
 
 import numpy as np
@@ -70,9 +71,17 @@ class Weighting:
     reason: str = ""
 
 
+def plain_response(design: Design) -> bool:
+    """Whether the response is a data column as it is (``y`` or ``Q('kit result')``, not ``np.log(y)``)."""
+    if design.response in design.variables:
+        return True
+    quoted = re.fullmatch(r"""Q\((['"])(.*)\1\)""", design.response)
+    return quoted is not None and quoted.group(2) in design.variables
+
+
 def paired_columns(design: Design, line_x: str | None) -> tuple[FloatArray, FloatArray] | None:
     """x (reference / nominal) and y (test / response) of a plain ``y ~ x`` model, else None."""
-    if line_x is None or design.response not in design.variables:
+    if line_x is None or not plain_response(design):
         return None
     return np.asarray(design.X[:, 1], dtype=np.float64), np.asarray(design.y, dtype=np.float64)
 

@@ -256,7 +256,7 @@ def test_every_contract_path_exists(any_build: Built) -> None:
 
 def test_example_has_one_dataset_per_csv(example_build: Built) -> None:
     csvs = sorted(p.relative_to(example_build.data).as_posix() for p in example_build.data.rglob("*.csv"))
-    assert len(csvs) == 13
+    assert len(csvs) == 15
     assert dataset_dirs(example_build.site) == sorted(contract_slugs(csvs).values())
 
 

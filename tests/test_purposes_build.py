@@ -222,3 +222,20 @@ def test_max_bias_requirement_is_judged_on_the_pages_bias(tmp_path: Path) -> Non
     assert len(judged) == 2
     for r, b in zip(judged, bias, strict=True):
         assert r["value"] == pytest.approx(b["estimate"], rel=1e-12)
+
+
+def test_assumed_model_with_quoted_column_names_is_compared(tmp_path: Path) -> None:
+    # Without a sidecar model the columns are quoted (Q('Kit result')): still a plain response.
+    data = tmp_path / "data"
+    write_csv(data / "q.csv", [("Lab result", "Kit result"), *zip(LAB.tolist(), KIT.tolist(), strict=True)])
+    write_toml(data / "q.toml", {"purpose": "comparison", "decision_levels": [2.0], "calibrate": [3.0]})
+    assert cli("build", data, "-o", tmp_path / "site").code == 0
+    fit = _fit_json(tmp_path / "site", "q")
+    assert fit["model"] == "Q('Kit result') ~ Q('Lab result')"
+    agreement = fit["agreement"]
+    assert isinstance(agreement, dict)
+    assert agreement["mean_difference"] == pytest.approx((KIT - LAB).mean(), rel=1e-12)
+    assert isinstance(fit["bias"], list)
+    assert len(fit["bias"]) == 1
+    assert isinstance(fit["calibration"], list)
+    assert len(fit["calibration"]) == 1

@@ -734,7 +734,9 @@ def purpose_charts(report: FitReport, units: dict[str, str]) -> dict[str, Spec]:
             for layer in spec.get("layer", []):  # standards spanning decades: a log axis spreads them out
                 enc = layer.get("encoding", {}).get("x")
                 if enc is not None:
-                    enc.setdefault("scale", {}).update({"type": "log", "nice": False})
+                    scale = enc.setdefault("scale", {})
+                    scale.pop("zero", None)  # a log scale has no zero
+                    scale.update({"type": "log", "nice": False})
         out["readback"] = spec
     return out
 
