@@ -75,7 +75,7 @@ def test_every_chart_of_the_example_site_is_valid_vega_lite(
 ) -> None:
     specs = _page_specs(example_site)
     kinds = {target.split("-")[1] for _, target, _ in specs}
-    assert {"fit", "residual_by_x", "residual_percent", "residual_order", "shape", "pull", "forest"} <= kinds
+    assert {"fit", "residual_by_x", "residual_by_fitted", "residual_order", "shape", "pull", "forest"} <= kinds
     assert {"residual_fitted", "qq", "scale_location", "leverage"}.isdisjoint(kinds)  # the old set is gone
     problems = {f"{page}#{target}": errs for page, target, spec in specs if (errs := _errors(validator, spec))}
     assert problems == {}

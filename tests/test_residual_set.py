@@ -134,7 +134,7 @@ def test_each_residual_chart_sits_beside_its_checks(example_build: object) -> No
     section = html[html.index('<section aria-labelledby="h-resid"') :]
     section = section[: section.index("</section>")]
     expected = {
-        "across": ("brief-curvature", "brief-constant_variance", "vis-residual_by_x", "vis-residual_percent"),
+        "across": ("brief-curvature", "brief-constant_variance", "vis-residual_by_x"),
         "order": ("brief-independence", "vis-residual_order"),
         "shape": ("brief-normality_shapiro", "vis-shape"),
         "pull": ("brief-influence", "vis-pull"),
@@ -163,3 +163,30 @@ def test_residual_strip_is_twice_the_scatter(example_build: object) -> None:
     assert strip["high"] == pytest.approx(2 * s, rel=1e-5)
     assert strip["low"] == pytest.approx(-2 * s, rel=1e-5)
     assert math.isfinite(strip["high"])
+
+
+def test_calibrations_add_residuals_in_percent_of_the_fitted_value(tmp_path: Path) -> None:
+    data = tmp_path / "data"
+    data.mkdir()
+    rows = "conc,signal\n0,0.011\n1,0.205\n2,0.398\n3,0.61\n4,0.797\n5,1.004\n1,0.199\n3,0.597\n"
+    (data / "cal.csv").write_text(rows, encoding="utf-8")
+    (data / "rel.csv").write_text(rows, encoding="utf-8")
+    write_toml(data / "cal.toml", {"model": "signal ~ conc", "purpose": "calibration"})
+    write_toml(data / "rel.toml", {"model": "signal ~ conc"})
+    site = tmp_path / "site"
+    result = cli("build", data, "-o", site, "-j", "1")
+    assert result.code in (0, 3), result.output
+    cal = (site / "datasets" / "cal" / "index.html").read_text(encoding="utf-8")
+    rel = (site / "datasets" / "rel" / "index.html").read_text(encoding="utf-8")
+    assert 'id="vis-residual_percent"' in cal
+    assert 'id="vis-residual_percent"' not in rel
+    block = cal[cal.index('id="fig-residual_percent"') :]
+    block = block[: block.index("</figure>")]
+    assert "column residual_percent" in block
+    assert "conc = 0 have no percentage and are left out" in block
+    spec = json.loads(re.search(r'data-target="vis-residual_percent">(.*?)</script>', cal, re.S).group(1))  # type: ignore[union-attr]
+    drawing = [ly for ly in spec["layer"] if ly.get("data", {}).get("name") == "points"]
+    assert drawing
+    for layer in drawing:  # the percent is worked out in the chart from the residual and fitted value
+        calc = [t for t in layer["transform"] if "calculate" in t and t["as"] == "percent"]
+        assert calc == [{"calculate": "100 * datum.residual / datum.fitted", "as": "percent"}]
