@@ -62,7 +62,7 @@ def analyze(task: FitTask) -> DatasetResult:
         level=0.95,
     )
     try:
-        raw = read_source(src.csv_path, task.limits, src.relpath)  # refuses a file over the size limit unread
+        raw = read_source(src.csv_path, task.limits, src.relpath, src.root)  # refuses a file over the size limit unread
     except OSError as exc:
         msg = (
             f"{src.relpath} cannot be read: {exc.strerror or exc} (it may have been moved or deleted during the build)"
@@ -74,7 +74,7 @@ def analyze(task: FitTask) -> DatasetResult:
     spec: DatasetSpec | None = None
     sidecar_name = src.relpath[: -len(".csv")] + ".toml"
     try:
-        spec = read_sidecar(src.sidecar_path, dict(task.defaults), sidecar_name)
+        spec = read_sidecar(src.sidecar_path, dict(task.defaults), sidecar_name, src.root)
         base = replace(
             base,
             title=spec.title or title,
