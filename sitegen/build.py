@@ -25,7 +25,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from sitegen import __version__
-from sitegen.confine import files_inside, outside_reason, read_inside
+from sitegen.confine import files_under, outside_reason, read_inside
 from sitegen.digest import file_sha256, sha256_hex
 from sitegen.discover import SITE_CONFIG_NAME, DatasetSource, discover
 from sitegen.errors import INTERNAL_ERROR_WORDS, ConfigError, OutsideFolderError
@@ -199,11 +199,12 @@ def _site_key(config: SiteConfig, theme: Theme) -> str:
     parts = [repr(config).encode(), __version__.encode()]
     parts.append(json.dumps(library_versions(RENDER_LIBRARIES), sort_keys=True).encode())
     for folder in (*theme.template_dirs, *theme.static_dirs):
-        for rel, path in files_inside(folder):  # what the theme may use: no links out, nothing hidden
+        for rel, path, refused in files_under(folder):  # a file refused (a link out) counts by its name only
             try:
-                parts += [rel.encode(), read_inside(path, folder, where="theme folder")]
+                data = refused.encode() if refused else read_inside(path, folder, where="theme folder")
             except (OSError, OutsideFolderError):
-                parts += [rel.encode(), b"<unreadable>"]
+                data = b"<unreadable>"
+            parts += [rel.encode(), data]
     parts.append(theme.charts_json.encode())
     return sha256_hex(b"".join(parts))
 

@@ -88,19 +88,23 @@ def read_inside(path: Path, root: Path | None, limit: int | None = None, where: 
         return fh.read() if limit is None else fh.read(limit + 1)
 
 
-def files_inside(folder: Path) -> Iterator[tuple[str, Path]]:
-    """Every plain file below ``folder`` that stays inside it, as (POSIX relative path, path), sorted.
+def files_under(folder: Path, where: str = "theme folder") -> list[tuple[str, Path, str | None]]:
+    """Every file below ``folder`` as (POSIX relative path, path, why it may not be read or None), sorted.
 
-    Links to folders are not followed (a loop cannot hang), links to files outside are left out, and so are
-    hidden files.
+    Links to folders are not followed (a loop cannot hang); hidden files and folders are left out.
     """
-    found: list[tuple[str, Path]] = []
+    found: list[tuple[str, Path, str | None]] = []
     for dirpath, dirnames, filenames in os.walk(folder, followlinks=False):
         dirnames[:] = sorted(d for d in dirnames if not d.startswith("."))
         for name in filenames:
-            if name.startswith("."):
-                continue
-            path = Path(dirpath) / name
-            if outside_reason(path, folder) is None and path.is_file():
-                found.append((path.relative_to(folder).as_posix(), path))
-    yield from sorted(found)
+            if not name.startswith("."):
+                path = Path(dirpath) / name
+                found.append((path.relative_to(folder).as_posix(), path, outside_reason(path, folder, where)))
+    return sorted(found)
+
+
+def files_inside(folder: Path) -> Iterator[tuple[str, Path]]:
+    """The files of :func:`files_under` that may be read (plain files inside ``folder``)."""
+    for rel, path, reason in files_under(folder):
+        if reason is None and path.is_file():
+            yield rel, path

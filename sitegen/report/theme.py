@@ -14,7 +14,6 @@ from __future__ import annotations
 import json
 import os
 from dataclasses import dataclass
-from functools import cache
 from pathlib import Path
 from typing import Any
 
@@ -85,7 +84,6 @@ def _user_theme(choice: str, data_dir: Path, trusted: Path | None) -> Path:
     return user.resolve()
 
 
-@cache
 def load_theme(choice: str, data_dir: Path, trusted: Path | None = None) -> Theme:
     """The theme: ``trusted`` (a folder named on the command line), else the one named in site.toml:
     "default" or a folder path relative to (and inside) the data folder."""
