@@ -27,6 +27,7 @@ from sitegen.load import LoadedTable, read_source, read_table
 from sitegen.model import AnovaLine, Coefficient, FitReport, Message, Status
 from sitegen.spec import DatasetSpec, Limits, read_sidecar
 from sitegen.stats.ols import OlsFit, anova_table, fit_ols
+from sitegen.stats.soundness import RESCALE, data_problem, figures_problem
 from sitegen.table import to_float
 
 
@@ -49,7 +50,16 @@ class DatasetResult:
 
 
 def analyze(task: FitTask) -> DatasetResult:
-    """Fit one dataset; never raises."""
+    """Fit one dataset; never raises. Floating-point overflow and the like print nothing: figures that
+    are not finite are caught by ``stats/soundness.py`` and reported in the dataset's own words."""
+    import warnings  # noqa: PLC0415
+
+    with np.errstate(all="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        return _analyze(task)
+
+
+def _analyze(task: FitTask) -> DatasetResult:
     src = task.source
     title = Path(src.relpath).stem
     base = FitReport(
@@ -125,6 +135,9 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
     extra = tuple(c for c in (spec.weights, spec.group) if c)
     design = build_design(formula, table.table, name, extra)
     weights = _weights(design, spec)
+    problem = data_problem(design.response, design.y, design.terms, design.X, design.has_intercept)
+    if problem:
+        raise FitError(f"{name}: {problem}", hint=RESCALE if "compute with" in problem else None)
     fit = fit_ols(
         design.X_ext,
         design.y_ext,
@@ -192,6 +205,10 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         chart=pieces.chart,
         reading=(("delimiter", table.delimiter), ("decimal", table.decimal), ("encoding", table.encoding)),
     )
+    coefficients = [(c.term, c.estimate, c.std_error, c.ci_low, c.ci_high) for c in report.coefficients]
+    problem = figures_problem(report.r_squared, report.residual_std_error, coefficients)
+    if problem:
+        raise FitError(f"{name}: the figures of this fit cannot be trusted: {problem}", hint=RESCALE)
     if report.compare_term and report.coefficient(report.compare_term) is None:
         raise FormulaError(
             f"compare = {spec.compare!r} is not a term of the model",

@@ -261,12 +261,22 @@ def dataset_files(
         )
         files.append(_table(folder, "lines", cols, [[getattr(ln, c) for c in cols] for ln in r.lines], book))
     if r.calibration:
-        cal_cols = ("response", "estimate", "std_error", "ci_low", "ci_high", "readings", "method", "bounded")
+        cal_cols = (
+            "response",
+            "estimate",
+            "std_error",
+            "ci_low",
+            "ci_high",
+            "readings",
+            "method",
+            "bounded",
+            "extrapolated",
+        )
         cal_rows = [[getattr(c, k) for k in cal_cols] for c in r.calibration]
         files.append(_table(folder, "calibration", cal_cols, cal_rows, book))
     if r.predictions:
         names = sorted({k for p in r.predictions for k, _ in p.at})
-        pred_cols = ("fitted", "std_error", "mean_ci_low", "mean_ci_high", "pred_low", "pred_high")
+        pred_cols = ("fitted", "std_error", "mean_ci_low", "mean_ci_high", "pred_low", "pred_high", "extrapolated")
         rows = [[dict(p.at).get(n) for n in names] + [getattr(p, c) for c in pred_cols] for p in r.predictions]
         files.append(_table(folder, "predictions", (*names, *pred_cols), rows, book))
     if obs is not None:
