@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import asdict
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -18,6 +17,7 @@ from sitegen.discover import DatasetSource
 from sitegen.errors import OutsideFolderError
 from sitegen.jsontext import json_text
 from sitegen.model import FitReport, to_json
+from sitegen.report import variation
 from sitegen.report.tables import (
     cell_kinds,
     clean_rows,
@@ -307,8 +307,7 @@ def dataset_files(
         files.append(_table(folder, "coefficients", COEFFICIENT_COLUMNS + extra, coef_rows, book))
     else:
         files.append(_table(folder, "coefficients", COEFFICIENT_COLUMNS, coef_rows, book))
-    anova_cols = ("source", "df", "sum_sq", "mean_sq", "f_stat", "p_value")
-    files.append(_table(folder, "anova", anova_cols, [list(asdict(a).values()) for a in r.anova], book))
+    files.append(_table(folder, "anova", variation.COLUMNS, variation.rows(r), book))
     if r.lines:
         cols: tuple[str, ...] = (
             "method",

@@ -22,7 +22,7 @@ from sitegen import __version__
 from sitegen.confine import files_inside, read_inside
 from sitegen.errors import OutsideFolderError, SiteConfigError
 from sitegen.model import FitReport
-from sitegen.report import charts, fmt
+from sitegen.report import charts, fmt, variation
 from sitegen.report.theme import Theme
 from sitegen.spec import SiteConfig
 
@@ -214,6 +214,7 @@ def environment(theme: Theme) -> jinja2.Environment:
         "num": fmt.num,
         "integer": fmt.integer,
         "pvalue": fmt.pvalue,
+        "p_phrase": fmt.p_phrase,
         "rsq": fmt.rsquared,
         "level": fmt.level,
         "percent": fmt.percent,
@@ -284,8 +285,11 @@ def _fit_sentence(r: FitReport) -> str:
             f"R² = {fmt.rsquared(r.r_squared)}, measured about zero because the model has no intercept "
             "(it cannot be compared with the R² of a model that has one)"
         )
+    y_unit = dict(r.units).get(r.response, "")
     fit_part = (
-        f"{share}, and the points scatter about it with a residual standard error of {fmt.num(r.residual_std_error)}"
+        f"{share}, and the points scatter about it by {fmt.num(r.residual_std_error)}"
+        + (f" {y_unit}" if y_unit else "")
+        + " (the typical distance of a row from the line)"
     )
     chart = r.chart
     term = r.compare_term
@@ -344,10 +348,12 @@ _DESCRIBED = {
 }
 _CHART_NAMES = {
     "chart-fit.svg": "the line and its bands",
-    "chart-residual-fitted.svg": "residuals against fitted values",
-    "chart-scale-location.svg": "scatter along the line",
-    "chart-qq.svg": "normal Q–Q plot",
-    "chart-leverage.svg": "residuals against leverage",
+    "chart-residual-by-x.svg": "residuals across the range of x",
+    "chart-residual-by-fitted.svg": "residuals across the fitted values",
+    "chart-residual-percent.svg": "residuals in percent of the fitted value",
+    "chart-residual-order.svg": "residuals in CSV row order",
+    "chart-shape.svg": "shape of the residuals' scatter",
+    "chart-pull.svg": "each row's pull on the line",
 }
 
 
@@ -389,7 +395,7 @@ def render_dataset(
         f"(darker) and prediction band for single readings (lighter)"
         + (", the line of equality y = x (where the methods would agree)" if r.purpose == "comparison" else "")
         + (", and the other lines listed below" if r.lines else "")
-        + ("; flagged rows are drawn as larger triangles." if r.flagged else ".")
+        + ("; flagged rows are drawn as larger squares." if r.flagged else ".")
     )
     return _render(
         env,
@@ -404,6 +410,9 @@ def render_dataset(
         cutoffs=cutoffs,
         x_label=x_label,
         fit_caption=fit_caption,
+        pull_limit=charts.influence_limit(r) if ok else None,
+        variation=variation.parts(r) if ok else (),
+        resid_unit=units.get(r.chart.y, "") if r.chart else "",
     )
 
 
