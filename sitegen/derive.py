@@ -31,18 +31,26 @@ from sitegen.model import (
     Message,
     Prediction,
 )
-from sitegen.purposes import CalibrationResults, ComparisonResults, calibration, comparison, passing_bablok_line
+from sitegen.purposes import (
+    CalibrationResults,
+    ComparisonResults,
+    calibration,
+    comparison,
+    comparison_bias,
+    passing_bablok_line,
+    plain_response,
+)
 from sitegen.requirements import Evidence
 from sitegen.spec import DatasetSpec
 from sitegen.stats.calibration import detection_limits, inverse_predict
 from sitegen.stats.checks import model_checks
 from sitegen.stats.claims import check_claims
-from sitegen.stats.distributions import norm_ppf
 from sitegen.stats.groups import compare_groups
 from sitegen.stats.influence import Influence, PointFlags, flag_points, influence
 from sitegen.stats.lines import alternative_lines, explain_lines
 from sitegen.stats.ols import OlsFit, bands
 from sitegen.stats.robust import hc3_cov
+from sitegen.table import to_float
 
 FloatArray = NDArray[np.float64]
 MAX_CHART_POINTS = 5000  # above this, charts draw a sample plus every flagged point, and a density
@@ -157,7 +165,7 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
     predictions = _predictions(design, fit, spec, messages)
     groups = _groups(design, fit, spec, line_x, messages, weights=weights)
     chart = _chart(design, fit, infl, flags, spec)
-    compared = comparison(design, spec, line_x, lines, level=fit.level, messages=messages)
+    compared = comparison(design, spec, line_x, lines, level=fit.level, messages=messages, weighted=weighted)
     calibrated = CalibrationResults()
     if line_x is not None:
         beta = (float(fit.beta[0]), float(fit.beta[1]))
@@ -323,7 +331,7 @@ def _calibration(
 ) -> tuple[tuple[Calibration, ...], DetectionLimits | None]:
     if not spec.calibrate:
         return (), None
-    if x_col is None or weighted or design.response not in design.variables:
+    if x_col is None or weighted or not plain_response(design):
         messages.append(
             Message(
                 "warning",
@@ -352,10 +360,31 @@ def _calibration(
     except (FitError, ValueError, ArithmeticError) as exc:  # e.g. overflow for responses near 1e308
         messages.append(Message("warning", f"inverse prediction could not be computed: {exc}"))
         return (), None
+    lo, hi = float(x.min()), float(x.max())
     cal = tuple(
-        Calibration(c.response, c.readings, c.estimate, c.std_error, c.ci_low, c.ci_high, c.method, c.bounded)
+        Calibration(
+            c.response,
+            c.readings,
+            c.estimate,
+            c.std_error,
+            c.ci_low,
+            c.ci_high,
+            c.method,
+            c.bounded,
+            extrapolated=math.isfinite(c.estimate) and not lo <= c.estimate <= hi,
+        )
         for c in found
     )
+    beyond = [c for c in cal if c.extrapolated]
+    if beyond:
+        listed = ", ".join(f"{c.response:g} → {c.estimate:.4g}" for c in beyond[:5])
+        messages.append(
+            Message(
+                "warning",
+                f"extrapolation: {len(beyond)} inverse prediction(s) lie outside the range of {x_col} in the data "
+                f"({lo:g} to {hi:g}): {listed}; the line is not known to hold there",
+            )
+        )
     if any(not c.bounded for c in cal):
         messages.append(
             Message(
@@ -419,6 +448,17 @@ def _predictions(design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[
     if not rows:
         return ()
     b = bands(fit, X_new)
+    ranges = _ranges(design, names)
+    outside = [_outside(row, ranges) for row in rows]
+    beyond = [text for found in outside for text in found]
+    if beyond:
+        messages.append(
+            Message(
+                "warning",
+                f"extrapolation: {len(beyond)} predict_at value(s) lie outside the range of the data: "
+                f"{'; '.join(beyond[:5])}; the line is not known to hold there",
+            )
+        )
     return tuple(
         Prediction(
             tuple(sorted((k, float(v)) for k, v in row.items())),
@@ -428,9 +468,33 @@ def _predictions(design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[
             float(b.mean_high[i]),
             float(b.pred_low[i]),
             float(b.pred_high[i]),
+            extrapolated=bool(outside[i]),
         )
         for i, row in enumerate(rows)
     )
+
+
+def _ranges(design: Design, names: list[str]) -> dict[str, tuple[float, float]]:
+    """(lowest, highest) of each numeric column named, over the rows fitted."""
+    out: dict[str, tuple[float, float]] = {}
+    for name in names:
+        if name in design.data:
+            values = to_float(design.data[name])[0]
+            values = values[np.isfinite(values)]
+            if values.size:
+                out[name] = (float(values.min()), float(values.max()))
+    return out
+
+
+def _outside(row: dict[str, Any], ranges: dict[str, tuple[float, float]]) -> list[str]:
+    """The values of one predict_at entry outside the data's range, described."""
+    found = []
+    for name, value in row.items():
+        if name in ranges and isinstance(value, int | float) and not isinstance(value, bool):
+            lo, hi = ranges[name]
+            if not lo <= float(value) <= hi:
+                found.append(f"{name} = {float(value):g} (data {lo:g} to {hi:g})")
+    return found
 
 
 def _groups(
@@ -460,18 +524,40 @@ def _groups(
         return None
 
 
-def _qq(values: FloatArray, idx: NDArray[np.intp]) -> FloatArray:
-    """Normal quantiles of the values at ``idx`` by their rank among all finite values (Blom's plotting
-    positions; common practice). Only the drawn rows' quantiles are computed."""
-    out = np.full(len(idx), np.nan)
-    ok = np.isfinite(values)
-    m = int(ok.sum())
-    if m:
-        ranks = np.zeros(len(values))
-        ranks[np.flatnonzero(ok)[np.argsort(values[ok], kind="stable")]] = np.arange(1, m + 1)
-        drawn = ok[idx]
-        out[drawn] = norm_ppf((ranks[idx][drawn] - 0.375) / (m + 0.25))
-    return out
+#: Width of the bins of the residual-shape chart, in standardized-residual units.
+SPREAD_BIN = 0.5
+#: The bins reach at least this far either side of zero, and at most SPREAD_REACH_MAX.
+SPREAD_REACH = 3.0
+SPREAD_REACH_MAX = 6.0
+
+
+def _normal_cdf(z: float) -> float:
+    return 0.5 * math.erfc(-z / math.sqrt(2.0))
+
+
+def spread_bins(std: FloatArray) -> tuple[tuple[float, float, float, float], ...]:
+    """Counts of standardized residuals in bins of SPREAD_BIN, with the counts a bell shape would give.
+
+    Every finite value is counted (the chart is not drawn from a sample); values beyond the outer
+    bins are counted in them, and the outer bins' expected counts take the whole tail, so both
+    columns sum to the number of rows. Rows: (low edge, high edge, count, expected count).
+    """
+    vals = np.asarray(std, dtype=float)
+    vals = vals[np.isfinite(vals)]
+    m = vals.size
+    if m == 0:
+        return ()
+    top = min(max(SPREAD_REACH, math.ceil(float(np.max(np.abs(vals))) / SPREAD_BIN) * SPREAD_BIN), SPREAD_REACH_MAX)
+    edges = np.arange(-top, top + SPREAD_BIN / 2, SPREAD_BIN)
+    counts, _ = np.histogram(np.clip(vals, -top, top), bins=edges)
+    out = []
+    last = len(edges) - 2
+    for i in range(len(edges) - 1):
+        lo = -math.inf if i == 0 else float(edges[i])
+        hi = math.inf if i == last else float(edges[i + 1])
+        expected = m * (_normal_cdf(hi) - _normal_cdf(lo))
+        out.append((float(edges[i]), float(edges[i + 1]), float(counts[i]), expected))
+    return tuple(out)
 
 
 def _chart_sample(
@@ -507,7 +593,7 @@ def _chart(design: Design, fit: OlsFit, infl: Influence, flags: PointFlags, spec
     std = np.asarray(infl.standardized_residual)
     is_flag = np.zeros(fit.n)
     is_flag[list(flags.rows)] = 1.0
-    # Only the drawn rows (idx) are computed; the normal quantiles need every row's rank.
+    # Only the drawn rows (idx) are computed.
     cols: dict[str, FloatArray] = {
         "row": design.rows[idx].astype(float),
         "y": design.y[idx],
@@ -516,8 +602,6 @@ def _chart(design: Design, fit: OlsFit, infl: Influence, flags: PointFlags, spec
         "studentized": np.asarray(infl.studentized_residual)[idx],
         "leverage": np.asarray(infl.leverage)[idx],
         "cooks": np.asarray(infl.cooks_distance)[idx],
-        "root_abs_std": np.sqrt(np.abs(std[idx])),
-        "qq_theory": _qq(std, idx),
         "std_resid": std[idx],
         "flag": is_flag[idx],
     }
@@ -563,6 +647,8 @@ def _chart(design: Design, fit: OlsFit, infl: Influence, flags: PointFlags, spec
         density_columns=density_cols,
         density=density,
         point_groups=groups,
+        spread_columns=("low", "high", "count", "expected"),
+        spread=spread_bins(std),
     )
 
 
@@ -613,8 +699,11 @@ def _observations(
     return Observations(tuple(cols), tuple(cols.values()))
 
 
-def acceptance_evidence(design: Design, fit: OlsFit, spec: DatasetSpec) -> Evidence:
+def acceptance_evidence(
+    design: Design, fit: OlsFit, spec: DatasetSpec, *, lines: tuple[AltLine, ...] = (), weighted: bool = False
+) -> Evidence:
     """Standards read back and bias at the ``max_bias`` levels, for the criteria that ask for them."""
+    from sitegen.stats.acceptance import BiasAt as AcceptedBias  # noqa: PLC0415
     from sitegen.stats.acceptance import bias_at, read_back  # noqa: PLC0415
 
     req = spec.requirements
@@ -641,10 +730,18 @@ def acceptance_evidence(design: Design, fit: OlsFit, spec: DatasetSpec) -> Evide
             bias_reason = "the bias (fitted y − x) needs a one-predictor model of an untransformed response"
         else:
             at = np.asarray(req.max_bias.at, dtype=float)
-            try:
-                X_at = design_for(design, {x_col: at})
-            except DatasetError as exc:
-                X_at, bias_reason = None, f"the model cannot be evaluated at those levels ({exc})"
-            if X_at is not None:
-                bias = bias_at(fit, X_at, at)
+            if spec.purpose == "comparison" and line_x is not None and not weighted:
+                # A comparison's bias comes from the line its page recommends, as in fit.json's "bias".
+                found_bias, bias_reason = comparison_bias(
+                    design, spec, line_x, lines, levels=tuple(at.tolist()), level=fit.level
+                )
+                if found_bias is not None:
+                    bias = tuple(AcceptedBias(b.at, b.estimate, b.ci_low, b.ci_high) for b in found_bias)
+            else:
+                try:
+                    X_at = design_for(design, {x_col: at})
+                except DatasetError as exc:
+                    X_at, bias_reason = None, f"the model cannot be evaluated at those levels ({exc})"
+                if X_at is not None:
+                    bias = bias_at(fit, X_at, at)
     return Evidence(found, found_reason, bias, bias_reason, x_range)

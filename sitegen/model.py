@@ -198,6 +198,7 @@ class Calibration:
     ci_high: float
     method: str
     bounded: bool
+    extrapolated: bool = False  # the estimate lies outside the range of x in the data
 
 
 @dataclass(frozen=True, slots=True)
@@ -221,6 +222,7 @@ class Prediction:
     mean_ci_high: float
     pred_low: float
     pred_high: float
+    extrapolated: bool = False  # a predictor value lies outside its range in the data
 
 
 @dataclass(frozen=True, slots=True)
@@ -298,6 +300,8 @@ class ChartData:
     density_columns: tuple[str, ...] = ()
     density: tuple[tuple[float | None, ...], ...] = ()
     point_groups: tuple[str, ...] = ()  # group label of each point, when a group column is set
+    spread_columns: tuple[str, ...] = ()  # bins of the standardized residuals of all rows
+    spread: tuple[tuple[float, ...], ...] = ()
 
 
 @dataclass(frozen=True, slots=True)

@@ -9,12 +9,14 @@ boundary for TOML) into :class:`~sitegen.errors.SidecarError` or
 from __future__ import annotations
 
 import math
+import os
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any
 
-from sitegen.errors import SidecarError, SiteConfigError
+from sitegen.confine import read_inside
+from sitegen.errors import OutsideFolderError, SidecarError, SiteConfigError
 
 LINE_CHOICES = ("reverse", "orthogonal", "deming", "geometric_mean", "passing_bablok")
 PURPOSES = ("relation", "comparison", "calibration")
@@ -392,10 +394,13 @@ def _toml_hint(exc: ValueError) -> str | None:
     return _TOML_HINT if isinstance(exc.__cause__, tomllib.TOMLDecodeError) else None
 
 
-def _read_toml(path: Path) -> dict[str, Any]:
-    """Parse a TOML file; raises ``ValueError`` with a readable message."""
+def _read_toml(path: Path, root: Path | None = None) -> dict[str, Any]:
+    """Parse a TOML file (refused unread when it leads outside ``root``); raises ``ValueError`` with a readable
+    message."""
     try:
-        raw = path.read_bytes()
+        raw = read_inside(path, root)
+    except OutsideFolderError as exc:
+        raise ValueError(exc.message) from None
     except OSError as exc:
         raise ValueError(f"cannot be read: {exc.strerror or exc}") from exc
     try:
@@ -433,13 +438,14 @@ def _show(value: object) -> str:
     return text if len(text) <= 60 else text[:57] + "..."
 
 
-def read_sidecar(path: Path | None, defaults: Mapping[str, Any], display: str) -> DatasetSpec:
-    """Merge a sidecar over the site's validated defaults into a :class:`DatasetSpec`."""
+def read_sidecar(path: Path | None, defaults: Mapping[str, Any], display: str, root: Path | None = None) -> DatasetSpec:
+    """Merge a sidecar over the site's validated defaults into a :class:`DatasetSpec`; a sidecar that leads
+    outside the data folder ``root`` is refused unread."""
     values = dict(defaults)
     unknown: list[tuple[str, str | None]] = []
     if path is not None:
         try:
-            table = _read_toml(path)
+            table = _read_toml(path, root)
         except ValueError as exc:
             raise SidecarError(f"{display} {exc}", hint=_toml_hint(exc)) from exc
         clean, unknown = validate_keys(table, display)
@@ -473,6 +479,7 @@ class SiteConfig:
     mail_budget_megabytes: float = 20.0
     defaults: tuple[tuple[str, Any], ...] = ()
     limits: Limits = Limits()
+    ignore: tuple[str, ...] = ()  # glob patterns of files and folders the build skips
 
     @property
     def default_values(self) -> dict[str, Any]:
@@ -488,6 +495,7 @@ _SITE_KEYS = (
     "mail_budget_megabytes",
     "defaults",
     "limits",
+    "ignore",
 )
 _LIMIT_KEYS = ("max_megabytes", "max_rows", "max_columns")
 
@@ -496,12 +504,13 @@ def _site_error(msg: str) -> SiteConfigError:
     return SiteConfigError(f"site.toml: {msg}")
 
 
-def read_site_config(path: Path) -> tuple[SiteConfig, list[str]]:
-    """Read ``site.toml`` (absent → defaults). Returns the config and warnings."""
-    if not path.is_file():
+def read_site_config(path: Path, root: Path | None = None) -> tuple[SiteConfig, list[str]]:
+    """Read ``site.toml`` (absent → defaults; leading outside the data folder ``root`` → refused unread).
+    Returns the config and warnings."""
+    if not os.path.lexists(path):
         return SiteConfig(), []
     try:
-        table = _read_toml(path)
+        table = _read_toml(path, root)
     except ValueError as exc:
         raise SiteConfigError(f"site.toml {exc}", hint=_toml_hint(exc)) from exc
     warnings: list[str] = []
@@ -541,7 +550,31 @@ def read_site_config(path: Path) -> tuple[SiteConfig, list[str]]:
     ]
     values["defaults"] = tuple(sorted(clean.items()))
     values["limits"] = _read_limits(table.get("limits", {}))
+    values["ignore"] = _read_ignore(table.get("ignore", []))
     return SiteConfig(**values), warnings
+
+
+MAX_IGNORE_PATTERNS = 200
+
+
+def _read_ignore(value: object) -> tuple[str, ...]:
+    """site.toml's ``ignore``: a list of glob patterns, each naming files or folders inside the data folder."""
+    if not isinstance(value, list):
+        example = '["drafts", "*.old.csv"]'
+        raise _site_error(f"key 'ignore' must be a list of glob patterns such as {example}; got {_show(value)}")
+    if len(value) > MAX_IGNORE_PATTERNS:
+        raise _site_error(f"key 'ignore' has {len(value)} patterns; at most {MAX_IGNORE_PATTERNS} are allowed")
+    out: list[str] = []
+    for item in value:
+        if not isinstance(item, str) or not item.strip():
+            raise _site_error(f"key 'ignore' must hold non-empty strings (glob patterns); got {_show(item)}")
+        if item.startswith("/") or ".." in item.split("/") or "\\" in item or "\x00" in item:
+            raise _site_error(
+                f"ignore pattern '{item}' must be a name or a path inside the data folder "
+                "(no leading '/', no '..', '/' as the separator)"
+            )
+        out.append(item)
+    return tuple(out)
 
 
 def _read_limits(table: object) -> Limits:
