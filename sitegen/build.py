@@ -38,6 +38,7 @@ if TYPE_CHECKING:
     from sitegen.executor import Executor
     from sitegen.jobs import FitJob, Neighbours, PageJob
     from sitegen.model import FitReport
+    from sitegen.report.dataset_view import Neighbour
     from sitegen.report.pages import SiteContext
 
 LIBRARIES = ("numpy", "scipy", "pandas", "patsy", "statsmodels")
@@ -651,6 +652,7 @@ class _Build:
     ) -> tuple[list[dict[str, Any]], list[PageJob], dict[str, tuple[str, ...]]]:
         """Which pages to keep, copy or render; their build.json entries; the names of pages already in place."""
         from sitegen.jobs import PageJob  # noqa: PLC0415
+        from sitegen.report.dataset_view import Neighbour  # noqa: PLC0415
         from sitegen.report.files import index_entry, summary_row  # noqa: PLC0415
 
         entries: list[dict[str, Any]] = []
@@ -658,10 +660,11 @@ class _Build:
         in_place: dict[str, tuple[str, ...]] = {}
         for i, (src, report) in enumerate(zip(self.sources, reports, strict=True)):
             files = done[src.slug][1]
-            prev_r = (reports[i - 1].dataset, reports[i - 1].title) if i > 0 else None
-            next_r = (reports[i + 1].dataset, reports[i + 1].title) if i + 1 < len(reports) else None
+            prev_r = Neighbour(reports[i - 1].dataset, reports[i - 1].title) if i > 0 else None
+            next_r = Neighbour(reports[i + 1].dataset, reports[i + 1].title) if i + 1 < len(reports) else None
             fp = self.prints[src.slug][1]
-            key = sha256_hex(json.dumps([fp, self.site_key, list(files), prev_r, next_r, report.status]).encode())
+            around = [[n.dataset, n.title] if n else None for n in (prev_r, next_r)]
+            key = sha256_hex(json.dumps([fp, self.site_key, list(files), *around, report.status]).encode())
             target = self.work / "datasets" / src.slug / "index.html"
             old_entry = self.prev.entries.get(src.slug, {})
             old_page = self.prev.site / "datasets" / src.slug / "index.html" if self.prev.site else None
@@ -748,13 +751,14 @@ class _Build:
             elif path.is_dir() and not any(path.iterdir()):
                 path.rmdir()
 
-    def _expected_title(self, i: int) -> tuple[str, str] | None:
-        """(slug, title) of the ``i``-th dataset as its page will name it: the sidecar's title, else the file
+    def _expected_title(self, i: int) -> Neighbour | None:
+        """The ``i``-th dataset as its page will name it: the sidecar's title, else the file
         name; None past either end.
 
         Read here so that the worker that fits a dataset can write its page too; should a fitted
         title differ after all, the neighbouring pages are simply rendered again.
         """
+        from sitegen.report.dataset_view import Neighbour  # noqa: PLC0415
         from sitegen.spec import read_sidecar  # noqa: PLC0415
 
         if not 0 <= i < len(self.sources):
@@ -766,7 +770,7 @@ class _Build:
             with contextlib.suppress(Exception):
                 title = read_sidecar(src.sidecar_path, dict(self.config.defaults), src.relpath).title or title
             self.titles[src.slug] = title
-        return src.slug, self.titles[src.slug]
+        return Neighbour(src.slug, self.titles[src.slug])
 
     def _write_build_json(self, entries: list[dict[str, Any]]) -> None:
         import platform  # noqa: PLC0415

@@ -29,6 +29,7 @@ from sitegen.model import (
     GroupComparison,
     Message,
     Prediction,
+    check_warning,
 )
 from sitegen.spec import DatasetSpec
 from sitegen.stats.calibration import detection_limits, inverse_predict
@@ -129,7 +130,7 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
     )
     for d in diagnostics:
         if d.flag:
-            messages.append(Message("warning", f"{d.label}: {d.text} {d.advice}".strip()))
+            messages.append(check_warning(d))
     robust_se = None
     if spec.robust:
         cov = hc3_cov(Xw, fit.resid * sw, np.asarray(infl.leverage), fit.xtx_inv, xtx_root=fit.xtx_root)

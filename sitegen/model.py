@@ -74,6 +74,11 @@ class Diagnostic:
     rows: tuple[int, ...] = ()  # CSV rows concerned
 
 
+def check_warning(d: Diagnostic) -> Message:
+    """The warning a flagged check adds to the report's messages (the page shows it once, with the check)."""
+    return Message("warning", f"{d.label}: {d.text} {d.advice}".strip())
+
+
 @dataclass(frozen=True, slots=True)
 class FlaggedPoint:
     """An observation past at least one influence cut-off."""

@@ -16,6 +16,7 @@ from sitegen import __version__
 from sitegen.errors import SiteConfigError
 from sitegen.model import FitReport
 from sitegen.report import charts, fmt
+from sitegen.report.dataset_view import Neighbour, view
 from sitegen.report.theme import Theme
 from sitegen.spec import SiteConfig
 
@@ -124,54 +125,6 @@ def _common(ctx: SiteContext, root: str, page: str) -> dict[str, Any]:
     }
 
 
-def _label(column: str | None, units: dict[str, str]) -> str:
-    if not column:
-        return "x"
-    return f"{column} ({units[column]})" if column in units else column
-
-
-def sentence(r: FitReport) -> str:
-    """The fit stated in one plain sentence (two when the direction of the line is not established)."""
-    units = dict(r.units)
-    lvl = fmt.level(r.level)
-    if "Intercept" in r.terms:
-        share = (
-            f"the model explains {fmt.percent(r.r_squared)} of the variation in {r.response} "
-            f"(R² = {fmt.rsquared(r.r_squared)})"
-        )
-    else:
-        share = (
-            f"R² = {fmt.rsquared(r.r_squared)}, measured about zero because the model has no intercept "
-            "(it cannot be compared with the R² of a model that has one)"
-        )
-    fit_part = (
-        f"{share}, and the points scatter about it with a residual standard error of {fmt.num(r.residual_std_error)}"
-    )
-    chart = r.chart
-    term = r.compare_term
-    c = r.coefficient(term) if term else None
-    straight = (
-        chart is not None and chart.x is not None and term == chart.x and r.terms in (("Intercept", term), (term,))
-    )
-    if straight and c is not None and chart is not None and chart.x is not None:
-        y_unit = f" {units[r.response]}" if r.response in units else ""
-        x_unit = f" {units[chart.x]}" if chart.x in units else ""
-        interval = f"{lvl} interval {fmt.num(c.ci_low)} to {fmt.num(c.ci_high)}"
-        per = f"for each 1{x_unit} of {chart.x}"
-        if c.ci_low > 0 or c.ci_high < 0:
-            direction = "rises" if c.estimate > 0 else "falls"
-            return (
-                f"Across {fmt.integer(r.n)} rows, {r.response} {direction} by {fmt.num(abs(c.estimate))}{y_unit} "
-                f"{per} ({interval}); {fit_part}."
-            )
-        return (
-            f"Across {fmt.integer(r.n)} rows, the slope of {r.response} {per} is {fmt.num(c.estimate)}{y_unit}, "
-            f"but its {interval} includes zero, so these data do not establish whether {r.response} rises or "
-            f"falls with {chart.x}; {fit_part}."
-        )
-    return f"Across {fmt.integer(r.n)} rows fitted with {r.model}, {fit_part}."
-
-
 def _first_problem(r: FitReport) -> str:
     for level in ("error", "warning"):
         for m in r.messages:
@@ -180,77 +133,17 @@ def _first_problem(r: FitReport) -> str:
     return ""
 
 
-_DESCRIBED = {
-    "fit.json": "every number on this page, at full precision",
-    "coefficients.csv": "estimates with standard errors, tests and intervals",
-    "observations.csv": "every row: data, fitted value, intervals and influence measures",
-    "anova.csv": "the analysis of variance table",
-    "lines.csv": "the other lines with their intervals",
-    "calibration.csv": "inverse predictions with their intervals",
-    "predictions.csv": "predicted values with their intervals",
-}
-_CHART_NAMES = {
-    "chart-fit.svg": "the line and its bands",
-    "chart-residual-fitted.svg": "residuals against fitted values",
-    "chart-scale-location.svg": "scatter along the line",
-    "chart-qq.svg": "normal Q–Q plot",
-    "chart-leverage.svg": "residuals against leverage",
-}
-
-
-def _downloads(r: FitReport, files: Sequence[str]) -> list[tuple[str, str, str]]:
-    out: list[tuple[str, str, str]] = []
-    for name, what in _DESCRIBED.items():
-        if name in files:
-            out.append((name, name, what))
-    if "tables.xlsx" in files:
-        out.append(("tables.xlsx", "tables.xlsx", "the tables above in one workbook, a sheet each"))
-    original = r.source.rsplit("/", 1)[-1]
-    out += [
-        (f, f"original file ({original})", "the data file exactly as delivered")
-        for f in files
-        if f.startswith("source-")
-    ]
-    out += [
-        (f, f, f"static image of the chart: {_CHART_NAMES[f]} (for print and mail)") for f in files if f in _CHART_NAMES
-    ]
-    return out
-
-
 def render_dataset(
     ctx: SiteContext,
     r: FitReport,
     files: Sequence[str],
-    prev: tuple[str, str] | None,
-    nxt: tuple[str, str] | None,
+    prev: Neighbour | None,
+    nxt: Neighbour | None,
 ) -> str:
-    """The page of one dataset."""
-    env = environment(ctx.theme)
-    units = dict(r.units)
-    cutoffs = dict(r.cutoffs)
-    ok = r.status != "error"
-    chart_specs = charts.dataset_charts(r) if ok else {}
-    x_label = _label(r.chart.x if r.chart else None, units)
-    fit_caption = (
-        f"{r.response} against {x_label}: the fitted line, its {fmt.level(r.level)} confidence band for the mean "
-        f"(darker) and prediction band for single readings (lighter)"
-        + (", and the other lines listed below" if r.lines else "")
-        + ("; flagged rows are drawn as larger triangles." if r.flagged else ".")
-    )
-    return _render(
-        env,
-        "dataset.html",
-        **_common(ctx, "../../", "dataset"),
-        r=r,
-        charts=chart_specs,
-        sentence=sentence(r) if ok else "",
-        downloads=_downloads(r, files),
-        prev={"dataset": prev[0], "title": prev[1]} if prev else None,
-        next={"dataset": nxt[0], "title": nxt[1]} if nxt else None,
-        cutoffs=cutoffs,
-        x_label=x_label,
-        fit_caption=fit_caption,
-    )
+    """The page of one dataset: ``dataset.html`` with its sections (report/sections.py) filled from the view."""
+    chart_specs = charts.dataset_charts(r) if r.status != "error" else {}
+    v = view(r, files, chart_specs, prev, nxt)
+    return _render(environment(ctx.theme), "dataset.html", **_common(ctx, "../../", "dataset"), v=v, r=r)
 
 
 def render_index(ctx: SiteContext, reports: Sequence[FitReport], tags: Sequence[dict[str, Any]]) -> str:

@@ -16,11 +16,13 @@ from sitegen.errors import SiteConfigError
 
 
 def default_theme_dir() -> Path:
-    """The packaged default theme (``sitegen/themes/default``)."""
-    import importlib  # noqa: PLC0415
-
-    themes = importlib.import_module("sitegen.themes")  # the packaged themes/ folder
-    return Path(next(iter(themes.__path__))) / "default"
+    """The default theme: ``themes/default`` at the top of a source checkout (and so in an editable install),
+    shipped inside the package as ``sitegen/themes/default`` in a wheel (pyproject.toml maps the folder)."""
+    package = Path(__file__).resolve().parent.parent  # the sitegen package folder
+    shipped = package / "themes" / "default"
+    if shipped.is_dir():
+        return shipped
+    return package.parent / "themes" / "default"
 
 
 @dataclass(frozen=True, slots=True)

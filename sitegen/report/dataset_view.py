@@ -1,0 +1,206 @@
+"""What a dataset page shows, worked out once in Python: the view model its section templates read.
+
+Section templates (see :mod:`sitegen.report.sections`) read these typed fields and the report's own; anything
+that needs a decision (which warnings a check already states, how many points a chart draws, which files to
+offer) is decided here, not in a template.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping, Sequence
+from dataclasses import dataclass
+from typing import Any
+
+from sitegen.model import FitReport, Message, check_warning
+from sitegen.report import fmt
+from sitegen.report.sections import Section, shown_sections
+
+_DESCRIBED = {
+    "fit.json": "every number on this page, at full precision",
+    "coefficients.csv": "estimates with standard errors, tests and intervals",
+    "observations.csv": "every row: data, fitted value, intervals and influence measures",
+    "anova.csv": "the analysis of variance table",
+    "lines.csv": "the other lines with their intervals",
+    "calibration.csv": "inverse predictions with their intervals",
+    "predictions.csv": "predicted values with their intervals",
+}
+_CHART_NAMES = {
+    "chart-fit.svg": "the line and its bands",
+    "chart-residual-fitted.svg": "residuals against fitted values",
+    "chart-scale-location.svg": "scatter along the line",
+    "chart-qq.svg": "normal Q–Q plot",
+    "chart-leverage.svg": "residuals against leverage",
+}
+
+
+@dataclass(frozen=True, slots=True)
+class Neighbour:
+    """The previous or next dataset in the site's order."""
+
+    dataset: str
+    title: str
+
+
+@dataclass(frozen=True, slots=True)
+class Download:
+    """A file offered for download: its name in the dataset's folder, the link text and what it holds."""
+
+    href: str
+    label: str
+    what: str
+
+
+@dataclass(frozen=True, slots=True)
+class SampleNote:
+    """How many rows the charts of a large dataset draw, out of how many."""
+
+    n_total: int
+    drawn: int
+    drawn_flagged: int
+    flagged_total: int
+    density: bool  # the line chart shades a grid of all rows behind the points
+
+
+@dataclass(frozen=True, slots=True)
+class DatasetView:
+    """Everything a dataset page's sections read."""
+
+    report: FitReport
+    sections: tuple[Section, ...]
+    failed: bool
+    errors: tuple[str, ...]  # why the dataset could not be fitted
+    sentence: str
+    notes: tuple[Message, ...]  # warnings and notes that no check restates
+    checks_flagged: int
+    charts: Mapping[str, Mapping[str, Any]]  # chart specs by kind, handed to the chart macro as they are
+    has_line_chart: bool
+    sample: SampleNote | None
+    x_label: str
+    fit_caption: str
+    cutoffs: Mapping[str, float]
+    downloads: tuple[Download, ...]
+    prev: Neighbour | None
+    next: Neighbour | None
+
+
+def axis_label(column: str | None, units: Mapping[str, str]) -> str:
+    """A column's name with its unit, for axes and captions."""
+    if not column:
+        return "x"
+    return f"{column} ({units[column]})" if column in units else column
+
+
+def sentence(r: FitReport) -> str:
+    """The fit stated in one plain sentence (two when the direction of the line is not established)."""
+    units = dict(r.units)
+    lvl = fmt.level(r.level)
+    if "Intercept" in r.terms:
+        share = (
+            f"the model explains {fmt.percent(r.r_squared)} of the variation in {r.response} "
+            f"(R² = {fmt.rsquared(r.r_squared)})"
+        )
+    else:
+        share = (
+            f"R² = {fmt.rsquared(r.r_squared)}, measured about zero because the model has no intercept "
+            "(it cannot be compared with the R² of a model that has one)"
+        )
+    fit_part = (
+        f"{share}, and the points scatter about it with a residual standard error of {fmt.num(r.residual_std_error)}"
+    )
+    chart = r.chart
+    term = r.compare_term
+    c = r.coefficient(term) if term else None
+    straight = (
+        chart is not None and chart.x is not None and term == chart.x and r.terms in (("Intercept", term), (term,))
+    )
+    if straight and c is not None and chart is not None and chart.x is not None:
+        y_unit = f" {units[r.response]}" if r.response in units else ""
+        x_unit = f" {units[chart.x]}" if chart.x in units else ""
+        interval = f"{lvl} interval {fmt.num(c.ci_low)} to {fmt.num(c.ci_high)}"
+        per = f"for each 1{x_unit} of {chart.x}"
+        if c.ci_low > 0 or c.ci_high < 0:
+            direction = "rises" if c.estimate > 0 else "falls"
+            return (
+                f"Across {fmt.integer(r.n)} rows, {r.response} {direction} by {fmt.num(abs(c.estimate))}{y_unit} "
+                f"{per} ({interval}); {fit_part}."
+            )
+        return (
+            f"Across {fmt.integer(r.n)} rows, the slope of {r.response} {per} is {fmt.num(c.estimate)}{y_unit}, "
+            f"but its {interval} includes zero, so these data do not establish whether {r.response} rises or "
+            f"falls with {chart.x}; {fit_part}."
+        )
+    return f"Across {fmt.integer(r.n)} rows fitted with {r.model}, {fit_part}."
+
+
+def downloads(r: FitReport, files: Sequence[str]) -> tuple[Download, ...]:
+    """The dataset's files worth offering, described, in page order."""
+    out = [Download(name, name, what) for name, what in _DESCRIBED.items() if name in files]
+    if "tables.xlsx" in files:
+        out.append(Download("tables.xlsx", "tables.xlsx", "the tables above in one workbook, a sheet each"))
+    original = r.source.rsplit("/", 1)[-1]
+    out += [
+        Download(f, f"original file ({original})", "the data file exactly as delivered")
+        for f in files
+        if f.startswith("source-")
+    ]
+    out += [
+        Download(f, f, f"static image of the chart: {_CHART_NAMES[f]} (for print and mail)")
+        for f in files
+        if f in _CHART_NAMES
+    ]
+    return tuple(out)
+
+
+def _notes(r: FitReport) -> tuple[Message, ...]:
+    """Warnings and notes, less those that restate a flagged check (the check shows them, once)."""
+    restated = {check_warning(d) for d in r.diagnostics if d.flag}
+    return tuple(m for m in r.messages if m.level != "error" and m not in restated)
+
+
+def _sample(r: FitReport, has_line_chart: bool) -> SampleNote | None:
+    chart = r.chart
+    if chart is None or not chart.sampled:
+        return None
+    drawn_flagged = 0
+    if "flag" in chart.point_columns:
+        at = chart.point_columns.index("flag")
+        drawn_flagged = sum(1 for p in chart.points if p[at] == 1.0)
+    return SampleNote(chart.n_total, len(chart.points), drawn_flagged, r.flagged_total, has_line_chart)
+
+
+def view(
+    r: FitReport,
+    files: Sequence[str],
+    charts: Mapping[str, Mapping[str, Any]],
+    prev: Neighbour | None,
+    nxt: Neighbour | None,
+) -> DatasetView:
+    """The view of one dataset's page; ``charts`` are its chart specs (empty when it failed)."""
+    errors = tuple(m.text for m in r.messages if m.level == "error")
+    failed = r.status == "error" or bool(errors)
+    x_label = axis_label(r.chart.x if r.chart else None, dict(r.units))
+    fit_caption = (
+        f"{r.response} against {x_label}: the fitted line, its {fmt.level(r.level)} confidence band for the mean "
+        f"(darker) and prediction band for single readings (lighter)"
+        + (", and the other lines listed below" if r.lines else "")
+        + ("; flagged rows are drawn as larger triangles." if r.flagged else ".")
+    )
+    has_line_chart = "fit" in charts
+    return DatasetView(
+        report=r,
+        sections=shown_sections(failed),
+        failed=failed,
+        errors=errors,
+        sentence="" if failed else sentence(r),
+        notes=_notes(r),
+        checks_flagged=sum(1 for d in r.diagnostics if d.flag),
+        charts=charts,
+        has_line_chart=has_line_chart,
+        sample=_sample(r, has_line_chart),
+        x_label=x_label,
+        fit_caption=fit_caption,
+        cutoffs=dict(r.cutoffs),
+        downloads=downloads(r, files),
+        prev=prev,
+        next=nxt,
+    )
