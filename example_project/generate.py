@@ -128,6 +128,12 @@ calibrate = [0.132, 0.418, 0.771]
 # Each value above is the mean of this many readings of the same sample, which
 # narrows the interval compared with a single reading.
 readings = 2
+# The laboratory's acceptance criteria for this curve, judged on the page
+# (`sitegen build --enforce` exits with 3 when one is not met).
+requirements.min_r_squared = 0.995
+requirements.max_residual_sd = 0.01
+requirements.back_calculated_within_percent = 15
+requirements.lowest_within_percent = 20
 ''',
     )
 
@@ -255,6 +261,12 @@ lines = ["reverse", "orthogonal", "deming", "geometric_mean"]
 # For the Deming line: variance of the kit's measurement error divided by the
 # variance of the laboratory's (from replicate readings of a control sample).
 error_ratio = 1.5
+# What the kit must achieve to replace the laboratory for screening: no
+# proportional or constant difference, and a bias within ±0.3 mg/L N or ±10 %
+# (the larger) at the two levels that decide action.
+requirements.slope_interval_includes = 1
+requirements.intercept_interval_includes = 0
+requirements.max_bias = { at = [2.0, 5.0], limit = 0.3, limit_percent = 10 }
 ''',
     )
 

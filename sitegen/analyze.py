@@ -25,6 +25,7 @@ from sitegen.errors import INTERNAL_ERROR_WORDS, DatasetError, FitError, Formula
 from sitegen.formula import Design, assumed_formula, build_design
 from sitegen.load import LoadedTable, read_source, read_table
 from sitegen.model import AnovaLine, Coefficient, FitReport, Message, Status
+from sitegen.requirements import judge
 from sitegen.spec import DatasetSpec, Limits, read_sidecar
 from sitegen.stats.ols import OlsFit, anova_table, fit_ols
 from sitegen.table import to_float
@@ -197,6 +198,11 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
             f"compare = {spec.compare!r} is not a term of the model",
             hint=f"choose one of {', '.join(design.terms)}",
         )
+    if weights is not None and fit.df_resid > 0:
+        report = replace(report, residual_sd_y=float(np.sqrt(np.sum(fit.resid**2) / fit.df_resid)))
+    if spec.requirements is not None:
+        found = judge(report, spec.requirements, derive.acceptance_evidence(design, fit, spec))
+        report = replace(report, requirements=found)
     return DatasetResult(report, pieces.observations)
 
 

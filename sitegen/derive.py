@@ -31,6 +31,7 @@ from sitegen.model import (
     Prediction,
     check_warning,
 )
+from sitegen.requirements import Evidence
 from sitegen.spec import DatasetSpec
 from sitegen.stats.calibration import detection_limits, inverse_predict
 from sitegen.stats.checks import model_checks
@@ -142,6 +143,8 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
                 messages.append(Message("warning", str(found)))
             else:
                 claims.append(found)
+                if found.rejected:
+                    messages.append(Message("warning", f"Declared claim '{found.claim}': {found.conclusion}"))
     line_x = straight_line(design)
     lines, lines_text = _lines(design, fit, spec, line_x, messages)
     calibration, limits = _calibration(design, fit, spec, line_x, messages)
@@ -539,3 +542,40 @@ def _observations(
         "flags": flag_text,
     }
     return Observations(tuple(cols), tuple(cols.values()))
+
+
+def acceptance_evidence(design: Design, fit: OlsFit, spec: DatasetSpec) -> Evidence:
+    """Standards read back and bias at the ``max_bias`` levels, for the criteria that ask for them."""
+    from sitegen.stats.acceptance import bias_at, read_back  # noqa: PLC0415
+
+    req = spec.requirements
+    if req is None:
+        return Evidence()
+    line_x = straight_line(design)
+    plain_response = design.response in design.variables
+    x_col = single_predictor(design)
+    x_range = None
+    if x_col is not None:
+        xs = design.data[x_col].astype(float)
+        x_range = (float(xs.min()), float(xs.max()))
+    found = None
+    found_reason = ""
+    if req.back_calculated_within_percent is not None:
+        if line_x is None or not plain_response:
+            found_reason = 'standards are read back only through a straight line of an untransformed response ("y ~ x")'
+        else:
+            found = read_back(float(fit.beta[0]), float(fit.beta[1]), design.X[:, 1], design.y, design.rows)
+    bias = None
+    bias_reason = ""
+    if req.max_bias is not None:
+        if x_col is None or not plain_response:
+            bias_reason = "the bias (fitted y − x) needs a one-predictor model of an untransformed response"
+        else:
+            at = np.asarray(req.max_bias.at, dtype=float)
+            try:
+                X_at = design_for(design, {x_col: at})
+            except DatasetError as exc:
+                X_at, bias_reason = None, f"the model cannot be evaluated at those levels ({exc})"
+            if X_at is not None:
+                bias = bias_at(fit, X_at, at)
+    return Evidence(found, found_reason, bias, bias_reason, x_range)

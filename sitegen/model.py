@@ -183,6 +183,27 @@ class GroupComparison:
 
 
 @dataclass(frozen=True, slots=True)
+class Requirement:
+    """One declared acceptance criterion judged against the fit (``fit.json``'s ``requirements``).
+
+    ``value`` is the figure judged, ``limit`` the declared limit (a number, or ``[low, high]`` for a window),
+    ``interval`` the figure's confidence interval where it has one. ``judged`` is false when the data cannot
+    answer the criterion (e.g. no intercept to compare); such a criterion counts as not met.
+    """
+
+    name: str
+    met: bool
+    value: float | None
+    limit: float | tuple[float, float] | None
+    text: str
+    label: str = ""
+    interval: tuple[float, float] | None = None
+    at: float | None = None
+    judged: bool = True
+    unit: str = ""
+
+
+@dataclass(frozen=True, slots=True)
 class ChartData:
     """The numbers the charts draw: observed points (perhaps a sample) and band grids."""
 
@@ -247,10 +268,22 @@ class FitReport:
     chart: ChartData | None = None
     input_sha256: str = ""
     reading: tuple[tuple[str, str], ...] = field(default=())  # how the CSV was read (delimiter, …)
+    requirements: tuple[Requirement, ...] = ()
+    residual_sd_y: float | None = None  # weighted fits: the scatter of the plain residuals, in y units
 
     def coefficient(self, term: str) -> Coefficient | None:
         """The named term's coefficient, if the model has it."""
         return next((c for c in self.coefficients if c.term == term), None)
+
+    @property
+    def requirements_state(self) -> Literal["met", "unmet", "none"]:
+        """``met`` when every declared requirement is met, ``unmet`` when one is not, ``none`` when none is declared.
+
+        A dataset that failed has no verdict on its requirements: ``none`` (its status already says it failed).
+        """
+        if not self.requirements:
+            return "none"
+        return "met" if all(q.met for q in self.requirements) else "unmet"
 
 
 # --- JSON codec -------------------------------------------------------------------------------
@@ -314,6 +347,9 @@ def _decoder(tp: Any) -> Decoder:
         args = [a for a in typing.get_args(tp) if a is not type(None)]
         if args == [float]:
             return _opt_float
+        if len(args) > 1:  # e.g. a number or a [low, high] pair: chosen by the JSON value's kind
+            by_kind = [(typing.get_origin(a) is tuple, _decoder(a)) for a in args]
+            return lambda v: None if v is None else next(d for seq, d in by_kind if seq == isinstance(v, list))(v)
         inner = _decoder(args[0])
         return lambda v: None if v is None else inner(v)
     if origin is tuple:

@@ -72,6 +72,8 @@ class DatasetView:
     sentence: str
     notes: tuple[Message, ...]  # warnings and notes that no check restates
     checks_flagged: int
+    claims_rejected: int  # declared claims the data contradict
+    requirements_unmet: int  # declared requirements not met
     charts: Mapping[str, Mapping[str, Any]]  # chart specs by kind, handed to the chart macro as they are
     has_line_chart: bool
     sample: SampleNote | None
@@ -91,6 +93,32 @@ def axis_label(column: str | None, units: Mapping[str, str]) -> str:
 
 
 def sentence(r: FitReport) -> str:
+    """The fit in plain words, followed by what contradicts the user's own declarations (unmet requirements,
+    claims the data reject), so that the headline never reads as sound beside a contradicted claim."""
+    text = _fit_sentence(r)
+    if r.requirements:
+        unmet = [q for q in r.requirements if not q.met]
+        if unmet:
+            text += (
+                f" {len(unmet)} of {len(r.requirements)} declared requirements "
+                f"{'is' if len(unmet) == 1 else 'are'} not met ({unmet_words(r)})."
+            )
+        else:
+            text += f" All {len(r.requirements)} declared requirements are met."
+    rejected = [c for c in r.claims if c.rejected]
+    if rejected:
+        names = "; ".join(f"“{c.claim}”" for c in rejected)
+        text += f" The data contradict the declared claim{'s' if len(rejected) > 1 else ''} {names}."
+    return text
+
+
+def unmet_words(r: FitReport) -> str:
+    """The declared requirements not met, by name ("max_residual_sd, max_bias at 1"), or ""."""
+    unmet = [q for q in r.requirements if not q.met]
+    return ", ".join(q.name + (f" at {fmt.given(q.at)}" if q.at is not None else "") for q in unmet)
+
+
+def _fit_sentence(r: FitReport) -> str:
     """The fit stated in one plain sentence (two when the direction of the line is not established)."""
     units = dict(r.units)
     lvl = fmt.level(r.level)
@@ -194,6 +222,8 @@ def view(
         sentence="" if failed else sentence(r),
         notes=_notes(r),
         checks_flagged=sum(1 for d in r.diagnostics if d.flag),
+        claims_rejected=sum(1 for c in r.claims if c.rejected),
+        requirements_unmet=sum(1 for q in r.requirements if not q.met),
         charts=charts,
         has_line_chart=has_line_chart,
         sample=_sample(r, has_line_chart),

@@ -50,6 +50,7 @@ SUMMARY_COLUMNS = (
     "ci_high",
     "level",
     "tags",
+    "requirements",
 )
 COEFFICIENT_COLUMNS = ("term", "estimate", "std_error", "t_stat", "p_value", "ci_low", "ci_high")
 
@@ -87,6 +88,7 @@ def summary_row(r: FitReport) -> dict[str, Any]:
         "ci_high": c.ci_high if c else None,
         "level": r.level,
         "tags": ";".join(r.tags),
+        "requirements": r.requirements_state,
     }
 
 
@@ -105,12 +107,15 @@ def index_entry(r: FitReport) -> dict[str, Any]:
     row = {k: _json_value(v) for k, v in summary_row(r).items()}
     row["tags"] = list(r.tags)
     row["message_level"] = _message_level(r)
+    row["requirement_list"] = [
+        {"name": q.name, "met": q.met, "label": q.label, "text": q.text, "at": q.at} for q in r.requirements
+    ]
     return row
 
 
 def report_from_index_entry(entry: dict[str, Any], input_sha256: str) -> FitReport:
     """A light report (no per-row or chart data) from :func:`index_entry`'s values."""
-    from sitegen.model import Coefficient, Message  # noqa: PLC0415
+    from sitegen.model import Coefficient, Message, Requirement  # noqa: PLC0415
 
     nan = float("nan")
 
@@ -127,6 +132,13 @@ def report_from_index_entry(entry: dict[str, Any], input_sha256: str) -> FitRepo
             ),
         )  # fmt: skip
     messages = (Message(entry["message_level"], str(entry["message"])),) if entry.get("message") else ()
+    requirements = tuple(
+        Requirement(
+            name=str(q["name"]), met=bool(q["met"]), value=None, limit=None, text=str(q["text"]),
+            label=str(q.get("label", "")), at=q.get("at"),
+        )
+        for q in entry.get("requirement_list", ())
+    )  # fmt: skip
     return FitReport(
         dataset=str(entry["dataset"]),
         source=str(entry["source"]),
@@ -147,6 +159,7 @@ def report_from_index_entry(entry: dict[str, Any], input_sha256: str) -> FitRepo
         coefficients=coefficients,
         messages=messages,
         input_sha256=input_sha256,
+        requirements=requirements,
     )
 
 

@@ -16,7 +16,7 @@ from sitegen import __version__
 from sitegen.errors import SiteConfigError
 from sitegen.model import FitReport
 from sitegen.report import charts, fmt
-from sitegen.report.dataset_view import Neighbour, view
+from sitegen.report.dataset_view import Neighbour, unmet_words, view
 from sitegen.report.theme import Theme
 from sitegen.spec import SiteConfig
 
@@ -103,6 +103,7 @@ def environment(theme: Theme) -> jinja2.Environment:
         "tojson_safe": json_for_script,
         "slugify": slugify,
         "show_char": _show_char,
+        "given": fmt.given,
     }
     return env
 
@@ -126,11 +127,14 @@ def _common(ctx: SiteContext, root: str, page: str) -> dict[str, Any]:
 
 
 def _first_problem(r: FitReport) -> str:
+    """The index's note under a dataset: unmet requirements first, then the first error or warning."""
+    unmet = unmet_words(r)
+    lead = f"Requirements not met: {unmet}." if unmet else ""
     for level in ("error", "warning"):
         for m in r.messages:
             if m.level == level:
-                return m.text
-    return ""
+                return f"{lead} {m.text}".strip()
+    return lead
 
 
 def render_dataset(

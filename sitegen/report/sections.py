@@ -38,6 +38,7 @@ DATASET_SECTIONS: tuple[Section, ...] = (
     Section("description", "always"),  # the sidecar's Markdown description
     Section("failure", "failed"),  # why the dataset could not be fitted
     Section("glance", "fitted"),  # the fit in one sentence and four figures
+    Section("requirements", "fitted"),  # the declared acceptance criteria, met or not
     Section("notes", "fitted"),  # warnings and notes that no check below restates
     Section("trust", "fitted"),  # the model checks and their verdicts
     Section("line", "fitted"),  # the line chart with its bands

@@ -221,7 +221,7 @@
       var table = document.getElementById(form.getAttribute("data-filter-for"));
       if (!table) { return; }
       var params = new URLSearchParams(window.location.search);
-      ["q", "status", "tag", "folder"].forEach(function (k) {
+      ["q", "status", "requirements", "tag", "folder"].forEach(function (k) {
         var el = form.elements[k];
         if (!el || !params.has(k)) { return; }
         var value = params.get(k);
@@ -231,11 +231,13 @@
       function apply() {
         var q = form.elements.q.value.trim().toLowerCase();
         var status = form.elements.status.value, tag = form.elements.tag.value, folder = form.elements.folder.value;
+        var req = form.elements.requirements ? form.elements.requirements.value : "";
         var shown = 0, total = 0;
         dataRows(table).forEach(function (r) {
           total += 1;
           var ok = (!q || (r.getAttribute("data-search") || "").indexOf(q) >= 0) &&
             (!status || r.getAttribute("data-status") === status) &&
+            (!req || r.getAttribute("data-requirements") === req) &&
             (!tag || (r.getAttribute("data-tags") || "").split("|").indexOf(tag) >= 0) &&
             (!folder || r.getAttribute("data-folder") === folder);
           r.hidden = !ok;
@@ -249,7 +251,7 @@
         }
         var empty = document.getElementById(table.id + "-empty");
         if (empty) { empty.hidden = shown > 0; }
-        var filtering = q || status || tag || folder;
+        var filtering = q || status || req || tag || folder;
         form.elements.shown.value = filtering ? shown + " of " + total + " datasets shown" : total + " datasets";
       }
       form.addEventListener("input", apply);
