@@ -7,7 +7,7 @@ typed fields of :class:`sitegen.report.dataset_view.DatasetView` (``v``, and ``r
 
 To add a section: write ``themes/default/templates/sections/<name>.html`` (start from a neighbour; it decides
 itself whether it has something to say, e.g. ``{% if r.claims %}``), then add ``Section("<name>", ...)`` to
-:data:`DATASET_SECTIONS` where it belongs on the page. If it needs a value the report does not hold as it is,
+:data:`DATASET_SECTIONS` where it belongs on the page (with the purposes it is for, if not all). If it needs a value the report does not hold as it is,
 add a typed field to ``DatasetView`` and compute it in ``dataset_view.view``. A user theme overrides one
 section by shipping a file of the same name in its own ``templates/sections/``.
 """
@@ -27,6 +27,7 @@ class Section:
 
     name: str
     shown: Shown = "fitted"
+    purposes: tuple[str, ...] = ()  # shown only for datasets of these purposes (sidecar ``purpose``); () for all
 
     @property
     def template(self) -> str:
@@ -40,12 +41,14 @@ DATASET_SECTIONS: tuple[Section, ...] = (
     Section("glance", "fitted"),  # the fit in one sentence and four figures
     Section("requirements", "fitted"),  # the declared acceptance criteria, met or not
     Section("notes", "fitted"),  # warnings and notes that no check below restates
+    Section("comparison", "fitted", ("comparison",)),  # what a method comparison leads with
+    Section("calibration", "fitted", ("calibration",)),  # what a calibration leads with (includes "inverse")
     Section("trust", "fitted"),  # the model checks and their verdicts
     Section("line", "fitted"),  # the line chart with its bands
     Section("estimates", "fitted"),  # coefficients, adjusted R², F, condition number
     Section("claims", "fitted"),  # declared hypotheses and their tests
     Section("lines", "fitted"),  # other lines through the same points
-    Section("calibration", "fitted"),  # inverse predictions, detection limits
+    Section("inverse", "fitted", ("relation", "comparison")),  # inverse predictions, detection limits
     Section("predictions", "fitted"),  # predicted values at chosen points
     Section("groups", "fitted"),  # one line per group
     Section("residuals", "fitted"),  # the four residual charts
@@ -56,7 +59,9 @@ DATASET_SECTIONS: tuple[Section, ...] = (
 )
 
 
-def shown_sections(failed: bool) -> tuple[Section, ...]:
-    """The sections of a page whose dataset failed (``failed``) or was fitted, in page order."""
+def shown_sections(failed: bool, purpose: str) -> tuple[Section, ...]:
+    """The sections of a page whose dataset failed (``failed``) or was fitted, for its purpose, in page order."""
     wanted = "failed" if failed else "fitted"
-    return tuple(s for s in DATASET_SECTIONS if s.shown in ("always", wanted))
+    return tuple(
+        s for s in DATASET_SECTIONS if s.shown in ("always", wanted) and (not s.purposes or purpose in s.purposes)
+    )
