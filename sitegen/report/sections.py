@@ -7,9 +7,10 @@ typed fields of :class:`sitegen.report.dataset_view.DatasetView` (``v``, and ``r
 
 To add a section: write ``themes/default/templates/sections/<name>.html`` (start from a neighbour; it decides
 itself whether it has something to say, e.g. ``{% if r.claims %}``), then add ``Section("<name>", ...)`` to
-:data:`DATASET_SECTIONS` where it belongs on the page (with the purposes it is for, if not all). If it needs a value the report does not hold as it is,
-add a typed field to ``DatasetView`` and compute it in ``dataset_view.view``. A user theme overrides one
-section by shipping a file of the same name in its own ``templates/sections/``.
+:data:`DATASET_SECTIONS` where it belongs on the page, with the purposes it is for if not all. If it needs a
+value the report does not hold as it is, add a typed field to ``DatasetView`` and compute it in
+``dataset_view.view``. A user theme overrides one section by shipping a file of the same name in its own
+``templates/sections/``.
 """
 
 from __future__ import annotations
