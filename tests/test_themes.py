@@ -360,7 +360,7 @@ def test_user_theme_replaces_one_section_and_keeps_the_others(user_theme_site: P
         assert "Slope and intercept, lab style" in html, page
         assert re.search(r"Intercept = -?[0-9.]+; ", html), page
         assert 'id="h-est"' not in html, page  # the default estimates section is gone
-        for kept in ("Can this line be trusted?", "Analysis of variance", "Downloads"):
+        for kept in ("Can this line be trusted?", "Where the variation in", "Downloads"):
             assert kept in html, (page, kept)
 
 
@@ -392,10 +392,10 @@ def test_static_images_are_written_and_offered(tmp_path: Path) -> None:
     svgs = sorted(p.name for p in folder.glob("chart-*.svg"))
     assert svgs == [
         "chart-fit.svg",
-        "chart-leverage.svg",
-        "chart-qq.svg",
-        "chart-residual-fitted.svg",
-        "chart-scale-location.svg",
+        "chart-pull.svg",
+        "chart-residual-by-x.svg",
+        "chart-residual-order.svg",
+        "chart-shape.svg",
     ]
     for name in svgs:
         text = (folder / name).read_text(encoding="utf-8")

@@ -13,7 +13,10 @@ from typing import Any
 
 from sitegen.model import FitReport, Message, check_warning
 from sitegen.report import fmt
+from sitegen.report.charts import influence_limit
 from sitegen.report.sections import Section, shown_sections
+from sitegen.report.variation import Part as VariationPart
+from sitegen.report.variation import parts
 
 _DESCRIBED = {
     "fit.json": "every number on this page, at full precision",
@@ -30,10 +33,12 @@ _DESCRIBED = {
 }
 _CHART_NAMES = {
     "chart-fit.svg": "the line and its bands",
-    "chart-residual-fitted.svg": "residuals against fitted values",
-    "chart-scale-location.svg": "scatter along the line",
-    "chart-qq.svg": "normal Q–Q plot",
-    "chart-leverage.svg": "residuals against leverage",
+    "chart-residual-by-x.svg": "residuals across the range of x",
+    "chart-residual-by-fitted.svg": "residuals across the fitted values",
+    "chart-residual-percent.svg": "residuals in percent of the fitted value",
+    "chart-residual-order.svg": "residuals in CSV row order",
+    "chart-shape.svg": "shape of the residuals' scatter",
+    "chart-pull.svg": "each row's pull on the line",
 }
 
 
@@ -83,6 +88,9 @@ class DatasetView:
     sample: SampleNote | None
     x_label: str
     fit_caption: str
+    resid_unit: str  # the unit of the residuals (the response's), or ""
+    pull_limit: float | None  # the limit the influence check uses, drawn on the pull chart
+    variation: tuple[VariationPart, ...]  # the analysis of variance, read from the top
     cutoffs: Mapping[str, float]
     downloads: tuple[Download, ...]
     prev: Neighbour | None
@@ -136,8 +144,11 @@ def _fit_sentence(r: FitReport) -> str:
             f"R² = {fmt.rsquared(r.r_squared)}, measured about zero because the model has no intercept "
             "(it cannot be compared with the R² of a model that has one)"
         )
+    y_unit = dict(r.units).get(r.response, "")
     fit_part = (
-        f"{share}, and the points scatter about it with a residual standard error of {fmt.num(r.residual_std_error)}"
+        f"{share}, and the points scatter about it by {fmt.num(r.residual_std_error)}"
+        + (f" {y_unit}" if y_unit else "")
+        + " (the typical distance of a row from the line)"
     )
     chart = r.chart
     term = r.compare_term
@@ -216,7 +227,7 @@ def view(
         f"(darker) and prediction band for single readings (lighter)"
         + (", the line of equality y = x (where the methods would agree)" if r.purpose == "comparison" else "")
         + (", and the other lines listed below" if r.lines else "")
-        + ("; flagged rows are drawn as larger triangles." if r.flagged else ".")
+        + ("; flagged rows are drawn as larger squares." if r.flagged else ".")
     )
     has_line_chart = "fit" in charts
     return DatasetView(
@@ -234,6 +245,9 @@ def view(
         sample=_sample(r, has_line_chart),
         x_label=x_label,
         fit_caption=fit_caption,
+        resid_unit=dict(r.units).get(r.chart.y, "") if r.chart else "",
+        pull_limit=influence_limit(r) if not failed else None,
+        variation=tuple(parts(r)) if not failed else (),
         cutoffs=dict(r.cutoffs),
         downloads=downloads(r, files),
         prev=prev,

@@ -96,6 +96,7 @@ def environment(theme: Theme) -> jinja2.Environment:
         "num": fmt.num,
         "integer": fmt.integer,
         "pvalue": fmt.pvalue,
+        "p_phrase": fmt.p_phrase,
         "rsq": fmt.rsquared,
         "level": fmt.level,
         "percent": fmt.percent,
