@@ -32,7 +32,15 @@ from sitegen.model import (
     Prediction,
     check_warning,
 )
-from sitegen.purposes import CalibrationResults, ComparisonResults, calibration, comparison, passing_bablok_line
+from sitegen.purposes import (
+    CalibrationResults,
+    ComparisonResults,
+    calibration,
+    comparison,
+    comparison_bias,
+    passing_bablok_line,
+    plain_response,
+)
 from sitegen.requirements import Evidence
 from sitegen.spec import DatasetSpec
 from sitegen.stats.calibration import detection_limits, inverse_predict
@@ -43,6 +51,7 @@ from sitegen.stats.influence import Influence, PointFlags, flag_points, influenc
 from sitegen.stats.lines import alternative_lines, explain_lines
 from sitegen.stats.ols import OlsFit, bands
 from sitegen.stats.robust import hc3_cov
+from sitegen.table import to_float
 
 FloatArray = NDArray[np.float64]
 MAX_CHART_POINTS = 5000  # above this, charts draw a sample plus every flagged point, and a density
@@ -157,7 +166,7 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
     predictions = _predictions(design, fit, spec, messages)
     groups = _groups(design, fit, spec, line_x, messages, weights=weights)
     chart = _chart(design, fit, infl, flags, spec)
-    compared = comparison(design, spec, line_x, lines, level=fit.level, messages=messages)
+    compared = comparison(design, spec, line_x, lines, level=fit.level, messages=messages, weighted=weighted)
     calibrated = CalibrationResults()
     if line_x is not None:
         beta = (float(fit.beta[0]), float(fit.beta[1]))
@@ -302,7 +311,7 @@ def _calibration(
 ) -> tuple[tuple[Calibration, ...], DetectionLimits | None]:
     if not spec.calibrate:
         return (), None
-    if x_col is None or weighted or design.response not in design.variables:
+    if x_col is None or weighted or not plain_response(design):
         messages.append(
             Message(
                 "warning",
@@ -331,10 +340,31 @@ def _calibration(
     except (FitError, ValueError, ArithmeticError) as exc:  # e.g. overflow for responses near 1e308
         messages.append(Message("warning", f"inverse prediction could not be computed: {exc}"))
         return (), None
+    lo, hi = float(x.min()), float(x.max())
     cal = tuple(
-        Calibration(c.response, c.readings, c.estimate, c.std_error, c.ci_low, c.ci_high, c.method, c.bounded)
+        Calibration(
+            c.response,
+            c.readings,
+            c.estimate,
+            c.std_error,
+            c.ci_low,
+            c.ci_high,
+            c.method,
+            c.bounded,
+            extrapolated=math.isfinite(c.estimate) and not lo <= c.estimate <= hi,
+        )
         for c in found
     )
+    beyond = [c for c in cal if c.extrapolated]
+    if beyond:
+        listed = ", ".join(f"{c.response:g} → {c.estimate:.4g}" for c in beyond[:5])
+        messages.append(
+            Message(
+                "warning",
+                f"extrapolation: {len(beyond)} inverse prediction(s) lie outside the range of {x_col} in the data "
+                f"({lo:g} to {hi:g}): {listed}; the line is not known to hold there",
+            )
+        )
     if any(not c.bounded for c in cal):
         messages.append(
             Message(
@@ -398,6 +428,17 @@ def _predictions(design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[
     if not rows:
         return ()
     b = bands(fit, X_new)
+    ranges = _ranges(design, names)
+    outside = [_outside(row, ranges) for row in rows]
+    beyond = [text for found in outside for text in found]
+    if beyond:
+        messages.append(
+            Message(
+                "warning",
+                f"extrapolation: {len(beyond)} predict_at value(s) lie outside the range of the data: "
+                f"{'; '.join(beyond[:5])}; the line is not known to hold there",
+            )
+        )
     return tuple(
         Prediction(
             tuple(sorted((k, float(v)) for k, v in row.items())),
@@ -407,9 +448,33 @@ def _predictions(design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[
             float(b.mean_high[i]),
             float(b.pred_low[i]),
             float(b.pred_high[i]),
+            extrapolated=bool(outside[i]),
         )
         for i, row in enumerate(rows)
     )
+
+
+def _ranges(design: Design, names: list[str]) -> dict[str, tuple[float, float]]:
+    """(lowest, highest) of each numeric column named, over the rows fitted."""
+    out: dict[str, tuple[float, float]] = {}
+    for name in names:
+        if name in design.data:
+            values = to_float(design.data[name])[0]
+            values = values[np.isfinite(values)]
+            if values.size:
+                out[name] = (float(values.min()), float(values.max()))
+    return out
+
+
+def _outside(row: dict[str, Any], ranges: dict[str, tuple[float, float]]) -> list[str]:
+    """The values of one predict_at entry outside the data's range, described."""
+    found = []
+    for name, value in row.items():
+        if name in ranges and isinstance(value, int | float) and not isinstance(value, bool):
+            lo, hi = ranges[name]
+            if not lo <= float(value) <= hi:
+                found.append(f"{name} = {float(value):g} (data {lo:g} to {hi:g})")
+    return found
 
 
 def _groups(
@@ -613,8 +678,11 @@ def _observations(
     return Observations(tuple(cols), tuple(cols.values()))
 
 
-def acceptance_evidence(design: Design, fit: OlsFit, spec: DatasetSpec) -> Evidence:
+def acceptance_evidence(
+    design: Design, fit: OlsFit, spec: DatasetSpec, *, lines: tuple[AltLine, ...] = (), weighted: bool = False
+) -> Evidence:
     """Standards read back and bias at the ``max_bias`` levels, for the criteria that ask for them."""
+    from sitegen.stats.acceptance import BiasAt as AcceptedBias  # noqa: PLC0415
     from sitegen.stats.acceptance import bias_at, read_back  # noqa: PLC0415
 
     req = spec.requirements
@@ -641,10 +709,18 @@ def acceptance_evidence(design: Design, fit: OlsFit, spec: DatasetSpec) -> Evide
             bias_reason = "the bias (fitted y − x) needs a one-predictor model of an untransformed response"
         else:
             at = np.asarray(req.max_bias.at, dtype=float)
-            try:
-                X_at = design_for(design, {x_col: at})
-            except DatasetError as exc:
-                X_at, bias_reason = None, f"the model cannot be evaluated at those levels ({exc})"
-            if X_at is not None:
-                bias = bias_at(fit, X_at, at)
+            if spec.purpose == "comparison" and line_x is not None and not weighted:
+                # A comparison's bias comes from the line its page recommends, as in fit.json's "bias".
+                found_bias, bias_reason = comparison_bias(
+                    design, spec, line_x, lines, levels=tuple(at.tolist()), level=fit.level
+                )
+                if found_bias is not None:
+                    bias = tuple(AcceptedBias(b.at, b.estimate, b.ci_low, b.ci_high) for b in found_bias)
+            else:
+                try:
+                    X_at = design_for(design, {x_col: at})
+                except DatasetError as exc:
+                    X_at, bias_reason = None, f"the model cannot be evaluated at those levels ({exc})"
+                if X_at is not None:
+                    bias = bias_at(fit, X_at, at)
     return Evidence(found, found_reason, bias, bias_reason, x_range)
