@@ -43,7 +43,7 @@ if TYPE_CHECKING:
     from sitegen.report.pages import SiteContext
 
 LIBRARIES = ("numpy", "scipy", "pandas", "patsy", "statsmodels")
-RENDER_LIBRARIES = ("altair", "jinja2", "markdown-it-py", "vl-convert-python", "openpyxl")
+RENDER_LIBRARIES = ("altair", "jinja2", "markdown-it-py", "vl-convert-python")
 Progress = Callable[[int, int, str], None]
 
 
