@@ -843,10 +843,3 @@ def _with_sha(report: FitReport, sha: str) -> FitReport:
     from dataclasses import replace  # noqa: PLC0415
 
     return report if report.input_sha256 or not sha else replace(report, input_sha256=sha)
-
-
-def load_reports(site: Path) -> list[FitReport]:
-    """Every dataset report of a built site (for tools that read a site)."""
-    from sitegen.model import from_json  # noqa: PLC0415
-
-    return [from_json(p.read_text(encoding="utf-8")) for p in sorted((site / "datasets").glob("*/fit.json"))]

@@ -373,6 +373,14 @@ class FitReport:
     requirements: tuple[Requirement, ...] = ()
     residual_sd_y: float | None = None  # weighted fits: the scatter of the plain residuals, in y units
 
+    def first_message(self, *levels: Level) -> Message | None:
+        """The first message of the first of ``levels`` that has one (e.g. the first error, else warning)."""
+        for level in levels:
+            for m in self.messages:
+                if m.level == level:
+                    return m
+        return None
+
     def coefficient(self, term: str) -> Coefficient | None:
         """The named term's coefficient, if the model has it."""
         return next((c for c in self.coefficients if c.term == term), None)

@@ -13,7 +13,7 @@ from typing import Any
 
 from sitegen.model import FitReport, Message, check_warning
 from sitegen.report import fmt
-from sitegen.report.charts import influence_limit
+from sitegen.report.charts import axis_label, influence_limit
 from sitegen.report.sections import Section, shown_sections
 from sitegen.report.variation import Part as VariationPart
 from sitegen.report.variation import parts
@@ -95,13 +95,6 @@ class DatasetView:
     downloads: tuple[Download, ...]
     prev: Neighbour | None
     next: Neighbour | None
-
-
-def axis_label(column: str | None, units: Mapping[str, str]) -> str:
-    """A column's name with its unit, for axes and captions."""
-    if not column:
-        return "x"
-    return f"{column} ({units[column]})" if column in units else column
 
 
 def sentence(r: FitReport) -> str:

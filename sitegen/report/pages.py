@@ -250,11 +250,8 @@ def _first_problem(r: FitReport) -> str:
     """The index's note under a dataset: unmet requirements first, then the first error or warning."""
     unmet = unmet_words(r)
     lead = f"Requirements not met: {unmet}." if unmet else ""
-    for level in ("error", "warning"):
-        for m in r.messages:
-            if m.level == level:
-                return f"{lead} {m.text}".strip()
-    return lead
+    first = r.first_message("error", "warning")
+    return f"{lead} {first.text}".strip() if first else lead
 
 
 def render_dataset(

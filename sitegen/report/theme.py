@@ -55,7 +55,7 @@ def _read_theme_toml(folder: Path, shown: str) -> dict[str, Any]:
     path = folder / "theme.toml"
     if not os.path.lexists(path):
         return {}
-    import tomllib  # noqa: PLC0415 - only a theme of the user's own has this file
+    import tomllib  # noqa: PLC0415 - on the first theme.toml read (the default theme has one)
 
     try:
         return tomllib.loads(read_inside(path, folder, where="theme folder").decode("utf-8"))
