@@ -31,6 +31,7 @@ from sitegen.discover import SITE_CONFIG_NAME, DatasetSource, discover
 from sitegen.errors import INTERNAL_ERROR_WORDS, ConfigError, OutsideFolderError
 from sitegen.jsontext import json_text
 from sitegen.publish import build_folder, check_output_folder, copy_new, marker_intact, swap_in
+from sitegen.report.outputs import is_data_file, site_names
 from sitegen.report.theme import Theme, load_theme
 from sitegen.spec import SiteConfig, read_site_config
 from sitegen.versions import library_versions
@@ -450,11 +451,6 @@ def _files_by_folder(body: dict[str, Any]) -> dict[str, dict[str, Any]]:
     return out
 
 
-def _is_data_file(name: str) -> bool:
-    """A dataset folder's download (not its page or the page's chart images)."""
-    return name != "index.html" and not (name.startswith("chart-") and name.endswith(".svg"))
-
-
 @dataclass(frozen=True, slots=True)
 class _Spare:
     """The build folder as the build before the previous one left it (see :mod:`sitegen.publish`)."""
@@ -608,7 +604,7 @@ class _Build:
             report = self._stored_light(entry, new, src.slug, self.spare.entries[src.slug])
             if report is not None:
                 self.kept.add(src.slug)
-                return report, tuple(n for n in sorted(self.spare.folders[src.slug]) if _is_data_file(n))
+                return report, tuple(n for n in sorted(self.spare.folders[src.slug]) if is_data_file(n))
         old = self.prev.site / "datasets" / src.slug
         report = self._stored_light(entry, old, src.slug, entry)
         if report is None:
@@ -622,7 +618,7 @@ class _Build:
             return None  # a file of its folder is missing or changed since the previous build wrote it
         self.checked.add(src.slug)
         new.mkdir(parents=True, exist_ok=True)
-        files = [name for name in here if "/" not in name and _is_data_file(name)]  # sorted
+        files = [name for name in here if "/" not in name and is_data_file(name)]  # sorted
         for name in files:
             copy_new(old / name, new / name)
         return report, tuple(files)
@@ -716,7 +712,7 @@ class _Build:
             if written is not None and (written.prev, written.next) == (prev_r, next_r):
                 in_place[src.slug] = written_files  # written by the worker that fitted it, with the right neighbours
             elif src.slug in self.kept and self.spare.entries[src.slug].get("page_key") == key:
-                in_place[src.slug] = tuple(n for n in self.spare.folders[src.slug] if not _is_data_file(n))
+                in_place[src.slug] = tuple(n for n in self.spare.folders[src.slug] if not is_data_file(n))
             elif (
                 src.slug in self.checked  # its published folder was found as recorded
                 and old_page is not None
@@ -756,7 +752,7 @@ class _Build:
     def _page_names(self, slug: str) -> tuple[str, ...]:
         names = ["index.html"]
         if self.config.static_images:  # the page's chart images come with it
-            names += [n for n in self.then_files.get(slug, {}) if n != "index.html" and not _is_data_file(n)]
+            names += [n for n in self.then_files.get(slug, {}) if n != "index.html" and not is_data_file(n)]
         return tuple(names)
 
     def _copy_page(self, old: Path, new: Path) -> bool:
@@ -772,8 +768,6 @@ class _Build:
         """Remove from the build folder what the spare held and this site does not: datasets that are
         gone, files a dataset no longer has, site files of other versions."""
         from sitegen.publish import MARKER  # noqa: PLC0415
-        from sitegen.report.files import SUMMARY_FILES  # noqa: PLC0415
-        from sitegen.report.history import HISTORY_FILES  # noqa: PLC0415
 
         folders = self.work / "datasets"
         for slug, names in self.spare.folders.items():
@@ -784,7 +778,7 @@ class _Build:
             for name in names:
                 if name not in keep:
                     _remove(folders / slug / name)
-        top = {"datasets", "assets", "index.html", "build.json", ".owner", MARKER, *SUMMARY_FILES, *HISTORY_FILES}
+        top = {"datasets", "assets", ".owner", MARKER, *site_names()}
         with os.scandir(self.work) as entries:
             for entry in entries:
                 if entry.name not in top:

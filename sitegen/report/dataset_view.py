@@ -14,32 +14,10 @@ from typing import Any
 from sitegen.model import FitReport, Message, check_warning
 from sitegen.report import fmt
 from sitegen.report.charts import axis_label, influence_limit
+from sitegen.report.outputs import CHART_IMAGES, OUTPUT_FILES
 from sitegen.report.sections import Section, shown_sections
 from sitegen.report.variation import Part as VariationPart
 from sitegen.report.variation import parts
-
-_DESCRIBED = {
-    "fit.json": "every number on this page, at full precision",
-    "coefficients.csv": "estimates with standard errors, tests and intervals",
-    "observations.csv": "every row: data, fitted value, intervals and influence measures",
-    "anova.csv": "the analysis of variance table",
-    "lines.csv": "the other lines with their intervals",
-    "calibration.csv": "inverse predictions with their intervals",
-    "predictions.csv": "predicted values with their intervals",
-    "agreement.csv": "the difference analysis: mean difference, limits of agreement and their intervals",
-    "bias.csv": "the bias at each decision level with its interval",
-    "readback.csv": "every calibration standard read back from the line",
-    "weighting.csv": "the weightings compared and how well each reads the standards back",
-}
-_CHART_NAMES = {
-    "chart-fit.svg": "the line and its bands",
-    "chart-residual-by-x.svg": "residuals across the range of x",
-    "chart-residual-by-fitted.svg": "residuals across the fitted values",
-    "chart-residual-percent.svg": "residuals in percent of the fitted value",
-    "chart-residual-order.svg": "residuals in CSV row order",
-    "chart-shape.svg": "shape of the residuals' scatter",
-    "chart-pull.svg": "each row's pull on the line",
-}
 
 
 @dataclass(frozen=True, slots=True)
@@ -169,21 +147,23 @@ def _fit_sentence(r: FitReport) -> str:
 
 
 def downloads(r: FitReport, files: Sequence[str]) -> tuple[Download, ...]:
-    """The dataset's files worth offering, described, in page order."""
-    out = [Download(name, name, what) for name, what in _DESCRIBED.items() if name in files]
-    if "tables.xlsx" in files:
-        out.append(Download("tables.xlsx", "tables.xlsx", "the tables above in one workbook, a sheet each"))
+    """The dataset's files worth offering, described, in the order of the table of output files."""
+    out: list[Download] = []
     original = r.source.rsplit("/", 1)[-1]
-    out += [
-        Download(f, f"original file ({original})", "the data file exactly as delivered")
-        for f in files
-        if f.startswith("source-")
-    ]
-    out += [
-        Download(f, f, f"static image of the chart: {_CHART_NAMES[f]} (for print and mail)")
-        for f in files
-        if f in _CHART_NAMES
-    ]
+    for row in OUTPUT_FILES:
+        if row.scope != "dataset" or not row.description:
+            continue
+        for name in files if row.pattern else [row.name] if row.name in files else []:
+            if not row.matches(name):
+                continue
+            if row.name == "source-":
+                out.append(Download(name, f"original file ({original})", row.description))
+            elif row.name == "chart-":
+                if name in CHART_IMAGES:
+                    what = f"static image of the chart: {CHART_IMAGES[name]} (for print and mail)"
+                    out.append(Download(name, name, what))
+            else:
+                out.append(Download(name, name, row.description))
     return tuple(out)
 
 
