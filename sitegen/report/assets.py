@@ -101,9 +101,21 @@ def write_bundle(out: Path) -> tuple[str, str]:
     return (BUNDLE, BUNDLE_VERSION)
 
 
-#: What a theme kept in the data folder may publish: style sheets, pictures and fonts (no scripts, no pages,
-#: no SVG, which can hold scripts when opened by itself).
-UNTRUSTED_STATIC = (".css", ".png", ".jpg", ".jpeg", ".gif", ".webp", ".ico", ".woff", ".woff2", ".ttf", ".otf")
+#: What a theme kept in the data folder may publish: style sheets, pictures and fonts (no scripts, no pages).
+UNTRUSTED_STATIC = (
+    ".css",
+    ".png",
+    ".jpg",
+    ".jpeg",
+    ".gif",
+    ".webp",
+    ".svg",
+    ".ico",
+    ".woff",
+    ".woff2",
+    ".ttf",
+    ".otf",
+)
 
 
 def write_static(out: Path, theme: Theme) -> list[str]:
