@@ -25,6 +25,7 @@ from numpy.typing import ArrayLike, NDArray
 from sitegen import __version__
 from sitegen.cache import read_record, write_record
 from sitegen.errors import DataFileError, FitError, FormulaError
+from sitegen.stats import ext
 from sitegen.table import Table, as_table, from_columns, to_float
 
 #: numpy functions a formula may call, as ``np.NAME`` or bare ``NAME``.
@@ -85,8 +86,8 @@ class Design:
     variables: tuple[str, ...]  # data columns the model uses, in formula order
     data: Table  # used rows of `variables` (+ weights/group columns), with their CSV rows
     design_info: Any  # a Plan (simple designs) or patsy's DesignInfo of the right-hand side, for predictions
-    X_ext: NDArray[np.longdouble]  # the same design evaluated in extended precision
-    y_ext: NDArray[np.longdouble]
+    X_ext: Any  # the same design evaluated in extended precision (long double or ext.DD)
+    y_ext: Any
     simple: bool = False  # every term is a product of numeric expressions: evaluated without patsy
 
 
@@ -420,7 +421,7 @@ def build_design(formula: str, frame: Table | Any, name: str, extra: tuple[str, 
             data = data.assign(col, table[col][keep])
     plan = _plan(formula, used)
     if plan is not None:
-        evaluated = _evaluate_design(plan, data, np.longdouble)
+        evaluated = _evaluate_design(plan, data, _ext_dtype())
         if evaluated is not None:
             return _finish_simple(
                 plan,
@@ -588,29 +589,45 @@ def design_for(design: Design, new: Mapping[str, ArrayLike] | Any) -> NDArray[np
 _STATEFUL = ("center", "standardize", "scale")
 
 
-def _evaluate(code: str, namespace: dict[str, Any]) -> NDArray[np.longdouble]:
+def _ext_dtype() -> Any:
+    """The extended type designs are evaluated in: long double, or double-double where long
+    double is a plain double (or when forced; see :mod:`sitegen.stats.ext`)."""
+    return ext.DOUBLE_DOUBLE if ext.current() == ext.DOUBLE_DOUBLE else np.longdouble
+
+
+def _is_dd(dtype: Any) -> bool:
+    return isinstance(dtype, str) and dtype == ext.DOUBLE_DOUBLE
+
+
+def _evaluate(code: str, namespace: dict[str, Any]) -> Any:
     # The code passed _FactorChecker: only column names, numbers, arithmetic and
     # whitelisted numpy functions can appear, and builtins are withheld.
     value = eval(compile(code, "<formula>", "eval"), {"__builtins__": {}}, namespace)  # noqa: S307
-    return np.broadcast_to(np.asarray(value, dtype=np.longdouble), (len(namespace["__rows__"]),))
+    shape = (len(namespace["__rows__"]),)
+    if isinstance(value, ext.DD):
+        return ext.broadcast_to(value, shape)
+    if namespace.get("__dd__"):
+        return ext.DD(np.broadcast_to(np.asarray(value, dtype=np.float64), shape))
+    return np.broadcast_to(np.asarray(value, dtype=np.longdouble), shape)
 
 
 def _extended(
     x_info: Any, y_info: Any, data: Table, X: NDArray[np.float64], y: NDArray[np.float64]
-) -> tuple[NDArray[np.longdouble], NDArray[np.longdouble]]:
+) -> tuple[Any, Any]:
     """Re-evaluate the design in extended precision so powers such as x**10 keep their digits.
 
     Falls back to the float64 design when a term is categorical or uses a
     stateful transform, or when the two evaluations disagree beyond rounding.
     """
-    fallback = X.astype(np.longdouble), y.astype(np.longdouble)
+    dtype = _ext_dtype()
+    fallback = (ext.DD(X), ext.DD(y)) if _is_dd(dtype) else (X.astype(np.longdouble), y.astype(np.longdouble))
     codes = [f.code for t in x_info.terms for f in t.factors] + [f.code for t in y_info.terms for f in t.factors]
     if any(s in code for code in codes for s in _STATEFUL) or X.shape[1] != len(x_info.terms):
         return fallback
     plan = _plan_of(x_info, y_info)
     if plan is None:
         return fallback
-    evaluated = _evaluate_design(plan, data, np.longdouble)
+    evaluated = _evaluate_design(plan, data, dtype)
     if evaluated is None:
         return fallback
     X_ext, y_ext = evaluated
@@ -735,8 +752,9 @@ def _same(a: NDArray[Any], b: NDArray[Any]) -> bool:
 
 
 def _namespace(table: Table, dtype: Any) -> dict[str, Any]:
+    dd = _is_dd(dtype)
     namespace: dict[str, Any] = {
-        name: values.astype(dtype)
+        name: ext.DD(values.astype(np.float64)) if dd else values.astype(dtype)
         for name, values in zip(table.names, table.columns, strict=True)
         if values.dtype.kind in "fiub"
     }
@@ -746,6 +764,7 @@ def _namespace(table: Table, dtype: Any) -> dict[str, Any]:
         "I": lambda v: v,
         "Q": lambda name: namespace[name],
         "__rows__": table.rows,
+        "__dd__": dd,
     }
     namespace |= {f: getattr(np, f) for f in SAFE_FUNCTIONS}
     return namespace
@@ -758,12 +777,14 @@ def _evaluate_terms(x_terms: tuple[tuple[str, ...], ...], table: Table, dtype: A
         with np.errstate(all="ignore"):
             cols = []
             for factors in x_terms:
-                col = np.ones(len(table), dtype=dtype)
+                col = ext.DD(np.ones(len(table))) if _is_dd(dtype) else np.ones(len(table), dtype=dtype)
                 for code in factors:
                     col = col * _evaluate(code, namespace).astype(dtype)
                 cols.append(col)
     except (TypeError, ValueError, KeyError, NameError, ArithmeticError, AttributeError):
         return None
+    if _is_dd(dtype):
+        return ext.column_stack(cols) if cols else ext.DD(np.empty((len(table), 0)))
     return np.column_stack(cols) if cols else np.empty((len(table), 0), dtype=dtype)
 
 
@@ -802,8 +823,8 @@ def _finish_simple(
     terms = plan.x_names
     _check_constant_terms(X, terms, intercept, name)
     return Design(
-        X_ext=np.ascontiguousarray(X_ext),
-        y_ext=np.ascontiguousarray(y_ext),
+        X_ext=X_ext if isinstance(X_ext, ext.DD) else np.ascontiguousarray(X_ext),
+        y_ext=y_ext if isinstance(y_ext, ext.DD) else np.ascontiguousarray(y_ext),
         X=np.ascontiguousarray(X),
         y=y,
         terms=terms,
