@@ -32,13 +32,13 @@ from sitegen.model import (
 )
 from sitegen.spec import DatasetSpec
 from sitegen.stats.calibration import detection_limits, inverse_predict
-from sitegen.stats.checks import model_checks
+from sitegen.stats.checks import Precise, model_checks
 from sitegen.stats.claims import check_claims
 from sitegen.stats.distributions import norm_ppf
 from sitegen.stats.groups import compare_groups
 from sitegen.stats.influence import Influence, PointFlags, flag_points, influence
 from sitegen.stats.lines import alternative_lines, explain_lines
-from sitegen.stats.ols import OlsFit, bands
+from sitegen.stats.ols import OlsFit, bands, row_bands
 from sitegen.stats.robust import hc3_cov
 
 FloatArray = NDArray[np.float64]
@@ -113,6 +113,7 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
         infl=infl,
         alpha=1 - fit.level,
         weights=weights,
+        precise=Precise(design.X_ext, fit.resid_ext, fit.y_ext - fit.resid_ext, fit.q, fit.xtx_inv, fit.condition),
     )
     diagnostics = tuple(
         Diagnostic(
@@ -130,6 +131,8 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
     for d in diagnostics:
         if d.flag:
             messages.append(Message("warning", f"{d.label}: {d.text} {d.advice}".strip()))
+    if weights is not None:
+        messages.append(Message("note", reading_weight_note(spec)))
     robust_se = None
     if spec.robust:
         cov = hc3_cov(Xw, fit.resid * sw, np.asarray(infl.leverage), fit.xtx_inv, xtx_root=fit.xtx_root)
@@ -144,10 +147,10 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
     line_x = straight_line(design)
     lines, lines_text = _lines(design, fit, spec, line_x, messages)
     calibration, limits = _calibration(design, fit, spec, line_x, messages)
-    predictions = _predictions(design, fit, spec, messages)
+    predictions = _predictions(design, fit, spec, messages, weights)
     groups = _groups(design, fit, spec, line_x, messages, weights=weights)
-    chart = _chart(design, fit, infl, flags, spec)
-    observations = _observations(design, fit, infl, flags, weights)
+    chart = _chart(design, fit, infl, flags, spec, weights)
+    observations = _observations(design, fit, infl, flags, weights, spec.reading_weight)
     return Derived(
         messages=messages,
         diagnostics=diagnostics,
@@ -170,6 +173,21 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
         chart=chart,
         observations=observations,
     )
+
+
+def reading_weight_note(spec: DatasetSpec) -> str:
+    """The sentence that says which weight a new reading has in the prediction intervals."""
+    w = spec.reading_weight
+    return (
+        f"Prediction intervals (the chart's band, the predictions and observations.csv) are for one new "
+        f"reading of weight {w:g}, whose variance is σ²/{w:g}; set 'reading_weight' in the sidecar "
+        "to the weight a new reading will have."
+    )
+
+
+def _new_weights(spec: DatasetSpec, weights: FloatArray | None, k: int) -> FloatArray | None:
+    """Weights of k new readings: the sidecar's reading_weight for a weighted fit, else none."""
+    return None if weights is None else np.full(k, float(spec.reading_weight))
 
 
 def _reasons(flags: PointFlags, i: int) -> tuple[str, ...]:
@@ -311,7 +329,9 @@ def _column(values: list[Any]) -> NDArray[Any]:
     return np.array(values, dtype=object)
 
 
-def _predictions(design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[Message]) -> tuple[Prediction, ...]:
+def _predictions(
+    design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[Message], weights: FloatArray | None
+) -> tuple[Prediction, ...]:
     if not spec.predict_at:
         return ()
     first = spec.predict_at[0]
@@ -356,7 +376,7 @@ def _predictions(design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[
     X_new = X_new[defined]
     if not rows:
         return ()
-    b = bands(fit, X_new)
+    b = bands(fit, X_new, _new_weights(spec, weights, len(X_new)))
     return tuple(
         Prediction(
             tuple(sorted((k, float(v)) for k, v in row.items())),
@@ -437,7 +457,9 @@ def _clean(values: FloatArray) -> tuple[float | None, ...]:
     return tuple(v if math.isfinite(v) else None for v in arr.tolist())
 
 
-def _chart(design: Design, fit: OlsFit, infl: Influence, flags: PointFlags, spec: DatasetSpec) -> ChartData:
+def _chart(  # noqa: PLR0917 - the fit and what was derived from it
+    design: Design, fit: OlsFit, infl: Influence, flags: PointFlags, spec: DatasetSpec, weights: FloatArray | None
+) -> ChartData:
     x_col = single_predictor(design)
     idx, sampled = _chart_sample(fit.n, flags.rows, np.asarray(infl.cooks_distance))
     std = np.asarray(infl.standardized_residual)
@@ -473,7 +495,7 @@ def _chart(design: Design, fit: OlsFit, infl: Influence, flags: PointFlags, spec
         except DatasetError:
             Xg = None
         if Xg is not None and Xg.shape[1] == len(fit.terms):
-            b = bands(fit, Xg)
+            b = bands(fit, Xg, _new_weights(spec, weights, len(Xg)))
             band_cols = ("x", "fit", "mean_low", "mean_high", "pred_low", "pred_high")
             band = tuple(
                 zip(
@@ -510,10 +532,15 @@ def _density(x: FloatArray, y: FloatArray) -> tuple[tuple[str, ...], tuple[tuple
     return ("x0", "x1", "y0", "y1", "count"), rows
 
 
-def _observations(
-    design: Design, fit: OlsFit, infl: Influence, flags: PointFlags, weights: FloatArray | None
+def _observations(  # noqa: PLR0917 - the fit and what was derived from it
+    design: Design,
+    fit: OlsFit,
+    infl: Influence,
+    flags: PointFlags,
+    weights: FloatArray | None,
+    reading_weight: float,
 ) -> Observations:
-    b = bands(fit, design.X, weights)
+    b = row_bands(fit, weights, reading_weight)
     cols: dict[str, NDArray[np.generic]] = {"row": design.rows}
     for v in design.variables:
         cols[v] = design.data[v].astype(float)

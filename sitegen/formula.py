@@ -571,7 +571,7 @@ def design_for(design: Design, new: Mapping[str, ArrayLike] | Any) -> NDArray[np
             raise FormulaError("prediction values do not fit the model: the model's columns need numbers") from exc
         cols = _evaluate_terms(design.design_info.x_terms, floats, np.float64)
         if cols is not None:
-            return cols
+            return np.asarray(cols, dtype=np.float64)
         missing = [v for v in design.variables if v not in columns]
         raise FormulaError(
             "prediction values do not fit the model" + (f": no value for {missing[-1]!r}" if missing else "")
@@ -611,9 +611,7 @@ def _evaluate(code: str, namespace: dict[str, Any]) -> Any:
     return np.broadcast_to(np.asarray(value, dtype=np.longdouble), shape)
 
 
-def _extended(
-    x_info: Any, y_info: Any, data: Table, X: NDArray[np.float64], y: NDArray[np.float64]
-) -> tuple[Any, Any]:
+def _extended(x_info: Any, y_info: Any, data: Table, X: NDArray[np.float64], y: NDArray[np.float64]) -> tuple[Any, Any]:
     """Re-evaluate the design in extended precision so powers such as x**10 keep their digits.
 
     Falls back to the float64 design when a term is categorical or uses a
@@ -770,14 +768,14 @@ def _namespace(table: Table, dtype: Any) -> dict[str, Any]:
     return namespace
 
 
-def _evaluate_terms(x_terms: tuple[tuple[str, ...], ...], table: Table, dtype: Any) -> NDArray[Any] | None:
+def _evaluate_terms(x_terms: tuple[tuple[str, ...], ...], table: Table, dtype: Any) -> Any:
     """The design columns of the terms over ``table``, or None when they cannot be evaluated here."""
     namespace = _namespace(table, dtype)
     try:
         with np.errstate(all="ignore"):
-            cols = []
+            cols: list[Any] = []
             for factors in x_terms:
-                col = ext.DD(np.ones(len(table))) if _is_dd(dtype) else np.ones(len(table), dtype=dtype)
+                col: Any = ext.DD(np.ones(len(table))) if _is_dd(dtype) else np.ones(len(table), dtype=dtype)
                 for code in factors:
                     col = col * _evaluate(code, namespace).astype(dtype)
                 cols.append(col)
@@ -788,7 +786,7 @@ def _evaluate_terms(x_terms: tuple[tuple[str, ...], ...], table: Table, dtype: A
     return np.column_stack(cols) if cols else np.empty((len(table), 0), dtype=dtype)
 
 
-def _evaluate_design(plan: Plan, table: Table, dtype: Any) -> tuple[NDArray[Any], NDArray[Any]] | None:
+def _evaluate_design(plan: Plan, table: Table, dtype: Any) -> tuple[Any, Any] | None:
     X = _evaluate_terms(plan.x_terms, table, dtype)
     if X is None:
         return None
@@ -804,7 +802,7 @@ def _evaluate_design(plan: Plan, table: Table, dtype: Any) -> tuple[NDArray[Any]
 def _finish_simple(
     plan: Plan,
     *,
-    evaluated: tuple[NDArray[Any], NDArray[Any]],
+    evaluated: tuple[Any, Any],
     data: Table,
     dropped: list[tuple[int, str]],
     intercept: bool,

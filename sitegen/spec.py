@@ -37,6 +37,7 @@ class DatasetSpec:
     readings: int = 1
     predict_at: tuple[tuple[tuple[str, float], ...], ...] | tuple[float, ...] = ()
     weights: str | None = None
+    reading_weight: float = 1.0  # the weight of one new reading in prediction intervals of a weighted fit
     robust: bool = False
     group: str | None = None
     compare: str | None = None
@@ -185,6 +186,7 @@ _KEYS: Mapping[str, Callable[[object], Any]] = {
     "readings": _readings,
     "predict_at": _predict_at,
     "weights": _opt_string,
+    "reading_weight": _positive,
     "robust": _boolean,
     "group": _opt_string,
     "compare": _opt_string,

@@ -261,7 +261,7 @@ class DD:
     def __array_ufunc__(self, ufunc: Any, method: str, *inputs: Any, **kwargs: Any) -> Any:
         if method != "__call__" or kwargs.get("out") is not None:
             return NotImplemented
-        ops = {
+        ops: dict[Any, Any] = {
             np.add: lambda a, b: DD.of(a) + b,
             np.subtract: lambda a, b: DD.of(a) - b,
             np.multiply: lambda a, b: DD.of(a) * b,

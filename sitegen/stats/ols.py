@@ -17,7 +17,7 @@ from numpy.typing import NDArray
 
 from sitegen.errors import FitError
 from sitegen.stats import distributions as dist
-from sitegen.stats.solver import LD, Ext, ops, solve
+from sitegen.stats.solver import Ext, ops, solve
 
 FloatArray = NDArray[np.float64]
 #: Residuals below this fraction of the (weighted) response are rounding residue of an exact
@@ -59,6 +59,8 @@ class OlsFit:
     has_intercept: bool
     beta_ext: Ext = None  # the coefficients in the solver's extended arithmetic
     root_ext: Ext = None  # W in the solver's extended arithmetic
+    resid_ext: Ext = None  # y − fitted in the solver's extended arithmetic (unweighted)
+    y_ext: Ext = None  # the response in the solver's extended arithmetic
 
 
 def _nan_div(a: float, b: float) -> float:
@@ -107,6 +109,7 @@ def fit_ols(
         # An exact fit: what is left is rounding, not scatter. SE 0, F infinite, and no
         # influence flags computed on noise (as NIST certifies for Wampler1/2).
         resid = np.zeros(n)
+        resid_ext = o.of(resid)
         fitted = o.f(y)
         ssr = 0.0
     w = o.of(np.ones(n) if weights is None else weights)
@@ -164,6 +167,8 @@ def fit_ols(
         has_intercept=has_intercept,
         beta_ext=sol.beta_ext,
         root_ext=sol.root_ext,
+        resid_ext=resid_ext,
+        y_ext=y,
     )
 
 

@@ -167,7 +167,7 @@ def _back_substitute(o: Ops, R: Ext, c: Ext) -> Ext:
     return b
 
 
-def _refine_augmented(
+def _refine_augmented(  # noqa: PLR0917 - the factorisation's pieces
     o: Ops, Xs: Ext, y: Ext, R: Ext, refl: list[Ext], b: Ext, *, steps: int = 4
 ) -> tuple[Ext, Ext]:
     """Refine the solution and residual together (Björck's augmented-system refinement).
@@ -204,10 +204,17 @@ def _check_rank(o: Ops, R: Ext, terms: tuple[str, ...]) -> None:
 
 
 def _condition(R: NDArray[np.float64], R_inv: NDArray[np.float64]) -> float:
-    """‖R‖₂ · ‖R⁻¹‖₂: both largest singular values, which float64 gets to full relative accuracy
-    (the smallest singular value of R itself would carry an error of ε·‖R‖, i.e. cond·ε relative)."""
-    big = np.linalg.svd(R, compute_uv=False)
-    inv = np.linalg.svd(R_inv, compute_uv=False)
+    """Condition number of the design with every column scaled to unit length.
+
+    With D the column norms of R (those of the design), it is ‖R D⁻¹‖₂ · ‖D R⁻¹‖₂: two largest
+    singular values, which float64 gets to full relative accuracy (the smallest singular value
+    of R D⁻¹ itself would carry an error of ε·‖R‖, i.e. cond·ε relative).
+    """
+    norms = np.linalg.norm(R, axis=0)
+    if not bool(np.all(norms > 0)):
+        return float("inf")
+    big = np.linalg.svd(R / norms, compute_uv=False)
+    inv = np.linalg.svd(R_inv * norms[:, None], compute_uv=False)
     if not (big.size and inv.size) or not np.isfinite(inv[0]):
         return float("inf")
     return float(big[0] * inv[0])
@@ -281,6 +288,29 @@ def solve(X: Any, y: Any, terms: tuple[str, ...]) -> Solution:
         resid_ext=r,
         root_ext=root,
     )
+
+
+def residual_ss(X: Any, y: Any, terms: tuple[str, ...]) -> float:
+    """The residual sum of squares of min ||y − Xb||, by the same scaled, refined solver.
+
+    For auxiliary regressions (test statistics) that need nothing else: the same
+    column scaling, extended-precision Householder QR, rank check and augmented
+    refinement as :func:`solve`, without the inverse, Q or condition number.
+    Raises :class:`FitError` for a rank-deficient design.
+    """
+    o = ops()
+    X, y = o.of(X), o.of(y)
+    p = X.shape[1]
+    norms_f = o.f(o.sqrt(o.colsum(X * X)))
+    if p == 0 or not bool(np.all(norms_f > 0)):
+        raise FitError("an auxiliary regression has a zero or missing column")
+    scale = o.of(np.exp2(-np.round(np.log2(norms_f))))
+    Xs = X * _row(o, scale)
+    R, refl = _householder(o, Xs.copy())
+    _check_rank(o, R, terms)
+    effects = _apply_qt(o, refl, y)[:p]
+    _, r = _refine_augmented(o, Xs, y, R, refl, _back_substitute(o, R, effects))
+    return float(o.f(o.dot(r, r)))
 
 
 def _row(o: Ops, v: Ext) -> Ext:
