@@ -26,6 +26,7 @@ from sitegen.formula import Design, assumed_formula, build_design
 from sitegen.load import LoadedTable, read_source, read_table
 from sitegen.model import AnovaLine, Coefficient, FitReport, Message, Status
 from sitegen.spec import DatasetSpec, Limits, read_sidecar
+from sitegen.stats import ext
 from sitegen.stats.ols import OlsFit, anova_table, fit_ols
 from sitegen.table import to_float
 
@@ -133,6 +134,9 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         level=spec.level,
         weights=weights,
     )
+    if ext.needs_double_double(fit.condition):  # badly conditioned: design and fit again in double-double
+        with ext.forced(ext.DOUBLE_DOUBLE):
+            return _fit(base, spec, table)
     messages = _spec_messages(spec, base.source[: -len(".csv")] + ".toml")
     if assumed:
         messages.append(

@@ -262,8 +262,6 @@ def _collinearity(out: Reference, X: list[list[Any]], *, intercept: bool) -> Non
         C = mp.matrix(k, k)
         for a in range(k):
             for b in range(a, k):
-                C[a, b] = C[b, a] = mp.fsum(
-                    (cols[a][i] - means[a]) * (cols[b][i] - means[b]) for i in range(n)
-                )
+                C[a, b] = C[b, a] = mp.fsum((cols[a][i] - means[a]) * (cols[b][i] - means[b]) for i in range(n))
         C_inv = mp.inverse(C)
         out.rows["vif"] = [float(C_inv[a, a] * C[a, a]) for a in range(k)]

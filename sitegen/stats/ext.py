@@ -15,7 +15,8 @@ one small set of operations over two kinds of arrays:
   precision", Numer. Math. 18, 1971; the add, multiply, divide and square-root
   formulas follow Y. Hida, X. S. Li and D. H. Bailey, "Library for double-double
   and quad-double arithmetic", 2007). numpy has no vectorised fused multiply-add,
-  hence the split; it is exact unless a factor exceeds about 1e300 in magnitude.
+  hence the split; it is exact unless a factor exceeds about 1e300 in magnitude or
+the product underflows (below about 1e-290).
 
 Why hand-written: no kept library offers vectorised double-double arrays for
 numpy (mpmath is exact but some thousand times slower per operation, measured on
@@ -25,11 +26,16 @@ double-double, so an n-term sum costs log2(n) vectorised steps.
 Which arithmetic is used: :func:`current` — the environment variable
 ``SITEGEN_EXTENDED`` (``long-double`` or ``double-double``) when set, else long
 double when it is wide enough, else double-double. Tests force the portable path
-on this machine with ``SITEGEN_EXTENDED=double-double`` (or :func:`forced`).
+on this machine with ``SITEGEN_EXTENDED=double-double`` (or :func:`forced`). A
+long-double fit whose design is badly conditioned (above
+``DOUBLE_DOUBLE_CONDITION``) is made again in double-double
+(:func:`needs_double_double`), design included: long double's 19 digits less the
+condition number's would leave too few.
 """
 
 from __future__ import annotations
 
+import math
 import os
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -64,6 +70,17 @@ def current() -> str:
     if chosen == LONG_DOUBLE or long_double_is_wide():
         return LONG_DOUBLE
     return DOUBLE_DOUBLE
+
+
+#: Above this condition number a long-double fit is done again in double-double: long double's
+#: ε ≈ 1.1e-19 times the condition number (and the rounding of the design's own columns, such as
+#: x**10, in long double) would otherwise leave fewer than about ten correct digits per row.
+DOUBLE_DOUBLE_CONDITION = 1e6
+
+
+def needs_double_double(condition: float) -> bool:
+    """Whether a fit made now, with this scaled condition number, should be made again in double-double."""
+    return current() == LONG_DOUBLE and math.isfinite(condition) and condition > DOUBLE_DOUBLE_CONDITION
 
 
 @contextmanager
