@@ -15,8 +15,8 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tests"))
 
-from nist_data import ALL_NIST  # type: ignore[import-not-found]
-from nist_figures import KINDS, digits_by_quantity, escalated  # type: ignore[import-not-found]
+from nist_data import ALL_NIST
+from nist_figures import KINDS, digits_by_quantity, escalated
 
 
 def main() -> None:
