@@ -39,7 +39,6 @@ from collections.abc import Callable
 
 import numpy as np
 from numpy.typing import NDArray
-from scipy import integrate, optimize
 
 FloatArray = NDArray[np.float64]
 
@@ -98,10 +97,7 @@ def prob_below_zero(mu: FloatArray) -> float:
     def k(c: float) -> float:
         return -0.5 * float(np.sum(np.log1p(-2.0 * m * c))) - math.log(-c)
 
-    found = optimize.minimize_scalar(
-        k, bounds=(left * (1 - 1e-12), left * 1e-12), method="bounded", options={"xatol": abs(left) * 1e-10}
-    )
-    c = float(found.x)
+    c = _saddle(m, left)
     width = 1.0 / math.sqrt(float(np.sum(2.0 * m * m / (1.0 - 2.0 * m * c) ** 2)) + 1.0 / (c * c))
     k0 = k(c)
 
@@ -113,6 +109,8 @@ def prob_below_zero(mu: FloatArray) -> float:
 
     total = _sinh_trapezoid(integrand, width)
     if total is None:  # the fast rule did not settle: adaptive quadrature (QUADPACK) instead
+        from scipy import integrate  # noqa: PLC0415 - rarely needed; a plain fit imports no scipy
+
         total = 0.0
         edges = [0.0, width, 4 * width, 16 * width, 64 * width, math.inf]
         for a, b in itertools.pairwise(edges):
@@ -121,6 +119,31 @@ def prob_below_zero(mu: FloatArray) -> float:
             total += part
     p = math.exp(k0) / (-c) * total / math.pi
     return min(1.0, max(0.0, p))
+
+
+def _saddle(m: FloatArray, left: float) -> float:
+    """The minimum c in (left, 0) of K(c) = log M(c) − log(−c), by safeguarded Newton steps.
+
+    K is convex there (a sum of −log of affine functions) and tends to +∞ at both ends, so
+    K'(c) = Σ m/(1 − 2mc) − 1/c has one root; Newton steps that leave the bracket are
+    replaced by bisection.
+    """
+    lo, hi = left, 0.0
+    c = left / 2
+    for _ in range(200):
+        denom = 1.0 - 2.0 * m * c
+        grad = float(np.sum(m / denom)) - 1.0 / c
+        if grad > 0:
+            hi = c
+        else:
+            lo = c
+        curv = float(np.sum(2.0 * m * m / (denom * denom))) + 1.0 / (c * c)
+        step = c - grad / curv
+        nxt = step if lo < step < hi else (lo + hi) / 2
+        if abs(nxt - c) <= 1e-15 * abs(c):
+            return nxt
+        c = nxt
+    return c
 
 
 def _sinh_trapezoid(f: Callable[[FloatArray], FloatArray], width: float) -> float | None:
