@@ -139,7 +139,7 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
         robust_se = np.sqrt(np.clip(np.diag(cov), 0, None))
     claims = []
     if spec.claims:
-        for found in check_claims(fit, Xw, design.y * sw, list(spec.claims)):
+        for found in check_claims(fit, list(spec.claims)):
             if isinstance(found, DatasetError):
                 messages.append(Message("warning", str(found)))
             else:

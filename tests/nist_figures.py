@@ -22,7 +22,7 @@ from sitegen.spec import DatasetSpec
 from sitegen.stats import ext
 from sitegen.stats.checks import vif
 from sitegen.stats.influence import influence
-from sitegen.stats.ols import fit_ols
+from sitegen.stats.ols import OlsFit, fit_ols
 
 LRE_CAP = 15.0
 #: Per-row values smaller than this fraction of the column's largest are compared on that scale.
@@ -94,6 +94,19 @@ def program_figures(name: str, kind: str) -> dict[str, Any]:
             collinearity = next(d for d in derived.diagnostics if d.check == "collinearity")
             out["largest_vif"] = collinearity.statistic
     return out
+
+
+def fitted_for(name: str, kind: str) -> OlsFit:
+    """The fit of NIST set ``name`` as the build makes it in arithmetic ``kind`` (escalation included)."""
+    case = load_nist(name)
+    frame = pd.read_csv(case.csv_path)
+    frame.index = pd.RangeIndex(1, len(frame) + 1)
+    with ext.forced(kind):
+        design = build_design(case.formula, frame, f"{name}.csv")
+        fit = fit_ols(design.X_ext, design.y_ext, design.terms, has_intercept=design.has_intercept, level=0.95)
+    if kind == ext.LONG_DOUBLE and fit.condition > ext.DOUBLE_DOUBLE_CONDITION:
+        return fitted_for(name, ext.DOUBLE_DOUBLE)
+    return fit
 
 
 def _lre(got: float, want: float, scale: float) -> float:

@@ -19,10 +19,11 @@ from __future__ import annotations
 
 import pytest
 from nist_data import ALL_NIST
-from nist_figures import KINDS, digits_by_quantity
+from nist_figures import KINDS, digits, digits_by_quantity
 from nist_reference import reference
 
 from sitegen.stats import ext
+from sitegen.stats.claims import check_claims
 
 DIGITS = 9.0
 
@@ -70,3 +71,36 @@ def test_badly_conditioned_long_double_fit_is_made_again_in_double_double() -> N
         assert not ext.needs_double_double(4.3e4)
     with ext.forced(ext.DOUBLE_DOUBLE):
         assert not ext.needs_double_double(5.2e9)
+
+
+@pytest.mark.parametrize("kind", KINDS)
+@pytest.mark.parametrize(
+    ("name", "claim", "dropped"),
+    [
+        ("Filip", "I(x ** 10) = 0", [10]),
+        ("Filip", "I(x ** 9) = 0, I(x ** 10) = 0", [9, 10]),
+        ("Longley", "x1 = 0, x5 = 0", [1, 5]),
+    ],
+)
+def test_claims_on_hard_data_have_nine_correct_digits(name: str, claim: str, dropped: list[int], kind: str) -> None:
+    # Reference: the Wald statistic of "these coefficients are zero" equals the extra-sum-of-squares
+    # F = ((SSR_without − SSR) / k) / s² (common practice), both regressions in 80-digit mpmath;
+    # t² = F for one restriction.
+    import mpmath as mp
+    from nist_reference import DIGITS as REF_DIGITS
+    from nist_reference import _design, _ssr
+
+    with mp.workdps(REF_DIGITS):
+        X, y, _, _ = _design(name)
+        full = _ssr(X, y)
+        keep = [j for j in range(len(X[0])) if j not in dropped]
+        without = _ssr([[row[j] for j in keep] for row in X], y)
+        df = len(y) - len(X[0])
+        f_ref = float(((without - full) / len(dropped)) / (full / df))
+    from nist_figures import fitted_for
+
+    fit = fitted_for(name, kind)
+    (found,) = check_claims(fit, [claim])
+    assert not isinstance(found, Exception), str(found)
+    got = found.statistic**2 if found.test == "t" else found.statistic
+    assert digits(got, f_ref) >= DIGITS, f"{name} {claim!r} ({kind}): {got!r} against {f_ref!r}"

@@ -54,10 +54,10 @@ from numpy.typing import NDArray
 
 from sitegen.errors import FitError
 from sitegen.stats import distributions as dist
-from sitegen.stats import durbin_watson
+from sitegen.stats import durbin_watson, ext
 from sitegen.stats.influence import LEVERAGE_ONE, Influence
 from sitegen.stats.shapiro import shapiro_wilk
-from sitegen.stats.solver import Ext, ops, residual_ss, solve
+from sitegen.stats.solver import Ext, kind_of, ops, residual_ss, solve
 from sitegen.stats.text import minus, p_text
 
 FloatArray = NDArray[np.float64]
@@ -576,6 +576,20 @@ def model_checks(
     mismatched shapes, a programming error. ``precise`` carries the fit's own
     extended-precision pieces; without it they are computed here by the same solver.
     """
+    if precise is not None and kind_of(precise.X_ext) != ext.current():
+        with ext.forced(kind_of(precise.X_ext)):  # the checks work in the fit's own arithmetic
+            return model_checks(
+                X,
+                y,
+                resid,
+                fitted,
+                terms=terms,
+                has_intercept=has_intercept,
+                infl=infl,
+                alpha=alpha,
+                weights=weights,
+                precise=precise,
+            )
     d = _prepare(X, y, resid, fitted, terms=terms, has_intercept=has_intercept, weights=weights, precise=precise)
     tests: list[tuple[str, Callable[[_Data], _Outcome]]] = [
         ("constant_variance", _constant_variance),

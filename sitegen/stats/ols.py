@@ -17,7 +17,7 @@ from numpy.typing import NDArray
 
 from sitegen.errors import FitError
 from sitegen.stats import distributions as dist
-from sitegen.stats.solver import Ext, ops, solve
+from sitegen.stats.solver import Ext, Ops, kind_of, ops, solve
 
 FloatArray = NDArray[np.float64]
 #: Residuals below this fraction of the (weighted) response are rounding residue of an exact
@@ -196,10 +196,10 @@ def _bands(fit: OlsFit, X_new: FloatArray, weights: FloatArray | None) -> Bands:
     # negative, and free of the cancellation they suffer in float64 on ill-conditioned designs.
     Xf = np.asarray(X_new, dtype=float)
     if fit.beta_ext is not None and fit.root_ext is not None:
-        o = ops()
+        o = Ops(kind_of(fit.beta_ext))
         Xe = o.of(Xf)
-        yhat = o.f(o.dot(Xe, fit.beta_ext))
-        z = o.dot(Xe, fit.root_ext)
+        yhat = o.f(o.dot(Xe, o.of(fit.beta_ext)))
+        z = o.dot(Xe, o.of(fit.root_ext))
         quad = o.f(o.rowsum(z * z))
     else:
         yhat = Xf @ fit.beta

@@ -92,6 +92,15 @@ def ops() -> Ops:
     return Ops(ext.current())
 
 
+def kind_of(a: Any) -> str:
+    """The arithmetic an extended array was made in (a plain array: the one chosen now)."""
+    if isinstance(a, ext.DD):
+        return ext.DOUBLE_DOUBLE
+    if isinstance(a, np.ndarray) and a.dtype == LD:
+        return ext.LONG_DOUBLE
+    return ext.current()
+
+
 @dataclass(frozen=True, slots=True)
 class Solution:
     """Least-squares solution with the pieces inference needs."""
@@ -311,6 +320,27 @@ def residual_ss(X: Any, y: Any, terms: tuple[str, ...]) -> float:
     effects = _apply_qt(o, refl, y)[:p]
     _, r = _refine_augmented(o, Xs, y, R, refl, _back_substitute(o, R, effects))
     return float(o.f(o.dot(r, r)))
+
+
+def restriction_quadratic_form(
+    R: NDArray[np.float64], q: NDArray[np.float64], beta: Ext, root: Ext
+) -> tuple[float, NDArray[np.float64]]:
+    """u'(R W W' R')⁻¹u with u = R b − q, for restrictions R b = q, in extended precision.
+
+    ``root`` is W (W W' = (X'X)⁻¹) and ``beta`` b, both in the solver's arithmetic. The
+    form is ‖T⁻ᵀu‖² with T from a Householder QR of (R W)' (so T'T = R W W' R'); dependent
+    restrictions raise :class:`FitError`. Returns the form and u (rounded).
+    """
+    o = Ops(kind_of(beta))
+    beta, root = o.of(beta), o.of(root)
+    Re = o.of(R)
+    u = o.dot(Re, beta) - o.of(q)
+    A = o.dot(Re, root).T  # p × k
+    k = A.shape[1]
+    T, _ = _householder(o, A.copy())
+    _check_rank(o, T, tuple(f"restriction {j + 1}" for j in range(k)))
+    h = _forward_substitute_transposed(o, T, u)
+    return float(o.f(o.dot(h, h))), o.f(u)
 
 
 def _row(o: Ops, v: Ext) -> Ext:
