@@ -31,7 +31,15 @@ from sitegen.model import (
     Message,
     Prediction,
 )
-from sitegen.purposes import CalibrationResults, ComparisonResults, calibration, comparison, passing_bablok_line
+from sitegen.purposes import (
+    CalibrationResults,
+    ComparisonResults,
+    calibration,
+    comparison,
+    comparison_bias,
+    passing_bablok_line,
+    plain_response,
+)
 from sitegen.requirements import Evidence
 from sitegen.spec import DatasetSpec
 from sitegen.stats.calibration import detection_limits, inverse_predict
@@ -160,7 +168,7 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
     predictions = _predictions(design, fit, spec, messages, weights)
     groups = _groups(design, fit, spec, line_x, messages, weights=weights)
     chart = _chart(design, fit, infl, flags, spec, weights)
-    compared = comparison(design, spec, line_x, lines, level=fit.level, messages=messages)
+    compared = comparison(design, spec, line_x, lines, level=fit.level, messages=messages, weighted=weighted)
     calibrated = CalibrationResults()
     if line_x is not None:
         beta = (float(fit.beta[0]), float(fit.beta[1]))
@@ -328,7 +336,7 @@ def _calibration(
 ) -> tuple[tuple[Calibration, ...], DetectionLimits | None]:
     if not spec.calibrate:
         return (), None
-    if x_col is None or weighted or design.response not in design.variables:
+    if x_col is None or weighted or not plain_response(design):
         messages.append(
             Message(
                 "warning",
@@ -700,8 +708,11 @@ def _observations(
     return Observations(tuple(cols), tuple(cols.values()))
 
 
-def acceptance_evidence(design: Design, fit: OlsFit, spec: DatasetSpec) -> Evidence:
+def acceptance_evidence(
+    design: Design, fit: OlsFit, spec: DatasetSpec, *, lines: tuple[AltLine, ...] = (), weighted: bool = False
+) -> Evidence:
     """Standards read back and bias at the ``max_bias`` levels, for the criteria that ask for them."""
+    from sitegen.stats.acceptance import BiasAt as AcceptedBias  # noqa: PLC0415
     from sitegen.stats.acceptance import bias_at, read_back  # noqa: PLC0415
 
     req = spec.requirements
@@ -728,10 +739,18 @@ def acceptance_evidence(design: Design, fit: OlsFit, spec: DatasetSpec) -> Evide
             bias_reason = "the bias (fitted y − x) needs a one-predictor model of an untransformed response"
         else:
             at = np.asarray(req.max_bias.at, dtype=float)
-            try:
-                X_at = design_for(design, {x_col: at})
-            except DatasetError as exc:
-                X_at, bias_reason = None, f"the model cannot be evaluated at those levels ({exc})"
-            if X_at is not None:
-                bias = bias_at(fit, X_at, at)
+            if spec.purpose == "comparison" and line_x is not None and not weighted:
+                # A comparison's bias comes from the line its page recommends, as in fit.json's "bias".
+                found_bias, bias_reason = comparison_bias(
+                    design, spec, line_x, lines, levels=tuple(at.tolist()), level=fit.level
+                )
+                if found_bias is not None:
+                    bias = tuple(AcceptedBias(b.at, b.estimate, b.ci_low, b.ci_high) for b in found_bias)
+            else:
+                try:
+                    X_at = design_for(design, {x_col: at})
+                except DatasetError as exc:
+                    X_at, bias_reason = None, f"the model cannot be evaluated at those levels ({exc})"
+                if X_at is not None:
+                    bias = bias_at(fit, X_at, at)
     return Evidence(found, found_reason, bias, bias_reason, x_range)
