@@ -139,11 +139,16 @@ def prob_below_zero(mu: FloatArray) -> float:
     width = 1.0 / math.sqrt(float(np.sum(2.0 * m * m / (1.0 - 2.0 * m * c) ** 2)) + 1.0 / (c * c))
     k0 = k(c)
 
+    slope = 2.0 * m / (1.0 - 2.0 * m * c)  # 1 − 2μc > 0 on the whole line
+
     def integrand(v: FloatArray) -> FloatArray:
-        sv = c + 1j * np.asarray(v, dtype=np.float64)
-        log_m = -0.5 * np.sum(np.log(1.0 - 2.0 * np.multiply.outer(sv, m)), axis=-1)
-        # scaled by exp(−K(c)) so that the integrand is 1 at v = 0, whatever the size of the answer
-        return np.asarray((np.exp(log_m - k0) / (-sv)).real * (-c), dtype=np.float64)
+        # M(c + iv)/M(c) = Π (1 − i r_j)^(−½), r_j = 2μ_j v / (1 − 2μ_j c): modulus exp(−¼ Σ log(1 + r²)),
+        # phase θ = ½ Σ arctan r_j; then Re[M(s)/(−s)] / (M(c)/(−c)) in real arithmetic.
+        v = np.asarray(v, dtype=np.float64)
+        r = np.multiply.outer(v, slope)
+        rho = np.exp(-0.25 * np.sum(np.log1p(r * r), axis=-1))
+        theta = 0.5 * np.sum(np.arctan(r), axis=-1)
+        return np.asarray(rho * c * c * (-c * np.cos(theta) - v * np.sin(theta)) / (c * c + v * v), dtype=np.float64)
 
     total = _sinh_trapezoid(integrand, width)
     if total is None:  # the fast rule did not settle: adaptive quadrature (QUADPACK) instead
