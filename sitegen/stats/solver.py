@@ -44,6 +44,8 @@ class Ops:
     def __init__(self, kind: str) -> None:
         self.kind = kind
         self.dd = kind == ext.DOUBLE_DOUBLE
+        #: unit roundoff of the arithmetic (double-double: about 2⁻¹⁰⁴)
+        self.eps = 2.0**-104 if self.dd else float(np.finfo(LD).eps)
 
     def of(self, a: Any) -> Ext:
         if self.dd:
@@ -196,6 +198,9 @@ def _refine_augmented(  # noqa: PLR0917 - the factorisation's pieces
         top = o.concat([h, d[p:]])
         r = r + _apply_q(o, refl, top)
         b = b + db
+        # settled: the last correction is below the arithmetic's own rounding of b
+        if float(np.max(np.abs(o.f(db)))) <= o.eps * float(np.max(np.abs(o.f(b)))):
+            break
     return b, r
 
 
