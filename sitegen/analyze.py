@@ -171,7 +171,7 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         messages.append(
             Message("warning", f"{len(design.dropped)} row(s) left out ({'; '.join(reasons)}): rows {rows}{more}.")
         )
-    pieces = derive.compute(design, fit, spec, weights)
+    pieces = derive.compute(design, fit, spec, weights, weighting=weighting.name if weighting else None)
     messages += pieces.messages
     status: Status = "warn" if any(m.level in ("warning", "error") for m in messages) else "ok"
     if any(d.flag for d in pieces.diagnostics):
