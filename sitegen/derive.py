@@ -30,6 +30,7 @@ from sitegen.model import (
     GroupComparison,
     Message,
     Prediction,
+    check_warning,
 )
 from sitegen.purposes import (
     CalibrationResults,
@@ -148,7 +149,7 @@ def compute(
     )
     for d in diagnostics:
         if d.flag:
-            messages.append(Message("warning", f"{d.label}: {d.text} {d.advice}".strip()))
+            messages.append(check_warning(d))
     if weights is not None:
         messages.append(Message("note", reading_weight_note(spec)))
     robust_se = None

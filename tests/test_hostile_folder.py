@@ -126,9 +126,11 @@ def test_a_theme_outside_the_data_folder_needs_the_command_line(run_cli: Cli, sm
         assert "--theme" in res.output
         assert not site.exists()
     (small_data / "site.toml").unlink()
+    (theme / "static" / "extra.js").write_text("/* a script of a theme the user trusts */\n", encoding="utf-8")
     res = run_cli("build", small_data, "-o", site, "--theme", theme, "-q")
     assert res.code == 0, res.output
     assert (site / "assets" / "extra.css").is_file()
+    assert (site / "assets" / "extra.js").is_file()  # named on the command line: trusted with scripts too
 
 
 def test_theme_files_linked_out_of_the_theme_are_not_used(
@@ -251,7 +253,7 @@ def test_a_sandboxed_theme_still_makes_the_same_pages(run_cli: Cli, small_data: 
     """A user theme that overrides a template with the default's own text renders the same page in the sandbox."""
     plain = tmp_path / "plain"
     assert run_cli("build", small_data, "-o", plain, "-q").code == 0
-    default = Path(__file__).resolve().parents[1] / "sitegen" / "themes" / "default" / "templates"
+    default = Path(__file__).resolve().parents[1] / "themes" / "default" / "templates"
     _user_template(small_data, "dataset.html", (default / "dataset.html").read_text("utf-8"))
     boxed = tmp_path / "boxed"
     assert run_cli("build", small_data, "-o", boxed, "-q").code == 0

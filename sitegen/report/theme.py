@@ -6,7 +6,9 @@ theme folder named on the command line (``--theme``) is the user's own choice an
 may lie anywhere. Either way its files are read only when they lie inside the
 theme's own folder (a link out of it is ignored), and its templates render in
 Jinja2's sandbox (``pages.environment``): a theme cannot run code on the machine
-that builds the site.
+that builds the site. A theme kept in the data folder cannot run code in readers'
+browsers either: of its static files only style sheets, pictures and fonts are
+published (``assets.write_static``), never scripts or pages.
 """
 
 from __future__ import annotations
@@ -22,11 +24,13 @@ from sitegen.errors import OutsideFolderError, SiteConfigError
 
 
 def default_theme_dir() -> Path:
-    """The packaged default theme (``sitegen/themes/default``)."""
-    import importlib  # noqa: PLC0415
-
-    themes = importlib.import_module("sitegen.themes")  # the packaged themes/ folder
-    return Path(next(iter(themes.__path__))) / "default"
+    """The default theme: ``themes/default`` at the top of a source checkout (and so in an editable install),
+    shipped inside the package as ``sitegen/themes/default`` in a wheel (pyproject.toml maps the folder)."""
+    package = Path(__file__).resolve().parent.parent  # the sitegen package folder
+    shipped = package / "themes" / "default"
+    if shipped.is_dir():
+        return shipped
+    return package.parent / "themes" / "default"
 
 
 @dataclass(frozen=True, slots=True)
@@ -38,6 +42,7 @@ class Theme:
     static_dirs: tuple[Path, ...]
     charts_json: str  # chart colours per colour scheme, as JSON (kept as text so the theme is hashable)
     user_templates: bool = False  # a user theme has templates: render every page in the sandbox
+    untrusted_static: Path | None = None  # the static folder of a theme kept in the data folder (no scripts)
 
     @property
     def sandboxed(self) -> bool:
@@ -53,7 +58,7 @@ def _read_theme_toml(folder: Path, shown: str) -> dict[str, Any]:
     path = folder / "theme.toml"
     if not os.path.lexists(path):
         return {}
-    import tomllib  # noqa: PLC0415 - only a theme of the user's own has this file
+    import tomllib  # noqa: PLC0415 - on the first theme.toml read (the default theme has one)
 
     try:
         return tomllib.loads(read_inside(path, folder, where="theme folder").decode("utf-8"))
@@ -105,6 +110,9 @@ def load_theme(choice: str, data_dir: Path, trusted: Path | None = None) -> Them
         static_dirs=tuple(f / "static" for f in folders if _folder_inside(f / "static", f)),
         charts_json=json.dumps(charts, sort_keys=True),
         user_templates=any(t.parent != base for t in templates),
+        untrusted_static=next(
+            (f / "static" for f in folders if f != base and trusted is None and _folder_inside(f / "static", f)), None
+        ),
     )
 
 
