@@ -48,19 +48,25 @@ class DatasetResult:
     debug_trace: str | None = None
 
 
-def analyze(task: FitTask) -> DatasetResult:
-    """Fit one dataset; never raises."""
-    src = task.source
-    title = Path(src.relpath).stem
+def error_report(src: DatasetSource, text: str = "") -> FitReport:
+    """The report of a dataset that could not be fitted (with ``text`` as its error, when given)."""
     base = FitReport(
         dataset=src.slug,
         source=src.relpath,
         section=src.section,
-        title=title,
+        title=Path(src.relpath).stem,
         status="error",
         model="",
         level=0.95,
     )
+    return replace(base, messages=(Message("error", text),)) if text else base
+
+
+def analyze(task: FitTask) -> DatasetResult:
+    """Fit one dataset; never raises, except :class:`MemoryError` (the worker running it reports the bound)."""
+    src = task.source
+    title = Path(src.relpath).stem
+    base = error_report(src)
     try:
         raw = read_source(src.csv_path, task.limits, src.relpath)  # refuses a file over the size limit unread
     except OSError as exc:
@@ -88,6 +94,8 @@ def analyze(task: FitTask) -> DatasetResult:
     except DatasetError as exc:
         messages = [*_spec_messages(spec, sidecar_name), Message("error", str(exc))]
         return DatasetResult(replace(base, messages=tuple(messages)), None)
+    except MemoryError:
+        raise
     except Exception as exc:
         text = (
             f"sitegen could not process {src.relpath} {INTERNAL_ERROR_WORDS} "

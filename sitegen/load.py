@@ -32,6 +32,7 @@ from __future__ import annotations
 import codecs
 import csv
 import io
+import os
 import re
 import warnings
 from dataclasses import dataclass
@@ -108,8 +109,16 @@ def read_source(path: Path, limits: Limits, name: str) -> bytes:
     which knows how to word it.
     """
     _check_size(path.stat().st_size, limits, name)
+    cap = _max_bytes(limits) + 1  # the file may have grown since it was measured
     with path.open("rb") as fh:
-        raw = fh.read(_max_bytes(limits) + 1)  # the file may have grown since it was measured
+        # read() sets aside as much memory as it is asked for: ask for the file's size, then for more in
+        # pieces while it keeps growing, never for the whole limit at once.
+        pieces = [fh.read(min(os.fstat(fh.fileno()).st_size + 1, cap))]
+        total = len(pieces[0])
+        while pieces[-1] and total < cap:
+            pieces.append(fh.read(min(1 << 20, cap - total)))
+            total += len(pieces[-1])
+    raw = pieces[0] if len(pieces) == 1 else b"".join(pieces)
     _check_size(len(raw), limits, name)
     return raw
 

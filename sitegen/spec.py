@@ -272,6 +272,8 @@ class Limits:
     max_megabytes: float = 512.0
     max_rows: int = 5_000_000
     max_columns: int = 200
+    max_fit_seconds: float = 600.0  # processor time one dataset's fit may take (3x that by the clock)
+    max_fit_megabytes: float = 6000.0  # memory one dataset's fit may take beyond what its worker holds
 
 
 @dataclass(frozen=True, slots=True)
@@ -302,7 +304,7 @@ _SITE_KEYS = (
     "defaults",
     "limits",
 )
-_LIMIT_KEYS = ("max_megabytes", "max_rows", "max_columns")
+_LIMIT_KEYS = ("max_megabytes", "max_rows", "max_columns", "max_fit_seconds", "max_fit_megabytes")
 
 
 def _site_error(msg: str) -> SiteConfigError:
@@ -371,11 +373,10 @@ def _read_limits(table: object) -> Limits:
             if isinstance(v, bool) or not isinstance(v, int) or v < 1:
                 raise _site_error(f"[limits] key '{key}' must be a positive whole number; got {_show(v)}")
             out[key] = v
-    if "max_megabytes" in table:
-        try:
-            out["max_megabytes"] = _positive(table["max_megabytes"])
-        except _BadValueError as exc:
-            raise _site_error(
-                f"[limits] key 'max_megabytes' must be {exc}; got {_show(table['max_megabytes'])}"
-            ) from None
+    for key in ("max_megabytes", "max_fit_seconds", "max_fit_megabytes"):
+        if key in table:
+            try:
+                out[key] = _positive(table[key])
+            except _BadValueError as exc:
+                raise _site_error(f"[limits] key '{key}' must be {exc}; got {_show(table[key])}") from None
     return Limits(**out)
