@@ -97,6 +97,8 @@ def analyze(task: FitTask) -> DatasetResult:
     except MemoryError:
         raise
     except Exception as exc:
+        if isinstance(exc, ImportError | OSError) and any(w in str(exc).lower() for w in ("memory", "failed to map")):
+            raise MemoryError(str(exc)) from exc  # a library could not be loaded within the memory bound
         text = (
             f"sitegen could not process {src.relpath} {INTERNAL_ERROR_WORDS} "
             f"({type(exc).__name__}: {exc}); please report it with the file"

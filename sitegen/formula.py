@@ -598,7 +598,7 @@ def _patsy_design(
             f"{name}: the model {_show(formula)} cannot be applied to the data: {_patsy_message(exc)}",
             hint="check key 'model'",
         ) from exc
-    except (ValueError, TypeError, ArithmeticError, MemoryError) as exc:
+    except (ValueError, TypeError, ArithmeticError) as exc:  # a MemoryError is the memory bound's (executor)
         raise FormulaError(
             f"{name}: the model {_show(formula)} cannot be evaluated: {str(exc)[:200]}",
             hint="check key 'model'",

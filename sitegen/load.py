@@ -519,13 +519,15 @@ def _parse(
         ) from exc
     except pd.errors.ParserError as exc:
         detail = _parser_detail(exc)
+        if "out of memory" in detail:
+            raise MemoryError(detail) from exc  # the memory bound of this fit (see sitegen.executor)
         hint = (
             'a quotation mark (") opened there is never closed: close it or remove it'
             if "inside string" in detail
             else f"every line needs the same number of separators as the header{comma_hint}"
         )
         raise DataFileError(f"{name} cannot be parsed as a table: {detail}", hint=hint) from exc
-    except (UnicodeError, ValueError, OverflowError, MemoryError) as exc:
+    except (UnicodeError, ValueError, OverflowError) as exc:
         raise DataFileError(f"{name} cannot be read: {exc}") from exc
     frame.columns = [str(c).strip() for c in frame.columns]
     return frame

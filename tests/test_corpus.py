@@ -258,6 +258,24 @@ CASES = (
     ),
     Case("formula_runs_code", "code", "error", ("code.csv", "is not allowed in a model formula", "key 'model'")),
     Case(
+        "formula_power_of_power",
+        "power",
+        "error",
+        ("power.csv", "'10 ** 10 ** 10' in the model is a number too large", "a power of a power", "key 'model'"),
+    ),
+    Case(
+        "formula_huge_integer",
+        "huge",
+        "error",
+        ("huge.csv", "whole number of 30 digits in the model is too large", "key 'model'", "1.23e+29"),
+    ),
+    Case(
+        "formula_term_explosion",
+        "terms",
+        "error",
+        ("terms.csv", "expands to 1,048,577 terms, more than the 1,000 allowed", "key 'model'"),
+    ),
+    Case(
         "toml_syntax_error",
         "bad-toml",
         "error",
