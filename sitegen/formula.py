@@ -99,9 +99,13 @@ class Design:
     simple: bool = False  # every term is a product of numeric expressions: evaluated without patsy
 
 
+#: Names a formula uses for functions and modules: a column named so is reached only as ``Q("name")``.
+CALLABLE_NAMES = PATSY_FUNCTIONS | SAFE_FUNCTIONS | {"np", "numpy"}
+
+
 def quote_name(column: str) -> str:
     """How a column name must be written inside a formula."""
-    if column.isidentifier() and not keyword.iskeyword(column) and column not in PATSY_FUNCTIONS:
+    if column.isidentifier() and not keyword.iskeyword(column) and column not in CALLABLE_NAMES:
         return column
     return "Q(" + repr(column) + ")"
 
@@ -586,7 +590,7 @@ def _patsy_design(
         with np.errstate(all="ignore"):
             y_dm, x_dm = patsy.dmatrices(
                 formula,
-                data.as_dict(),
+                _for_patsy(data.as_dict()),
                 eval_env=env,
                 return_type="matrix",
                 # The data hold finite numbers only; a NaN can only come from a transformation
@@ -713,7 +717,7 @@ def design_for(design: Design, new: Mapping[str, ArrayLike] | Any) -> NDArray[np
 
     try:
         with np.errstate(all="ignore"):
-            (mat,) = patsy.build_design_matrices([design.design_info], columns, NA_action="raise")
+            (mat,) = patsy.build_design_matrices([design.design_info], _for_patsy(columns), NA_action="raise")
     except patsy.PatsyError as exc:
         raise FormulaError(f"prediction values do not fit the model: {_patsy_message(exc)}") from exc
     return np.asarray(mat, dtype=float)
@@ -755,10 +759,27 @@ def _extended(
     return (X_ext, y_ext) if same else fallback
 
 
+#: Where a column named like a function (Q, I, log, np, …) is kept in the data patsy sees, so that the name
+#: still means the function; ``Q("name")`` reaches the column there.
+_HIDDEN = "\x00column:"
+
+
+def _for_patsy(columns: Mapping[str, Any]) -> dict[str, Any]:
+    return {(_HIDDEN + k if k in CALLABLE_NAMES else k): v for k, v in columns.items()}
+
+
+def _quoted(name: str) -> Any:
+    """patsy's ``Q``, which also finds a column named like a function (see :data:`_HIDDEN`)."""
+    import patsy  # noqa: PLC0415
+
+    namespace = patsy.EvalEnvironment.capture(1).namespace  # the data being evaluated, as patsy's own Q does
+    return namespace[_HIDDEN + name if name in CALLABLE_NAMES else name]
+
+
 def _environment() -> Any:
     import patsy  # noqa: PLC0415
 
-    return patsy.EvalEnvironment([{"np": np, "numpy": np} | {f: getattr(np, f) for f in SAFE_FUNCTIONS}])
+    return patsy.EvalEnvironment([{"np": np, "numpy": np, "Q": _quoted} | {f: getattr(np, f) for f in SAFE_FUNCTIONS}])
 
 
 @dataclass(frozen=True, slots=True)
@@ -848,7 +869,7 @@ def _probe_plan(formula: str, used: tuple[str, ...]) -> Plan | None:
     try:
         with np.errstate(all="ignore"):
             y_dm, x_dm = patsy.dmatrices(
-                formula, probe.as_dict(), eval_env=_environment(), return_type="matrix",
+                formula, _for_patsy(probe.as_dict()), eval_env=_environment(), return_type="matrix",
                 NA_action=patsy.NAAction(NA_types=[]),
             )  # fmt: skip
     except (patsy.PatsyError, ValueError, TypeError, ArithmeticError, KeyError, NameError):
@@ -869,16 +890,17 @@ def _same(a: NDArray[Any], b: NDArray[Any]) -> bool:
 
 
 def _namespace(table: Table, dtype: Any) -> dict[str, Any]:
-    namespace: dict[str, Any] = {
+    columns: dict[str, Any] = {
         name: values.astype(dtype)
         for name, values in zip(table.names, table.columns, strict=True)
         if values.dtype.kind in "fiub"
     }
-    namespace |= {
+    namespace = dict(columns)
+    namespace |= {  # a column named like one of these is reached through Q("name") only
         "np": np,
         "numpy": np,
         "I": lambda v: v,
-        "Q": lambda name: namespace[name],
+        "Q": lambda name: columns[name],
         "__rows__": table.rows,
     }
     namespace |= {f: getattr(np, f) for f in SAFE_FUNCTIONS}
