@@ -109,10 +109,15 @@ def analyze(task: FitTask) -> DatasetResult:
 def _spec_messages(spec: DatasetSpec | None, sidecar_name: str) -> list[Message]:
     if spec is None:
         return []
+    from sitegen.spec import MAX_UNKNOWN_SHOWN  # noqa: PLC0415
+
     out = []
-    for key, hint in spec.unknown_keys:
+    for key, hint in spec.unknown_keys[:MAX_UNKNOWN_SHOWN]:
         tip = f"; did you mean '{hint}'?" if hint else "; see the README for the keys a sidecar may hold"
         out.append(Message("warning", f"{sidecar_name}: unknown sidecar key '{key}' was ignored{tip}"))
+    more = len(spec.unknown_keys) - MAX_UNKNOWN_SHOWN
+    if more > 0:
+        out.append(Message("warning", f"{sidecar_name}: {more:,} more unknown sidecar keys were ignored"))
     return out
 
 

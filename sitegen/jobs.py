@@ -115,11 +115,14 @@ def _finish(job: FitJob, result: DatasetResult) -> FitDone:
         result = replace(result, report=report)
     job.folder.mkdir(parents=True, exist_ok=True)
     files = tuple(dataset_files(job.folder, result.report, result.observations, job.source, job.offer_source))
-    page_files = write_page(job.page, result.report, files, job.folder / "index.html") if job.page else ()
+    # Chart images run a JavaScript engine that reserves far more address space than a fit's memory bound
+    # allows: such pages are written in the build's page round, outside the bound.
+    page = job.page if job.page is not None and not job.page.ctx.config.static_images else None
+    page_files = write_page(page, result.report, files, job.folder / "index.html") if page else ()
     sha = file_sha256(job.folder / "fit.json")
     if result.report.status == "error":
-        return FitDone(result.report, None, files, result.debug_trace, job.page, page_files, sha)
-    return FitDone(None, index_entry(result.report), files, result.debug_trace, job.page, page_files, sha)
+        return FitDone(result.report, None, files, result.debug_trace, page, page_files, sha)
+    return FitDone(None, index_entry(result.report), files, result.debug_trace, page, page_files, sha)
 
 
 def fit_bounds(limits: Limits) -> Bounded[FitJob, FitDone]:

@@ -51,6 +51,8 @@ if TYPE_CHECKING:
 _CANDIDATE_DELIMITERS = (",", ";", "\t", "|")
 _DELIM_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "vertical bar"}
 _HEAD_BYTES = 1 << 16
+#: Longest column name read (names appear on every chart and table of the page).
+MAX_NAME_CHARS = 300
 _PLAIN_MAX_BYTES = 2_000_000  # above this, pandas' C reader is faster than splitting lines here
 _LINE_BREAK = re.compile(r"\r\n|\r|\n")
 _SEP_LINE = re.compile(r"^\ufeff?\"?sep=(.)\"?[ \t]*$")
@@ -206,8 +208,10 @@ def _drop_trailing_blank_lines(raw: bytes) -> bytes:
 
 
 def _decode_head(raw: bytes, encoding: str, name: str) -> tuple[str, str, list[str]]:
-    """Decode the start of the file; returns (text, encoding used, notes)."""
-    head = raw[:_HEAD_BYTES]
+    """Decode the start of the file (the whole header line, however long, and what follows it up to
+    :data:`_HEAD_BYTES`); returns (text, encoding used, notes)."""
+    first_break = raw.find(b"\n")
+    head = raw[: max(_HEAD_BYTES, (len(raw) if first_break < 0 else first_break) + _HEAD_BYTES)]
     if codecs.lookup(encoding).name in ("utf-8", "utf-8-sig"):
         try:
             return head.decode("utf-8-sig", errors="strict"), "utf-8-sig", []
@@ -447,6 +451,13 @@ def _check_header(header: list[str], name: str, limits: Limits, decimal: str) ->
             f"{name}: the first line ({preview}) holds numbers, not column names",
             hint="add a header line that names each column, e.g. x,y, above the data",
         )
+    for i, h in enumerate(named, start=1):
+        if len(h) > MAX_NAME_CHARS:
+            raise DataFileError(
+                f"{name}: the name of column {i} ({h[:40]!r}…) is {len(h):,} characters long, more than the "
+                f"{MAX_NAME_CHARS:,} allowed",
+                hint="shorten the column names in the header line",
+            )
     blanks = [i + 1 for i, h in enumerate(named) if not h]
     if blanks:
         raise DataFileError(f"{name}: column {blanks[0]} of the header has no name", hint="give every column a name")

@@ -18,6 +18,9 @@ from sitegen.model import ClaimTest
 from sitegen.stats.ols import OlsFit
 from sitegen.stats.text import p_text
 
+#: Longest claim read (a linear hypothesis on a few coefficients is a few dozen characters).
+MAX_CLAIM_CHARS = 1_000
+
 
 def _results(fit: OlsFit, X: np.ndarray[Any, Any], y: np.ndarray[Any, Any]) -> Any:
     import pandas as pd  # noqa: PLC0415
@@ -36,8 +39,20 @@ def check_claims(
     results = _results(fit, X, y)
     out: list[ClaimTest | FormulaError] = []
     for claim in claims:
+        if len(claim) > MAX_CLAIM_CHARS:
+            out.append(
+                FormulaError(
+                    f"claim {claim[:40]!r}… is {len(claim):,} characters long, more than the {MAX_CLAIM_CHARS:,} "
+                    "allowed; it was not tested",
+                    hint='shorten it in key \'claims\', e.g. "x = 1" or "x = 1, Intercept = 0"',
+                )
+            )
+            continue
         try:
             constraint = patsy.DesignInfo(list(fit.terms)).linear_constraint(claim)
+        except RecursionError:
+            out.append(FormulaError(f"claim {claim[:40]!r}… is nested too deeply to be read; it was not tested"))
+            continue
         except (patsy.PatsyError, ValueError, KeyError) as exc:
             names = ", ".join(fit.terms)
             out.append(
