@@ -70,9 +70,14 @@ def analyze(task: FitTask) -> DatasetResult:
     try:
         raw = read_source(src.csv_path, task.limits, src.relpath)  # refuses a file over the size limit unread
     except OSError as exc:
-        msg = (
-            f"{src.relpath} cannot be read: {exc.strerror or exc} (it may have been moved or deleted during the build)"
-        )
+        import errno  # noqa: PLC0415
+
+        why = {
+            errno.ENAMETOOLONG: "its path is too long for the file system; move it to a folder with a shorter path",
+            errno.EACCES: "there is no permission to read it; ask for read access or move it",
+            errno.ELOOP: "it is a symbolic link that loops; remove or correct the link",
+        }.get(exc.errno or 0, "it may have been moved or deleted during the build")
+        msg = f"{src.relpath} cannot be read: {exc.strerror or exc} ({why})"
         return DatasetResult(replace(base, messages=(Message("error", msg),)), None)
     except DatasetError as exc:
         return DatasetResult(replace(base, messages=(Message("error", str(exc)),)), None)

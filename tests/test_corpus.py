@@ -257,6 +257,28 @@ CASES = (
         ("no response on the left of '~'", "key 'model'"),
     ),
     Case("formula_runs_code", "code", "error", ("code.csv", "is not allowed in a model formula", "key 'model'")),
+    Case("boolean_words", "flags", "error", ("flags.csv", "column 'y'", "'True' on row 1", "fix or delete")),
+    Case("column_named_like_function", "quoted", "ok", ("the line Q('I') ~ Q('Q')", "was assumed")),
+    Case(
+        "sidecar_unusable_encoding",
+        "enc",
+        "error",
+        ("enc.toml", "key 'encoding' must be a text encoding name", "got 'idna'"),
+    ),
+    Case("sidecar_deeply_nested", "deep", "error", ("deep.toml is nested too deeply", "16 deep")),
+    Case(
+        "claim_too_long",
+        "claim",
+        "warn",
+        ("is 1,601 characters long, more than the 1,000 allowed", "not tested", "key 'claims'"),
+    ),
+    Case("title_too_long", "title", "error", ("title.toml", "key 'title'", "more than the 500 allowed", "shorten")),
+    Case(
+        "column_name_too_long",
+        "wide-name",
+        "error",
+        ("wide_name.csv", "name of column 2", "449 characters long, more than the 300 allowed", "header line"),
+    ),
     Case(
         "formula_power_of_power",
         "power",
