@@ -162,7 +162,9 @@ def _port(text: str) -> int:
 
 
 def _common_build_options(p: argparse.ArgumentParser) -> None:
-    p.add_argument("-j", "--jobs", type=int, default=None, help="worker processes (default: all cores)")
+    p.add_argument(
+        "-j", "--jobs", type=int, default=None, help="worker processes (default: all cores; at most 2 per core)"
+    )
     p.add_argument("--refit", action="store_true", help="fit every dataset again, ignoring stored results")
     p.add_argument("-q", "--quiet", action="store_true", help="print only errors")
     p.add_argument("--debug", action="store_true", help="show tracebacks of internal errors")
