@@ -144,15 +144,20 @@ class WorkerExecutor:
         bounded: Bounded[T, R] | None,
     ) -> None:
         taken = {b.worker.conn for b in busy.values()}
-        for worker in self._workers:
+        for at in range(len(self._workers)):
             if not queue:
                 return
-            if worker.conn in taken:
+            if self._workers[at].conn in taken:
                 continue
             i, item = queue.popleft()
-            worker.conn.send((fn, item, (bounded.seconds, bounded.megabytes) if bounded else None))
+            message = (fn, item, (bounded.seconds, bounded.megabytes) if bounded else None)
+            try:
+                self._workers[at].conn.send(message)
+            except OSError:  # the worker ended while idle (the system's out-of-memory killer): start another
+                self._replace(self._workers[at])
+                self._workers[at].conn.send(message)
             deadline = time.monotonic() + CLOCK_FACTOR * bounded.seconds if bounded else float("inf")
-            busy[worker.conn] = _Busy(worker, i, deadline)
+            busy[self._workers[at].conn] = _Busy(self._workers[at], i, deadline)
         del items
 
     def _results(
