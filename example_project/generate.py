@@ -95,6 +95,7 @@ instrument.*
 """
 theme = "default"
 offer_source = true   # offer each original CSV as a download on its page
+ignore = ["*.draft.csv"]   # work in progress stays in the folder but out of the site
 
 [defaults]            # applied to every dataset unless its sidecar says otherwise
 level = 0.95
@@ -128,6 +129,12 @@ calibrate = [0.132, 0.418, 0.771]
 # Each value above is the mean of this many readings of the same sample, which
 # narrows the interval compared with a single reading.
 readings = 2
+# The laboratory's acceptance criteria for this curve, judged on the page
+# (`sitegen build --enforce` exits with 3 when one is not met).
+requirements.min_r_squared = 0.995
+requirements.max_residual_sd = 0.01
+requirements.back_calculated_within_percent = 15
+requirements.lowest_within_percent = 20
 ''',
     )
 
@@ -255,6 +262,12 @@ lines = ["reverse", "orthogonal", "deming", "geometric_mean"]
 # For the Deming line: variance of the kit's measurement error divided by the
 # variance of the laboratory's (from replicate readings of a control sample).
 error_ratio = 1.5
+# What the kit must achieve to replace the laboratory for screening: no
+# proportional or constant difference, and a bias within ±0.3 mg/L N or ±10 %
+# (the larger) at the two levels that decide action.
+requirements.slope_interval_includes = 1
+requirements.intercept_interval_includes = 0
+requirements.max_bias = { at = [2.0, 5.0], limit = 0.3, limit_percent = 10 }
 ''',
     )
 
@@ -517,6 +530,17 @@ def backwash_expansion() -> None:
     )
 
 
+def dosing_pump_draft() -> None:
+    """A half-finished run kept beside the others; site.toml's ignore list keeps it off the site."""
+    rng = rng_for("operations/dosing_pump.draft")
+    stroke_rate = np.array([20.0, 40.0, 60.0])
+    delivered = 0.52 * stroke_rate + rng.normal(0.0, 1.0, stroke_rate.size)
+    write_csv(
+        "operations/dosing_pump.draft.csv",
+        [("stroke_rate", stroke_rate, 0), ("delivered", delivered, 1)],
+    )
+
+
 DATASETS = (
     nitrate_uv,
     phosphate_molybdenum_blue,
@@ -538,6 +562,7 @@ def main() -> None:
     write_text("site.toml", SITE_TOML)
     for make in DATASETS:
         make()
+    dosing_pump_draft()
     print(f"wrote {len(DATASETS)} datasets and site.toml under {HERE}")
 
 

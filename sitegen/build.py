@@ -63,6 +63,7 @@ class Outcome:
     source: str
     status: str
     message: str
+    requirements: str = "none"  # "met", "unmet" or "none" (nothing declared)
 
 
 @dataclass(frozen=True, slots=True)
@@ -84,6 +85,11 @@ class BuildSummary:
     @property
     def warned(self) -> int:
         return sum(1 for o in self.outcomes if o.status == "warn")
+
+    @property
+    def unmet(self) -> int:
+        """Datasets with at least one declared requirement not met."""
+        return sum(1 for o in self.outcomes if o.requirements == "unmet")
 
 
 def _now() -> str:
@@ -226,7 +232,7 @@ def run_build(
     check_output_folder(data_dir, out_dir)
     config, warnings = read_site_config(data_dir / SITE_CONFIG_NAME)
     theme = load_theme(config.theme, data_dir.resolve())
-    sources = discover(data_dir)
+    sources = discover(data_dir, config.ignore)
     shared = _shared_inputs(config, library_versions(LIBRARIES))
     site_key = _site_key(config, theme)
     with build_folder(out_dir) as work:
@@ -377,7 +383,13 @@ def _touch_build_json(out_dir: Path, prev: _Previous, stats: dict[str, dict[str,
     tmp.write_text(_retimed(prev, body) or json_text(body), encoding="utf-8")
     tmp.replace(out_dir / "build.json")
     return tuple(
-        Outcome(e["dataset"], e.get("source", ""), e.get("status", "ok"), e.get("message", ""))
+        Outcome(
+            e["dataset"],
+            e.get("source", ""),
+            e.get("status", "ok"),
+            e.get("message", ""),
+            str((e.get("index") or {}).get("requirements", "none")),
+        )
         for e in body["datasets"]
     )
 
@@ -638,7 +650,10 @@ class _Build:
             page_files[page_jobs[i].target.parent.name] = names
         self._tidy({slug: {*files, *page_files[slug]} for slug, (_, files) in done.items()}, site_assets)
         self._write_build_json(entries)
-        outcomes = tuple(Outcome(r.dataset, r.source, r.status, str(summary_row(r)["message"])) for r in reports)
+        outcomes = tuple(
+            Outcome(r.dataset, r.source, r.status, str(summary_row(r)["message"]), r.requirements_state)
+            for r in reports
+        )
         return outcomes, len(jobs), hist_warnings, tuple(traces)
 
     def _plan_pages(
@@ -783,6 +798,7 @@ class _Build:
             "python": platform.python_version(),
             "built_at": _now(),
             "site_key": self.site_key,
+            "title": self.config.title,
             "mail_budget_megabytes": self.config.mail_budget_megabytes,
             "datasets": entries,
             "files": _manifest(self.work),  # written last: every other file of the site is in place

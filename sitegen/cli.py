@@ -2,7 +2,9 @@
 
 Exit status of ``sitegen build`` (contract): 0 every dataset fitted (warnings
 allowed); 1 the site was written but at least one dataset failed; 2 nothing was
-written (usage or configuration error, or an unsafe output folder).
+written (usage or configuration error, or an unsafe output folder); with
+``--enforce``, 3 the site was written, no dataset failed, and at least one
+declared requirement is not met (1 still wins when a dataset failed).
 """
 
 from __future__ import annotations
@@ -17,7 +19,7 @@ from typing import Any, NoReturn, TextIO
 from sitegen import __version__
 from sitegen.errors import BuildLockedError, ConfigError, SitegenError
 
-EXIT_OK, EXIT_DATASET_FAILED, EXIT_NOTHING_WRITTEN = 0, 1, 2
+EXIT_OK, EXIT_DATASET_FAILED, EXIT_NOTHING_WRITTEN, EXIT_REQUIREMENT_UNMET = 0, 1, 2, 3
 DEFAULT_MAIL_BUDGET_MB = 20.0
 
 
@@ -168,6 +170,11 @@ def _common_build_options(p: argparse.ArgumentParser) -> None:
     p.add_argument("--refit", action="store_true", help="fit every dataset again, ignoring stored results")
     p.add_argument("-q", "--quiet", action="store_true", help="print only errors")
     p.add_argument("--debug", action="store_true", help="show tracebacks of internal errors")
+    p.add_argument(
+        "--enforce",
+        action="store_true",
+        help="exit with 3 when a declared requirement is not met (1 still wins when a dataset failed)",
+    )
 
 
 def _build(args: argparse.Namespace, out: _Printer) -> int:
@@ -181,6 +188,8 @@ def _build(args: argparse.Namespace, out: _Printer) -> int:
     for o in summary.outcomes:
         if o.status == "error":
             out.error(o.message if o.source in o.message else f"{o.source}: {o.message}")
+        elif o.requirements == "unmet":
+            out.warn(f"{o.source}: a declared requirement is not met; see its page")
     if args.debug:
         for name, trace in summary.debug_traces:
             print(f"--- traceback for {printable(name)} ---\n{trace}", file=out.stream)
@@ -188,9 +197,13 @@ def _build(args: argparse.Namespace, out: _Printer) -> int:
     out.info(
         f"Built {summary.out_dir}/index.html: {n} dataset{'s' if n != 1 else ''} — {summary.fitted} fitted, "
         f"{summary.reused} reused, {summary.warned} with warnings, {summary.errors} failed, "
-        f"in {summary.seconds:.1f} s"
+        f"in {summary.seconds:.1f} s" + (f"; {summary.unmet} with a requirement not met" if summary.unmet else "")
     )
-    return EXIT_DATASET_FAILED if summary.errors else EXIT_OK
+    if summary.errors:
+        return EXIT_DATASET_FAILED
+    if getattr(args, "enforce", False) and summary.unmet:
+        return EXIT_REQUIREMENT_UNMET
+    return EXIT_OK
 
 
 def _watch(args: argparse.Namespace, out: _Printer) -> int:

@@ -10,6 +10,7 @@ requests and turns the results into the report's plain dataclasses.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass
 from typing import Any
 
@@ -30,11 +31,12 @@ from sitegen.model import (
     Message,
     Prediction,
 )
+from sitegen.purposes import CalibrationResults, ComparisonResults, calibration, comparison, passing_bablok_line
+from sitegen.requirements import Evidence
 from sitegen.spec import DatasetSpec
 from sitegen.stats.calibration import detection_limits, inverse_predict
 from sitegen.stats.checks import model_checks
 from sitegen.stats.claims import check_claims
-from sitegen.stats.distributions import norm_ppf
 from sitegen.stats.groups import compare_groups
 from sitegen.stats.influence import Influence, PointFlags, flag_points, influence
 from sitegen.stats.lines import alternative_lines, explain_lines
@@ -75,6 +77,8 @@ class Derived:
     groups: GroupComparison | None
     chart: ChartData
     observations: Observations
+    comparison: ComparisonResults
+    calibration_parts: CalibrationResults
 
 
 def single_predictor(design: Design) -> str | None:
@@ -85,7 +89,9 @@ def single_predictor(design: Design) -> str | None:
 
 
 def _in_rhs(design: Design, var: str) -> bool:
-    return any(var in t for t in design.terms)
+    """Whether a column appears in a right-hand-side term (as a whole name: "t" is not in "Intercept")."""
+    word = re.compile(rf"(?<![A-Za-z0-9_.]){re.escape(var)}(?![A-Za-z0-9_])")
+    return any(word.search(t) for t in design.terms if t != "Intercept")
 
 
 def straight_line(design: Design) -> str | None:
@@ -141,13 +147,21 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
                 messages.append(Message("warning", str(found)))
             else:
                 claims.append(found)
+                if found.rejected:
+                    messages.append(Message("warning", f"Declared claim '{found.claim}': {found.conclusion}"))
     line_x = straight_line(design)
-    lines, lines_text = _lines(design, fit, spec, line_x, messages)
-    calibration, limits = _calibration(design, fit, spec, line_x, messages)
+    weighted = weights is not None
+    lines, lines_text = _lines(design, fit, spec, line_x, messages, weighted=weighted)
+    calibration_, limits = _calibration(design, fit, spec, line_x, messages, weighted=weighted)
     predictions = _predictions(design, fit, spec, messages)
     groups = _groups(design, fit, spec, line_x, messages, weights=weights)
     chart = _chart(design, fit, infl, flags, spec)
-    observations = _observations(design, fit, infl, flags, weights)
+    compared = comparison(design, spec, line_x, lines, level=fit.level, messages=messages)
+    calibrated = CalibrationResults()
+    if line_x is not None:
+        beta = (float(fit.beta[0]), float(fit.beta[1]))
+        calibrated = calibration(design, beta, fit.fitted, spec, line_x=line_x, weights=weights, messages=messages)
+    observations = _observations(design, fit, infl, flags, weights, residual_percent=calibrated.residual_percent)
     return Derived(
         messages=messages,
         diagnostics=diagnostics,
@@ -163,12 +177,14 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
         claims=tuple(claims),
         lines=lines,
         lines_text=lines_text,
-        calibration=calibration,
+        calibration=calibration_,
         limits=limits,
         predictions=predictions,
         groups=groups,
         chart=chart,
         observations=observations,
+        comparison=compared,
+        calibration_parts=calibrated,
     )
 
 
@@ -210,7 +226,7 @@ def _flagged(design: Design, infl: Influence, flags: PointFlags) -> tuple[Flagge
 
 
 def _lines(
-    design: Design, fit: OlsFit, spec: DatasetSpec, x_col: str | None, messages: list[Message]
+    design: Design, fit: OlsFit, spec: DatasetSpec, x_col: str | None, messages: list[Message], *, weighted: bool
 ) -> tuple[tuple[AltLine, ...], str]:
     if not spec.lines:
         return (), ""
@@ -222,22 +238,40 @@ def _lines(
             )
         )
         return (), ""
-    if spec.weights:
+    if weighted:
         messages.append(
             Message(
                 "warning",
                 "the alternative lines do not take weights, so they are not drawn for this weighted fit; "
-                "remove 'weights' or 'lines' from the sidecar",
+                "remove 'weights' (or 'weighting') or 'lines' from the sidecar",
             )
         )
         return (), ""
     x = design.X[:, 1]
+    closed_form = tuple(m for m in spec.lines if m != "passing_bablok")
     try:
-        found = alternative_lines(x, design.y, ("ols", *spec.lines), error_ratio=spec.error_ratio, level=fit.level)
+        found = alternative_lines(x, design.y, ("ols", *closed_form), error_ratio=spec.error_ratio, level=fit.level)
     except (FitError, ValueError, ArithmeticError) as exc:  # e.g. overflow for responses near 1e308
         messages.append(Message("warning", f"alternative lines could not be computed: {exc}"))
         return (), ""
-    r = float(np.corrcoef(x, design.y)[0, 1])
+    robust: tuple[AltLine, ...] = ()
+    if "passing_bablok" in spec.lines:
+        try:
+            pb = passing_bablok_line(np.asarray(x, dtype=np.float64), np.asarray(design.y, dtype=np.float64), fit.level)
+            robust = (pb,)
+            if pb.note:
+                messages.append(Message("warning", f"Passing–Bablok line: {pb.note}."))
+            if not pb.linear:
+                messages.append(
+                    Message(
+                        "warning",
+                        "Passing–Bablok line: its cusum test finds the relation between the methods not linear "
+                        f"(largest cusum {pb.cusum_max:.3g} above {pb.cusum_critical:.3g}); the line and its bias "
+                        "figures do not describe the whole range.",
+                    )
+                )
+        except (FitError, ValueError, ArithmeticError) as exc:
+            messages.append(Message("warning", f"the Passing–Bablok line could not be computed: {exc}"))
     out = tuple(
         AltLine(
             ln.method,
@@ -253,15 +287,21 @@ def _lines(
         for ln in found
         if ln.method != "ols"  # the least-squares line is the fit itself; the page shows it beside these
     )
-    return out, explain_lines(found, r)
+    text = explain_lines(found, float(np.corrcoef(x, design.y)[0, 1])) if closed_form else ""
+    if robust:
+        text = (text + " " if text else "") + (
+            "The Passing–Bablok line is the shifted median of the slopes between every pair of points, so a "
+            "few outlying results barely move it."
+        )
+    return out + robust, text
 
 
 def _calibration(
-    design: Design, fit: OlsFit, spec: DatasetSpec, x_col: str | None, messages: list[Message]
+    design: Design, fit: OlsFit, spec: DatasetSpec, x_col: str | None, messages: list[Message], *, weighted: bool
 ) -> tuple[tuple[Calibration, ...], DetectionLimits | None]:
     if not spec.calibrate:
         return (), None
-    if x_col is None or spec.weights or design.response not in design.variables:
+    if x_col is None or weighted or design.response not in design.variables:
         messages.append(
             Message(
                 "warning",
@@ -398,16 +438,40 @@ def _groups(
         return None
 
 
-def _qq(values: FloatArray) -> FloatArray:
-    """Normal quantiles for each value by rank (Blom's plotting positions; common practice)."""
-    out = np.full(values.shape, np.nan)
-    ok = np.isfinite(values)
-    m = int(ok.sum())
-    if m:
-        ranks = np.empty(m)
-        ranks[np.argsort(values[ok], kind="stable")] = np.arange(1, m + 1)
-        out[ok] = norm_ppf((ranks - 0.375) / (m + 0.25))
-    return out
+#: Width of the bins of the residual-shape chart, in standardized-residual units.
+SPREAD_BIN = 0.5
+#: The bins reach at least this far either side of zero, and at most SPREAD_REACH_MAX.
+SPREAD_REACH = 3.0
+SPREAD_REACH_MAX = 6.0
+
+
+def _normal_cdf(z: float) -> float:
+    return 0.5 * math.erfc(-z / math.sqrt(2.0))
+
+
+def spread_bins(std: FloatArray) -> tuple[tuple[float, float, float, float], ...]:
+    """Counts of standardized residuals in bins of SPREAD_BIN, with the counts a bell shape would give.
+
+    Every finite value is counted (the chart is not drawn from a sample); values beyond the outer
+    bins are counted in them, and the outer bins' expected counts take the whole tail, so both
+    columns sum to the number of rows. Rows: (low edge, high edge, count, expected count).
+    """
+    vals = np.asarray(std, dtype=float)
+    vals = vals[np.isfinite(vals)]
+    m = vals.size
+    if m == 0:
+        return ()
+    top = min(max(SPREAD_REACH, math.ceil(float(np.max(np.abs(vals))) / SPREAD_BIN) * SPREAD_BIN), SPREAD_REACH_MAX)
+    edges = np.arange(-top, top + SPREAD_BIN / 2, SPREAD_BIN)
+    counts, _ = np.histogram(np.clip(vals, -top, top), bins=edges)
+    out = []
+    last = len(edges) - 2
+    for i in range(len(edges) - 1):
+        lo = -math.inf if i == 0 else float(edges[i])
+        hi = math.inf if i == last else float(edges[i + 1])
+        expected = m * (_normal_cdf(hi) - _normal_cdf(lo))
+        out.append((float(edges[i]), float(edges[i + 1]), float(counts[i]), expected))
+    return tuple(out)
 
 
 def _chart_sample(
@@ -451,8 +515,6 @@ def _chart(design: Design, fit: OlsFit, infl: Influence, flags: PointFlags, spec
         "studentized": np.asarray(infl.studentized_residual),
         "leverage": np.asarray(infl.leverage),
         "cooks": np.asarray(infl.cooks_distance),
-        "root_abs_std": np.sqrt(np.abs(std)),
-        "qq_theory": _qq(std),
         "std_resid": std,
         "flag": is_flag,
     }
@@ -497,6 +559,8 @@ def _chart(design: Design, fit: OlsFit, infl: Influence, flags: PointFlags, spec
         density_columns=density_cols,
         density=density,
         point_groups=groups,
+        spread_columns=("low", "high", "count", "expected"),
+        spread=spread_bins(std),
     )
 
 
@@ -511,7 +575,13 @@ def _density(x: FloatArray, y: FloatArray) -> tuple[tuple[str, ...], tuple[tuple
 
 
 def _observations(
-    design: Design, fit: OlsFit, infl: Influence, flags: PointFlags, weights: FloatArray | None
+    design: Design,
+    fit: OlsFit,
+    infl: Influence,
+    flags: PointFlags,
+    weights: FloatArray | None,
+    *,
+    residual_percent: FloatArray | None = None,
 ) -> Observations:
     b = bands(fit, design.X, weights)
     cols: dict[str, NDArray[np.generic]] = {"row": design.rows}
@@ -537,4 +607,43 @@ def _observations(
         "dffits": np.asarray(infl.dffits),
         "flags": flag_text,
     }
+    if residual_percent is not None:  # calibrations: the residual in percent of the fitted value
+        cols["residual_percent"] = residual_percent
     return Observations(tuple(cols), tuple(cols.values()))
+
+
+def acceptance_evidence(design: Design, fit: OlsFit, spec: DatasetSpec) -> Evidence:
+    """Standards read back and bias at the ``max_bias`` levels, for the criteria that ask for them."""
+    from sitegen.stats.acceptance import bias_at, read_back  # noqa: PLC0415
+
+    req = spec.requirements
+    if req is None:
+        return Evidence()
+    line_x = straight_line(design)
+    plain_response = design.response in design.variables
+    x_col = single_predictor(design)
+    x_range = None
+    if x_col is not None:
+        xs = design.data[x_col].astype(float)
+        x_range = (float(xs.min()), float(xs.max()))
+    found = None
+    found_reason = ""
+    if req.back_calculated_within_percent is not None:
+        if line_x is None or not plain_response:
+            found_reason = 'standards are read back only through a straight line of an untransformed response ("y ~ x")'
+        else:
+            found = read_back(float(fit.beta[0]), float(fit.beta[1]), design.X[:, 1], design.y, design.rows)
+    bias = None
+    bias_reason = ""
+    if req.max_bias is not None:
+        if x_col is None or not plain_response:
+            bias_reason = "the bias (fitted y − x) needs a one-predictor model of an untransformed response"
+        else:
+            at = np.asarray(req.max_bias.at, dtype=float)
+            try:
+                X_at = design_for(design, {x_col: at})
+            except DatasetError as exc:
+                X_at, bias_reason = None, f"the model cannot be evaluated at those levels ({exc})"
+            if X_at is not None:
+                bias = bias_at(fit, X_at, at)
+    return Evidence(found, found_reason, bias, bias_reason, x_range)

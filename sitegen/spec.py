@@ -16,8 +16,51 @@ from typing import Any
 
 from sitegen.errors import SidecarError, SiteConfigError
 
-LINE_CHOICES = ("reverse", "orthogonal", "deming", "geometric_mean")
+LINE_CHOICES = ("reverse", "orthogonal", "deming", "geometric_mean", "passing_bablok")
+PURPOSES = ("relation", "comparison", "calibration")
+WEIGHTING_CHOICES = ("choose", "none", "1/x", "1/x²", "1/y²")
+# Spellings of the weightings that are easier to type; each means the named choice.
+_WEIGHTING_SPELLINGS = {"1/x^2": "1/x²", "1/x2": "1/x²", "1/y^2": "1/y²", "1/y2": "1/y²"}
 DEFAULT_LEVEL = 0.95
+
+
+@dataclass(frozen=True, slots=True)
+class BiasLimit:
+    """``max_bias``: the largest fitted bias (fitted y − x) allowed at each level in ``at``."""
+
+    at: tuple[float, ...]
+    limit: float | None = None
+    limit_percent: float | None = None
+
+
+@dataclass(frozen=True, slots=True)
+class RequirementSpec:
+    """The acceptance criteria a sidecar (or the site's defaults) declares under ``[requirements]``.
+
+    Every field is optional; ``None`` means "not declared".
+    """
+
+    min_r_squared: float | None = None
+    slope_within: tuple[float, float] | None = None
+    intercept_within: tuple[float, float] | None = None
+    slope_interval_includes: float | None = None
+    intercept_interval_includes: float | None = None
+    max_residual_sd: float | None = None
+    back_calculated_within_percent: float | None = None
+    lowest_within_percent: float | None = None
+    max_bias: BiasLimit | None = None
+    min_n: int | None = None
+
+    def declared(self) -> tuple[str, ...]:
+        """The names of the declared requirements, in the order of the README's table."""
+        return tuple(f.name for f in fields(self) if getattr(self, f.name) is not None)
+
+    def merged(self, over: RequirementSpec) -> RequirementSpec:
+        """These requirements with every key ``over`` declares put in place of the same key here."""
+        return RequirementSpec(
+            **{f.name: getattr(over, f.name) if getattr(over, f.name) is not None else getattr(self, f.name)
+               for f in fields(self)}
+        )  # fmt: skip
 
 
 @dataclass(frozen=True, slots=True)
@@ -43,6 +86,11 @@ class DatasetSpec:
     delimiter: str | None = None
     decimal: str = "."
     encoding: str = "utf-8"
+    purpose: str = "relation"
+    decision_levels: tuple[float, ...] = ()
+    weighting: str | None = None
+    percent_differences: bool = False
+    requirements: RequirementSpec | None = None
     unknown_keys: tuple[tuple[str, str | None], ...] = field(default=(), compare=False)
 
 
@@ -179,6 +227,133 @@ def _encoding(v: object) -> str:
     return s
 
 
+def _purpose(v: object) -> str:
+    s = _string(v)
+    if s not in PURPOSES:
+        hint = _closest(s, PURPOSES)
+        extra = f" (did you mean {hint!r}?)" if hint else ""
+        raise _BadValueError(f"one of {', '.join(repr(p) for p in PURPOSES)}{extra}")
+    return s
+
+
+def _weighting(v: object) -> str:
+    s = _string(v).strip().replace(" ", "")
+    s = _WEIGHTING_SPELLINGS.get(s, s)
+    if s not in WEIGHTING_CHOICES:
+        hint = _closest(s, WEIGHTING_CHOICES)
+        extra = f" (did you mean {hint!r}?)" if hint else ""
+        raise _BadValueError(f"one of {', '.join(repr(w) for w in WEIGHTING_CHOICES)}{extra}")
+    return s
+
+
+def _window(v: object) -> tuple[float, float]:
+    if not isinstance(v, list) or len(v) != 2:
+        raise _BadValueError("a window of two numbers [low, high], e.g. [0.98, 1.02]")
+    lo, hi = _number(v[0]), _number(v[1])
+    if lo > hi:
+        raise _BadValueError(f"a window [low, high] with low ≤ high; {lo:g} is above {hi:g}")
+    return lo, hi
+
+
+def _fraction(v: object) -> float:
+    x = _number(v)
+    if not 0.0 <= x <= 1.0:
+        raise _BadValueError("a number from 0 to 1, e.g. 0.995")
+    return x
+
+
+def _nonnegative(v: object) -> float:
+    x = _number(v)
+    if x < 0:
+        raise _BadValueError("a number of at least 0")
+    return x
+
+
+def _percent_limit(v: object) -> float:
+    x = _number(v)
+    if not 0.0 < x <= 100.0:
+        raise _BadValueError("a percentage above 0 and at most 100, e.g. 15")
+    return x
+
+
+def _count(v: object) -> int:
+    if isinstance(v, bool) or not isinstance(v, int) or v < 1:
+        raise _BadValueError("a whole number of at least 1")
+    return v
+
+
+_BIAS_KEYS = ("at", "limit", "limit_percent")
+
+
+def _bias_limit(v: object) -> BiasLimit:
+    example = "a table such as { at = [1.0, 4.0], limit = 0.1 } (and/or limit_percent = 5)"
+    if not isinstance(v, dict):
+        raise _BadValueError(example)
+    for key in v:
+        if key not in _BIAS_KEYS:
+            hint = _closest(str(key), _BIAS_KEYS)
+            raise _BadValueError(f"{example}; {key!r} is not one of {', '.join(_BIAS_KEYS)}" + _did_you_mean(hint))
+    if "at" not in v or ("limit" not in v and "limit_percent" not in v):
+        raise _BadValueError(f"{example}: 'at' and at least one of 'limit' and 'limit_percent'")
+    at = _numbers(v["at"])
+    if not at:
+        raise _BadValueError(f"{example}; 'at' is empty")
+    limit = _nonnegative(v["limit"]) if "limit" in v else None
+    limit_percent = _percent_limit(v["limit_percent"]) if "limit_percent" in v else None
+    return BiasLimit(tuple(dict.fromkeys(at)), limit, limit_percent)
+
+
+_REQUIREMENT_KEYS: Mapping[str, Callable[[object], Any]] = {
+    "min_r_squared": _fraction,
+    "slope_within": _window,
+    "intercept_within": _window,
+    "slope_interval_includes": _number,
+    "intercept_interval_includes": _number,
+    "max_residual_sd": _nonnegative,
+    "back_calculated_within_percent": _percent_limit,
+    "lowest_within_percent": _percent_limit,
+    "max_bias": _bias_limit,
+    "min_n": _count,
+}
+REQUIREMENT_KEYS = tuple(_REQUIREMENT_KEYS)
+assert set(REQUIREMENT_KEYS) == {f.name for f in fields(RequirementSpec)}
+
+
+def _did_you_mean(hint: str | None) -> str:
+    return f" (did you mean {hint!r}?)" if hint else ""
+
+
+class _RequirementError(_BadValueError):
+    """A fault inside ``[requirements]``; its text is the whole message after the file's name."""
+
+
+def _requirements(v: object) -> RequirementSpec:
+    """``[requirements]``: an unknown or misspelt criterion is an error (a criterion silently dropped would
+    let a site say "met" about something nobody checked)."""
+    if not isinstance(v, dict):
+        raise _BadValueError("a table of acceptance criteria, e.g. [requirements] with min_r_squared = 0.995")
+    values: dict[str, Any] = {}
+    for key, value in v.items():
+        check = _REQUIREMENT_KEYS.get(key)
+        if check is None:
+            hint = _closest(str(key), REQUIREMENT_KEYS)
+            raise _RequirementError(
+                f"[requirements] has unknown criterion '{key}'"
+                + (f"; did you mean '{hint}'?" if hint else "")
+                + f" The criteria are {', '.join(REQUIREMENT_KEYS)}."
+            )
+        try:
+            values[key] = check(value)
+        except _BadValueError as exc:
+            raise _RequirementError(f"[requirements] key '{key}' must be {exc}; got {_show(value)}") from None
+    if "lowest_within_percent" in values and "back_calculated_within_percent" not in values:
+        raise _RequirementError(
+            "[requirements] key 'lowest_within_percent' needs 'back_calculated_within_percent' beside it "
+            "(it loosens that criterion for the lowest level)"
+        )
+    return RequirementSpec(**values)
+
+
 _KEYS: Mapping[str, Callable[[object], Any]] = {
     "title": _opt_string,
     "description": _string,
@@ -199,6 +374,11 @@ _KEYS: Mapping[str, Callable[[object], Any]] = {
     "delimiter": _delimiter,
     "decimal": _decimal,
     "encoding": _encoding,
+    "purpose": _purpose,
+    "decision_levels": _numbers,
+    "weighting": _weighting,
+    "percent_differences": _boolean,
+    "requirements": _requirements,
 }
 SIDECAR_KEYS = tuple(sorted(_KEYS))
 assert set(_KEYS) == {f.name for f in fields(DatasetSpec)} - {"unknown_keys"}
@@ -311,6 +491,8 @@ def validate_keys(table: Mapping[str, object], where: str) -> tuple[dict[str, An
             raise SidecarError(f"{where}: key '{key}' {too_large}", hint="shorten it")
         try:
             clean[key] = check(value)
+        except _RequirementError as exc:
+            raise SidecarError(f"{where}: {exc}") from None
         except _BadValueError as exc:
             raise SidecarError(f"{where}: key '{key}' must be {exc}; got {_show(value)}") from None
     return clean, unknown
@@ -331,7 +513,12 @@ def read_sidecar(path: Path | None, defaults: Mapping[str, Any], display: str) -
         except ValueError as exc:
             raise SidecarError(f"{display} {exc}", hint=_toml_hint(exc)) from exc
         clean, unknown = validate_keys(table, display)
+        base = values.get("requirements")
+        if isinstance(base, RequirementSpec) and isinstance(clean.get("requirements"), RequirementSpec):
+            clean["requirements"] = base.merged(clean["requirements"])  # key by key over the site's defaults
         values.update(clean)
+    if values.get("purpose") == "comparison" and "lines" not in values:
+        values["lines"] = ("passing_bablok",)  # the comparison's robust line, unless lines are chosen
     return DatasetSpec(**values, unknown_keys=tuple(unknown))
 
 
@@ -358,6 +545,7 @@ class SiteConfig:
     mail_budget_megabytes: float = 20.0
     defaults: tuple[tuple[str, Any], ...] = ()
     limits: Limits = Limits()
+    ignore: tuple[str, ...] = ()  # glob patterns of files and folders the build skips
 
     @property
     def default_values(self) -> dict[str, Any]:
@@ -373,6 +561,7 @@ _SITE_KEYS = (
     "mail_budget_megabytes",
     "defaults",
     "limits",
+    "ignore",
 )
 _LIMIT_KEYS = ("max_megabytes", "max_rows", "max_columns", "max_fit_seconds", "max_fit_megabytes")
 
@@ -441,7 +630,31 @@ def read_site_config(path: Path) -> tuple[SiteConfig, list[str]]:
         warnings.append(f"site.toml [defaults]: {len(unknown) - MAX_UNKNOWN_SHOWN:,} more unknown keys are ignored")
     values["defaults"] = tuple(sorted(clean.items()))
     values["limits"] = _read_limits(table.get("limits", {}))
+    values["ignore"] = _read_ignore(table.get("ignore", []))
     return SiteConfig(**values), warnings
+
+
+MAX_IGNORE_PATTERNS = 200
+
+
+def _read_ignore(value: object) -> tuple[str, ...]:
+    """site.toml's ``ignore``: a list of glob patterns, each naming files or folders inside the data folder."""
+    if not isinstance(value, list):
+        example = '["drafts", "*.old.csv"]'
+        raise _site_error(f"key 'ignore' must be a list of glob patterns such as {example}; got {_show(value)}")
+    if len(value) > MAX_IGNORE_PATTERNS:
+        raise _site_error(f"key 'ignore' has {len(value)} patterns; at most {MAX_IGNORE_PATTERNS} are allowed")
+    out: list[str] = []
+    for item in value:
+        if not isinstance(item, str) or not item.strip():
+            raise _site_error(f"key 'ignore' must hold non-empty strings (glob patterns); got {_show(item)}")
+        if item.startswith("/") or ".." in item.split("/") or "\\" in item or "\x00" in item:
+            raise _site_error(
+                f"ignore pattern '{item}' must be a name or a path inside the data folder "
+                "(no leading '/', no '..', '/' as the separator)"
+            )
+        out.append(item)
+    return tuple(out)
 
 
 def _read_limits(table: object) -> Limits:

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import shutil
 from collections.abc import Sequence
-from dataclasses import asdict
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -16,6 +15,7 @@ if TYPE_CHECKING:
 from sitegen.discover import DatasetSource
 from sitegen.jsontext import json_text
 from sitegen.model import FitReport, to_json
+from sitegen.report import variation
 from sitegen.report.tables import (
     cell_kinds,
     clean_rows,
@@ -50,6 +50,7 @@ SUMMARY_COLUMNS = (
     "ci_high",
     "level",
     "tags",
+    "requirements",
 )
 COEFFICIENT_COLUMNS = ("term", "estimate", "std_error", "t_stat", "p_value", "ci_low", "ci_high")
 
@@ -87,6 +88,7 @@ def summary_row(r: FitReport) -> dict[str, Any]:
         "ci_high": c.ci_high if c else None,
         "level": r.level,
         "tags": ";".join(r.tags),
+        "requirements": r.requirements_state,
     }
 
 
@@ -105,12 +107,15 @@ def index_entry(r: FitReport) -> dict[str, Any]:
     row = {k: _json_value(v) for k, v in summary_row(r).items()}
     row["tags"] = list(r.tags)
     row["message_level"] = _message_level(r)
+    row["requirement_list"] = [
+        {"name": q.name, "met": q.met, "label": q.label, "text": q.text, "at": q.at} for q in r.requirements
+    ]
     return row
 
 
 def report_from_index_entry(entry: dict[str, Any], input_sha256: str) -> FitReport:
     """A light report (no per-row or chart data) from :func:`index_entry`'s values."""
-    from sitegen.model import Coefficient, Message  # noqa: PLC0415
+    from sitegen.model import Coefficient, Message, Requirement  # noqa: PLC0415
 
     nan = float("nan")
 
@@ -127,6 +132,13 @@ def report_from_index_entry(entry: dict[str, Any], input_sha256: str) -> FitRepo
             ),
         )  # fmt: skip
     messages = (Message(entry["message_level"], str(entry["message"])),) if entry.get("message") else ()
+    requirements = tuple(
+        Requirement(
+            name=str(q["name"]), met=bool(q["met"]), value=None, limit=None, text=str(q["text"]),
+            label=str(q.get("label", "")), at=q.get("at"),
+        )
+        for q in entry.get("requirement_list", ())
+    )  # fmt: skip
     return FitReport(
         dataset=str(entry["dataset"]),
         source=str(entry["source"]),
@@ -147,6 +159,7 @@ def report_from_index_entry(entry: dict[str, Any], input_sha256: str) -> FitRepo
         coefficients=coefficients,
         messages=messages,
         input_sha256=input_sha256,
+        requirements=requirements,
     )
 
 
@@ -199,6 +212,55 @@ def _observations(folder: Path, obs: Observations, book: list[Sheet]) -> str:
     return "observations.csv"
 
 
+AGREEMENT_COLUMNS = (
+    "scale",
+    "n",
+    "mean_difference",
+    "mean_difference_ci_low",
+    "mean_difference_ci_high",
+    "sd_difference",
+    "limit_low",
+    "limit_low_ci_low",
+    "limit_low_ci_high",
+    "limit_high",
+    "limit_high_ci_low",
+    "limit_high_ci_high",
+    "limit_se",
+    "multiplier",
+    "trend_slope",
+    "trend_slope_ci_low",
+    "trend_slope_ci_high",
+    "trend_p_value",
+)
+BIAS_COLUMNS = ("at", "estimate", "ci_low", "ci_high", "percent", "percent_ci_low", "percent_ci_high", "line")
+WEIGHTING_COLUMNS = ("weighting", "slope", "intercept", "sum_abs_percent", "max_abs_percent", "chosen")
+READBACK_COLUMNS = ("nominal", "replicate", "found", "percent", "level_replicates", "level_found", "level_percent")
+
+
+def _purpose_tables(folder: Path, r: FitReport, book: list[Sheet]) -> list[str]:
+    """The comparison's and the calibration's tables, where the report has them."""
+    files = []
+    agreements = [a for a in (r.agreement, r.agreement_percent) if a is not None]
+    if agreements:
+        rows = [[getattr(a, c) for c in AGREEMENT_COLUMNS] for a in agreements]
+        files.append(_table(folder, "agreement", AGREEMENT_COLUMNS, rows, book))
+    if r.bias:
+        files.append(
+            _table(folder, "bias", BIAS_COLUMNS, [[getattr(b, c) for c in BIAS_COLUMNS] for b in r.bias], book)
+        )
+    if r.back_calculated:
+        rows = [
+            [b.nominal, i, found, pct, b.replicates, b.found, b.percent]
+            for b in r.back_calculated
+            for i, (found, pct) in enumerate(zip(b.found_each, b.percent_each, strict=True), start=1)
+        ]
+        files.append(_table(folder, "readback", READBACK_COLUMNS, rows, book))
+    if r.weighting_options:
+        rows = [[getattr(o, c) for c in WEIGHTING_COLUMNS] for o in r.weighting_options]
+        files.append(_table(folder, "weighting", WEIGHTING_COLUMNS, rows, book))
+    return files
+
+
 def dataset_files(
     folder: Path, r: FitReport, obs: Observations | None, src: DatasetSource, offer_source: bool
 ) -> list[str]:
@@ -224,8 +286,7 @@ def dataset_files(
         files.append(_table(folder, "coefficients", COEFFICIENT_COLUMNS + extra, coef_rows, book))
     else:
         files.append(_table(folder, "coefficients", COEFFICIENT_COLUMNS, coef_rows, book))
-    anova_cols = ("source", "df", "sum_sq", "mean_sq", "f_stat", "p_value")
-    files.append(_table(folder, "anova", anova_cols, [list(asdict(a).values()) for a in r.anova], book))
+    files.append(_table(folder, "anova", variation.COLUMNS, variation.rows(r), book))
     if r.lines:
         cols: tuple[str, ...] = (
             "method",
@@ -248,6 +309,7 @@ def dataset_files(
         pred_cols = ("fitted", "std_error", "mean_ci_low", "mean_ci_high", "pred_low", "pred_high")
         rows = [[dict(p.at).get(n) for n in names] + [getattr(p, c) for c in pred_cols] for p in r.predictions]
         files.append(_table(folder, "predictions", (*names, *pred_cols), rows, book))
+    files += _purpose_tables(folder, r, book)
     if obs is not None:
         files.append(_observations(folder, obs, book))
     (folder / WORKBOOK).write_bytes(workbook(book))

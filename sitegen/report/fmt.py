@@ -96,3 +96,11 @@ def rsquared(x: object) -> str:
         decimals = min(max(3, 1 - math.floor(math.log10(1 - v)) + 1), 8)
         return f"{v:.{decimals}f}"
     return f"{v:.4f}".replace("-", "−")
+
+
+def given(x: object) -> str:
+    """A number the user wrote (a declared limit or level), shown as written rather than rounded or padded."""
+    v = _finite(x)
+    if v is None:
+        return MISSING
+    return f"{v:.12g}".replace("-", "−")

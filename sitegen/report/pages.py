@@ -15,7 +15,7 @@ from markupsafe import Markup
 from sitegen import __version__
 from sitegen.errors import SiteConfigError
 from sitegen.model import FitReport
-from sitegen.report import charts, fmt
+from sitegen.report import charts, fmt, variation
 from sitegen.report.theme import Theme
 from sitegen.spec import SiteConfig
 
@@ -95,6 +95,7 @@ def environment(theme: Theme) -> jinja2.Environment:
         "num": fmt.num,
         "integer": fmt.integer,
         "pvalue": fmt.pvalue,
+        "p_phrase": fmt.p_phrase,
         "rsq": fmt.rsquared,
         "level": fmt.level,
         "percent": fmt.percent,
@@ -102,6 +103,7 @@ def environment(theme: Theme) -> jinja2.Environment:
         "tojson_safe": json_for_script,
         "slugify": slugify,
         "show_char": _show_char,
+        "given": fmt.given,
     }
     return env
 
@@ -131,6 +133,26 @@ def _label(column: str | None, units: dict[str, str]) -> str:
 
 
 def sentence(r: FitReport) -> str:
+    """The fit in plain words, followed by what contradicts the user's own declarations (unmet requirements,
+    claims the data reject), so that the headline never reads as sound beside a contradicted claim."""
+    text = _fit_sentence(r)
+    if r.requirements:
+        unmet = [q for q in r.requirements if not q.met]
+        if unmet:
+            text += (
+                f" {len(unmet)} of {len(r.requirements)} declared requirements "
+                f"{'is' if len(unmet) == 1 else 'are'} not met ({unmet_words(r)})."
+            )
+        else:
+            text += f" All {len(r.requirements)} declared requirements are met."
+    rejected = [c for c in r.claims if c.rejected]
+    if rejected:
+        names = "; ".join(f"“{c.claim}”" for c in rejected)
+        text += f" The data contradict the declared claim{'s' if len(rejected) > 1 else ''} {names}."
+    return text
+
+
+def _fit_sentence(r: FitReport) -> str:
     """The fit stated in one plain sentence (two when the direction of the line is not established)."""
     units = dict(r.units)
     lvl = fmt.level(r.level)
@@ -144,8 +166,11 @@ def sentence(r: FitReport) -> str:
             f"R² = {fmt.rsquared(r.r_squared)}, measured about zero because the model has no intercept "
             "(it cannot be compared with the R² of a model that has one)"
         )
+    y_unit = dict(r.units).get(r.response, "")
     fit_part = (
-        f"{share}, and the points scatter about it with a residual standard error of {fmt.num(r.residual_std_error)}"
+        f"{share}, and the points scatter about it by {fmt.num(r.residual_std_error)}"
+        + (f" {y_unit}" if y_unit else "")
+        + " (the typical distance of a row from the line)"
     )
     chart = r.chart
     term = r.compare_term
@@ -172,12 +197,21 @@ def sentence(r: FitReport) -> str:
     return f"Across {fmt.integer(r.n)} rows fitted with {r.model}, {fit_part}."
 
 
+def unmet_words(r: FitReport) -> str:
+    """The declared requirements not met, by name ("max_residual_sd, max_bias at 1"), or ""."""
+    unmet = [q for q in r.requirements if not q.met]
+    return ", ".join(q.name + (f" at {fmt.given(q.at)}" if q.at is not None else "") for q in unmet)
+
+
 def _first_problem(r: FitReport) -> str:
+    """The index's note under a dataset: unmet requirements first, then the first error or warning."""
+    unmet = unmet_words(r)
+    lead = f"Requirements not met: {unmet}." if unmet else ""
     for level in ("error", "warning"):
         for m in r.messages:
             if m.level == level:
-                return m.text
-    return ""
+                return f"{lead} {m.text}".strip()
+    return lead
 
 
 _DESCRIBED = {
@@ -188,13 +222,19 @@ _DESCRIBED = {
     "lines.csv": "the other lines with their intervals",
     "calibration.csv": "inverse predictions with their intervals",
     "predictions.csv": "predicted values with their intervals",
+    "agreement.csv": "the difference analysis: mean difference, limits of agreement and their intervals",
+    "bias.csv": "the bias at each decision level with its interval",
+    "readback.csv": "every calibration standard read back from the line",
+    "weighting.csv": "the weightings compared and how well each reads the standards back",
 }
 _CHART_NAMES = {
     "chart-fit.svg": "the line and its bands",
-    "chart-residual-fitted.svg": "residuals against fitted values",
-    "chart-scale-location.svg": "scatter along the line",
-    "chart-qq.svg": "normal Q–Q plot",
-    "chart-leverage.svg": "residuals against leverage",
+    "chart-residual-by-x.svg": "residuals across the range of x",
+    "chart-residual-by-fitted.svg": "residuals across the fitted values",
+    "chart-residual-percent.svg": "residuals in percent of the fitted value",
+    "chart-residual-order.svg": "residuals in CSV row order",
+    "chart-shape.svg": "shape of the residuals' scatter",
+    "chart-pull.svg": "each row's pull on the line",
 }
 
 
@@ -234,8 +274,9 @@ def render_dataset(
     fit_caption = (
         f"{r.response} against {x_label}: the fitted line, its {fmt.level(r.level)} confidence band for the mean "
         f"(darker) and prediction band for single readings (lighter)"
+        + (", the line of equality y = x (where the methods would agree)" if r.purpose == "comparison" else "")
         + (", and the other lines listed below" if r.lines else "")
-        + ("; flagged rows are drawn as larger triangles." if r.flagged else ".")
+        + ("; flagged rows are drawn as larger squares." if r.flagged else ".")
     )
     return _render(
         env,
@@ -250,6 +291,9 @@ def render_dataset(
         cutoffs=cutoffs,
         x_label=x_label,
         fit_caption=fit_caption,
+        pull_limit=charts.influence_limit(r) if ok else None,
+        variation=variation.parts(r) if ok else (),
+        resid_unit=units.get(r.chart.y, "") if r.chart else "",
     )
 
 

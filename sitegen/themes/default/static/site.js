@@ -7,11 +7,11 @@
   /* Used when a theme's theme.toml leaves a colour out. */
   var FALLBACK = {
     light: { category: ["#b3471d", "#4d7325", "#7a4f9a", "#8a6700", "#a3345f", "#3d3d3d", "#2b6a89"],
-             mark: "#2b6a89", flag: "#b3471d", text: "#1d2733", muted: "#4f5a66", grid: "#e6e3dc", domain: "#7c828a",
-             band: "#2b6a89", density: "#56606b" },
+             mark: "#1f6f5c", flag: "#a4286a", text: "#1d2733", muted: "#4f5a66", grid: "#e6e3dc", domain: "#7c828a",
+             band: "#1f6f5c", density: "#56606b" },
     dark: { category: ["#f0a070", "#a8d27a", "#c9a6f0", "#e8c85a", "#f08fb5", "#d0d0d0", "#7fc1e0"],
-            mark: "#7fc1e0", flag: "#f0a070", text: "#e6e9ee", muted: "#b3bcc7", grid: "#333b45", domain: "#8a93a0",
-            band: "#7fc1e0", density: "#b8c2cc" }
+            mark: "#6fd1b5", flag: "#f29cc8", text: "#e6e9ee", muted: "#b3bcc7", grid: "#333b45", domain: "#8a93a0",
+            band: "#6fd1b5", density: "#b8c2cc" }
   };
 
   function media(query) {
@@ -221,7 +221,7 @@
       var table = document.getElementById(form.getAttribute("data-filter-for"));
       if (!table) { return; }
       var params = new URLSearchParams(window.location.search);
-      ["q", "status", "tag", "folder"].forEach(function (k) {
+      ["q", "status", "requirements", "tag", "folder"].forEach(function (k) {
         var el = form.elements[k];
         if (!el || !params.has(k)) { return; }
         var value = params.get(k);
@@ -231,11 +231,13 @@
       function apply() {
         var q = form.elements.q.value.trim().toLowerCase();
         var status = form.elements.status.value, tag = form.elements.tag.value, folder = form.elements.folder.value;
+        var req = form.elements.requirements ? form.elements.requirements.value : "";
         var shown = 0, total = 0;
         dataRows(table).forEach(function (r) {
           total += 1;
           var ok = (!q || (r.getAttribute("data-search") || "").indexOf(q) >= 0) &&
             (!status || r.getAttribute("data-status") === status) &&
+            (!req || r.getAttribute("data-requirements") === req) &&
             (!tag || (r.getAttribute("data-tags") || "").split("|").indexOf(tag) >= 0) &&
             (!folder || r.getAttribute("data-folder") === folder);
           r.hidden = !ok;
@@ -249,7 +251,7 @@
         }
         var empty = document.getElementById(table.id + "-empty");
         if (empty) { empty.hidden = shown > 0; }
-        var filtering = q || status || tag || folder;
+        var filtering = q || status || req || tag || folder;
         form.elements.shown.value = filtering ? shown + " of " + total + " datasets shown" : total + " datasets";
       }
       form.addEventListener("input", apply);
