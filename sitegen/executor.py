@@ -10,7 +10,7 @@ Work that must stay within bounds (fitting a dataset from an untrusted folder) i
 run with a :class:`Bounded`: each item then runs in a worker process — never in
 this one, even when it is the only item — whose address space is capped at what it
 already uses plus ``megabytes`` while the item runs, and which ends when the item has
-used ``seconds`` of processor time (or :data:`CLOCK_FACTOR` times that by the clock).
+used ``seconds`` of processor time (or, by the clock, :func:`_clock_bound` of it).
 An item past a bound gets the result ``Bounded.fallback`` makes for it (in this process), the worker is replaced, and
 the other items go on. The standard library's ``ProcessPoolExecutor`` cannot end
 one overdue task without breaking the whole pool, which is why the workers here
@@ -44,9 +44,15 @@ Overrun = Literal["time", "memory", "ended"]
 
 #: ``-j`` is capped at this many workers per core (a larger number only adds memory and start-up).
 JOBS_PER_CORE = 2
-#: A bounded item is stopped after ``seconds`` of processor time, or this many times ``seconds`` by the
-#: clock (an item waiting on something uses no processor time; a busy machine shares it out).
+#: A bounded item is stopped after ``seconds`` of processor time, or by the clock after this many times
+#: ``seconds`` and at least :data:`CLOCK_GRACE` seconds more (an item waiting on something uses no processor
+#: time; a busy machine shares it out).
 CLOCK_FACTOR = 3
+CLOCK_GRACE = 30.0
+
+
+def _clock_bound(seconds: float) -> float:
+    return max(CLOCK_FACTOR * seconds, seconds + CLOCK_GRACE)
 
 
 @dataclass(frozen=True, slots=True)
@@ -156,7 +162,7 @@ class WorkerExecutor:
             except OSError:  # the worker ended while idle (the system's out-of-memory killer): start another
                 self._replace(self._workers[at])
                 self._workers[at].conn.send(message)
-            deadline = time.monotonic() + CLOCK_FACTOR * bounded.seconds if bounded else float("inf")
+            deadline = time.monotonic() + _clock_bound(bounded.seconds) if bounded else float("inf")
             busy[self._workers[at].conn] = _Busy(self._workers[at], i, deadline)
         del items
 
@@ -195,7 +201,6 @@ class WorkerExecutor:
                     del busy[conn]
                     self._replace(job.worker)
                     outcomes.append((job.index, "time", None))
-            self._feed(fn, items, queue, busy, bounded)
             for index, overrun, value in outcomes:
                 if overrun is not None:
                     if bounded is None:
@@ -205,6 +210,9 @@ class WorkerExecutor:
                     raise value.exc
                 else:
                     yield index, value
+            # The next items start once the caller has taken these results: with one worker, items run in
+            # order, one after the other's result was handled (as they would in this process).
+            self._feed(fn, items, queue, busy, bounded)
 
     def _grow(self, target: int) -> None:
         while len(self._workers) < target:
