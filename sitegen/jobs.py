@@ -114,7 +114,9 @@ def _finish(job: FitJob, result: DatasetResult) -> FitDone:
         report = replace(report, messages=(Message("warning", text), *report.messages), status=status)
         result = replace(result, report=report)
     job.folder.mkdir(parents=True, exist_ok=True)
-    files = tuple(dataset_files(job.folder, result.report, result.observations, job.source, job.offer_source))
+    max_bytes = int(job.limits.max_megabytes * 1e6)
+    report, obs = result.report, result.observations
+    files = tuple(dataset_files(job.folder, report, obs, job.source, job.offer_source, max_bytes=max_bytes))
     # Chart images run a JavaScript engine that reserves far more address space than a fit's memory bound
     # allows: such pages are written in the build's page round, outside the bound.
     page = job.page if job.page is not None and not job.page.ctx.config.static_images else None

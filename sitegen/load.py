@@ -41,7 +41,8 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from sitegen.errors import DataFileError, DataLimitError
+from sitegen.confine import OUTSIDE_HINT, open_inside
+from sitegen.errors import DataFileError, DataLimitError, OutsideFolderError
 from sitegen.spec import DatasetSpec, Limits
 from sitegen.table import NUMBER, Table, from_columns, from_frame, integer_kind
 
@@ -104,22 +105,27 @@ def _check_size(n_bytes: int, limits: Limits, name: str) -> None:
         )
 
 
-def read_source(path: Path, limits: Limits, name: str) -> bytes:
-    """Read a dataset's file, refusing one over the size limit before reading it.
+def read_source(path: Path, limits: Limits, name: str, root: Path | None = None) -> bytes:
+    """Read a dataset's file, refusing one over the size limit before reading it, and (given the data
+    folder ``root``) one that leads outside the data folder or is not a plain file, without reading it.
 
     ``OSError`` (the file vanished or cannot be opened) is left to the caller,
     which knows how to word it.
     """
-    _check_size(path.stat().st_size, limits, name)
     cap = _max_bytes(limits) + 1  # the file may have grown since it was measured
-    with path.open("rb") as fh:
-        # read() sets aside as much memory as it is asked for: ask for the file's size, then for more in
-        # pieces while it keeps growing, never for the whole limit at once.
-        pieces = [fh.read(min(os.fstat(fh.fileno()).st_size + 1, cap))]
-        total = len(pieces[0])
-        while pieces[-1] and total < cap:
-            pieces.append(fh.read(min(1 << 20, cap - total)))
-            total += len(pieces[-1])
+    try:
+        with open_inside(path, root) as fh:
+            size = os.fstat(fh.fileno()).st_size
+            _check_size(size, limits, name)
+            # read() sets aside as much memory as it is asked for: ask for the file's size, then for more in
+            # pieces while it keeps growing, never for the whole limit at once.
+            pieces = [fh.read(min(size + 1, cap))]
+            total = len(pieces[0])
+            while pieces[-1] and total < cap:
+                pieces.append(fh.read(min(1 << 20, cap - total)))
+                total += len(pieces[-1])
+    except OutsideFolderError as exc:
+        raise DataFileError(f"{name} {exc.message}", hint=OUTSIDE_HINT) from None
     raw = pieces[0] if len(pieces) == 1 else b"".join(pieces)
     _check_size(len(raw), limits, name)
     return raw

@@ -9,12 +9,14 @@ boundary for TOML) into :class:`~sitegen.errors.SidecarError` or
 from __future__ import annotations
 
 import math
+import os
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any
 
-from sitegen.errors import SidecarError, SiteConfigError
+from sitegen.confine import read_inside
+from sitegen.errors import OutsideFolderError, SidecarError, SiteConfigError
 
 LINE_CHOICES = ("reverse", "orthogonal", "deming", "geometric_mean", "passing_bablok")
 PURPOSES = ("relation", "comparison", "calibration")
@@ -412,11 +414,13 @@ _MAX_ENTRIES = 1_000
 MAX_UNKNOWN_SHOWN = 10
 
 
-def _read_toml(path: Path) -> dict[str, Any]:
-    """Parse a TOML file; raises ``ValueError`` with a readable message."""
+def _read_toml(path: Path, root: Path | None = None) -> dict[str, Any]:
+    """Parse a TOML file (refused unread when it leads outside ``root``); raises ``ValueError`` with a readable
+    message."""
     try:
-        with path.open("rb") as fh:
-            raw = fh.read(MAX_TOML_BYTES + 1)
+        raw = read_inside(path, root, MAX_TOML_BYTES)
+    except OutsideFolderError as exc:
+        raise ValueError(exc.message) from None
     except OSError as exc:
         raise ValueError(f"cannot be read: {exc.strerror or exc}") from exc
     if len(raw) > MAX_TOML_BYTES:
@@ -503,13 +507,14 @@ def _show(value: object) -> str:
     return text if len(text) <= 60 else text[:57] + "..."
 
 
-def read_sidecar(path: Path | None, defaults: Mapping[str, Any], display: str) -> DatasetSpec:
-    """Merge a sidecar over the site's validated defaults into a :class:`DatasetSpec`."""
+def read_sidecar(path: Path | None, defaults: Mapping[str, Any], display: str, root: Path | None = None) -> DatasetSpec:
+    """Merge a sidecar over the site's validated defaults into a :class:`DatasetSpec`; a sidecar that leads
+    outside the data folder ``root`` is refused unread."""
     values = dict(defaults)
     unknown: list[tuple[str, str | None]] = []
     if path is not None:
         try:
-            table = _read_toml(path)
+            table = _read_toml(path, root)
         except ValueError as exc:
             raise SidecarError(f"{display} {exc}", hint=_toml_hint(exc)) from exc
         clean, unknown = validate_keys(table, display)
@@ -584,12 +589,13 @@ def _unknown_site_keys(table: Mapping[str, object]) -> list[str]:
     return warnings
 
 
-def read_site_config(path: Path) -> tuple[SiteConfig, list[str]]:
-    """Read ``site.toml`` (absent → defaults). Returns the config and warnings."""
-    if not path.is_file():
+def read_site_config(path: Path, root: Path | None = None) -> tuple[SiteConfig, list[str]]:
+    """Read ``site.toml`` (absent → defaults; leading outside the data folder ``root`` → refused unread).
+    Returns the config and warnings."""
+    if not os.path.lexists(path):
         return SiteConfig(), []
     try:
-        table = _read_toml(path)
+        table = _read_toml(path, root)
     except ValueError as exc:
         raise SiteConfigError(f"site.toml {exc}", hint=_toml_hint(exc)) from exc
     warnings: list[str] = []
