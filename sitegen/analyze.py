@@ -188,7 +188,7 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         messages.append(
             Message("warning", f"{len(design.dropped)} row(s) left out ({'; '.join(reasons)}): rows {rows}{more}.")
         )
-    pieces = derive.compute(design, fit, spec, weights)
+    pieces = derive.compute(design, fit, spec, weights, weighting=weighting.name if weighting else None)
     messages += pieces.messages
     status: Status = "warn" if any(m.level in ("warning", "error") for m in messages) else "ok"
     if any(d.flag for d in pieces.diagnostics):
@@ -256,7 +256,8 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
     if weights is not None and fit.df_resid > 0:
         report = replace(report, residual_sd_y=float(np.sqrt(np.sum(fit.resid**2) / fit.df_resid)))
     if spec.requirements is not None:
-        found = judge(report, spec.requirements, derive.acceptance_evidence(design, fit, spec))
+        evidence = derive.acceptance_evidence(design, fit, spec, lines=report.lines, weighted=weights is not None)
+        found = judge(report, spec.requirements, evidence)
         report = replace(report, requirements=found)
     return DatasetResult(report, pieces.observations)
 

@@ -30,8 +30,17 @@ from sitegen.model import (
     GroupComparison,
     Message,
     Prediction,
+    check_warning,
 )
-from sitegen.purposes import CalibrationResults, ComparisonResults, calibration, comparison, passing_bablok_line
+from sitegen.purposes import (
+    CalibrationResults,
+    ComparisonResults,
+    calibration,
+    comparison,
+    comparison_bias,
+    passing_bablok_line,
+    plain_response,
+)
 from sitegen.requirements import Evidence
 from sitegen.spec import DatasetSpec
 from sitegen.stats.calibration import detection_limits, inverse_predict
@@ -41,6 +50,7 @@ from sitegen.stats.groups import compare_groups
 from sitegen.stats.influence import Influence, PointFlags, flag_points, influence
 from sitegen.stats.lines import alternative_lines, explain_lines
 from sitegen.stats.ols import OlsFit, bands
+from sitegen.stats.readback import inverse_predict_weighted
 from sitegen.stats.robust import hc3_cov
 from sitegen.table import to_float
 
@@ -103,7 +113,9 @@ def straight_line(design: Design) -> str | None:
     return None
 
 
-def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray | None) -> Derived:
+def compute(
+    design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray | None, *, weighting: str | None = None
+) -> Derived:
     """Derive every requested result; problems with optional extras become warnings."""
     messages: list[Message] = []
     infl = influence(fit.q, fit.resid, fit.df_resid, weights=weights)
@@ -136,7 +148,7 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
     )
     for d in diagnostics:
         if d.flag:
-            messages.append(Message("warning", f"{d.label}: {d.text} {d.advice}".strip()))
+            messages.append(check_warning(d))
     robust_se = None
     if spec.robust:
         cov = hc3_cov(Xw, fit.resid * sw, np.asarray(infl.leverage), fit.xtx_inv, xtx_root=fit.xtx_root)
@@ -153,11 +165,14 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
     line_x = straight_line(design)
     weighted = weights is not None
     lines, lines_text = _lines(design, fit, spec, line_x, messages, weighted=weighted)
-    calibration_, limits = _calibration(design, fit, spec, line_x, messages, weighted=weighted)
+    if weighting in ("1/x", "1/x²", "1/y²") and spec.calibrate and line_x is not None and plain_response(design):
+        calibration_, limits = _weighted_calibration(design, fit, spec, weighting, messages)
+    else:
+        calibration_, limits = _calibration(design, fit, spec, line_x, messages, weighted=weighted)
     predictions = _predictions(design, fit, spec, messages)
     groups = _groups(design, fit, spec, line_x, messages, weights=weights)
     chart = _chart(design, fit, infl, flags, spec)
-    compared = comparison(design, spec, line_x, lines, level=fit.level, messages=messages)
+    compared = comparison(design, spec, line_x, lines, level=fit.level, messages=messages, weighted=weighted)
     calibrated = CalibrationResults()
     if line_x is not None:
         beta = (float(fit.beta[0]), float(fit.beta[1]))
@@ -302,7 +317,7 @@ def _calibration(
 ) -> tuple[tuple[Calibration, ...], DetectionLimits | None]:
     if not spec.calibrate:
         return (), None
-    if x_col is None or weighted or design.response not in design.variables:
+    if x_col is None or weighted or not plain_response(design):
         messages.append(
             Message(
                 "warning",
@@ -364,6 +379,36 @@ def _calibration(
             )
         )
     return cal, DetectionLimits(lim.lod, lim.loq, lim.convention, lim.basis)
+
+
+def _weighted_calibration(
+    design: Design, fit: OlsFit, spec: DatasetSpec, weighting: str, messages: list[Message]
+) -> tuple[tuple[Calibration, ...], DetectionLimits | None]:
+    """Inverse predictions through a line weighted 1/x, 1/x² or 1/y² (classical interval; no LOD/LOQ)."""
+    x = np.asarray(design.X[:, 1], dtype=np.float64)
+    y = np.asarray(design.y, dtype=np.float64)
+    try:
+        found = inverse_predict_weighted(
+            x, y, weighting=weighting, level=fit.level, responses=spec.calibrate, readings=spec.readings
+        )
+    except (FitError, ValueError, ArithmeticError) as exc:
+        messages.append(Message("warning", f"inverse prediction could not be computed: {exc}"))
+        return (), None
+    method = f"classical, weighted {weighting}"
+    cal = tuple(
+        Calibration(
+            c.response, c.readings, c.estimate, c.std_error, c.ci_low, c.ci_high, method, math.isfinite(c.std_error)
+        )
+        for c in found
+    )
+    messages.append(
+        Message(
+            "note",
+            f"Samples are read back through the line weighted {weighting}, with the classical interval; "
+            "detection and quantitation limits are not given for a weighted line.",
+        )
+    )
+    return cal, None
 
 
 def _column(values: list[Any]) -> NDArray[Any]:
@@ -669,8 +714,11 @@ def _observations(
     return Observations(tuple(cols), tuple(cols.values()))
 
 
-def acceptance_evidence(design: Design, fit: OlsFit, spec: DatasetSpec) -> Evidence:
+def acceptance_evidence(
+    design: Design, fit: OlsFit, spec: DatasetSpec, *, lines: tuple[AltLine, ...] = (), weighted: bool = False
+) -> Evidence:
     """Standards read back and bias at the ``max_bias`` levels, for the criteria that ask for them."""
+    from sitegen.stats.acceptance import BiasAt as AcceptedBias  # noqa: PLC0415
     from sitegen.stats.acceptance import bias_at, read_back  # noqa: PLC0415
 
     req = spec.requirements
@@ -697,10 +745,18 @@ def acceptance_evidence(design: Design, fit: OlsFit, spec: DatasetSpec) -> Evide
             bias_reason = "the bias (fitted y − x) needs a one-predictor model of an untransformed response"
         else:
             at = np.asarray(req.max_bias.at, dtype=float)
-            try:
-                X_at = design_for(design, {x_col: at})
-            except DatasetError as exc:
-                X_at, bias_reason = None, f"the model cannot be evaluated at those levels ({exc})"
-            if X_at is not None:
-                bias = bias_at(fit, X_at, at)
+            if spec.purpose == "comparison" and line_x is not None and not weighted:
+                # A comparison's bias comes from the line its page recommends, as in fit.json's "bias".
+                found_bias, bias_reason = comparison_bias(
+                    design, spec, line_x, lines, levels=tuple(at.tolist()), level=fit.level
+                )
+                if found_bias is not None:
+                    bias = tuple(AcceptedBias(b.at, b.estimate, b.ci_low, b.ci_high) for b in found_bias)
+            else:
+                try:
+                    X_at = design_for(design, {x_col: at})
+                except DatasetError as exc:
+                    X_at, bias_reason = None, f"the model cannot be evaluated at those levels ({exc})"
+                if X_at is not None:
+                    bias = bias_at(fit, X_at, at)
     return Evidence(found, found_reason, bias, bias_reason, x_range)

@@ -19,6 +19,7 @@ if TYPE_CHECKING:
     from sitegen.analyze import DatasetResult
     from sitegen.executor import Bounded, Overrun
     from sitegen.model import FitReport
+    from sitegen.report.dataset_view import Neighbour
     from sitegen.report.pages import SiteContext
 
 
@@ -40,8 +41,8 @@ class Neighbours:
     """What a dataset page needs besides its report: the site, and the datasets before and after it."""
 
     ctx: SiteContext
-    prev: tuple[str, str] | None
-    next: tuple[str, str] | None
+    prev: Neighbour | None
+    next: Neighbour | None
 
 
 @dataclass(frozen=True, slots=True)
@@ -141,8 +142,8 @@ class PageJob:
     ctx: SiteContext
     report: FitReport | None  # None: read the full report from the folder's fit.json
     files: tuple[str, ...]
-    prev: tuple[str, str] | None
-    next: tuple[str, str] | None
+    prev: Neighbour | None
+    next: Neighbour | None
     target: Path
 
 

@@ -58,11 +58,8 @@ COEFFICIENT_COLUMNS = ("term", "estimate", "std_error", "t_stat", "p_value", "ci
 
 
 def _message(r: FitReport) -> str:
-    for level in ("error", "warning", "note"):
-        for m in r.messages:
-            if m.level == level:
-                return m.text
-    return ""
+    first = r.first_message("error", "warning", "note")
+    return first.text if first else ""
 
 
 def summary_row(r: FitReport) -> dict[str, Any]:
@@ -95,10 +92,8 @@ def summary_row(r: FitReport) -> dict[str, Any]:
 
 
 def _message_level(r: FitReport) -> str:
-    for level in ("error", "warning", "note"):
-        if any(m.level == level for m in r.messages):
-            return level
-    return ""
+    first = r.first_message("error", "warning", "note")
+    return first.level if first else ""
 
 
 def index_entry(r: FitReport) -> dict[str, Any]:
