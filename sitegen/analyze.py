@@ -52,9 +52,24 @@ class DatasetResult:
     debug_trace: str | None = None
 
 
+def error_report(src: DatasetSource, text: str = "") -> FitReport:
+    """The report of a dataset that could not be fitted (with ``text`` as its error, when given)."""
+    base = FitReport(
+        dataset=src.slug,
+        source=src.relpath,
+        section=src.section,
+        title=Path(src.relpath).stem,
+        status="error",
+        model="",
+        level=0.95,
+    )
+    return replace(base, messages=(Message("error", text),)) if text else base
+
+
 def analyze(task: FitTask) -> DatasetResult:
-    """Fit one dataset; never raises. Floating-point overflow and the like print nothing: figures that
-    are not finite are caught by ``stats/soundness.py`` and reported in the dataset's own words."""
+    """Fit one dataset; never raises, except :class:`MemoryError` (the worker running it reports the memory
+    bound). Floating-point overflow and the like print nothing: figures that are not finite are caught by
+    ``stats/soundness.py`` and reported in the dataset's own words."""
     import warnings  # noqa: PLC0415
 
     with np.errstate(all="ignore"), warnings.catch_warnings():
@@ -65,21 +80,18 @@ def analyze(task: FitTask) -> DatasetResult:
 def _analyze(task: FitTask) -> DatasetResult:
     src = task.source
     title = Path(src.relpath).stem
-    base = FitReport(
-        dataset=src.slug,
-        source=src.relpath,
-        section=src.section,
-        title=title,
-        status="error",
-        model="",
-        level=0.95,
-    )
+    base = error_report(src)
     try:
         raw = read_source(src.csv_path, task.limits, src.relpath, src.root)  # refuses a file over the size limit unread
     except OSError as exc:
-        msg = (
-            f"{src.relpath} cannot be read: {exc.strerror or exc} (it may have been moved or deleted during the build)"
-        )
+        import errno  # noqa: PLC0415
+
+        why = {
+            errno.ENAMETOOLONG: "its path is too long for the file system; move it to a folder with a shorter path",
+            errno.EACCES: "there is no permission to read it; ask for read access or move it",
+            errno.ELOOP: "it is a symbolic link that loops; remove or correct the link",
+        }.get(exc.errno or 0, "it may have been moved or deleted during the build")
+        msg = f"{src.relpath} cannot be read: {exc.strerror or exc} ({why})"
         return DatasetResult(replace(base, messages=(Message("error", msg),)), None)
     except DatasetError as exc:
         return DatasetResult(replace(base, messages=(Message("error", str(exc)),)), None)
@@ -101,7 +113,11 @@ def _analyze(task: FitTask) -> DatasetResult:
     except DatasetError as exc:
         messages = [*_spec_messages(spec, sidecar_name), Message("error", str(exc))]
         return DatasetResult(replace(base, messages=tuple(messages)), None)
+    except MemoryError:
+        raise
     except Exception as exc:
+        if isinstance(exc, ImportError | OSError) and any(w in str(exc).lower() for w in ("memory", "failed to map")):
+            raise MemoryError(str(exc)) from exc  # a library could not be loaded within the memory bound
         text = (
             f"sitegen could not process {src.relpath} {INTERNAL_ERROR_WORDS} "
             f"({type(exc).__name__}: {exc}); please report it with the file"
@@ -112,10 +128,15 @@ def _analyze(task: FitTask) -> DatasetResult:
 def _spec_messages(spec: DatasetSpec | None, sidecar_name: str) -> list[Message]:
     if spec is None:
         return []
+    from sitegen.spec import MAX_UNKNOWN_SHOWN  # noqa: PLC0415
+
     out = []
-    for key, hint in spec.unknown_keys:
+    for key, hint in spec.unknown_keys[:MAX_UNKNOWN_SHOWN]:
         tip = f"; did you mean '{hint}'?" if hint else "; see the README for the keys a sidecar may hold"
         out.append(Message("warning", f"{sidecar_name}: unknown sidecar key '{key}' was ignored{tip}"))
+    more = len(spec.unknown_keys) - MAX_UNKNOWN_SHOWN
+    if more > 0:
+        out.append(Message("warning", f"{sidecar_name}: {more:,} more unknown sidecar keys were ignored"))
     return out
 
 

@@ -20,7 +20,7 @@ import json
 import os
 import time
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import astuple, dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -152,7 +152,7 @@ def _shared_inputs(config: SiteConfig, versions: dict[str, str]) -> str:
     return json.dumps(
         {
             "defaults": [[k, v] for k, v in config.defaults],
-            "limits": [config.limits.max_megabytes, config.limits.max_rows, config.limits.max_columns],
+            "limits": list(astuple(config.limits)),  # a failure past a bound is kept only while the bound stays
             "offer_source": config.offer_source,
             "sitegen": __version__,
             "libraries": versions,
@@ -624,7 +624,7 @@ class _Build:
         return report, tuple(files)
 
     def execute(self, theme: Theme) -> tuple[tuple[Outcome, ...], int, list[str], tuple[tuple[str, str], ...]]:
-        from sitegen.jobs import FitJob, Neighbours, fit_job, page_job  # noqa: PLC0415
+        from sitegen.jobs import FitJob, Neighbours, fit_bounds, fit_job, page_job  # noqa: PLC0415
         from sitegen.report import assets, history, pages  # noqa: PLC0415
         from sitegen.report.files import report_from_index_entry, summary_files, summary_row  # noqa: PLC0415
         from sitegen.report.tags import tag_blocks  # noqa: PLC0415
@@ -650,7 +650,7 @@ class _Build:
         if self.progress:
             self.progress(count, total, "")
         paged: dict[str, tuple[Neighbours | None, tuple[str, ...]]] = {}
-        for i, res in self.run.run(fit_job, jobs):
+        for i, res in self.run.run(fit_job, jobs, fit_bounds(self.config.limits)):
             slug = jobs[i].source.slug
             report = res.report or report_from_index_entry(res.entry or {}, self.prints[slug][0])
             done[slug] = (report, res.files)

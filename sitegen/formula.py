@@ -51,6 +51,15 @@ SAFE_FUNCTIONS = frozenset(
 PATSY_FUNCTIONS = frozenset({"I", "Q", "center", "standardize", "scale"})
 #: Longest model formula accepted (a guard against pathological sidecars).
 MAX_FORMULA_CHARS = 10_000
+#: Largest power a formula may raise to (``x**MAX_EXPONENT``); Python would compute a power of a power of
+#: whole numbers (``10**10**10``) exactly, for hours and gigabytes, before numpy ever saw it.
+MAX_EXPONENT = 1000
+#: Largest whole number written in a formula (beyond it numpy cannot hold it; write 1e20 instead).
+MAX_INTEGER = 10**18
+#: Most terms a formula may expand to (``(a+b+c)**2`` has 6); ``(a+…+z)**20`` would be millions.
+MAX_TERMS = 1000
+#: Highest order of interaction ``(a+b)**N`` may ask for (patsy loops N times, whatever N is).
+MAX_INTERACTION_ORDER = 10
 _ALLOWED_NODES = (
     ast.Expression,
     ast.Name,
@@ -91,9 +100,13 @@ class Design:
     simple: bool = False  # every term is a product of numeric expressions: evaluated without patsy
 
 
+#: Names a formula uses for functions and modules: a column named so is reached only as ``Q("name")``.
+CALLABLE_NAMES = PATSY_FUNCTIONS | SAFE_FUNCTIONS | {"np", "numpy"}
+
+
 def quote_name(column: str) -> str:
     """How a column name must be written inside a formula."""
-    if column.isidentifier() and not keyword.iskeyword(column) and column not in PATSY_FUNCTIONS:
+    if column.isidentifier() and not keyword.iskeyword(column) and column not in CALLABLE_NAMES:
         return column
     return "Q(" + repr(column) + ")"
 
@@ -140,6 +153,18 @@ class _FactorChecker(ast.NodeVisitor):
                 f"only numbers may appear as constants in a model formula, not {repr(node.value)[:60]}",
                 hint="quote column names with Q(\"name\") in key 'model'",
             )
+        if isinstance(node.value, int) and abs(node.value) > MAX_INTEGER:
+            raise FormulaError(
+                f"the whole number {_digits(node.value)} in the model is too large to compute with",
+                hint=f"key 'model' may hold whole numbers up to 1e18; write larger ones as decimals, e.g. "
+                f"{float(node.value):.3g}",
+            )
+
+    def visit_BinOp(self, node: ast.BinOp) -> None:
+        if isinstance(node.op, ast.Pow):
+            _check_exponent(node.right)
+        _constant_value(node)  # a part made of numbers only must come to a finite number
+        self.generic_visit(node)
 
     def visit_Call(self, node: ast.Call) -> None:
         func = node.func
@@ -164,6 +189,9 @@ class _FactorChecker(ast.NodeVisitor):
                 f"function '{ast.unparse(func)[:60]}' is not allowed in a model formula",
                 hint=f"key 'model' may call only {allowed} and I(), Q(), center(), standardize(), scale()",
             )
+        name = func.id if isinstance(func, ast.Name) else func.attr if isinstance(func, ast.Attribute) else ""
+        if name == "power" and len(node.args) == 2:
+            _check_exponent(node.args[1])
         for arg in node.args:
             self.visit(arg)
 
@@ -184,6 +212,115 @@ class _FactorChecker(ast.NodeVisitor):
             self.missing.append(name)
 
 
+def _digits(value: int) -> str:
+    """A whole number for a message: itself when short, else its first digits and its length."""
+    text = str(abs(value)) if value.bit_length() < 10_000 else ""
+    if text and len(text) <= 24:
+        return str(value)
+    return f"of {len(text):,} digits" if text else f"of about {int(value.bit_length() * 0.30103):,} digits"
+
+
+def _constant_value(node: ast.AST) -> float | None:
+    """The value of a part of a formula made of numbers only, worked out in floating point (so never a
+    huge whole number); None when the part names a column or calls a function."""
+    if isinstance(node, ast.Constant) and isinstance(node.value, int | float) and not isinstance(node.value, bool):
+        return float(node.value) if abs(node.value) <= MAX_INTEGER else float("inf")
+    if isinstance(node, ast.UnaryOp) and isinstance(node.op, ast.USub | ast.UAdd):
+        inner = _constant_value(node.operand)
+        return None if inner is None else (-inner if isinstance(node.op, ast.USub) else inner)
+    if not isinstance(node, ast.BinOp):
+        return None
+    left, right = _constant_value(node.left), _constant_value(node.right)
+    if left is None or right is None:
+        return None
+    try:
+        if isinstance(node.op, ast.Add):
+            value = left + right
+        elif isinstance(node.op, ast.Sub):
+            value = left - right
+        elif isinstance(node.op, ast.Mult):
+            value = left * right
+        elif isinstance(node.op, ast.Div):
+            value = left / right
+        elif isinstance(node.op, ast.FloorDiv):
+            value = left // right
+        elif isinstance(node.op, ast.Mod):
+            value = left % right
+        elif isinstance(node.op, ast.Pow):
+            value = abs(left) ** right if abs(right) <= MAX_EXPONENT else float("inf")
+        else:
+            return None
+    except ZeroDivisionError:
+        raise FormulaError(f"'{ast.unparse(node)[:60]}' in the model divides by zero", hint="fix key 'model'") from None
+    except OverflowError:
+        value = float("inf")
+    if not np.isfinite(value):
+        raise FormulaError(
+            f"'{ast.unparse(node)[:60]}' in the model is a number too large to compute with",
+            hint="key 'model' may hold numbers up to about 1e308 and powers up to "
+            f"{MAX_EXPONENT}; a power of a power of a number is refused",
+        )
+    return value
+
+
+def _check_exponent(node: ast.AST) -> None:
+    """Refuse a power whose exponent is a number beyond :data:`MAX_EXPONENT`."""
+    exponent = _constant_value(node)
+    if exponent is not None and abs(exponent) > MAX_EXPONENT:
+        raise FormulaError(
+            f"the power '{ast.unparse(node)[:60]}' in the model is larger than {MAX_EXPONENT}",
+            hint=f"key 'model' may raise to powers up to {MAX_EXPONENT}; a power of a power of a number is refused",
+        )
+
+
+def _check_expansion(formula: str) -> None:
+    """Refuse, before patsy expands it, a formula whose terms would run into the millions (``(a+…+z)**20``)
+    or whose interaction order patsy would loop over for ever (``(a+b)**1000000000``)."""
+    from patsy.parse_formula import parse_formula  # noqa: PLC0415
+
+    def bound(node: Any) -> int:  # an upper bound on the terms a formula node expands to
+        args = [bound(a) for a in node.args if node.type != "**" or a is node.args[0]]
+        if node.type == "**":
+            order_text = node.args[1].origin.code[node.args[1].origin.start : node.args[1].origin.end]
+            try:
+                order = int(order_text)
+            except ValueError:
+                return args[0]  # patsy reports a power that is not a whole number itself
+            if order > MAX_INTERACTION_ORDER:
+                raise FormulaError(
+                    f"the model asks for interactions of order {_digits(order)}, more than {MAX_INTERACTION_ORDER}",
+                    hint=f"key 'model' may raise a sum of terms to powers up to {MAX_INTERACTION_ORDER}; "
+                    "use I(x**2) for the square of a column",
+                )
+            return int(min(2 ** min(args[0], 64), (args[0] + 1) ** order))
+        if node.type == ":":
+            return args[0] * args[1]
+        if node.type in ("*", "/"):
+            return args[0] + args[1] + args[0] * args[1]
+        if node.type in ("+", "~"):
+            return sum(args)
+        if node.type == "-":
+            return args[0] if len(args) == 2 else 1
+        return max(1, sum(args))
+
+    try:
+        tree = parse_formula(formula)
+    except (RecursionError, MemoryError) as exc:
+        raise _too_deep(formula) from exc
+    except Exception:
+        return
+    try:
+        terms = bound(tree)
+    except RecursionError as exc:
+        raise _too_deep(formula) from exc
+    if terms > MAX_TERMS:
+        raise FormulaError(
+            f"the model {_show(formula)} expands to {'over ' if terms >= 2**64 else ''}{terms:,} terms, "
+            f"more than the {MAX_TERMS:,} allowed",
+            hint="key 'model' must name fewer terms and interactions",
+        )
+
+
 def _factor_codes(formula: str) -> tuple[list[str], list[str], bool]:
     """(lhs factor codes, rhs factor codes, has intercept) without evaluating anything."""
     if len(formula) > MAX_FORMULA_CHARS:
@@ -200,12 +337,13 @@ def _factor_codes(formula: str) -> tuple[list[str], list[str], bool]:
     if isinstance(known, dict):
         try:
             lhs, rhs = [str(c) for c in known["lhs"]], [str(c) for c in known["rhs"]]
-            if _same_names(formula, lhs + rhs):
+            if _same_names(formula, lhs + rhs) and known.get("bounded") is True:  # checked by _check_expansion
                 return lhs, rhs, bool(known["intercept"])
         except (KeyError, TypeError):
             pass
     import patsy  # noqa: PLC0415 - only for a formula not parsed before
 
+    _check_expansion(formula)
     try:
         desc = patsy.ModelDesc.from_formula(formula)
     except patsy.PatsyError as exc:
@@ -223,7 +361,7 @@ def _factor_codes(formula: str) -> tuple[list[str], list[str], bool]:
             f"the model {_show(formula)} has no response on the left of '~'",
             hint="name the response column first, e.g. \"y ~ x\" (key 'model')",
         )
-    _remember("parse", formula, {"lhs": lhs, "rhs": rhs, "intercept": intercept})
+    _remember("parse", formula, {"lhs": lhs, "rhs": rhs, "intercept": intercept, "bounded": True})
     return lhs, rhs, intercept
 
 
@@ -453,7 +591,7 @@ def _patsy_design(
         with np.errstate(all="ignore"):
             y_dm, x_dm = patsy.dmatrices(
                 formula,
-                data.as_dict(),
+                _for_patsy(data.as_dict()),
                 eval_env=env,
                 return_type="matrix",
                 # The data hold finite numbers only; a NaN can only come from a transformation
@@ -465,7 +603,7 @@ def _patsy_design(
             f"{name}: the model {_show(formula)} cannot be applied to the data: {_patsy_message(exc)}",
             hint="check key 'model'",
         ) from exc
-    except (ValueError, TypeError, ArithmeticError, MemoryError) as exc:
+    except (ValueError, TypeError, ArithmeticError) as exc:  # a MemoryError is the memory bound's (executor)
         raise FormulaError(
             f"{name}: the model {_show(formula)} cannot be evaluated: {str(exc)[:200]}",
             hint="check key 'model'",
@@ -580,7 +718,7 @@ def design_for(design: Design, new: Mapping[str, ArrayLike] | Any) -> NDArray[np
 
     try:
         with np.errstate(all="ignore"):
-            (mat,) = patsy.build_design_matrices([design.design_info], columns, NA_action="raise")
+            (mat,) = patsy.build_design_matrices([design.design_info], _for_patsy(columns), NA_action="raise")
     except patsy.PatsyError as exc:
         raise FormulaError(f"prediction values do not fit the model: {_patsy_message(exc)}") from exc
     return np.asarray(mat, dtype=float)
@@ -636,10 +774,27 @@ def _extended(x_info: Any, y_info: Any, data: Table, X: NDArray[np.float64], y: 
     return (X_ext, y_ext) if same else fallback
 
 
+#: Where a column named like a function (Q, I, log, np, …) is kept in the data patsy sees, so that the name
+#: still means the function; ``Q("name")`` reaches the column there.
+_HIDDEN = "\x00column:"
+
+
+def _for_patsy(columns: Mapping[str, Any]) -> dict[str, Any]:
+    return {(_HIDDEN + k if k in CALLABLE_NAMES else k): v for k, v in columns.items()}
+
+
+def _quoted(name: str) -> Any:
+    """patsy's ``Q``, which also finds a column named like a function (see :data:`_HIDDEN`)."""
+    import patsy  # noqa: PLC0415
+
+    namespace = patsy.EvalEnvironment.capture(1).namespace  # the data being evaluated, as patsy's own Q does
+    return namespace[_HIDDEN + name if name in CALLABLE_NAMES else name]
+
+
 def _environment() -> Any:
     import patsy  # noqa: PLC0415
 
-    return patsy.EvalEnvironment([{"np": np, "numpy": np} | {f: getattr(np, f) for f in SAFE_FUNCTIONS}])
+    return patsy.EvalEnvironment([{"np": np, "numpy": np, "Q": _quoted} | {f: getattr(np, f) for f in SAFE_FUNCTIONS}])
 
 
 @dataclass(frozen=True, slots=True)
@@ -729,7 +884,7 @@ def _probe_plan(formula: str, used: tuple[str, ...]) -> Plan | None:
     try:
         with np.errstate(all="ignore"):
             y_dm, x_dm = patsy.dmatrices(
-                formula, probe.as_dict(), eval_env=_environment(), return_type="matrix",
+                formula, _for_patsy(probe.as_dict()), eval_env=_environment(), return_type="matrix",
                 NA_action=patsy.NAAction(NA_types=[]),
             )  # fmt: skip
     except (patsy.PatsyError, ValueError, TypeError, ArithmeticError, KeyError, NameError):
@@ -751,16 +906,17 @@ def _same(a: NDArray[Any], b: NDArray[Any]) -> bool:
 
 def _namespace(table: Table, dtype: Any) -> dict[str, Any]:
     dd = _is_dd(dtype)
-    namespace: dict[str, Any] = {
+    columns: dict[str, Any] = {
         name: ext.DD(values.astype(np.float64)) if dd else values.astype(dtype)
         for name, values in zip(table.names, table.columns, strict=True)
         if values.dtype.kind in "fiub"
     }
-    namespace |= {
+    namespace = dict(columns)
+    namespace |= {  # a column named like one of these is reached through Q("name") only
         "np": np,
         "numpy": np,
         "I": lambda v: v,
-        "Q": lambda name: namespace[name],
+        "Q": lambda name: columns[name],
         "__rows__": table.rows,
         "__dd__": dd,
     }

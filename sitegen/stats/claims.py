@@ -24,6 +24,9 @@ from sitegen.stats.ols import OlsFit
 from sitegen.stats.solver import restriction_quadratic_form
 from sitegen.stats.text import p_text
 
+#: Longest claim read (a linear hypothesis on a few coefficients is a few dozen characters).
+MAX_CLAIM_CHARS = 1_000
+
 
 def check_claims(fit: OlsFit, claims: list[str]) -> list[ClaimTest | FormulaError]:
     """Test each declared claim; an unreadable claim comes back as a :class:`FormulaError`."""
@@ -31,8 +34,20 @@ def check_claims(fit: OlsFit, claims: list[str]) -> list[ClaimTest | FormulaErro
 
     out: list[ClaimTest | FormulaError] = []
     for claim in claims:
+        if len(claim) > MAX_CLAIM_CHARS:
+            out.append(
+                FormulaError(
+                    f"claim {claim[:40]!r}… is {len(claim):,} characters long, more than the {MAX_CLAIM_CHARS:,} "
+                    "allowed; it was not tested",
+                    hint='shorten it in key \'claims\', e.g. "x = 1" or "x = 1, Intercept = 0"',
+                )
+            )
+            continue
         try:
             constraint = patsy.DesignInfo(list(fit.terms)).linear_constraint(claim)
+        except RecursionError:
+            out.append(FormulaError(f"claim {claim[:40]!r}… is nested too deeply to be read; it was not tested"))
+            continue
         except (patsy.PatsyError, ValueError, KeyError) as exc:
             names = ", ".join(fit.terms)
             out.append(
