@@ -230,18 +230,39 @@ def _new_weights(spec: DatasetSpec, weights: FloatArray | None, k: int) -> Float
     return None if weights is None else np.full(k, float(spec.reading_weight))
 
 
+#: The reasons a row is flagged, in the order they are listed; the first two exclude each other.
+_REASONS = (
+    "alone sets a coefficient (leverage 1)",
+    "leverage above 2p/n",
+    "|studentized residual| above 3",
+    "Cook's distance above 4/n",
+    "|DFFITS| above 2√(p/n)",
+)
+
+
+def _reason_codes(flags: PointFlags) -> NDArray[np.intp]:
+    """Each row's reasons as a bit mask (bit k: ``_REASONS[k]``), for every row at once."""
+    high_only = np.asarray(flags.high_leverage) & ~np.asarray(flags.leverage_one)
+    marks = (flags.leverage_one, high_only, flags.large_residual, flags.large_cooks, flags.large_dffits)
+    code = np.zeros(len(flags.leverage_one), dtype=np.intp)
+    for bit, mark in enumerate(marks):
+        code |= np.asarray(mark, dtype=np.intp) << bit
+    return code
+
+
+def _reasons_of(code: int) -> tuple[str, ...]:
+    return tuple(text for bit, text in enumerate(_REASONS) if code >> bit & 1)
+
+
 def _reasons(flags: PointFlags, i: int) -> tuple[str, ...]:
     out = []
     if flags.leverage_one[i]:
-        out.append("alone sets a coefficient (leverage 1)")
+        out.append(_REASONS[0])
     elif flags.high_leverage[i]:
-        out.append("leverage above 2p/n")
-    if flags.large_residual[i]:
-        out.append("|studentized residual| above 3")
-    if flags.large_cooks[i]:
-        out.append("Cook's distance above 4/n")
-    if flags.large_dffits[i]:
-        out.append("|DFFITS| above 2√(p/n)")
+        out.append(_REASONS[1])
+    for mark, text in zip((flags.large_residual, flags.large_cooks, flags.large_dffits), _REASONS[2:], strict=True):
+        if mark[i]:
+            out.append(text)
     return tuple(out)
 
 
@@ -639,28 +660,30 @@ def _chart(  # noqa: PLR0917 - the fit and what was derived from it
     std = np.asarray(infl.standardized_residual)
     is_flag = np.zeros(fit.n)
     is_flag[list(flags.rows)] = 1.0
+    # Only the drawn rows (idx) are computed.
     cols: dict[str, FloatArray] = {
-        "row": design.rows.astype(float),
-        "y": design.y,
-        "fitted": fit.fitted,
-        "residual": fit.resid,
-        "studentized": np.asarray(infl.studentized_residual),
-        "leverage": np.asarray(infl.leverage),
-        "cooks": np.asarray(infl.cooks_distance),
-        "std_resid": std,
-        "flag": is_flag,
+        "row": design.rows[idx].astype(float),
+        "y": design.y[idx],
+        "fitted": fit.fitted[idx],
+        "residual": fit.resid[idx],
+        "studentized": np.asarray(infl.studentized_residual)[idx],
+        "leverage": np.asarray(infl.leverage)[idx],
+        "cooks": np.asarray(infl.cooks_distance)[idx],
+        "std_resid": std[idx],
+        "flag": is_flag[idx],
     }
-    if x_col is not None:
-        cols["x"] = design.data[x_col].astype(float)
+    x_all = design.data[x_col].astype(float) if x_col is not None else None
+    if x_all is not None:
+        cols["x"] = x_all[idx]
     names = tuple(sorted(cols))
-    points = tuple(zip(*(_clean(cols[c][idx]) for c in names), strict=True))
+    points = tuple(zip(*(_clean(cols[c]) for c in names), strict=True))
     groups: tuple[str, ...] = ()
     if spec.group and x_col is not None:
         groups = tuple(str(v) for v in design.data[spec.group][idx].tolist())
     band_cols: tuple[str, ...] = ()
     band: tuple[tuple[float | None, ...], ...] = ()
-    if x_col is not None:
-        xs = cols["x"]
+    if x_col is not None and x_all is not None:
+        xs = x_all
         grid = np.linspace(float(xs.min()), float(xs.max()), BAND_STEPS)
         try:
             Xg = design_for(design, {x_col: grid})
@@ -677,8 +700,8 @@ def _chart(  # noqa: PLR0917 - the fit and what was derived from it
             )
     density_cols: tuple[str, ...] = ()
     density: tuple[tuple[float | None, ...], ...] = ()
-    if sampled and x_col is not None:
-        density_cols, density = _density(cols["x"], design.y)
+    if sampled and x_all is not None:
+        density_cols, density = _density(x_all, design.y)
     return ChartData(
         x=x_col,
         y=design.response,
@@ -724,9 +747,8 @@ def _observations(
         cols[design.response] = design.y
     if weights is not None:
         cols["weight"] = weights
-    flag_text = np.full(fit.n, "", dtype=object)
-    for i in flags.rows:
-        flag_text[i] = "; ".join(_reasons(flags, i))
+    texts = np.array(["; ".join(_reasons_of(code)) for code in range(1 << len(_REASONS))], dtype=object)
+    flag_text = texts[_reason_codes(flags)]
     cols |= {
         "fitted": fit.fitted,
         "residual": fit.resid,

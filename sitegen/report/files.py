@@ -17,7 +17,7 @@ from sitegen.discover import DatasetSource
 from sitegen.errors import OutsideFolderError
 from sitegen.jsontext import json_text
 from sitegen.model import FitReport, to_json
-from sitegen.report import variation
+from sitegen.report import bulkcsv, variation
 from sitegen.report.tables import (
     cell_kinds,
     clean_rows,
@@ -190,8 +190,11 @@ def _table(folder: Path, name: str, columns: Sequence[str], rows: Sequence[Seque
 
 def _observations(folder: Path, obs: Observations, book: list[Sheet]) -> str:
     n = len(obs.values[0]) if obs.values else 0
-    if n > XLSX_MAX_ROWS:  # large: pandas streams the CSV in chunks; not in the workbook
-        write_large_csv(obs.columns, obs.values, folder / "observations.csv")
+    if n > XLSX_MAX_ROWS:  # large: written in chunks, not in the workbook
+        if bulkcsv.can_write(obs.values):
+            bulkcsv.write_csv(obs.columns, obs.values, folder / "observations.csv")
+        else:  # yes/no or mixed cells: pandas, slower
+            write_large_csv(obs.columns, obs.values, folder / "observations.csv")
         return "observations.csv"
     header, _ = clean_rows(obs.columns, [])
     text = columns_to_csv(header, obs.values)

@@ -35,9 +35,11 @@ def tag_blocks(reports: Sequence[FitReport]) -> list[dict[str, Any]]:
                     }
                 )
         terms = sorted({row["term"] for row in rows})
+        summary = _summary(rows, len(terms) == 1)
+        drawn = rows if summary is None else summary["drawn"]
         forest = (
-            charts.forest_chart(rows, terms[0] if len(terms) == 1 else "estimate of each dataset's term")
-            if rows
+            charts.forest_chart(drawn, terms[0] if len(terms) == 1 else "estimate of each dataset's term")
+            if drawn
             else None
         )
         test = ""
@@ -63,5 +65,51 @@ def tag_blocks(reports: Sequence[FitReport]) -> list[dict[str, Any]]:
         caption = f"Estimates with intervals for the {len(rows)} {sets} tagged {tag}" + (
             f" (term {terms[0]})." if len(terms) == 1 else "."
         )
-        blocks.append({"name": tag, "reports": members, "forest": forest, "caption": caption, "test": test})
+        if summary is not None:
+            caption = (
+                f"The {EXTREMES} lowest and {EXTREMES} highest of the {len(rows)} estimates tagged {tag}"
+                + (f" (term {terms[0]})." if len(terms) == 1 else ".")
+                if drawn
+                else ""
+            )
+        blocks.append(
+            {"name": tag, "reports": members, "forest": forest, "caption": caption, "test": test, "summary": summary}
+        )
     return blocks
+
+
+#: A tag with more estimates than this is summarised rather than drawn row by row (a forest of 5,000 rows is
+#: 250,000 px tall and slows the index down to seconds).
+MAX_FOREST_ROWS = 60
+EXTREMES = 10  # the lowest and highest estimates drawn when summarised
+PERCENTILES = (0, 5, 25, 50, 75, 95, 100)
+
+
+def _percentile_name(p: int) -> str:
+    return {0: "lowest", 50: "median", 100: "highest"}.get(p, f"{p}th percentile")
+
+
+def _summary(rows: list[dict[str, Any]], one_term: bool) -> dict[str, Any] | None:
+    """For a tag with many estimates: the extremes to draw and the distribution of the estimates.
+
+    Percentiles by linear interpolation between order statistics (numpy's default; Hyndman and Fan's
+    definition 7). Estimates of different terms are on different scales: neither drawn nor summarised.
+    """
+    if len(rows) <= MAX_FOREST_ROWS:
+        return None
+    import numpy as np  # noqa: PLC0415
+
+    ordered = sorted(rows, key=lambda row: (row["estimate"], row["label"]))
+    finite = [row for row in ordered if np.isfinite(row["estimate"])]
+    if not one_term or not finite:
+        return {"count": len(rows), "drawn": [], "percentiles": []}
+    drawn = finite[:EXTREMES] + finite[-EXTREMES:] if len(finite) > 2 * EXTREMES else finite
+    values = np.array([row["estimate"] for row in finite], dtype=float)
+    found = np.percentile(values, PERCENTILES)
+    statuses = {s: sum(1 for row in rows if row["status"] == s) for s in ("ok", "warn")}
+    return {
+        "count": len(rows),
+        "drawn": drawn,
+        "percentiles": [(_percentile_name(p), float(v)) for p, v in zip(PERCENTILES, found, strict=True)],
+        "statuses": statuses,
+    }

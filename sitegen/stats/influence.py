@@ -32,6 +32,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 FloatArray = NDArray[np.float64]
+BoolArray = NDArray[np.bool_]
 
 #: A leverage above this counts as 1: the point alone determines a coefficient.
 LEVERAGE_ONE = 1.0 - 1e-10
@@ -111,14 +112,15 @@ class PointFlags:
     """Which rows cross each common rule-of-thumb cut-off, and the cut-offs used.
 
     NaN measures never cross a cut-off. ``rows`` lists the 0-based indices of
-    rows marked by at least one rule, in row order.
+    rows marked by at least one rule, in row order. The marks are arrays (a tuple of a
+    million Python booleans costs 8 MB each).
     """
 
-    high_leverage: tuple[bool, ...]  # leverage > leverage_cutoff
-    leverage_one: tuple[bool, ...]  # leverage ≈ 1: this point alone sets a coefficient
-    large_residual: tuple[bool, ...]  # |studentized residual| > residual_cutoff
-    large_cooks: tuple[bool, ...]  # Cook's distance > cooks_cutoff
-    large_dffits: tuple[bool, ...]  # |DFFITS| > dffits_cutoff
+    high_leverage: BoolArray  # leverage > leverage_cutoff
+    leverage_one: BoolArray  # leverage ≈ 1: this point alone sets a coefficient
+    large_residual: BoolArray  # |studentized residual| > residual_cutoff
+    large_cooks: BoolArray  # Cook's distance > cooks_cutoff
+    large_dffits: BoolArray  # |DFFITS| > dffits_cutoff
     leverage_cutoff: float
     residual_cutoff: float
     cooks_cutoff: float
@@ -147,11 +149,11 @@ def flag_points(infl: Influence, n: int, p: int) -> PointFlags:
         dffits = np.abs(np.asarray(infl.dffits, dtype=np.float64)) > dffits_cut
     rows = np.flatnonzero(high | one | resid | cooks | dffits)
     return PointFlags(
-        high_leverage=tuple(high.tolist()),
-        leverage_one=tuple(one.tolist()),
-        large_residual=tuple(resid.tolist()),
-        large_cooks=tuple(cooks.tolist()),
-        large_dffits=tuple(dffits.tolist()),
+        high_leverage=high,
+        leverage_one=one,
+        large_residual=resid,
+        large_cooks=cooks,
+        large_dffits=dffits,
         leverage_cutoff=lev_cut,
         residual_cutoff=res_cut,
         cooks_cutoff=cooks_cut,

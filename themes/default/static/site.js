@@ -191,22 +191,27 @@
     var ascending = th.getAttribute("aria-sort") !== "ascending";
     table.querySelectorAll("thead th[aria-sort]").forEach(function (h) { h.setAttribute("aria-sort", "none"); });
     th.setAttribute("aria-sort", ascending ? "ascending" : "descending");
-    var rows = dataRows(table);
-    rows.forEach(function (r, i) { if (!r.hasAttribute("data-order")) { r.setAttribute("data-order", String(i)); } });
-    rows.sort(function (a, b) {
-      var x = cellValue(a, index, type), y = cellValue(b, index, type);
+    /* Each row's key is read once (not in every comparison), and the rows go back in one fragment:
+       sorting 5,000 rows then takes milliseconds rather than seconds. */
+    var keyed = dataRows(table).map(function (r, i) {
+      if (!r.hasAttribute("data-order")) { r.setAttribute("data-order", String(i)); }
+      return { row: r, key: cellValue(r, index, type), order: Number(r.getAttribute("data-order")) };
+    });
+    keyed.sort(function (a, b) {
+      var x = a.key, y = b.key;
       if (x === null && y === null) { return 0; }
       if (x === null) { return 1; }   /* empty cells last in either direction */
       if (y === null) { return -1; }
       var c = x < y ? -1 : x > y ? 1 : 0;
-      if (c === 0) { c = Number(a.getAttribute("data-order")) - Number(b.getAttribute("data-order")); return c; }
+      if (c === 0) { return a.order - b.order; }
       return ascending ? c : -c;
     });
     /* Sorted rows leave their folder groups; the folder stays visible in its own column. */
     table.classList.add("sorted");
     table.querySelectorAll("tr.group-row").forEach(function (g) { g.hidden = true; });
-    var first = table.tBodies[0];
-    rows.forEach(function (r) { first.appendChild(r); });
+    var fragment = document.createDocumentFragment();
+    keyed.forEach(function (k) { fragment.appendChild(k.row); });
+    table.tBodies[0].appendChild(fragment);
     var status = document.getElementById(table.id + "-sort-status");
     if (status) {
       status.textContent = "Sorted by " + th.textContent.trim() + (ascending ? ", ascending." : ", descending.");
