@@ -28,6 +28,7 @@ from sitegen.model import AnovaLine, Coefficient, FitReport, Message, Status
 from sitegen.requirements import judge
 from sitegen.spec import DatasetSpec, Limits, read_sidecar
 from sitegen.stats.ols import OlsFit, anova_table, fit_ols
+from sitegen.stats.text import p_text
 from sitegen.table import to_float
 
 
@@ -152,6 +153,20 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         )
     pieces = derive.compute(design, fit, spec, weights)
     messages += pieces.messages
+    groups = pieces.groups
+    pooled_contrast = bool(
+        groups is not None and groups.p_value is not None and groups.p_value < 1 - spec.level  # NaN: False
+    )
+    if pooled_contrast and groups is not None and groups.p_value is not None:
+        messages.insert(
+            0,
+            Message(
+                "warning",
+                f"The slopes differ between the groups of {groups.column} "
+                f"({p_text(groups.p_value)}): the pooled line is not the recommended one "
+                f"and is shown only as a contrast; use each {groups.column}'s own line.",
+            ),
+        )
     status: Status = "warn" if any(m.level in ("warning", "error") for m in messages) else "ok"
     if any(d.flag for d in pieces.diagnostics):
         status = "warn"
@@ -189,6 +204,7 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         predictions=pieces.predictions,
         claims=pieces.claims,
         groups=pieces.groups,
+        pooled_contrast=pooled_contrast,
         compare_term=spec.compare or next((t for t in design.terms if t != "Intercept"), None),
         chart=pieces.chart,
         reading=(("delimiter", table.delimiter), ("decimal", table.decimal), ("encoding", table.encoding)),

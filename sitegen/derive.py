@@ -97,11 +97,60 @@ def straight_line(design: Design) -> str | None:
     return None
 
 
+def one_normality_check(diagnostics: tuple[Diagnostic, ...]) -> tuple[Diagnostic, ...]:
+    """Shapiro–Wilk and Jarque–Bera shown as one check, ``normality``, so that they never read as two verdicts.
+
+    Shapiro–Wilk decides where it is computed (3 to 5,000 rows): it is the more powerful test in small and
+    moderate samples, where Jarque–Bera's χ² approximation is poor (common practice). Above that, Jarque–Bera,
+    a large-sample test, decides. The other test's result is stated in the text, not as a verdict.
+    """
+    by_name = {d.check: d for d in diagnostics}
+    sw, jb = by_name.get("normality_shapiro"), by_name.get("normality_jarque_bera")
+    if sw is None or jb is None:
+        return diagnostics
+    if sw.p_value is not None:
+        lead, other, why = sw, jb, "Shapiro–Wilk decides (the more powerful test up to 5,000 rows)"
+    else:
+        lead, other, why = jb, sw, "Jarque–Bera decides (Shapiro–Wilk is computed for 3 to 5,000 rows only)"
+    aside = ""
+    if other.p_value is not None:
+        start = other.text.rfind(" (")  # the figures are in the sentence's last parentheses
+        inner = other.text[start + 2 : other.text.rfind(")")] if start >= 0 else ""
+        aside = f" For reference only, not a second verdict: {inner}." if inner else ""
+    merged = Diagnostic(
+        "normality",
+        "Bell-shaped residuals",
+        lead.statistic,
+        lead.p_value,
+        lead.flag,
+        f"{lead.text} {why}.{aside}",
+        lead.advice,
+        lead.rows,
+    )
+    out: list[Diagnostic] = []
+    for d in diagnostics:
+        if d.check == "normality_shapiro":
+            out.append(merged)
+        elif d.check != "normality_jarque_bera":
+            out.append(d)
+    return tuple(out)
+
+
+def replicated_settings(design: Design) -> NDArray[np.bool_]:
+    """Rows whose predictor setting (every design column but the intercept) occurs in more than one row."""
+    cols = [j for j, t in enumerate(design.terms) if t != "Intercept"]
+    if not cols:
+        return np.zeros(len(design.y), dtype=bool)
+    settings = np.asarray(design.X[:, cols], dtype=np.float64)
+    _, inverse, counts = np.unique(settings, axis=0, return_inverse=True, return_counts=True)
+    return np.asarray(counts[np.ravel(inverse)] > 1, dtype=bool)
+
+
 def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray | None) -> Derived:
     """Derive every requested result; problems with optional extras become warnings."""
     messages: list[Message] = []
     infl = influence(fit.q, fit.resid, fit.df_resid, weights=weights)
-    flags = flag_points(infl, fit.n, len(fit.terms))
+    flags = flag_points(infl, fit.n, len(fit.terms), designed=replicated_settings(design))
     sw = np.ones(fit.n) if weights is None else np.sqrt(weights)
     Xw = design.X * sw[:, None]
     checks = model_checks(
@@ -128,6 +177,7 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
         )
         for c in checks
     )
+    diagnostics = one_normality_check(diagnostics)
     for d in diagnostics:
         if d.flag:
             messages.append(Message("warning", f"{d.label}: {d.text} {d.advice}".strip()))

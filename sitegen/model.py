@@ -264,6 +264,7 @@ class FitReport:
     input_sha256: str = ""
     reading: tuple[tuple[str, str], ...] = field(default=())  # how the CSV was read (delimiter, …)
     requirements: tuple[Requirement, ...] = ()
+    pooled_contrast: bool = False  # per-group slopes differ: the pooled line is shown only as a contrast
     residual_sd_y: float | None = None  # weighted fits: the scatter of the plain residuals, in y units
 
     def coefficient(self, term: str) -> Coefficient | None:

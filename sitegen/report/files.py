@@ -107,6 +107,11 @@ def index_entry(r: FitReport) -> dict[str, Any]:
     row = {k: _json_value(v) for k, v in summary_row(r).items()}
     row["tags"] = list(r.tags)
     row["message_level"] = _message_level(r)
+    row["pooled_contrast"] = r.pooled_contrast
+    row["weights"] = r.weights
+    row["residual_sd_y"] = _json_value(r.residual_sd_y)
+    row["units"] = dict(r.units)
+    row["response"] = r.response
     row["requirement_list"] = [
         {"name": q.name, "met": q.met, "label": q.label, "text": q.text, "at": q.at} for q in r.requirements
     ]
@@ -160,6 +165,11 @@ def report_from_index_entry(entry: dict[str, Any], input_sha256: str) -> FitRepo
         messages=messages,
         input_sha256=input_sha256,
         requirements=requirements,
+        pooled_contrast=bool(entry.get("pooled_contrast", False)),
+        weights=entry.get("weights"),
+        residual_sd_y=entry.get("residual_sd_y"),
+        units=tuple(sorted((str(k), str(v)) for k, v in (entry.get("units") or {}).items())),
+        response=str(entry.get("response", "")),
     )
 
 

@@ -134,10 +134,12 @@ def _label(column: str | None, units: dict[str, str]) -> str:
 def sentence(r: FitReport) -> str:
     """The fit in plain words, followed by what contradicts the user's own declarations (unmet requirements,
     claims the data reject), so that the headline never reads as sound beside a contradicted claim."""
-    text = _fit_sentence(r)
+    text = _groups_sentence(r) if r.pooled_contrast else _fit_sentence(r)
     if r.requirements:
         unmet = [q for q in r.requirements if not q.met]
-        if unmet:
+        if len(r.requirements) == 1:
+            text += f" The declared requirement {r.requirements[0].name} is {'met' if not unmet else 'not met'}."
+        elif unmet:
             text += (
                 f" {len(unmet)} of {len(r.requirements)} declared requirements "
                 f"{'is' if len(unmet) == 1 else 'are'} not met ({unmet_words(r)})."
@@ -149,6 +151,29 @@ def sentence(r: FitReport) -> str:
         names = "; ".join(f"“{c.claim}”" for c in rejected)
         text += f" The data contradict the declared claim{'s' if len(rejected) > 1 else ''} {names}."
     return text
+
+
+def _groups_sentence(r: FitReport) -> str:
+    """Per-group lines lead when their slopes differ; the pooled line is named only as a contrast."""
+    g = r.groups
+    if g is None:
+        return _fit_sentence(r)
+    units = dict(r.units)
+    x = r.chart.x if r.chart and r.chart.x else "x"
+    y_unit = f" {units[r.response]}" if r.response in units else ""
+    per = f" per {units[x]}" if x in units else ""
+    lvl = fmt.level(r.level)
+    each = "; ".join(
+        f"{line.group}: {fmt.num(line.slope)}{y_unit}{per} ({lvl} interval {fmt.num(line.slope_ci_low)} to "
+        f"{fmt.num(line.slope_ci_high)}, {fmt.integer(line.n)} rows)"
+        for line in g.lines
+    )
+    return (
+        f"The slope of {r.response} on {x} differs between the groups of {g.column} "
+        f"({fmt.p_phrase(g.p_value)}), so each group has its own line — slopes {each}. "
+        f"The pooled line through all {fmt.integer(r.n)} rows is shown only as a contrast, not as the recommended "
+        "line; the checks and flagged rows below are computed on it."
+    )
 
 
 def _fit_sentence(r: FitReport) -> str:
@@ -165,9 +190,18 @@ def _fit_sentence(r: FitReport) -> str:
             f"R² = {fmt.rsquared(r.r_squared)}, measured about zero because the model has no intercept "
             "(it cannot be compared with the R² of a model that has one)"
         )
-    fit_part = (
-        f"{share}, and the points scatter about it with a residual standard error of {fmt.num(r.residual_std_error)}"
-    )
+    y_unit_text = f" {units[r.response]}" if r.response in units else ""
+    if r.weights:
+        fit_part = (
+            f"{share}; fitted by weighted least squares (weights from column {r.weights}), the points scatter about "
+            f"it with a standard deviation of {fmt.num(r.residual_sd_y)}{y_unit_text} in plain residuals "
+            f"(the weighted residual scale, {fmt.num(r.residual_std_error)}, is not in {r.response}'s units)"
+        )
+    else:
+        fit_part = (
+            f"{share}, and the points scatter about it with a residual standard error of "
+            f"{fmt.num(r.residual_std_error)}{y_unit_text}"
+        )
     chart = r.chart
     term = r.compare_term
     c = r.coefficient(term) if term else None
@@ -265,6 +299,12 @@ def render_dataset(
         f"{r.response} against {x_label}: the fitted line, its {fmt.level(r.level)} confidence band for the mean "
         f"(darker) and prediction band for single readings (lighter)"
         + (", and the other lines listed below" if r.lines else "")
+        + (
+            f"; the pooled line is a contrast only: the slopes differ by {r.groups.column}, so each "
+            f"{r.groups.column}'s own line is the one to use"
+            if r.pooled_contrast and r.groups
+            else ""
+        )
         + ("; flagged rows are drawn as larger triangles." if r.flagged else ".")
     )
     return _render(
@@ -300,7 +340,8 @@ def render_index(ctx: SiteContext, reports: Sequence[FitReport], tags: Sequence[
         counts=counts,
         tags=tags,
         first_problem=_first_problem,
-        level_text=fmt.level(levels[0]) if len(levels) == 1 else "stated",
+        level_text=fmt.level(levels[0]) if len(levels) == 1 else "confidence",
+        mixed_levels=len(levels) > 1,
     )
 
 
