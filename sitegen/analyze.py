@@ -25,6 +25,7 @@ from sitegen.errors import INTERNAL_ERROR_WORDS, DatasetError, FitError, Formula
 from sitegen.formula import Design, assumed_formula, build_design
 from sitegen.load import LoadedTable, read_source, read_table
 from sitegen.model import AnovaLine, Coefficient, FitReport, Message, Status
+from sitegen.purposes import choose_weights
 from sitegen.requirements import judge
 from sitegen.spec import DatasetSpec, Limits, read_sidecar
 from sitegen.stats.ols import OlsFit, anova_table, fit_ols
@@ -127,6 +128,9 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
     extra = tuple(c for c in (spec.weights, spec.group) if c)
     design = build_design(formula, table.table, name, extra)
     weights = _weights(design, spec)
+    weighting = choose_weights(design, spec, derive.straight_line(design))
+    if weighting is not None:
+        weights = weighting.weights
     fit = fit_ols(
         design.X_ext,
         design.y_ext,
@@ -208,6 +212,19 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         compare_term=spec.compare or next((t for t in design.terms if t != "Intercept"), None),
         chart=pieces.chart,
         reading=(("delimiter", table.delimiter), ("decimal", table.decimal), ("encoding", table.encoding)),
+        purpose=spec.purpose,
+        agreement=pieces.comparison.agreement,
+        agreement_percent=pieces.comparison.agreement_percent,
+        bias=pieces.comparison.bias,
+        bias_line=pieces.comparison.bias_line,
+        bias_reason=pieces.comparison.bias_reason,
+        comparison_text=pieces.comparison.text,
+        back_calculated=pieces.calibration_parts.back_calculated,
+        weighting=weighting.name if weighting else None,
+        weighting_options=weighting.options if weighting else (),
+        weighting_reason=weighting.reason if weighting else "",
+        linearity=pieces.calibration_parts.linearity,
+        working_range=pieces.calibration_parts.working_range,
     )
     if report.compare_term and report.coefficient(report.compare_term) is None:
         raise FormulaError(

@@ -10,6 +10,7 @@ requests and turns the results into the report's plain dataclasses.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass
 from typing import Any
 
@@ -30,6 +31,7 @@ from sitegen.model import (
     Message,
     Prediction,
 )
+from sitegen.purposes import CalibrationResults, ComparisonResults, calibration, comparison, passing_bablok_line
 from sitegen.requirements import Evidence
 from sitegen.spec import DatasetSpec
 from sitegen.stats.calibration import detection_limits, inverse_predict
@@ -76,6 +78,8 @@ class Derived:
     groups: GroupComparison | None
     chart: ChartData
     observations: Observations
+    comparison: ComparisonResults
+    calibration_parts: CalibrationResults
 
 
 def single_predictor(design: Design) -> str | None:
@@ -86,7 +90,9 @@ def single_predictor(design: Design) -> str | None:
 
 
 def _in_rhs(design: Design, var: str) -> bool:
-    return any(var in t for t in design.terms)
+    """Whether a column appears in a right-hand-side term (as a whole name: "t" is not in "Intercept")."""
+    word = re.compile(rf"(?<![A-Za-z0-9_.]){re.escape(var)}(?![A-Za-z0-9_])")
+    return any(word.search(t) for t in design.terms if t != "Intercept")
 
 
 def straight_line(design: Design) -> str | None:
@@ -195,12 +201,18 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
                 if found.rejected:
                     messages.append(Message("warning", f"Declared claim '{found.claim}': {found.conclusion}"))
     line_x = straight_line(design)
-    lines, lines_text = _lines(design, fit, spec, line_x, messages)
-    calibration, limits = _calibration(design, fit, spec, line_x, messages)
+    weighted = weights is not None
+    lines, lines_text = _lines(design, fit, spec, line_x, messages, weighted=weighted)
+    calibration_, limits = _calibration(design, fit, spec, line_x, messages, weighted=weighted)
     predictions = _predictions(design, fit, spec, messages)
     groups = _groups(design, fit, spec, line_x, messages, weights=weights)
     chart = _chart(design, fit, infl, flags, spec)
-    observations = _observations(design, fit, infl, flags, weights)
+    compared = comparison(design, spec, line_x, lines, level=fit.level, messages=messages)
+    calibrated = CalibrationResults()
+    if line_x is not None:
+        beta = (float(fit.beta[0]), float(fit.beta[1]))
+        calibrated = calibration(design, beta, fit.fitted, spec, line_x=line_x, weights=weights, messages=messages)
+    observations = _observations(design, fit, infl, flags, weights, residual_percent=calibrated.residual_percent)
     return Derived(
         messages=messages,
         diagnostics=diagnostics,
@@ -216,12 +228,14 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
         claims=tuple(claims),
         lines=lines,
         lines_text=lines_text,
-        calibration=calibration,
+        calibration=calibration_,
         limits=limits,
         predictions=predictions,
         groups=groups,
         chart=chart,
         observations=observations,
+        comparison=compared,
+        calibration_parts=calibrated,
     )
 
 
@@ -263,7 +277,7 @@ def _flagged(design: Design, infl: Influence, flags: PointFlags) -> tuple[Flagge
 
 
 def _lines(
-    design: Design, fit: OlsFit, spec: DatasetSpec, x_col: str | None, messages: list[Message]
+    design: Design, fit: OlsFit, spec: DatasetSpec, x_col: str | None, messages: list[Message], *, weighted: bool
 ) -> tuple[tuple[AltLine, ...], str]:
     if not spec.lines:
         return (), ""
@@ -275,22 +289,40 @@ def _lines(
             )
         )
         return (), ""
-    if spec.weights:
+    if weighted:
         messages.append(
             Message(
                 "warning",
                 "the alternative lines do not take weights, so they are not drawn for this weighted fit; "
-                "remove 'weights' or 'lines' from the sidecar",
+                "remove 'weights' (or 'weighting') or 'lines' from the sidecar",
             )
         )
         return (), ""
     x = design.X[:, 1]
+    closed_form = tuple(m for m in spec.lines if m != "passing_bablok")
     try:
-        found = alternative_lines(x, design.y, ("ols", *spec.lines), error_ratio=spec.error_ratio, level=fit.level)
+        found = alternative_lines(x, design.y, ("ols", *closed_form), error_ratio=spec.error_ratio, level=fit.level)
     except (FitError, ValueError, ArithmeticError) as exc:  # e.g. overflow for responses near 1e308
         messages.append(Message("warning", f"alternative lines could not be computed: {exc}"))
         return (), ""
-    r = float(np.corrcoef(x, design.y)[0, 1])
+    robust: tuple[AltLine, ...] = ()
+    if "passing_bablok" in spec.lines:
+        try:
+            pb = passing_bablok_line(np.asarray(x, dtype=np.float64), np.asarray(design.y, dtype=np.float64), fit.level)
+            robust = (pb,)
+            if pb.note:
+                messages.append(Message("warning", f"Passing–Bablok line: {pb.note}."))
+            if not pb.linear:
+                messages.append(
+                    Message(
+                        "warning",
+                        "Passing–Bablok line: its cusum test finds the relation between the methods not linear "
+                        f"(largest cusum {pb.cusum_max:.3g} above {pb.cusum_critical:.3g}); the line and its bias "
+                        "figures do not describe the whole range.",
+                    )
+                )
+        except (FitError, ValueError, ArithmeticError) as exc:
+            messages.append(Message("warning", f"the Passing–Bablok line could not be computed: {exc}"))
     out = tuple(
         AltLine(
             ln.method,
@@ -306,15 +338,21 @@ def _lines(
         for ln in found
         if ln.method != "ols"  # the least-squares line is the fit itself; the page shows it beside these
     )
-    return out, explain_lines(found, r)
+    text = explain_lines(found, float(np.corrcoef(x, design.y)[0, 1])) if closed_form else ""
+    if robust:
+        text = (text + " " if text else "") + (
+            "The Passing–Bablok line is the shifted median of the slopes between every pair of points, so a "
+            "few outlying results barely move it."
+        )
+    return out + robust, text
 
 
 def _calibration(
-    design: Design, fit: OlsFit, spec: DatasetSpec, x_col: str | None, messages: list[Message]
+    design: Design, fit: OlsFit, spec: DatasetSpec, x_col: str | None, messages: list[Message], *, weighted: bool
 ) -> tuple[tuple[Calibration, ...], DetectionLimits | None]:
     if not spec.calibrate:
         return (), None
-    if x_col is None or spec.weights or design.response not in design.variables:
+    if x_col is None or weighted or design.response not in design.variables:
         messages.append(
             Message(
                 "warning",
@@ -564,7 +602,13 @@ def _density(x: FloatArray, y: FloatArray) -> tuple[tuple[str, ...], tuple[tuple
 
 
 def _observations(
-    design: Design, fit: OlsFit, infl: Influence, flags: PointFlags, weights: FloatArray | None
+    design: Design,
+    fit: OlsFit,
+    infl: Influence,
+    flags: PointFlags,
+    weights: FloatArray | None,
+    *,
+    residual_percent: FloatArray | None = None,
 ) -> Observations:
     b = bands(fit, design.X, weights)
     cols: dict[str, NDArray[np.generic]] = {"row": design.rows}
@@ -590,6 +634,8 @@ def _observations(
         "dffits": np.asarray(infl.dffits),
         "flags": flag_text,
     }
+    if residual_percent is not None:  # calibrations: the residual in percent of the fitted value
+        cols["residual_percent"] = residual_percent
     return Observations(tuple(cols), tuple(cols.values()))
 
 

@@ -99,6 +99,91 @@ class AltLine:
     intercept_ci_low: float
     intercept_ci_high: float
     interval_method: str
+    linear: bool | None = None  # Passing–Bablok: the cusum test finds no departure from linearity
+    cusum_max: float | None = None
+    cusum_critical: float | None = None
+    note: str = ""
+
+
+@dataclass(frozen=True, slots=True)
+class Agreement:
+    """Bland–Altman difference analysis of a method comparison (y − x, or its percent of the mean)."""
+
+    scale: str  # "absolute" or "percent"
+    n: int
+    mean_difference: float
+    mean_difference_ci_low: float
+    mean_difference_ci_high: float
+    sd_difference: float
+    limit_low: float
+    limit_high: float
+    limit_low_ci_low: float
+    limit_low_ci_high: float
+    limit_high_ci_low: float
+    limit_high_ci_high: float
+    limit_se: float
+    multiplier: float
+    trend_slope: float
+    trend_slope_ci_low: float
+    trend_slope_ci_high: float
+    trend_p_value: float
+    trend_flag: bool
+    method: str
+
+
+@dataclass(frozen=True, slots=True)
+class BiasAt:
+    """Expected bias of the method under test at one decision level, from the recommended line."""
+
+    at: float
+    estimate: float
+    ci_low: float
+    ci_high: float
+    percent: float
+    percent_ci_low: float
+    percent_ci_high: float
+    line: str
+
+
+@dataclass(frozen=True, slots=True)
+class ReadBackLevel:
+    """One calibration standard level read back from the line."""
+
+    nominal: float
+    replicates: int
+    found: float
+    percent: float
+    deviation: float
+    found_each: tuple[float, ...]
+    percent_each: tuple[float, ...]
+
+
+@dataclass(frozen=True, slots=True)
+class WeightingOption:
+    """One candidate weighting of a calibration line and how well it reads the standards back."""
+
+    weighting: str
+    slope: float
+    intercept: float
+    sum_abs_percent: float
+    max_abs_percent: float
+    chosen: bool
+
+
+@dataclass(frozen=True, slots=True)
+class LinearityCheck:
+    """Mandel's fitting test of a calibration line against a quadratic."""
+
+    n: int
+    ssr_line: float
+    ssr_quadratic: float
+    statistic: float
+    df_den: int
+    critical: float
+    p_value: float
+    probability: float
+    linear: bool
+    text: str
 
 
 @dataclass(frozen=True, slots=True)
@@ -263,6 +348,19 @@ class FitReport:
     chart: ChartData | None = None
     input_sha256: str = ""
     reading: tuple[tuple[str, str], ...] = field(default=())  # how the CSV was read (delimiter, …)
+    purpose: str = "relation"  # "relation", "comparison" or "calibration"
+    agreement: Agreement | None = None
+    agreement_percent: Agreement | None = None
+    bias: tuple[BiasAt, ...] = ()
+    bias_line: str = ""  # the method of the line the bias is read from
+    bias_reason: str = ""
+    comparison_text: str = ""
+    back_calculated: tuple[ReadBackLevel, ...] = ()
+    weighting: str | None = None  # "none", "1/x", "1/x²" or "1/y²" when the sidecar sets or chooses one
+    weighting_options: tuple[WeightingOption, ...] = ()
+    weighting_reason: str = ""
+    linearity: LinearityCheck | None = None
+    working_range: tuple[float, float] | None = None
     requirements: tuple[Requirement, ...] = ()
     pooled_contrast: bool = False  # per-group slopes differ: the pooled line is shown only as a contrast
     residual_sd_y: float | None = None  # weighted fits: the scatter of the plain residuals, in y units

@@ -16,7 +16,11 @@ from typing import Any
 
 from sitegen.errors import SidecarError, SiteConfigError
 
-LINE_CHOICES = ("reverse", "orthogonal", "deming", "geometric_mean")
+LINE_CHOICES = ("reverse", "orthogonal", "deming", "geometric_mean", "passing_bablok")
+PURPOSES = ("relation", "comparison", "calibration")
+WEIGHTING_CHOICES = ("choose", "none", "1/x", "1/x²", "1/y²")
+# Spellings of the weightings that are easier to type; each means the named choice.
+_WEIGHTING_SPELLINGS = {"1/x^2": "1/x²", "1/x2": "1/x²", "1/y^2": "1/y²", "1/y2": "1/y²"}
 DEFAULT_LEVEL = 0.95
 
 
@@ -82,6 +86,10 @@ class DatasetSpec:
     delimiter: str | None = None
     decimal: str = "."
     encoding: str = "utf-8"
+    purpose: str = "relation"
+    decision_levels: tuple[float, ...] = ()
+    weighting: str | None = None
+    percent_differences: bool = False
     requirements: RequirementSpec | None = None
     unknown_keys: tuple[tuple[str, str | None], ...] = field(default=(), compare=False)
 
@@ -208,6 +216,25 @@ def _encoding(v: object) -> str:
         "x,y\n".encode(s).decode(s)  # rejects codecs that are not text encodings (rot13, base64, …)
     except (LookupError, ValueError):
         raise _BadValueError('a text encoding name such as "utf-8", "latin-1" or "cp1252"') from None
+    return s
+
+
+def _purpose(v: object) -> str:
+    s = _string(v)
+    if s not in PURPOSES:
+        hint = _closest(s, PURPOSES)
+        extra = f" (did you mean {hint!r}?)" if hint else ""
+        raise _BadValueError(f"one of {', '.join(repr(p) for p in PURPOSES)}{extra}")
+    return s
+
+
+def _weighting(v: object) -> str:
+    s = _string(v).strip().replace(" ", "")
+    s = _WEIGHTING_SPELLINGS.get(s, s)
+    if s not in WEIGHTING_CHOICES:
+        hint = _closest(s, WEIGHTING_CHOICES)
+        extra = f" (did you mean {hint!r}?)" if hint else ""
+        raise _BadValueError(f"one of {', '.join(repr(w) for w in WEIGHTING_CHOICES)}{extra}")
     return s
 
 
@@ -339,6 +366,10 @@ _KEYS: Mapping[str, Callable[[object], Any]] = {
     "delimiter": _delimiter,
     "decimal": _decimal,
     "encoding": _encoding,
+    "purpose": _purpose,
+    "decision_levels": _numbers,
+    "weighting": _weighting,
+    "percent_differences": _boolean,
     "requirements": _requirements,
 }
 SIDECAR_KEYS = tuple(sorted(_KEYS))
@@ -416,6 +447,8 @@ def read_sidecar(path: Path | None, defaults: Mapping[str, Any], display: str) -
         if isinstance(base, RequirementSpec) and isinstance(clean.get("requirements"), RequirementSpec):
             clean["requirements"] = base.merged(clean["requirements"])  # key by key over the site's defaults
         values.update(clean)
+    if values.get("purpose") == "comparison" and "lines" not in values:
+        values["lines"] = ("passing_bablok",)  # the comparison's robust line, unless lines are chosen
     return DatasetSpec(**values, unknown_keys=tuple(unknown))
 
 

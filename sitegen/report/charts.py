@@ -279,6 +279,87 @@ def _drift(alt: Any) -> Any:
     return alt.layer(band, line).properties(width=SMALL, height=140)
 
 
+def _differences(alt: Any) -> Any:
+    """Bland–Altman chart: each pair's difference against the pair's mean, with the mean difference
+    and the limits of agreement as rules and their confidence intervals as shaded bands."""
+    x = alt.X("mean:Q", title=X_TITLE, scale=alt.Scale(zero=False))
+    y = alt.Y("diff:Q", title=Y_TITLE, scale=alt.Scale(zero=False))
+    bands = (
+        alt.Chart(alt.Data(name="rule_bands"))
+        .mark_rect(opacity=0.14)
+        .encode(
+            y=alt.Y("low:Q"),
+            y2="high:Q",
+            tooltip=[
+                alt.Tooltip("label:N", title="Interval of"),
+                alt.Tooltip("low:Q", title="low", format=",.4~g"),
+                alt.Tooltip("high:Q", title="high", format=",.4~g"),
+            ],
+        )
+    )
+    zero = alt.Chart(alt.Data(name="zero")).mark_rule(strokeDash=[2, 3], opacity=0.6).encode(y="y:Q")
+    rules = (
+        alt.Chart(alt.Data(name="rules"))
+        .mark_rule(strokeWidth=1.6)
+        .encode(
+            y="y:Q",
+            strokeDash=alt.StrokeDash(
+                "label:N",
+                title="Lines",
+                scale=alt.Scale(range=[[1, 0], [6, 3]]),
+                legend=_bottom_legend(alt, "Lines"),
+            ),
+            tooltip=[alt.Tooltip("label:N", title="Line"), alt.Tooltip("y:Q", title="value", format=",.4~g")],
+        )
+    )
+    pts = (
+        alt.Chart(alt.Data(name="pairs"))
+        .mark_point(filled=True, opacity=0.8, strokeWidth=0, size=40)
+        .encode(
+            x=x,
+            y=y,
+            tooltip=[
+                alt.Tooltip("row:Q", title="CSV row"),
+                alt.Tooltip("mean:Q", title="mean of the two", format=",.4~g"),
+                alt.Tooltip("diff:Q", title="difference", format=",.4~g"),
+            ],
+        )
+    )
+    return alt.layer(bands, zero, rules, pts).properties(width=WIDTH, height=HEIGHT)
+
+
+def _readback(alt: Any) -> Any:
+    """Each calibration standard's read-back deviation in percent against its nominal value."""
+    x = alt.X("nominal:Q", title=X_TITLE, scale=alt.Scale(zero=False))
+    zero = alt.Chart(alt.Data(name="zero")).mark_rule(strokeDash=[4, 3]).encode(y="y:Q")
+    means = (
+        alt.Chart(alt.Data(name="levels"))
+        .mark_line(strokeWidth=1.4, point=alt.OverlayMarkDef(shape="diamond", size=70, filled=True))
+        .encode(
+            x=x,
+            y=alt.Y("percent:Q"),
+            tooltip=[
+                alt.Tooltip("nominal:Q", title="nominal", format=",.4~g"),
+                alt.Tooltip("percent:Q", title="mean read-back error %", format=",.3~g"),
+            ],
+        )
+    )
+    pts = (
+        alt.Chart(alt.Data(name="replicates"))
+        .mark_point(filled=True, opacity=0.75, strokeWidth=0, size=36)
+        .encode(
+            x=x,
+            y=alt.Y("percent:Q", title="Read-back error (% of nominal)"),
+            tooltip=[
+                alt.Tooltip("nominal:Q", title="nominal", format=",.4~g"),
+                alt.Tooltip("found:Q", title="read back", format=",.4~g"),
+                alt.Tooltip("percent:Q", title="error %", format=",.3~g"),
+            ],
+        )
+    )
+    return alt.layer(zero, pts, means).properties(width=WIDTH, height=SMALL_HEIGHT)
+
+
 _BUILDERS: dict[str, Callable[[Any], Any]] = {
     "fit": _fit_chart,
     "residual_fitted": _residual_fitted,
@@ -288,6 +369,8 @@ _BUILDERS: dict[str, Callable[[Any], Any]] = {
     "forest": lambda alt: _forest(alt, shared_axis=True),
     "forest_mixed": lambda alt: _forest(alt, shared_axis=False),
     "drift": _drift,
+    "differences": _differences,
+    "readback": _readback,
 }
 CHART_KINDS = tuple(_BUILDERS)
 
@@ -561,7 +644,94 @@ def dataset_charts(report: FitReport) -> dict[str, Spec]:
     out["qq"] = fill("qq", {"points": points, "reference": [{"x": -lim, "y": -lim}, {"x": lim, "y": lim}]})
     out["scale_location"] = fill("scale_location", {"points": points})
     out["leverage"] = fill("leverage", {"points": points, "contours": _contours(points, len(report.terms))})
+    out |= purpose_charts(report, units)
     share_points(out)
+    return out
+
+
+def _agreement_data(report: FitReport, percent: bool) -> dict[str, list[dict[str, Any]] | Columns]:
+    chart = report.chart
+    a = report.agreement_percent if percent else report.agreement
+    if chart is None or a is None or "x" not in chart.point_columns:
+        return {}
+    xi = chart.point_columns.index("x")
+    yi = chart.point_columns.index("y")
+    ri = chart.point_columns.index("row")
+    rows = []
+    for p in chart.points:
+        x, y = p[xi], p[yi]
+        if x is None or y is None:
+            continue
+        mean = (x + y) / 2.0
+        if percent and mean == 0.0:
+            continue
+        diff = 100.0 * (y - x) / mean if percent else y - x
+        rows.append((p[ri], mean, diff))
+    mean_label = "mean difference"
+    limit_label = f"limits of agreement (±{a.multiplier:.3g} SD)"
+    return {
+        "pairs": _records(("row", "mean", "diff"), rows),
+        "rules": [
+            {"y": _short(a.mean_difference), "label": mean_label},
+            {"y": _short(a.limit_low), "label": limit_label},
+            {"y": _short(a.limit_high), "label": limit_label},
+        ],
+        "rule_bands": [
+            {"low": _short(lo), "high": _short(hi), "label": label}
+            for lo, hi, label in (
+                (a.mean_difference_ci_low, a.mean_difference_ci_high, mean_label),
+                (a.limit_low_ci_low, a.limit_low_ci_high, "lower limit"),
+                (a.limit_high_ci_low, a.limit_high_ci_high, "upper limit"),
+            )
+            if math.isfinite(lo) and math.isfinite(hi)
+        ],
+        "zero": [{"y": 0.0}],
+    }
+
+
+def _readback_data(report: FitReport) -> dict[str, list[dict[str, Any]] | Columns]:
+    reps = [
+        (r.nominal, found, pct)
+        for r in report.back_calculated
+        for found, pct in zip(r.found_each, r.percent_each, strict=True)
+        if math.isfinite(pct)
+    ]
+    levels = [(r.nominal, r.percent) for r in report.back_calculated if math.isfinite(r.percent)]
+    if not reps:
+        return {}
+    return {
+        "replicates": _records(("nominal", "found", "percent"), reps),
+        "levels": _records(("nominal", "percent"), levels),
+        "zero": [{"y": 0.0}],
+    }
+
+
+def purpose_charts(report: FitReport, units: dict[str, str]) -> dict[str, Spec]:
+    """The comparison's difference charts and the calibration's read-back chart, where they apply."""
+    out: dict[str, Spec] = {}
+    chart = report.chart
+    if chart is None or chart.x is None:
+        return out
+    y_unit = f" ({units[chart.y]})" if chart.y in units else ""
+    for kind, percent in (("differences", False), ("differences_percent", True)):
+        data = _agreement_data(report, percent)
+        if data:
+            out[kind] = fill(
+                "differences",
+                data,
+                x_title=f"Mean of {chart.y} and {chart.x}{y_unit}",
+                y_title=f"{chart.y} − {chart.x}" + (" (% of the mean)" if percent else y_unit),
+            )
+    data = _readback_data(report)
+    if data:
+        spec = fill("readback", data, x_title=_label(chart.x, units))
+        nominal = [r.nominal for r in report.back_calculated if r.nominal > 0]
+        if nominal and len(nominal) == len(report.back_calculated) and max(nominal) / min(nominal) >= 20:
+            for layer in spec.get("layer", []):  # standards spanning decades: a log axis spreads them out
+                enc = layer.get("encoding", {}).get("x")
+                if enc is not None:
+                    enc.setdefault("scale", {})["type"] = "log"
+        out["readback"] = spec
     return out
 
 
@@ -605,7 +775,9 @@ SHORT_LINE_LABELS = {
     "orthogonal": "perpendicular (orthogonal)",
     "deming": "Deming",
     "geometric_mean": "geometric mean",
+    "passing_bablok": "Passing–Bablok",
 }
+EQUALITY_LABEL = "y = x (equality)"
 
 
 def _line_records(report: FitReport, chart: ChartData) -> list[dict[str, Any]]:
@@ -627,6 +799,11 @@ def _line_records(report: FitReport, chart: ChartData) -> list[dict[str, Any]]:
                 }
                 for x in (x0, x1)
             ]
+    if report.purpose == "comparison":  # the line the two methods would follow if they agreed
+        out += [
+            {"label": EQUALITY_LABEL, "series": EQUALITY_LABEL, "line": EQUALITY_LABEL, "x": x, "y": x}
+            for x in (x0, x1)
+        ]
     if report.groups is not None:
         own = f"each {report.groups.column}'s own line"
         out += [

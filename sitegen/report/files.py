@@ -222,6 +222,55 @@ def _observations(folder: Path, obs: Observations, book: list[Sheet]) -> str:
     return "observations.csv"
 
 
+AGREEMENT_COLUMNS = (
+    "scale",
+    "n",
+    "mean_difference",
+    "mean_difference_ci_low",
+    "mean_difference_ci_high",
+    "sd_difference",
+    "limit_low",
+    "limit_low_ci_low",
+    "limit_low_ci_high",
+    "limit_high",
+    "limit_high_ci_low",
+    "limit_high_ci_high",
+    "limit_se",
+    "multiplier",
+    "trend_slope",
+    "trend_slope_ci_low",
+    "trend_slope_ci_high",
+    "trend_p_value",
+)
+BIAS_COLUMNS = ("at", "estimate", "ci_low", "ci_high", "percent", "percent_ci_low", "percent_ci_high", "line")
+WEIGHTING_COLUMNS = ("weighting", "slope", "intercept", "sum_abs_percent", "max_abs_percent", "chosen")
+READBACK_COLUMNS = ("nominal", "replicate", "found", "percent", "level_replicates", "level_found", "level_percent")
+
+
+def _purpose_tables(folder: Path, r: FitReport, book: list[Sheet]) -> list[str]:
+    """The comparison's and the calibration's tables, where the report has them."""
+    files = []
+    agreements = [a for a in (r.agreement, r.agreement_percent) if a is not None]
+    if agreements:
+        rows = [[getattr(a, c) for c in AGREEMENT_COLUMNS] for a in agreements]
+        files.append(_table(folder, "agreement", AGREEMENT_COLUMNS, rows, book))
+    if r.bias:
+        files.append(
+            _table(folder, "bias", BIAS_COLUMNS, [[getattr(b, c) for c in BIAS_COLUMNS] for b in r.bias], book)
+        )
+    if r.back_calculated:
+        rows = [
+            [b.nominal, i, found, pct, b.replicates, b.found, b.percent]
+            for b in r.back_calculated
+            for i, (found, pct) in enumerate(zip(b.found_each, b.percent_each, strict=True), start=1)
+        ]
+        files.append(_table(folder, "readback", READBACK_COLUMNS, rows, book))
+    if r.weighting_options:
+        rows = [[getattr(o, c) for c in WEIGHTING_COLUMNS] for o in r.weighting_options]
+        files.append(_table(folder, "weighting", WEIGHTING_COLUMNS, rows, book))
+    return files
+
+
 def dataset_files(
     folder: Path, r: FitReport, obs: Observations | None, src: DatasetSource, offer_source: bool
 ) -> list[str]:
@@ -271,6 +320,7 @@ def dataset_files(
         pred_cols = ("fitted", "std_error", "mean_ci_low", "mean_ci_high", "pred_low", "pred_high")
         rows = [[dict(p.at).get(n) for n in names] + [getattr(p, c) for c in pred_cols] for p in r.predictions]
         files.append(_table(folder, "predictions", (*names, *pred_cols), rows, book))
+    files += _purpose_tables(folder, r, book)
     if obs is not None:
         files.append(_observations(folder, obs, book))
     (folder / WORKBOOK).write_bytes(workbook(book))

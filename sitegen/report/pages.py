@@ -252,6 +252,10 @@ _DESCRIBED = {
     "lines.csv": "the other lines with their intervals",
     "calibration.csv": "inverse predictions with their intervals",
     "predictions.csv": "predicted values with their intervals",
+    "agreement.csv": "the difference analysis: mean difference, limits of agreement and their intervals",
+    "bias.csv": "the bias at each decision level with its interval",
+    "readback.csv": "every calibration standard read back from the line",
+    "weighting.csv": "the weightings compared and how well each reads the standards back",
 }
 _CHART_NAMES = {
     "chart-fit.svg": "the line and its bands",
@@ -298,6 +302,7 @@ def render_dataset(
     fit_caption = (
         f"{r.response} against {x_label}: the fitted line, its {fmt.level(r.level)} confidence band for the mean "
         f"(darker) and prediction band for single readings (lighter)"
+        + (", the line of equality y = x (where the methods would agree)" if r.purpose == "comparison" else "")
         + (", and the other lines listed below" if r.lines else "")
         + (
             f"; the pooled line is a contrast only: the slopes differ by {r.groups.column}, so each "

@@ -238,3 +238,38 @@ def explain_lines(lines: Sequence[Line], r: float) -> str:
     if "orthogonal" in methods:
         second += ", and the perpendicular-distance line also shifts when x or y changes units"
     return f"{first} {second}."
+
+
+def leave_one_out(
+    x: NDArray[np.float64], y: NDArray[np.float64], method: str, *, error_ratio: float
+) -> tuple[NDArray[np.float64], NDArray[np.float64]] | None:
+    """Slopes and intercepts of ``method`` with each point left out in turn (the jackknife's samples).
+
+    None when leaving out a point leaves too little spread for a line (the same rule as
+    :func:`alternative_lines`).
+    """
+    x = np.asarray(x, dtype=np.float64)
+    y = np.asarray(y, dtype=np.float64)
+    n = x.size
+    if method not in LINE_METHODS or n < 3:
+        raise ValueError(f"leave_one_out needs a known method and at least 3 points, got {method!r} and {n}")
+    x_mean = float(np.mean(x))
+    y_mean = float(np.mean(y))
+    dx = x - x_mean
+    dy = y - y_mean
+    sxx = float(dx @ dx)
+    syy = float(dy @ dy)
+    sxy = float(dx @ dy)
+    k = n / (n - 1.0)
+    loo_sxx = sxx - k * dx * dx
+    loo_syy = syy - k * dy * dy
+    loo_sxy = sxy - k * dx * dy
+    if bool(
+        np.any(loo_sxx <= _DOWNDATE_TOLERANCE * sxx)
+        or np.any(loo_syy <= _DOWNDATE_TOLERANCE * syy)
+        or np.any(np.abs(loo_sxy) <= _ZERO_CORRELATION * np.sqrt(np.abs(loo_sxx * loo_syy)))
+    ):
+        return None
+    slopes = _slopes(method, loo_sxx, loo_syy, loo_sxy, error_ratio)
+    intercepts = (n * y_mean - y) / (n - 1.0) - slopes * (n * x_mean - x) / (n - 1.0)
+    return slopes, intercepts
