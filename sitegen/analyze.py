@@ -87,6 +87,7 @@ def analyze(task: FitTask) -> DatasetResult:
             units=spec.units,
         )
         table = read_table(raw, spec, task.limits, src.relpath)
+        base = replace(base, responsible=_responsible(spec))
         return _fit(base, spec, table)
     except DatasetError as exc:
         messages = [*_spec_messages(spec, sidecar_name), Message("error", str(exc))]
@@ -97,6 +98,36 @@ def analyze(task: FitTask) -> DatasetResult:
             f"({type(exc).__name__}: {exc}); please report it with the file"
         )
         return DatasetResult(replace(base, messages=(Message("error", text),)), None, traceback.format_exc())
+
+
+def _responsible(spec: DatasetSpec) -> tuple[tuple[str, str], ...]:
+    named = (("analyst", spec.analyst), ("reviewer", spec.reviewer), ("method_reference", spec.method_reference))
+    return tuple((k, v.strip()) for k, v in named if v and v.strip())
+
+
+def _leave_out(
+    spec: DatasetSpec, table: LoadedTable, sidecar: str
+) -> tuple[LoadedTable, list[Message], tuple[tuple[int, str], ...]]:
+    """The table without the rows the sidecar leaves out (the CSV file itself is never changed)."""
+    if not spec.leave_out:
+        return table, [], ()
+    wanted = dict(spec.leave_out)
+    present = set(table.table.rows.tolist())
+    missing = sorted(r for r in wanted if r not in present)
+    messages = []
+    if missing:
+        messages.append(
+            Message(
+                "warning",
+                f"{sidecar}: leave_out names row(s) {', '.join(map(str, missing))}, which the CSV does not have "
+                f"(it has data rows 1 to {len(table.table)}); nothing was left out for them",
+            )
+        )
+    keep = np.array([r not in wanted for r in table.table.rows.tolist()], dtype=bool)
+    if not bool(keep.any()):
+        raise FitError(f"{sidecar}: leave_out removes every row; there is nothing left to fit")
+    excluded = tuple((r, why) for r, why in spec.leave_out if r in present)
+    return replace(table, table=table.table.take(keep)), messages, excluded
 
 
 def _spec_messages(spec: DatasetSpec | None, sidecar_name: str) -> list[Message]:
@@ -124,6 +155,9 @@ def _model_formula(spec: DatasetSpec, table: LoadedTable, name: str) -> tuple[st
 
 def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResult:
     name = base.source
+    sidecar = base.source[: -len(".csv")] + ".toml"
+    n_read = len(table.table)
+    table, left_out_messages, excluded = _leave_out(spec, table, sidecar)
     formula, assumed = _model_formula(spec, table, name)
     extra = tuple(c for c in (spec.weights, spec.group) if c)
     design = build_design(formula, table.table, name, extra)
@@ -148,6 +182,15 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
             )
         )
     messages += [Message("warning" if "not UTF-8" in n else "note", n) for n in table.notes]
+    messages += left_out_messages
+    if excluded:
+        messages.append(
+            Message(
+                "note",
+                f"{len(excluded)} row(s) left out as the sidecar asks, each with its reason (listed on the page): "
+                f"rows {', '.join(str(r) for r, _ in excluded)}.",
+            )
+        )
     if design.dropped:
         rows = ", ".join(str(r) for r, _ in design.dropped[:20])
         more = f" and {len(design.dropped) - 20} more" if len(design.dropped) > 20 else ""
@@ -184,7 +227,8 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         variables=design.variables,
         weights=spec.weights,
         n=fit.n,
-        n_rows=len(table.table),
+        n_rows=n_read,
+        excluded_rows=excluded,
         dropped_rows=design.dropped,
         df_model=fit.df_model,
         df_resid=fit.df_resid,
@@ -234,7 +278,7 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
     if weights is not None and fit.df_resid > 0:
         report = replace(report, residual_sd_y=float(np.sqrt(np.sum(fit.resid**2) / fit.df_resid)))
     if spec.requirements is not None:
-        found = judge(report, spec.requirements, derive.acceptance_evidence(design, fit, spec))
+        found = judge(report, spec.requirements, derive.acceptance_evidence(design, fit, spec, pieces.lines))
         report = replace(report, requirements=found)
     return DatasetResult(report, pieces.observations)
 

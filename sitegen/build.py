@@ -534,6 +534,7 @@ class _Build:
         self.kept: set[str] = set()  # reused datasets whose folder in the spare was already right
         self.checked: set[str] = set()  # reused datasets whose published folder was checked file by file
         self.titles: dict[str, str] = {}  # expected titles of the neighbours of datasets being fitted
+        self.built_at = _now()
 
     def _stored_light(self, entry: dict[str, Any], old: Path, slug: str, record: dict[str, Any]) -> FitReport | None:
         """The stored result, light: from build.json when its fit.json is unchanged, else parsed from fit.json.
@@ -645,7 +646,12 @@ class _Build:
         summary_files(self.work, reports)
         # The history goes on after --refit too (which reuses nothing else of the published site).
         hist_warnings = history.write(self.work, ctx, reports, self.published)
-        site_assets = {*assets.write_bundle(self.work), *assets.write_static(self.work, theme)}
+        self.built_at = _now()
+        site_assets = {
+            *assets.write_bundle(self.work),
+            *assets.write_static(self.work, theme),
+            assets.write_built_at(self.work, self.built_at),
+        }
         for i, names in pending:
             page_files[page_jobs[i].target.parent.name] = names
         self._tidy({slug: {*files, *page_files[slug]} for slug, (_, files) in done.items()}, site_assets)
@@ -796,7 +802,7 @@ class _Build:
             "sitegen_version": __version__,
             "libraries": library_versions(LIBRARIES) | library_versions(RENDER_LIBRARIES),
             "python": platform.python_version(),
-            "built_at": _now(),
+            "built_at": self.built_at,
             "site_key": self.site_key,
             "mail_budget_megabytes": self.config.mail_budget_megabytes,
             "datasets": entries,

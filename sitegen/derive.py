@@ -34,6 +34,7 @@ from sitegen.model import (
 from sitegen.purposes import CalibrationResults, ComparisonResults, calibration, comparison, passing_bablok_line
 from sitegen.requirements import Evidence
 from sitegen.spec import DatasetSpec
+from sitegen.stats.acceptance import BiasAt as BiasFigure
 from sitegen.stats.calibration import detection_limits, inverse_predict
 from sitegen.stats.checks import model_checks
 from sitegen.stats.claims import check_claims
@@ -639,8 +640,12 @@ def _observations(
     return Observations(tuple(cols), tuple(cols.values()))
 
 
-def acceptance_evidence(design: Design, fit: OlsFit, spec: DatasetSpec) -> Evidence:
-    """Standards read back and bias at the ``max_bias`` levels, for the criteria that ask for them."""
+def acceptance_evidence(design: Design, fit: OlsFit, spec: DatasetSpec, lines: tuple[AltLine, ...] = ()) -> Evidence:
+    """Standards read back and bias at the ``max_bias`` levels, for the criteria that ask for them.
+
+    For a comparison (``purpose = "comparison"``) the bias comes from the line the page recommends (as the
+    bias at the decision levels does); otherwise from the fitted line, with the mean response's interval.
+    """
     from sitegen.stats.acceptance import bias_at, read_back  # noqa: PLC0415
 
     req = spec.requirements
@@ -673,4 +678,27 @@ def acceptance_evidence(design: Design, fit: OlsFit, spec: DatasetSpec) -> Evide
                 X_at, bias_reason = None, f"the model cannot be evaluated at those levels ({exc})"
             if X_at is not None:
                 bias = bias_at(fit, X_at, at)
+            if spec.purpose == "comparison":
+                bias, bias_reason, bias_line = _comparison_bias(design, fit, spec, lines)
+                return Evidence(found, found_reason, bias, bias_reason, x_range, bias_line)
     return Evidence(found, found_reason, bias, bias_reason, x_range)
+
+
+def _comparison_bias(
+    design: Design, fit: OlsFit, spec: DatasetSpec, lines: tuple[AltLine, ...]
+) -> tuple[tuple[BiasFigure, ...] | None, str, str]:
+    from sitegen.purposes import paired_columns, recommended_line  # noqa: PLC0415
+    from sitegen.stats.bias import bias_at as line_bias  # noqa: PLC0415
+
+    req = spec.requirements
+    assert req is not None
+    assert req.max_bias is not None
+    pair = paired_columns(design, straight_line(design))
+    if pair is None:
+        return None, 'a comparison\'s bias needs a straight line of the test result on the reference ("y ~ x")', ""
+    method, _ = recommended_line(lines, spec.error_ratio)
+    try:
+        found = line_bias(*pair, req.max_bias.at, method=method, level=fit.level, error_ratio=spec.error_ratio)
+    except (FitError, ValueError, ArithmeticError) as exc:
+        return None, f"the bias could not be computed ({exc})", ""
+    return tuple(BiasFigure(b.at, b.estimate, b.ci_low, b.ci_high) for b in found), "", method

@@ -95,6 +95,9 @@ def single_file(site: Path) -> str:
         )
     css = (site / "assets" / "style.css").read_text(encoding="utf-8")
     js = (site / "assets" / "site.js").read_text(encoding="utf-8")
+    built = site / "assets" / "built.js"  # the build time shown on each page
+    if built.is_file():
+        js = built.read_text(encoding="utf-8") + "\n" + js
     bundle = (site / "assets" / "vendor" / "vega-bundle.js").read_text(encoding="utf-8")
     safe_css = css.replace("</style", "<\\/style")
     footer = re.search(r'<footer class="wrap footer">.*?</footer>', index, re.S)

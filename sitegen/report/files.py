@@ -271,6 +271,33 @@ def _purpose_tables(folder: Path, r: FitReport, book: list[Sheet]) -> list[str]:
     return files
 
 
+CAUTION = (
+    "Results computed automatically from the files as delivered. Before a result is used for a decision that "
+    "affects health, safety or compliance, check it against your laboratory's validated method, the regulations "
+    "that apply to you and the judgement of accredited or licensed staff."
+)
+
+
+def about_rows(r: FitReport) -> list[list[Any]]:
+    """The workbook's metadata sheet: where the numbers come from, their level and units, who answers for them."""
+    from sitegen import __version__  # noqa: PLC0415
+
+    rows: list[list[Any]] = [
+        ["dataset", r.dataset],
+        ["title", r.title],
+        ["source file", r.source],
+        ["input SHA-256", r.input_sha256],
+        ["model", r.model],
+        ["fit", f"weighted least squares, weights from column {r.weights}" if r.weights else "ordinary least squares"],
+        ["confidence level of every interval (ci_*, mean_ci_*, pred_*)", r.level],
+    ]
+    rows += [[f"unit of {column}", unit] for column, unit in r.units]
+    rows += [[key.replace("_", " "), value] for key, value in r.responsible]
+    rows += [[f"row {row} left out", why] for row, why in r.excluded_rows]
+    rows += [["made by", f"sitegen {__version__}"], ["caution", CAUTION]]
+    return rows
+
+
 def dataset_files(
     folder: Path, r: FitReport, obs: Observations | None, src: DatasetSource, offer_source: bool
 ) -> list[str]:
@@ -323,6 +350,7 @@ def dataset_files(
     files += _purpose_tables(folder, r, book)
     if obs is not None:
         files.append(_observations(folder, obs, book))
+    book.insert(0, ("about", ["field", "value"], about_rows(r)))
     (folder / WORKBOOK).write_bytes(workbook(book))
     files.append(WORKBOOK)
     return sorted(files)
