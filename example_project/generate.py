@@ -95,6 +95,7 @@ instrument.*
 """
 theme = "default"
 offer_source = true   # offer each original CSV as a download on its page
+ignore = ["*.draft.csv"]   # work in progress stays in the folder but out of the site
 
 [defaults]            # applied to every dataset unless its sidecar says otherwise
 level = 0.95
@@ -529,6 +530,17 @@ def backwash_expansion() -> None:
     )
 
 
+def dosing_pump_draft() -> None:
+    """A half-finished run kept beside the others; site.toml's ignore list keeps it off the site."""
+    rng = rng_for("operations/dosing_pump.draft")
+    stroke_rate = np.array([20.0, 40.0, 60.0])
+    delivered = 0.52 * stroke_rate + rng.normal(0.0, 1.0, stroke_rate.size)
+    write_csv(
+        "operations/dosing_pump.draft.csv",
+        [("stroke_rate", stroke_rate, 0), ("delivered", delivered, 1)],
+    )
+
+
 DATASETS = (
     nitrate_uv,
     phosphate_molybdenum_blue,
@@ -550,6 +562,7 @@ def main() -> None:
     write_text("site.toml", SITE_TOML)
     for make in DATASETS:
         make()
+    dosing_pump_draft()
     print(f"wrote {len(DATASETS)} datasets and site.toml under {HERE}")
 
 

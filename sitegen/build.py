@@ -232,7 +232,7 @@ def run_build(
     check_output_folder(data_dir, out_dir)
     config, warnings = read_site_config(data_dir / SITE_CONFIG_NAME)
     theme = load_theme(config.theme, data_dir.resolve())
-    sources = discover(data_dir)
+    sources = discover(data_dir, config.ignore)
     shared = _shared_inputs(config, library_versions(LIBRARIES))
     site_key = _site_key(config, theme)
     with build_folder(out_dir) as work:
@@ -804,6 +804,7 @@ class _Build:
             "python": platform.python_version(),
             "built_at": self.built_at,
             "site_key": self.site_key,
+            "title": self.config.title,
             "mail_budget_megabytes": self.config.mail_budget_megabytes,
             "datasets": entries,
             "files": _manifest(self.work),  # written last: every other file of the site is in place

@@ -38,7 +38,6 @@ from sitegen.stats.acceptance import BiasAt as BiasFigure
 from sitegen.stats.calibration import detection_limits, inverse_predict
 from sitegen.stats.checks import model_checks
 from sitegen.stats.claims import check_claims
-from sitegen.stats.distributions import norm_ppf
 from sitegen.stats.groups import compare_groups
 from sitegen.stats.influence import Influence, PointFlags, flag_points, influence
 from sitegen.stats.lines import alternative_lines, explain_lines
@@ -490,16 +489,40 @@ def _groups(
         return None
 
 
-def _qq(values: FloatArray) -> FloatArray:
-    """Normal quantiles for each value by rank (Blom's plotting positions; common practice)."""
-    out = np.full(values.shape, np.nan)
-    ok = np.isfinite(values)
-    m = int(ok.sum())
-    if m:
-        ranks = np.empty(m)
-        ranks[np.argsort(values[ok], kind="stable")] = np.arange(1, m + 1)
-        out[ok] = norm_ppf((ranks - 0.375) / (m + 0.25))
-    return out
+#: Width of the bins of the residual-shape chart, in standardized-residual units.
+SPREAD_BIN = 0.5
+#: The bins reach at least this far either side of zero, and at most SPREAD_REACH_MAX.
+SPREAD_REACH = 3.0
+SPREAD_REACH_MAX = 6.0
+
+
+def _normal_cdf(z: float) -> float:
+    return 0.5 * math.erfc(-z / math.sqrt(2.0))
+
+
+def spread_bins(std: FloatArray) -> tuple[tuple[float, float, float, float], ...]:
+    """Counts of standardized residuals in bins of SPREAD_BIN, with the counts a bell shape would give.
+
+    Every finite value is counted (the chart is not drawn from a sample); values beyond the outer
+    bins are counted in them, and the outer bins' expected counts take the whole tail, so both
+    columns sum to the number of rows. Rows: (low edge, high edge, count, expected count).
+    """
+    vals = np.asarray(std, dtype=float)
+    vals = vals[np.isfinite(vals)]
+    m = vals.size
+    if m == 0:
+        return ()
+    top = min(max(SPREAD_REACH, math.ceil(float(np.max(np.abs(vals))) / SPREAD_BIN) * SPREAD_BIN), SPREAD_REACH_MAX)
+    edges = np.arange(-top, top + SPREAD_BIN / 2, SPREAD_BIN)
+    counts, _ = np.histogram(np.clip(vals, -top, top), bins=edges)
+    out = []
+    last = len(edges) - 2
+    for i in range(len(edges) - 1):
+        lo = -math.inf if i == 0 else float(edges[i])
+        hi = math.inf if i == last else float(edges[i + 1])
+        expected = m * (_normal_cdf(hi) - _normal_cdf(lo))
+        out.append((float(edges[i]), float(edges[i + 1]), float(counts[i]), expected))
+    return tuple(out)
 
 
 def _chart_sample(
@@ -543,8 +566,6 @@ def _chart(design: Design, fit: OlsFit, infl: Influence, flags: PointFlags, spec
         "studentized": np.asarray(infl.studentized_residual),
         "leverage": np.asarray(infl.leverage),
         "cooks": np.asarray(infl.cooks_distance),
-        "root_abs_std": np.sqrt(np.abs(std)),
-        "qq_theory": _qq(std),
         "std_resid": std,
         "flag": is_flag,
     }
@@ -589,6 +610,8 @@ def _chart(design: Design, fit: OlsFit, infl: Influence, flags: PointFlags, spec
         density_columns=density_cols,
         density=density,
         point_groups=groups,
+        spread_columns=("low", "high", "count", "expected"),
+        spread=spread_bins(std),
     )
 
 

@@ -1,7 +1,8 @@
 """Find the datasets in a data folder and give each a stable slug.
 
-A dataset is ``NAME.csv`` with an optional sidecar ``NAME.toml`` beside it. Files
-and folders whose names start with ``.`` or ``_`` are ignored. Sub-folders become
+A dataset is ``NAME.csv`` with an optional sidecar ``NAME.toml`` beside it. Hidden
+files and folders (names starting with ``.``) are skipped, and so is whatever
+site.toml's ``ignore`` list matches (see :func:`ignored`). Sub-folders become
 sections of the site. Symbolic links to folders are not followed (a link loop
 must never hang a build); links to files are read like files.
 """
@@ -10,7 +11,9 @@ from __future__ import annotations
 
 import os
 import re
+from collections.abc import Sequence
 from dataclasses import dataclass
+from fnmatch import fnmatchcase
 from pathlib import Path
 
 SITE_CONFIG_NAME = "site.toml"
@@ -53,7 +56,25 @@ def assign_slugs(relpaths: list[str]) -> dict[str, str]:
 
 
 def _hidden(name: str) -> bool:
-    return name.startswith((".", "_"))
+    return name.startswith(".")
+
+
+def ignored(relpath: str, patterns: Sequence[str]) -> bool:
+    """Whether site.toml's ``ignore`` list skips this file or folder (``relpath``: POSIX, from the data folder).
+
+    A pattern without ``/`` is matched against the name alone, at any depth (``"drafts"``,
+    ``"*.old.csv"``); a pattern with ``/`` against the whole path from the data folder
+    (``"field/archive"``, ``"*/scratch_*.csv"``, where ``*`` also crosses ``/``). Matching is
+    case-sensitive, with the glob rules of :mod:`fnmatch`. A skipped folder skips all it holds.
+    """
+    name = relpath.rsplit("/", 1)[-1]
+    for pattern in patterns:
+        if "/" in pattern:
+            if fnmatchcase(relpath, pattern.strip("/")):
+                return True
+        elif fnmatchcase(name, pattern):
+            return True
+    return False
 
 
 def printable_path(rel: str) -> str:
@@ -79,18 +100,20 @@ def _isfile(path: str) -> bool:
         return False
 
 
-def discover(data_dir: Path) -> tuple[DatasetSource, ...]:
-    """List every dataset under ``data_dir`` in sorted path order."""
+def discover(data_dir: Path, ignore: Sequence[str] = ()) -> tuple[DatasetSource, ...]:
+    """List every dataset under ``data_dir`` in sorted path order, skipping hidden and ``ignore``d names."""
     found: list[str] = []
     sidecars: set[str] = set()
     root = str(data_dir)
     for dirpath, dirnames, filenames in os.walk(root, followlinks=False):
-        dirnames[:] = sorted(d for d in dirnames if not _hidden(d))
         rel_dir = os.path.relpath(dirpath, root)
         prefix = "" if rel_dir == "." else Path(rel_dir).as_posix() + "/"
+        dirnames[:] = sorted(d for d in dirnames if not _hidden(d) and not (ignore and ignored(prefix + d, ignore)))
         names = set(filenames)
         for name in sorted(filenames):
             if _hidden(name) or not name.lower().endswith(".csv"):
+                continue
+            if ignore and ignored(prefix + name, ignore):
                 continue
             if not _isfile(os.path.join(dirpath, name)):  # noqa: PTH118 - broken link, fifo, link loop, …
                 continue

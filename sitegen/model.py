@@ -298,6 +298,8 @@ class ChartData:
     density_columns: tuple[str, ...] = ()
     density: tuple[tuple[float | None, ...], ...] = ()
     point_groups: tuple[str, ...] = ()  # group label of each point, when a group column is set
+    spread_columns: tuple[str, ...] = ()  # bins of the standardized residuals of all rows
+    spread: tuple[tuple[float, ...], ...] = ()
 
 
 @dataclass(frozen=True, slots=True)

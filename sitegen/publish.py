@@ -23,6 +23,7 @@ from __future__ import annotations
 import contextlib
 import fcntl
 import os
+import re
 from collections.abc import Iterator
 from pathlib import Path
 
@@ -221,6 +222,25 @@ def site_files(site: Path) -> list[Path]:
     return sorted(p for p in site.rglob("*") if p.is_file() and p.name != MARKER)
 
 
+def folder_name(site: Path) -> str:
+    """The folder a packed site unpacks to: its title as a slug (build.json's ``title``), else ``site``.
+
+    Accents are folded (``Qualité`` → ``qualite``); every run of other characters becomes ``-``.
+    """
+    import json  # noqa: PLC0415
+    import unicodedata  # noqa: PLC0415
+
+    try:
+        title = json.loads((site / "build.json").read_text(encoding="utf-8")).get("title")
+    except (OSError, ValueError, AttributeError):
+        title = None
+    if not isinstance(title, str):
+        return "site"
+    folded = unicodedata.normalize("NFKD", title).encode("ascii", "ignore").decode("ascii")
+    slug = re.sub(r"[^a-z0-9]+", "-", folded.lower()).strip("-")[:80].strip("-")
+    return slug or "site"
+
+
 def pack(site: Path, target: Path) -> int:
     """Zip a built site (links inside are relative, so it works unzipped anywhere); returns its size."""
     if not (site / MARKER).is_file() or not (site / "index.html").is_file():
@@ -229,7 +249,7 @@ def pack(site: Path, target: Path) -> int:
         raise PackError("the zip file cannot be written inside the site it packs")
     import zipfile  # noqa: PLC0415 - only pack needs it
 
-    top = site.resolve().name
+    top = folder_name(site)
     tmp = target.with_name(f".{target.name}.partial")
     try:
         with zipfile.ZipFile(tmp, "w", zipfile.ZIP_DEFLATED, compresslevel=9) as zf:

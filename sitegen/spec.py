@@ -500,6 +500,7 @@ class SiteConfig:
     mail_budget_megabytes: float = 20.0
     defaults: tuple[tuple[str, Any], ...] = ()
     limits: Limits = Limits()
+    ignore: tuple[str, ...] = ()  # glob patterns of files and folders the build skips
 
     @property
     def default_values(self) -> dict[str, Any]:
@@ -515,6 +516,7 @@ _SITE_KEYS = (
     "mail_budget_megabytes",
     "defaults",
     "limits",
+    "ignore",
 )
 _LIMIT_KEYS = ("max_megabytes", "max_rows", "max_columns")
 
@@ -568,7 +570,31 @@ def read_site_config(path: Path) -> tuple[SiteConfig, list[str]]:
     ]
     values["defaults"] = tuple(sorted(clean.items()))
     values["limits"] = _read_limits(table.get("limits", {}))
+    values["ignore"] = _read_ignore(table.get("ignore", []))
     return SiteConfig(**values), warnings
+
+
+MAX_IGNORE_PATTERNS = 200
+
+
+def _read_ignore(value: object) -> tuple[str, ...]:
+    """site.toml's ``ignore``: a list of glob patterns, each naming files or folders inside the data folder."""
+    if not isinstance(value, list):
+        example = '["drafts", "*.old.csv"]'
+        raise _site_error(f"key 'ignore' must be a list of glob patterns such as {example}; got {_show(value)}")
+    if len(value) > MAX_IGNORE_PATTERNS:
+        raise _site_error(f"key 'ignore' has {len(value)} patterns; at most {MAX_IGNORE_PATTERNS} are allowed")
+    out: list[str] = []
+    for item in value:
+        if not isinstance(item, str) or not item.strip():
+            raise _site_error(f"key 'ignore' must hold non-empty strings (glob patterns); got {_show(item)}")
+        if item.startswith("/") or ".." in item.split("/") or "\\" in item or "\x00" in item:
+            raise _site_error(
+                f"ignore pattern '{item}' must be a name or a path inside the data folder "
+                "(no leading '/', no '..', '/' as the separator)"
+            )
+        out.append(item)
+    return tuple(out)
 
 
 def _read_limits(table: object) -> Limits:

@@ -20,7 +20,7 @@ _TEMP_SUFFIXES = ("~", ".swp", ".swx", ".tmp", ".part", ".crdownload")
 
 
 def _ignored(name: str) -> bool:
-    return name.startswith((".", "_", "#", "~$")) or name.endswith(_TEMP_SUFFIXES)
+    return name.startswith((".", "#", "~$")) or name.endswith(_TEMP_SUFFIXES)
 
 
 def snapshot(data_dir: Path) -> Snapshot:

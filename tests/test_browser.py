@@ -226,14 +226,14 @@ def test_the_guard_sees_requests_outside_the_site(browser: Any, site: Path) -> N
 
 def test_charts_share_one_copy_of_the_points(browser: Any, site: Path) -> None:
     html = (site / "datasets" / SHOWCASE / "index.html").read_text("utf-8")
-    assert html.count('"borrow"') == 4
+    assert html.count('"borrow"') == 3
     with watched(browser, site) as (page, problems):
         _open(page, site, f"datasets/{SHOWCASE}/index.html")
         lent = page.evaluate(
             "() => JSON.parse(document.querySelector('script.vl-spec[data-target=vis-fit]').textContent)"
             ".datasets.points[0].row.length"
         )
-        for vis in ("residual_fitted", "scale_location", "qq", "leverage"):
+        for vis in ("residual_by_x", "residual_order", "pull"):
             symbols = page.locator(f"#vis-{vis} svg g.mark-symbol.role-mark > path").count()
             assert symbols == lent, vis
         assert problems == []
@@ -302,7 +302,7 @@ def test_index_table_sorts_by_every_column(browser: Any, site: Path) -> None:
             (3, "Term"),
             (4, "Estimate"),
             (5, "Confidence interval"),  # the example mixes 95% and 99%: each cell states its own
-            (7, "Residual SD"),
+            (7, "Scatter about line"),
             (8, "Status"),
             (9, "Requirements"),
         ):
@@ -310,7 +310,7 @@ def test_index_table_sorts_by_every_column(browser: Any, site: Path) -> None:
                 click(name)
                 direction = header.nth(index).get_attribute("aria-sort")
                 values = _column(page, index)
-                numeric = name in ("Estimate", "Confidence interval", "Residual SD")
+                numeric = name in ("Estimate", "Confidence interval", "Scatter about line")
                 keyed = [v for v in (_numbers(values) if numeric else values) if v not in (None, "")]
                 assert keyed == sorted(keyed, reverse=direction == "descending"), (name, direction)
                 assert values[len(keyed) :] == [v for v in values if v in (None, "")], name

@@ -75,7 +75,8 @@ def test_every_chart_of_the_example_site_is_valid_vega_lite(
 ) -> None:
     specs = _page_specs(example_site)
     kinds = {target.split("-")[1] for _, target, _ in specs}
-    assert {"fit", "residual_fitted", "qq", "scale_location", "leverage", "forest"} <= kinds
+    assert {"fit", "residual_by_x", "residual_by_fitted", "residual_order", "shape", "pull", "forest"} <= kinds
+    assert {"residual_fitted", "qq", "scale_location", "leverage"}.isdisjoint(kinds)  # the old set is gone
     problems = {f"{page}#{target}": errs for page, target, spec in specs if (errs := _errors(validator, spec))}
     assert problems == {}
 
@@ -154,23 +155,23 @@ def _points(series: list[str], flagged: set[int]) -> list[dict[str, Any]]:
 
 
 def _encodings(spec: dict[str, Any], data: str) -> dict[str, Any]:
-    (layer,) = [ly for ly in spec["layer"] if ly.get("data", {}).get("name") == data]
+    (layer,) = [ly for ly in spec["layer"] if ly.get("data", {}).get("name") == data and "shape" in ly["encoding"]]
     enc: dict[str, Any] = layer["encoding"]
     return enc
 
 
 def test_one_series_colours_the_flagged_points_and_keeps_shape_and_size() -> None:
-    spec = charts.fill("residual_fitted", {"points": _points(["observations"] * 4, {2}), "zero": [{"y": 0.0}]})
+    spec = charts.fill("residual_by_x", {"points": _points(["observations"] * 4, {2}), "zero": [{"y": 0.0}]})
     enc = _encodings(spec, "points")
     assert enc["color"]["field"] == "kind"
     assert enc["shape"]["field"] == "kind"
-    assert enc["shape"]["scale"]["range"] == ["circle", "triangle-up"]
+    assert enc["shape"]["scale"]["range"] == ["diamond", "square"]
     assert enc["size"]["field"] == "kind"
     assert enc["shape"]["legend"] is not None
 
 
 def test_several_series_keep_their_colours_and_no_flag_legend_without_flags() -> None:
-    spec = charts.fill("residual_fitted", {"points": _points(["a", "b", "a"], set()), "zero": [{"y": 0.0}]})
+    spec = charts.fill("residual_order", {"points": _points(["a", "b", "a"], set()), "zero": [{"y": 0.0}]})
     enc = _encodings(spec, "points")
     assert enc["color"]["field"] == "series"
     assert enc["shape"]["legend"] is None
@@ -188,28 +189,28 @@ def test_empty_layers_are_dropped_with_their_data() -> None:
 
 def test_shared_points_are_written_once() -> None:
     pts = _points(["observations"] * 3, set())
-    specs = {k: charts.fill(k, {"points": pts}) for k in ("scale_location", "residual_fitted")}
+    specs = {k: charts.fill(k, {"points": pts}) for k in ("pull", "residual_order")}
     charts.share_points(specs)
-    assert specs["scale_location"]["datasets"]["points"] == [charts.as_columns(pts)]
-    assert specs["scale_location"]["usermeta"] == {"sitegen": {"lend": {"points": "scale_location"}}}
-    assert specs["residual_fitted"]["datasets"]["points"] == []
-    assert specs["residual_fitted"]["usermeta"] == {"sitegen": {"borrow": {"points": "scale_location"}}}
+    assert specs["pull"]["datasets"]["points"] == [charts.as_columns(pts)]
+    assert specs["pull"]["usermeta"] == {"sitegen": {"lend": {"points": "pull"}}}
+    assert specs["residual_order"]["datasets"]["points"] == []
+    assert specs["residual_order"]["usermeta"] == {"sitegen": {"borrow": {"points": "pull"}}}
 
 
 def test_standalone_copies_carry_their_own_points() -> None:
     pts = _points(["observations"] * 3, set())
-    specs = {k: charts.fill(k, {"points": pts}) for k in ("scale_location", "residual_fitted")}
+    specs = {k: charts.fill(k, {"points": pts}) for k in ("pull", "residual_order")}
     charts.share_points(specs)
     alone = charts.standalone(specs)
     assert all(spec["datasets"]["points"] == [charts.as_columns(pts)] for spec in alone.values())
     assert all("usermeta" not in spec for spec in alone.values())
-    assert specs["residual_fitted"]["datasets"]["points"] == []  # the page's specs are left as they were
+    assert specs["residual_order"]["datasets"]["points"] == []  # the page's specs are left as they were
 
 
 def test_points_go_by_column_and_every_layer_that_draws_them_flattens_them_back() -> None:
     """One record of parallel lists, and a Vega-Lite ``flatten`` of every field: the rows come back as given."""
     pts = _points(["a", "b", "a", "b"], {1})
-    for kind in ("fit", "residual_fitted", "qq", "scale_location", "leverage"):
+    for kind in ("fit", "residual_by_x", "residual_by_fitted", "residual_percent", "residual_order", "pull"):
         spec = charts.fill(kind, {"points": pts, "band": [{"x": 0.0, "fit": 0.0}]})
         (columns,) = spec["datasets"]["points"]
         fields = sorted(columns)
@@ -219,7 +220,7 @@ def test_points_go_by_column_and_every_layer_that_draws_them_flattens_them_back(
             assert node["transform"][0] == {"flatten": fields}, kind
         rows = [dict(zip(fields, values, strict=True)) for values in zip(*(columns[f] for f in fields), strict=True)]
         assert rows == pts
-    assert "points" not in charts.fill("qq", {"points": []})["datasets"]  # nothing to draw: no layer, no data
+    assert "points" not in charts.fill("pull", {"points": []})["datasets"]  # nothing to draw: no layer, no data
 
 
 def test_numbers_for_drawing_are_shortened_but_exact_where_short() -> None:

@@ -186,15 +186,24 @@ EDGE_FILES = {
     "gaps.csv": "gaps",
     "evil.csv": "evil",
     "typo.csv": "typo",
+    "_draft.csv": "draft",
+    "_old/y.csv": "old-y",
+    "skip_root.csv": "skip-root",  # 'a/skip_*' names a path: only a/skip_… is skipped
 }
 HIDDEN_FILES = (
     ".hidden.csv",
-    "_draft.csv",
     ".git/x.csv",
-    "_old/y.csv",
     "a/.z.csv",
-    "a/_w.csv",
-    "_old/deeper/visible.csv",
+    ".old/deeper/visible.csv",
+)
+# Skipped by the edge site's ignore list (EDGE_IGNORE); names starting with '_' are ordinary.
+EDGE_IGNORE = ["scratch", "*.old.csv", "a/skip_*"]
+IGNORED_FILES = (
+    "scratch/x.csv",
+    "a/scratch/y.csv",
+    "notes.old.csv",
+    "a/deeper/notes.old.csv",
+    "a/skip_w.csv",
 )
 
 
@@ -204,8 +213,9 @@ def edge_build(tmp_path_factory: pytest.TempPathFactory) -> Built:
     data = base / "data"
     for rel in EDGE_FILES:
         write_csv(data / rel, LINE_CSV)
-    for rel in HIDDEN_FILES:
+    for rel in HIDDEN_FILES + IGNORED_FILES:
         write_csv(data / rel, LINE_CSV)
+    write_toml(data / "site.toml", {"ignore": EDGE_IGNORE})
     write_csv(data / "quad.csv", QUAD_CSV)
     write_toml(data / "quad.toml", {"title": "Quadratic", "model": "y ~ x + I(x**2)"})
     write_csv(data / "pair.csv", PAIR_CSV)
@@ -255,7 +265,9 @@ def test_every_contract_path_exists(any_build: Built) -> None:
 
 
 def test_example_has_one_dataset_per_csv(example_build: Built) -> None:
-    csvs = sorted(p.relative_to(example_build.data).as_posix() for p in example_build.data.rglob("*.csv"))
+    every = sorted(p.relative_to(example_build.data).as_posix() for p in example_build.data.rglob("*.csv"))
+    csvs = [c for c in every if not c.endswith(".draft.csv")]  # the example's site.toml ignores drafts
+    assert len(every) == 14
     assert len(csvs) == 13
     assert dataset_dirs(example_build.site) == sorted(contract_slugs(csvs).values())
 
@@ -521,14 +533,19 @@ def test_sections_come_from_sub_folders(edge_build: Built) -> None:
     assert fit_json(edge_build.site, "a-b")["section"] == ""
 
 
-def test_hidden_files_and_folders_are_ignored(edge_build: Built) -> None:
+def test_hidden_and_ignored_files_and_folders_are_skipped(edge_build: Built) -> None:
     sources = {fit_json(edge_build.site, s)["source"] for s in dataset_dirs(edge_build.site)}
-    assert not sources & set(HIDDEN_FILES)
+    assert not sources & set(HIDDEN_FILES + IGNORED_FILES)
     everything = "\n".join(t for rel, t in text_files(edge_build.site).items() if not rel.startswith("assets/"))
-    for name in ("hidden", "draft", "visible", "deeper"):
+    for name in ("hidden", "visible", "deeper", "scratch", "notes", "skip-w", "a-skip-w"):
         assert name not in dataset_dirs(edge_build.site)
-    assert "_draft" not in everything
-    assert ".hidden.csv" not in everything
+    for text in (".hidden.csv", "notes.old.csv", "scratch/", "skip_w"):
+        assert text not in everything
+
+
+def test_names_starting_with_underscore_are_ordinary_datasets(edge_build: Built) -> None:
+    assert fit_json(edge_build.site, "draft")["source"] == "_draft.csv"
+    assert fit_json(edge_build.site, "old-y")["section"] == "_old"
 
 
 def test_two_numeric_columns_without_sidecar_are_fitted_second_on_first(edge_build: Built) -> None:

@@ -102,12 +102,12 @@ def test_weighted_fit_states_the_scatter_in_y_units(tmp_path: Path) -> None:
     page = _page(site, "wls")
     head = _headline(page)
     assert "weighted least squares" in head
-    assert "mV in plain residuals" in head
+    assert "mV (the standard deviation of the plain residuals" in head
     assert "is not in y&#39;s units" in head or "is not in y's units" in head
-    assert "Residual SD, plain residuals" in page
+    assert "Scatter about the line (plain residuals)" in page
     assert "Weighted least squares" in page
-    assert "These are plain residuals (y − fitted, in y units) of the weighted fit" in page
-    assert "Residual standard error</dt>" not in page  # the weighted scale is never called that
+    assert "For this weighted fit these are the plain residuals, y − fitted, in y units" in page
+    assert "Scatter about the line</dt>" not in page  # the weighted scale is never shown as the scatter
 
 
 def test_lack_of_fit_needs_enough_repeated_settings(tmp_path: Path) -> None:

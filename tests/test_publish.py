@@ -186,7 +186,7 @@ def test_pack_makes_a_zip_that_works_unzipped_anywhere(tmp_path: Path) -> None:
         names = zf.namelist()
         assert all(not n.startswith("/") and ".." not in n for n in names)
         zf.extractall(unpacked)
-    root = unpacked / "site"
+    root = unpacked / "regression-reports"  # the default title's slug, not the output folder's name
     assert (root / "index.html").is_file()
     assert (root / "assets" / "vendor" / "vega-bundle.js").is_file()
     assert {p.relative_to(root).as_posix() for p in root.rglob("*") if p.is_file()} == {

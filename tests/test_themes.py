@@ -375,10 +375,10 @@ def test_static_images_are_written_and_offered(tmp_path: Path) -> None:
     svgs = sorted(p.name for p in folder.glob("chart-*.svg"))
     assert svgs == [
         "chart-fit.svg",
-        "chart-leverage.svg",
-        "chart-qq.svg",
-        "chart-residual-fitted.svg",
-        "chart-scale-location.svg",
+        "chart-pull.svg",
+        "chart-residual-by-x.svg",
+        "chart-residual-order.svg",
+        "chart-shape.svg",
     ]
     for name in svgs:
         text = (folder / name).read_text(encoding="utf-8")

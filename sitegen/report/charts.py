@@ -44,6 +44,7 @@ SMALL_HEIGHT = 220
 FACET_WIDTH = 420
 SIGNIFICANT = 6  # digits kept for drawing; the downloads keep full precision
 KINDS = ["ordinary", "flagged"]
+POINT_SHAPES = ["diamond", "square"]  # ordinary, flagged (flagged are also larger, and in the flag colour)
 SHARED = "points"
 CROWDED = 1000  # above this many points, symbols shrink and lines are drawn over them
 STATUS_WORDS = (
@@ -76,7 +77,7 @@ def _kind_encodings(alt: Any) -> dict[str, Any]:
         "shape": alt.Shape(
             "kind:N",
             title="Point",
-            scale=alt.Scale(**kind, range=["circle", "triangle-up"]),
+            scale=alt.Scale(**kind, range=POINT_SHAPES),
             legend=_bottom_legend(alt, "Point"),
         ),
         "size": alt.Size(
@@ -149,69 +150,143 @@ def _small(chart: Any) -> Any:
     return chart.properties(width=SMALL, height=SMALL_HEIGHT)
 
 
-def _residual_fitted(alt: Any) -> Any:
-    rule = alt.Chart(alt.Data(name="zero")).mark_rule(strokeDash=[4, 3]).encode(y="y:Q")
-    pts = _point_mark(_points(alt)).encode(
-        x=alt.X("fitted:Q", title="Fitted value", scale=alt.Scale(zero=False)),
-        y=alt.Y("residual:Q", title="Residual"),
-        **_kind_encodings(alt),
-        tooltip=_tooltip(alt, [("row", ""), ("fitted", "fitted"), ("residual", "residual")]),
+def _baseline(alt: Any) -> Any:
+    """The zero line of a residual chart: solid and thin, in the axis colour."""
+    return alt.Chart(alt.Data(name="zero")).mark_rule(strokeWidth=1.2).encode(y="y:Q")
+
+
+def _sticks(alt: Any, x: Any, field: str, title: str) -> Any:
+    """Each row as a stick from zero to its value, capped by its point (shape and size tell flagged rows)."""
+    y = alt.Y(f"{field}:Q", title=title)
+    stick = (
+        _points(alt).transform_calculate(base="0").mark_rule(strokeWidth=1, opacity=0.55).encode(x=x, y=y, y2="base:Q")
     )
-    return _small(alt.layer(rule, pts))
+    return stick, y
 
 
-def _qq(alt: Any) -> Any:
-    ref = alt.Chart(alt.Data(name="reference")).mark_line(strokeDash=[4, 3]).encode(x="x:Q", y="y:Q")
-    pts = _point_mark(_points(alt)).encode(
-        x=alt.X("qq_theory:Q", title="Normal quantile"),
-        y=alt.Y("std_resid:Q", title="Standardized residual"),
-        **_kind_encodings(alt),
-        tooltip=_tooltip(alt, [("row", ""), ("std_resid", "standardized residual"), ("qq_theory", "normal quantile")]),
-    )
-    return _small(alt.layer(ref, pts))
+RESIDUAL_TIPS = [("row", ""), ("x", "x"), ("fitted", "fitted"), ("residual", "residual")]
 
 
-def _scale_location(alt: Any) -> Any:
-    pts = _point_mark(_points(alt)).encode(
-        x=alt.X("fitted:Q", title="Fitted value", scale=alt.Scale(zero=False)),
-        y=alt.Y("root_abs_std:Q", title="√|standardized residual|"),
-        **_kind_encodings(alt),
-        tooltip=_tooltip(alt, [("row", ""), ("fitted", "fitted"), ("root_abs_std", "√|standardized residual|")]),
-    )
-    return _small(pts)
-
-
-def _leverage(alt: Any) -> Any:
-    contour = (
-        alt.Chart(alt.Data(name="contours"))
-        .mark_line(clip=True, strokeWidth=1.2)
+def _across(alt: Any, along: str) -> Any:
+    """Residuals in the response's units against x (or the fitted value), inside a band of ±2 s."""
+    x = alt.X(f"{along}:Q", title=X_TITLE, scale=alt.Scale(zero=False, nice=False))
+    band = (
+        alt.Chart(alt.Data(name="scatter"))
+        .mark_rect(opacity=0.12)
         .encode(
-            x="h:Q",
-            y="r:Q",
-            detail="branch:N",
-            strokeDash=alt.StrokeDash(
-                "label:N",
-                title="Cook's distance",
-                scale=alt.Scale(range=[[6, 3], [2, 3]]),
-                legend=_bottom_legend(alt, "Cook's distance"),
-            ),
+            y=alt.Y("low:Q"),
+            y2="high:Q",
+            tooltip=[
+                alt.Tooltip("low:Q", title="−2 × scatter about the line", format=",.4~g"),
+                alt.Tooltip("high:Q", title="+2 × scatter about the line", format=",.4~g"),
+            ],
         )
     )
+    stick, y = _sticks(alt, x, "residual", Y_TITLE)
     pts = _point_mark(_points(alt)).encode(
-        x=alt.X("leverage:Q", title="Leverage"),
-        y=alt.Y("std_resid:Q", title="Standardized residual"),
+        x=x,
+        y=y,
+        **_kind_encodings(alt),
+        tooltip=_tooltip(alt, [t for t in RESIDUAL_TIPS if t[0] in ("row", along, "residual")]),
+    )
+    return _small(alt.layer(band, _baseline(alt), stick, pts))
+
+
+def _percent(alt: Any) -> Any:
+    """Residuals as a percentage of the fitted value against x (calibrations; rows at x = 0 left out)."""
+    x = alt.X("x:Q", title=X_TITLE, scale=alt.Scale(zero=False))
+    keep = "isValid(datum.x) && datum.x != 0 && isValid(datum.fitted) && datum.fitted != 0"
+    calc = {"percent": "100 * datum.residual / datum.fitted", "base": "0"}
+    y = alt.Y("percent:Q", title="Residual, % of fitted value")
+    stick = (
+        _points(alt)
+        .transform_filter(keep)
+        .transform_calculate(**calc)
+        .mark_rule(strokeWidth=1, opacity=0.55)
+        .encode(x=x, y=y, y2="base:Q")
+    )
+    pts = _point_mark(_points(alt).transform_filter(keep).transform_calculate(**calc)).encode(
+        x=x,
+        y=y,
+        **_kind_encodings(alt),
+        tooltip=[
+            alt.Tooltip("row:Q", title="CSV row"),
+            alt.Tooltip("x:Q", title="x", format=",.4~g"),
+            alt.Tooltip("percent:Q", title="residual, % of fitted", format=",.3~f"),
+        ],
+    )
+    return _small(alt.layer(_baseline(alt), stick, pts))
+
+
+def _run_order(alt: Any) -> Any:
+    """Residuals in CSV row order, joined by a thin line: runs above or below zero show drift or carry-over."""
+    x = alt.X(
+        "row:Q", title="CSV row", scale=alt.Scale(zero=False, nice=False), axis=alt.Axis(tickMinStep=1, format="d")
+    )
+    y = alt.Y("residual:Q", title=Y_TITLE)
+    trail = _points(alt).mark_line(strokeWidth=1, opacity=0.6, interpolate="linear").encode(x=x, y=y, order="row:Q")
+    pts = _point_mark(_points(alt)).encode(
+        x=x, y=y, **_kind_encodings(alt), tooltip=_tooltip(alt, [("row", ""), ("residual", "residual")])
+    )
+    return _small(alt.layer(_baseline(alt), trail, pts))
+
+
+def _pull(alt: Any) -> Any:
+    """Each row's Cook's distance by CSV row number, against the limit the influence check uses."""
+    x = alt.X(
+        "row:Q", title="CSV row", scale=alt.Scale(zero=False, nice=False), axis=alt.Axis(tickMinStep=1, format="d")
+    )
+    stick, y = _sticks(alt, x, "cooks", "Cook's distance")
+    pts = _point_mark(_points(alt)).encode(
+        x=x,
+        y=y,
         **_kind_encodings(alt),
         tooltip=_tooltip(
             alt,
             [
                 ("row", ""),
+                ("cooks", "Cook's distance"),
                 ("leverage", "leverage"),
                 ("studentized", "studentized residual"),
-                ("cooks", "Cook's distance"),
             ],
         ),
     )
-    return _small(alt.layer(contour, pts))
+    limit = alt.Chart(alt.Data(name="limit"))
+    rule = limit.mark_rule(strokeWidth=1.5, strokeDash=[10, 3, 2, 3]).encode(
+        y="value:Q", tooltip=[alt.Tooltip("value:Q", title="limit", format=",.3~g")]
+    )
+    label = limit.mark_text(align="left", baseline="bottom", dy=-3, fontSize=11).encode(
+        y="value:Q", x=alt.value(4), text="label:N"
+    )
+    return _small(alt.layer(stick, rule, label, pts))
+
+
+def _shape(alt: Any) -> Any:
+    """Standardized residuals counted in bins (bars), with the counts a bell shape would give (ticks joined)."""
+    bins = alt.Chart(alt.Data(name="spread"))
+    x = alt.X("low:Q", title="Standardized residual", bin="binned", axis=alt.Axis(tickMinStep=0.5))
+    bars = bins.mark_bar(opacity=0.55, binSpacing=1).encode(
+        x=x,
+        x2="high:Q",
+        y=alt.Y("count:Q", title="Rows"),
+        tooltip=[
+            alt.Tooltip("low:Q", title="from", format=".1f"),
+            alt.Tooltip("high:Q", title="to", format=".1f"),
+            alt.Tooltip("count:Q", title="rows"),
+            alt.Tooltip("expected:Q", title="a bell shape gives", format=".1f"),
+        ],
+    )
+    expect = (
+        bins.transform_calculate(mid="(datum.low + datum.high) / 2")
+        .mark_line(
+            strokeWidth=1.5,
+            strokeDash=[1, 3],
+            strokeCap="round",
+            point=alt.OverlayMarkDef(filled=False, size=36, strokeWidth=1.5),
+        )
+        .encode(x="mid:Q", y="expected:Q")
+    )
+    return _small(alt.layer(bars, expect))
 
 
 STATUS_SHAPES = {"ok": "circle", "warn": "diamond", "error": "cross"}
@@ -362,10 +437,12 @@ def _readback(alt: Any) -> Any:
 
 _BUILDERS: dict[str, Callable[[Any], Any]] = {
     "fit": _fit_chart,
-    "residual_fitted": _residual_fitted,
-    "qq": _qq,
-    "scale_location": _scale_location,
-    "leverage": _leverage,
+    "residual_by_x": lambda alt: _across(alt, "x"),
+    "residual_by_fitted": lambda alt: _across(alt, "fitted"),
+    "residual_percent": _percent,
+    "residual_order": _run_order,
+    "pull": _pull,
+    "shape": _shape,
     "forest": lambda alt: _forest(alt, shared_axis=True),
     "forest_mixed": lambda alt: _forest(alt, shared_axis=False),
     "drift": _drift,
@@ -638,12 +715,37 @@ def dataset_charts(report: FitReport) -> dict[str, Spec]:
             x_title=_label(chart.x, units),
             y_title=_label(chart.y, units),
         )
-    out["residual_fitted"] = fill("residual_fitted", {"points": points, "zero": [{"y": 0.0}]})
-    qq = [v for v in points.get("qq_theory", ()) if v is not None]
-    lim = max((abs(v) for v in qq), default=2.0)
-    out["qq"] = fill("qq", {"points": points, "reference": [{"x": -lim, "y": -lim}, {"x": lim, "y": lim}]})
-    out["scale_location"] = fill("scale_location", {"points": points})
-    out["leverage"] = fill("leverage", {"points": points, "contours": _contours(points, len(report.terms))})
+    zero = [{"y": 0.0}]
+    s = report.residual_std_error
+    scatter = (
+        [{"low": _short(-2 * s), "high": _short(2 * s)}]
+        if s is not None and math.isfinite(s) and s > 0 and not report.weights
+        else []
+    )
+    y_unit = units.get(chart.y)
+    resid_title = f"Residual ({y_unit})" if y_unit else f"Residual (in {chart.y})"
+    if chart.x is not None:
+        out["residual_by_x"] = fill(
+            "residual_by_x",
+            {"points": points, "zero": zero, "scatter": scatter},
+            x_title=_label(chart.x, units),
+            y_title=resid_title,
+        )
+        if _is_calibration(report):
+            out["residual_percent"] = fill(
+                "residual_percent", {"points": points, "zero": zero}, x_title=_label(chart.x, units)
+            )
+    else:
+        out["residual_by_fitted"] = fill(
+            "residual_by_fitted",
+            {"points": points, "zero": zero, "scatter": scatter},
+            x_title=f"Fitted {_label(chart.y, units)}",
+            y_title=resid_title,
+        )
+    out["residual_order"] = fill("residual_order", {"points": points, "zero": zero}, y_title=resid_title)
+    if chart.spread:
+        out["shape"] = fill("shape", {"spread": _records(chart.spread_columns, chart.spread)})
+    out["pull"] = fill("pull", {"points": points, "limit": pull_limit(report)})
     out |= purpose_charts(report, units)
     share_points(out)
     return out
@@ -820,23 +922,27 @@ def _line_records(report: FitReport, chart: ChartData) -> list[dict[str, Any]]:
     return out
 
 
-def _contours(points: Columns, p: int) -> list[dict[str, Any]]:
-    """Cook's distance contours D = 0.5 and 1 in (leverage, standardized residual) coordinates."""
-    hs = [v for v in points.get("leverage", ()) if v is not None]
-    rs = [abs(v) for v in points.get("std_resid", ()) if v is not None]
-    if not hs or p < 1:
+def influence_limit(report: FitReport) -> float | None:
+    """The Cook's distance limit of the influence check: the median of F(p, n − p) (common practice)."""
+    from sitegen.stats.distributions import f_ppf  # noqa: PLC0415 - only pages with a fit need it
+
+    p, df = len(report.terms), report.df_resid
+    if p < 1 or df is None or df < 1:
+        return None
+    return f_ppf(0.5, p, df)
+
+
+def pull_limit(report: FitReport) -> list[dict[str, Any]]:
+    """The limit line of the pull chart (empty when there is no limit)."""
+    cut = influence_limit(report)
+    if cut is None or not math.isfinite(cut):
         return []
-    h_max = min(max(hs) * 1.08, 0.999)
-    r_lim = max(rs, default=2.0) * 1.15 + 0.5
-    out = []
-    for d in (0.5, 1.0):
-        for sign, branch in ((1.0, "upper"), (-1.0, "lower")):
-            for k in range(1, 41):
-                h = h_max * k / 40
-                r = sign * math.sqrt(d * p * (1 - h) / h)
-                if abs(r) <= r_lim:
-                    out.append({"h": _short(h), "r": _short(r), "label": f"D = {d:g}", "branch": f"{d}{branch}"})
-    return out
+    return [{"value": _short(cut), "label": f"limit {cut:.3g}: rows above it steer the line"}]
+
+
+def _is_calibration(report: FitReport) -> bool:
+    """A calibration line (the sidecar's ``purpose``)."""
+    return report.purpose == "calibration"
 
 
 def forest_chart(rows: list[dict[str, Any]], term: str) -> Spec:

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import shutil
 from collections.abc import Sequence
-from dataclasses import asdict
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -16,6 +15,7 @@ if TYPE_CHECKING:
 from sitegen.discover import DatasetSource
 from sitegen.jsontext import json_text
 from sitegen.model import FitReport, to_json
+from sitegen.report import variation
 from sitegen.report.tables import (
     cell_kinds,
     clean_rows,
@@ -323,8 +323,7 @@ def dataset_files(
         files.append(_table(folder, "coefficients", COEFFICIENT_COLUMNS + extra, coef_rows, book))
     else:
         files.append(_table(folder, "coefficients", COEFFICIENT_COLUMNS, coef_rows, book))
-    anova_cols = ("source", "df", "sum_sq", "mean_sq", "f_stat", "p_value")
-    files.append(_table(folder, "anova", anova_cols, [list(asdict(a).values()) for a in r.anova], book))
+    files.append(_table(folder, "anova", variation.COLUMNS, variation.rows(r), book))
     if r.lines:
         cols: tuple[str, ...] = (
             "method",

@@ -15,7 +15,7 @@ from markupsafe import Markup
 from sitegen import __version__
 from sitegen.errors import SiteConfigError
 from sitegen.model import FitReport
-from sitegen.report import charts, fmt
+from sitegen.report import charts, fmt, variation
 from sitegen.report.theme import Theme
 from sitegen.spec import SiteConfig
 
@@ -95,6 +95,7 @@ def environment(theme: Theme) -> jinja2.Environment:
         "num": fmt.num,
         "integer": fmt.integer,
         "pvalue": fmt.pvalue,
+        "p_phrase": fmt.p_phrase,
         "rsq": fmt.rsquared,
         "level": fmt.level,
         "percent": fmt.percent,
@@ -194,13 +195,14 @@ def _fit_sentence(r: FitReport) -> str:
     if r.weights:
         fit_part = (
             f"{share}; fitted by weighted least squares (weights from column {r.weights}), the points scatter about "
-            f"it with a standard deviation of {fmt.num(r.residual_sd_y)}{y_unit_text} in plain residuals "
-            f"(the weighted residual scale, {fmt.num(r.residual_std_error)}, is not in {r.response}'s units)"
+            f"it by {fmt.num(r.residual_sd_y)}{y_unit_text} (the standard deviation of the plain residuals, "
+            f"y − fitted; the weighted residual scale, {fmt.num(r.residual_std_error)}, is not in "
+            f"{r.response}'s units)"
         )
     else:
         fit_part = (
-            f"{share}, and the points scatter about it with a residual standard error of "
-            f"{fmt.num(r.residual_std_error)}{y_unit_text}"
+            f"{share}, and the points scatter about it by {fmt.num(r.residual_std_error)}{y_unit_text}"
+            " (the typical distance of a row from the line)"
         )
     chart = r.chart
     term = r.compare_term
@@ -259,10 +261,12 @@ _DESCRIBED = {
 }
 _CHART_NAMES = {
     "chart-fit.svg": "the line and its bands",
-    "chart-residual-fitted.svg": "residuals against fitted values",
-    "chart-scale-location.svg": "scatter along the line",
-    "chart-qq.svg": "normal Q–Q plot",
-    "chart-leverage.svg": "residuals against leverage",
+    "chart-residual-by-x.svg": "residuals across the range of x",
+    "chart-residual-by-fitted.svg": "residuals across the fitted values",
+    "chart-residual-percent.svg": "residuals in percent of the fitted value",
+    "chart-residual-order.svg": "residuals in CSV row order",
+    "chart-shape.svg": "shape of the residuals' scatter",
+    "chart-pull.svg": "each row's pull on the line",
 }
 
 
@@ -310,7 +314,7 @@ def render_dataset(
             if r.pooled_contrast and r.groups
             else ""
         )
-        + ("; flagged rows are drawn as larger triangles." if r.flagged else ".")
+        + ("; flagged rows are drawn as larger squares." if r.flagged else ".")
     )
     return _render(
         env,
@@ -325,6 +329,9 @@ def render_dataset(
         cutoffs=cutoffs,
         x_label=x_label,
         fit_caption=fit_caption,
+        pull_limit=charts.influence_limit(r) if ok else None,
+        variation=variation.parts(r) if ok else (),
+        resid_unit=units.get(r.chart.y, "") if r.chart else "",
     )
 
 

@@ -7,11 +7,11 @@
   /* Used when a theme's theme.toml leaves a colour out. */
   var FALLBACK = {
     light: { category: ["#b3471d", "#4d7325", "#7a4f9a", "#8a6700", "#a3345f", "#3d3d3d", "#2b6a89"],
-             mark: "#2b6a89", flag: "#b3471d", text: "#1d2733", muted: "#4f5a66", grid: "#e6e3dc", domain: "#7c828a",
-             band: "#2b6a89", density: "#56606b" },
+             mark: "#1f6f5c", flag: "#a4286a", text: "#1d2733", muted: "#4f5a66", grid: "#e6e3dc", domain: "#7c828a",
+             band: "#1f6f5c", density: "#56606b" },
     dark: { category: ["#f0a070", "#a8d27a", "#c9a6f0", "#e8c85a", "#f08fb5", "#d0d0d0", "#7fc1e0"],
-            mark: "#7fc1e0", flag: "#f0a070", text: "#e6e9ee", muted: "#b3bcc7", grid: "#333b45", domain: "#8a93a0",
-            band: "#7fc1e0", density: "#b8c2cc" }
+            mark: "#6fd1b5", flag: "#f29cc8", text: "#e6e9ee", muted: "#b3bcc7", grid: "#333b45", domain: "#8a93a0",
+            band: "#6fd1b5", density: "#b8c2cc" }
   };
 
   function media(query) {
