@@ -272,7 +272,7 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
     )
     if report.compare_term and report.coefficient(report.compare_term) is None:
         raise FormulaError(
-            f"compare = {spec.compare!r} is not a term of the model",
+            f"{base.source[: -len('.csv')]}.toml: compare = {spec.compare!r} is not a term of the model",
             hint=f"choose one of {', '.join(design.terms)}",
         )
     if weights is not None and fit.df_resid > 0:

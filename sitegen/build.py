@@ -64,6 +64,7 @@ class Outcome:
     status: str
     message: str
     requirements: str = "none"  # "met", "unmet" or "none" (nothing declared)
+    sidecar_warnings: tuple[str, ...] = ()  # unknown or misspelt sidecar keys, for the terminal too
 
 
 @dataclass(frozen=True, slots=True)
@@ -389,6 +390,7 @@ def _touch_build_json(out_dir: Path, prev: _Previous, stats: dict[str, dict[str,
             e.get("status", "ok"),
             e.get("message", ""),
             str((e.get("index") or {}).get("requirements", "none")),
+            tuple(str(w) for w in (e.get("index") or {}).get("sidecar_warnings", ())),
         )
         for e in body["datasets"]
     )
@@ -657,7 +659,14 @@ class _Build:
         self._tidy({slug: {*files, *page_files[slug]} for slug, (_, files) in done.items()}, site_assets)
         self._write_build_json(entries)
         outcomes = tuple(
-            Outcome(r.dataset, r.source, r.status, str(summary_row(r)["message"]), r.requirements_state)
+            Outcome(
+                r.dataset,
+                r.source,
+                r.status,
+                str(summary_row(r)["message"]),
+                r.requirements_state,
+                sidecar_warnings(r),
+            )
             for r in reports
         )
         return outcomes, len(jobs), hist_warnings, tuple(traces)
@@ -810,6 +819,11 @@ class _Build:
             "files": _manifest(self.work),  # written last: every other file of the site is in place
         }
         (self.work / "build.json").write_text(json_text(body), encoding="utf-8")
+
+
+def sidecar_warnings(report: FitReport) -> tuple[str, ...]:
+    """The report's warnings about its sidecar's keys (each names the sidecar file)."""
+    return tuple(m.text for m in report.messages if m.level == "warning" and "sidecar key" in m.text)
 
 
 def _with_sha(report: FitReport, sha: str) -> FitReport:

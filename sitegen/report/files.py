@@ -108,6 +108,7 @@ def index_entry(r: FitReport) -> dict[str, Any]:
     row["tags"] = list(r.tags)
     row["message_level"] = _message_level(r)
     row["pooled_contrast"] = r.pooled_contrast
+    row["sidecar_warnings"] = [m.text for m in r.messages if m.level == "warning" and "sidecar key" in m.text]
     row["weights"] = r.weights
     row["residual_sd_y"] = _json_value(r.residual_sd_y)
     row["units"] = dict(r.units)
@@ -136,7 +137,12 @@ def report_from_index_entry(entry: dict[str, Any], input_sha256: str) -> FitRepo
                 nan, nan, num("ci_low"), num("ci_high"),
             ),
         )  # fmt: skip
-    messages = (Message(entry["message_level"], str(entry["message"])),) if entry.get("message") else ()
+    messages: tuple[Message, ...] = (
+        (Message(entry["message_level"], str(entry["message"])),) if entry.get("message") else ()
+    )
+    messages += tuple(
+        Message("warning", str(w)) for w in entry.get("sidecar_warnings", ()) if str(w) != entry.get("message")
+    )
     requirements = tuple(
         Requirement(
             name=str(q["name"]), met=bool(q["met"]), value=None, limit=None, text=str(q["text"]),

@@ -38,7 +38,8 @@
 
   function chartConfig(name) {
     var c = colours(name);
-    var axis = { labelColor: c.text, titleColor: c.text, gridColor: c.grid, domainColor: c.domain,
+    var axis = { labelOverlap: "greedy", labelSeparation: 6, labelFlush: true,
+                 labelColor: c.text, titleColor: c.text, gridColor: c.grid, domainColor: c.domain,
                  tickColor: c.domain, labelFontSize: 11, titleFontSize: 12, titleFontWeight: 600 };
     return {
       background: null,
