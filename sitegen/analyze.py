@@ -29,6 +29,7 @@ from sitegen.purposes import choose_weights
 from sitegen.requirements import judge
 from sitegen.spec import DatasetSpec, Limits, read_sidecar
 from sitegen.stats.ols import OlsFit, anova_table, fit_ols
+from sitegen.stats.soundness import RESCALE, data_problem, figures_problem
 from sitegen.stats.text import p_text
 from sitegen.table import to_float
 
@@ -52,7 +53,16 @@ class DatasetResult:
 
 
 def analyze(task: FitTask) -> DatasetResult:
-    """Fit one dataset; never raises."""
+    """Fit one dataset; never raises. Floating-point overflow and the like print nothing: figures that
+    are not finite are caught by ``stats/soundness.py`` and reported in the dataset's own words."""
+    import warnings  # noqa: PLC0415
+
+    with np.errstate(all="ignore"), warnings.catch_warnings():
+        warnings.simplefilter("ignore", RuntimeWarning)
+        return _analyze(task)
+
+
+def _analyze(task: FitTask) -> DatasetResult:
     src = task.source
     title = Path(src.relpath).stem
     base = FitReport(
@@ -65,7 +75,7 @@ def analyze(task: FitTask) -> DatasetResult:
         level=0.95,
     )
     try:
-        raw = read_source(src.csv_path, task.limits, src.relpath)  # refuses a file over the size limit unread
+        raw = read_source(src.csv_path, task.limits, src.relpath, src.root)  # refuses a file over the size limit unread
     except OSError as exc:
         msg = (
             f"{src.relpath} cannot be read: {exc.strerror or exc} (it may have been moved or deleted during the build)"
@@ -77,7 +87,7 @@ def analyze(task: FitTask) -> DatasetResult:
     spec: DatasetSpec | None = None
     sidecar_name = src.relpath[: -len(".csv")] + ".toml"
     try:
-        spec = read_sidecar(src.sidecar_path, dict(task.defaults), sidecar_name)
+        spec = read_sidecar(src.sidecar_path, dict(task.defaults), sidecar_name, src.root)
         base = replace(
             base,
             title=spec.title or title,
@@ -162,6 +172,9 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
     extra = tuple(c for c in (spec.weights, spec.group) if c)
     design = build_design(formula, table.table, name, extra)
     weights = _weights(design, spec)
+    problem = data_problem(design.response, design.y, design.terms, design.X, design.has_intercept)
+    if problem:
+        raise FitError(f"{name}: {problem}", hint=RESCALE if "compute with" in problem else None)
     weighting = choose_weights(design, spec, derive.straight_line(design))
     if weighting is not None:
         weights = weighting.weights
@@ -270,6 +283,10 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         linearity=pieces.calibration_parts.linearity,
         working_range=pieces.calibration_parts.working_range,
     )
+    coefficients = [(c.term, c.estimate, c.std_error, c.ci_low, c.ci_high) for c in report.coefficients]
+    problem = figures_problem(report.r_squared, report.residual_std_error, coefficients)
+    if problem:
+        raise FitError(f"{name}: the figures of this fit cannot be trusted: {problem}", hint=RESCALE)
     if report.compare_term and report.coefficient(report.compare_term) is None:
         raise FormulaError(
             f"{base.source[: -len('.csv')]}.toml: compare = {spec.compare!r} is not a term of the model",

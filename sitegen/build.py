@@ -25,9 +25,10 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from sitegen import __version__
+from sitegen.confine import files_under, outside_reason, read_inside
 from sitegen.digest import file_sha256, sha256_hex
 from sitegen.discover import SITE_CONFIG_NAME, DatasetSource, discover
-from sitegen.errors import INTERNAL_ERROR_WORDS, ConfigError
+from sitegen.errors import INTERNAL_ERROR_WORDS, ConfigError, OutsideFolderError
 from sitegen.jsontext import json_text
 from sitegen.publish import build_folder, check_output_folder, copy_new, marker_intact, swap_in
 from sitegen.report.theme import Theme, load_theme
@@ -53,6 +54,7 @@ class BuildOptions:
     out_dir: Path
     jobs: int | None = None
     refit: bool = False
+    theme: Path | None = None  # a theme folder named on the command line (trusted: it may lie anywhere)
 
 
 @dataclass(frozen=True, slots=True)
@@ -127,6 +129,15 @@ def _input_stat(path: Path) -> list[int] | None:
     return [st.st_size, st.st_mtime_ns, st.st_ino, st.st_ctime_ns, st.st_dev]
 
 
+def _refused(path: Path | None, root: Path | None) -> str | None:
+    """A stand-in hash for an input that leads outside the data folder (it is never read, not even to hash it);
+    None for a file that may be read."""
+    if path is None or root is None:
+        return None
+    reason = outside_reason(path, root)
+    return None if reason is None else sha256_hex(f"refused: {reason}".encode())
+
+
 def _known_sha(stat: list[int] | None, record: Any, name: str) -> str | None:
     """The recorded sha256 of file ``name`` when its size, time and inode are as recorded, else None."""
     if stat is None or not isinstance(record, dict) or record.get(name) != stat:
@@ -160,21 +171,25 @@ def _fingerprint(
     read again; their recorded hashes stand (the record is kept in build.json).
     """
     now = time.time_ns()
-    csv_stat = _input_stat(src.csv_path)
-    csv_sha = _known_sha(csv_stat, record, "csv")
+    csv_refused = _refused(src.csv_path, src.root)
+    csv_stat = _input_stat(src.csv_path) if csv_refused is None else None
+    csv_sha = _known_sha(csv_stat, record, "csv") if csv_refused is None else csv_refused
     if csv_sha is None:
         try:
             csv_sha = file_sha256(src.csv_path)
         except OSError:
             return "", "", {}, (None, None)
-    side_stat = _input_stat(src.sidecar_path) if src.sidecar_path is not None else None
+    side_refused = _refused(src.sidecar_path, src.root)
+    side_stat = _input_stat(src.sidecar_path) if src.sidecar_path is not None and side_refused is None else None
     side_sha = _known_sha(side_stat, record, "sidecar") if src.sidecar_path else sha256_hex(b"")
-    if side_sha is None:
+    if side_refused is not None:
+        side_sha = side_refused
+    elif side_sha is None:
         sidecar = b""
         if src.sidecar_path is not None:
             try:
-                sidecar = src.sidecar_path.read_bytes()
-            except OSError:
+                sidecar = read_inside(src.sidecar_path, src.root)
+            except (OSError, OutsideFolderError):
                 sidecar = b"<unreadable>"
         side_sha = sha256_hex(sidecar)
     payload = shared + "\n" + json.dumps([csv_sha, side_sha, src.relpath, src.slug, src.section])
@@ -191,8 +206,12 @@ def _site_key(config: SiteConfig, theme: Theme) -> str:
     parts = [repr(config).encode(), __version__.encode()]
     parts.append(json.dumps(library_versions(RENDER_LIBRARIES), sort_keys=True).encode())
     for folder in (*theme.template_dirs, *theme.static_dirs):
-        for path in sorted(p for p in folder.rglob("*") if p.is_file()):
-            parts += [path.relative_to(folder).as_posix().encode(), path.read_bytes()]
+        for rel, path, refused in files_under(folder):  # a file refused (a link out) counts by its name only
+            try:
+                data = refused.encode() if refused else read_inside(path, folder, where="theme folder")
+            except (OSError, OutsideFolderError):
+                data = b"<unreadable>"
+            parts += [rel.encode(), data]
     parts.append(theme.charts_json.encode())
     return sha256_hex(b"".join(parts))
 
@@ -231,8 +250,8 @@ def run_build(
     if not data_dir.is_dir():
         raise ConfigError(f"the data folder {data_dir} does not exist or is not a folder")
     check_output_folder(data_dir, out_dir)
-    config, warnings = read_site_config(data_dir / SITE_CONFIG_NAME)
-    theme = load_theme(config.theme, data_dir.resolve())
+    config, warnings = read_site_config(data_dir / SITE_CONFIG_NAME, data_dir)
+    theme = load_theme(config.theme, data_dir.resolve(), options.theme)
     sources = discover(data_dir, config.ignore)
     shared = _shared_inputs(config, library_versions(LIBRARIES))
     site_key = _site_key(config, theme)
@@ -245,6 +264,10 @@ def run_build(
         if _nothing_changed(prev, sources, prints, site_key):
             outcomes = _touch_build_json(out_dir, prev, stats)
             return BuildSummary(out_dir, outcomes, 0, len(sources), time.perf_counter() - started, tuple(warnings))
+        if theme.sandboxed:  # a user's templates: a syntax error stops the build before the spare is touched
+            from sitegen.report.pages import check_theme  # noqa: PLC0415
+
+            check_theme(theme)
         spare = _open_spare(work, trusted=prev.site is not None)
         from sitegen.executor import make_executor  # noqa: PLC0415 - a process pool only when there is work
 
@@ -265,7 +288,13 @@ def run_build(
                 stats=stats,
                 inputs=inputs,
             )
-            summary = state.execute(theme)
+            try:
+                summary = state.execute(theme)
+            except ConfigError:  # e.g. a user template that fails as it renders: no half-built spare stays
+                import shutil  # noqa: PLC0415
+
+                shutil.rmtree(work, ignore_errors=True)
+                raise
         swap_in(work, out_dir)
     return BuildSummary(
         out_dir=out_dir,
@@ -794,7 +823,7 @@ class _Build:
             title = Path(src.relpath).stem
             # Only a guess: whatever goes wrong here is reported when the dataset itself is fitted.
             with contextlib.suppress(Exception):
-                title = read_sidecar(src.sidecar_path, dict(self.config.defaults), src.relpath).title or title
+                title = read_sidecar(src.sidecar_path, dict(self.config.defaults), src.relpath, src.root).title or title
             self.titles[src.slug] = title
         return src.slug, self.titles[src.slug]
 

@@ -157,6 +157,13 @@ def _common_build_options(p: argparse.ArgumentParser) -> None:
         action="store_true",
         help="exit with 3 when a declared requirement is not met (1 still wins when a dataset failed)",
     )
+    p.add_argument(
+        "--theme",
+        type=Path,
+        default=None,
+        metavar="FOLDER",
+        help="a theme folder you trust, used instead of site.toml's theme; it may lie outside the data folder",
+    )
 
 
 def _build(args: argparse.Namespace, out: _Printer) -> int:
@@ -164,7 +171,9 @@ def _build(args: argparse.Namespace, out: _Printer) -> int:
 
     if args.jobs is not None and args.jobs < 1:
         raise ConfigError("--jobs must be at least 1")
-    summary = run_build(BuildOptions(args.data_dir, args.out_dir, args.jobs, args.refit), progress=out.progress)
+    summary = run_build(
+        BuildOptions(args.data_dir, args.out_dir, args.jobs, args.refit, theme=args.theme), progress=out.progress
+    )
     for w in summary.warnings:
         out.warn(w)
     for o in summary.outcomes:

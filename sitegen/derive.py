@@ -43,6 +43,7 @@ from sitegen.stats.influence import Influence, PointFlags, flag_points, influenc
 from sitegen.stats.lines import alternative_lines, explain_lines
 from sitegen.stats.ols import OlsFit, bands
 from sitegen.stats.robust import hc3_cov
+from sitegen.table import to_float
 
 FloatArray = NDArray[np.float64]
 MAX_CHART_POINTS = 5000  # above this, charts draw a sample plus every flagged point, and a density
@@ -381,10 +382,31 @@ def _calibration(
     except (FitError, ValueError, ArithmeticError) as exc:  # e.g. overflow for responses near 1e308
         messages.append(Message("warning", f"inverse prediction could not be computed: {exc}"))
         return (), None
+    lo, hi = float(x.min()), float(x.max())
     cal = tuple(
-        Calibration(c.response, c.readings, c.estimate, c.std_error, c.ci_low, c.ci_high, c.method, c.bounded)
+        Calibration(
+            c.response,
+            c.readings,
+            c.estimate,
+            c.std_error,
+            c.ci_low,
+            c.ci_high,
+            c.method,
+            c.bounded,
+            extrapolated=math.isfinite(c.estimate) and not lo <= c.estimate <= hi,
+        )
         for c in found
     )
+    beyond = [c for c in cal if c.extrapolated]
+    if beyond:
+        listed = ", ".join(f"{c.response:g} → {c.estimate:.4g}" for c in beyond[:5])
+        messages.append(
+            Message(
+                "warning",
+                f"extrapolation: {len(beyond)} inverse prediction(s) lie outside the range of {x_col} in the data "
+                f"({lo:g} to {hi:g}): {listed}; the line is not known to hold there",
+            )
+        )
     if any(not c.bounded for c in cal):
         messages.append(
             Message(
@@ -448,6 +470,17 @@ def _predictions(design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[
     if not rows:
         return ()
     b = bands(fit, X_new)
+    ranges = _ranges(design, names)
+    outside = [_outside(row, ranges) for row in rows]
+    beyond = [text for found in outside for text in found]
+    if beyond:
+        messages.append(
+            Message(
+                "warning",
+                f"extrapolation: {len(beyond)} predict_at value(s) lie outside the range of the data: "
+                f"{'; '.join(beyond[:5])}; the line is not known to hold there",
+            )
+        )
     return tuple(
         Prediction(
             tuple(sorted((k, float(v)) for k, v in row.items())),
@@ -457,9 +490,33 @@ def _predictions(design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[
             float(b.mean_high[i]),
             float(b.pred_low[i]),
             float(b.pred_high[i]),
+            extrapolated=bool(outside[i]),
         )
         for i, row in enumerate(rows)
     )
+
+
+def _ranges(design: Design, names: list[str]) -> dict[str, tuple[float, float]]:
+    """(lowest, highest) of each numeric column named, over the rows fitted."""
+    out: dict[str, tuple[float, float]] = {}
+    for name in names:
+        if name in design.data:
+            values = to_float(design.data[name])[0]
+            values = values[np.isfinite(values)]
+            if values.size:
+                out[name] = (float(values.min()), float(values.max()))
+    return out
+
+
+def _outside(row: dict[str, Any], ranges: dict[str, tuple[float, float]]) -> list[str]:
+    """The values of one predict_at entry outside the data's range, described."""
+    found = []
+    for name, value in row.items():
+        if name in ranges and isinstance(value, int | float) and not isinstance(value, bool):
+            lo, hi = ranges[name]
+            if not lo <= float(value) <= hi:
+                found.append(f"{name} = {float(value):g} (data {lo:g} to {hi:g})")
+    return found
 
 
 def _groups(

@@ -4,7 +4,9 @@ A dataset is ``NAME.csv`` with an optional sidecar ``NAME.toml`` beside it. Hidd
 files and folders (names starting with ``.``) are skipped, and so is whatever
 site.toml's ``ignore`` list matches (see :func:`ignored`). Sub-folders become
 sections of the site. Symbolic links to folders are not followed (a link loop
-must never hang a build); links to files are read like files.
+must never hang a build); links to files are read like files when they lead to a
+file inside the data folder, and refused (an error page for that dataset, see
+``confine.py``) when they lead outside it.
 """
 
 from __future__ import annotations
@@ -28,6 +30,7 @@ class DatasetSource:
     csv_path: Path
     sidecar_path: Path | None
     section: str  # POSIX path of the containing sub-folder ("" at the root)
+    root: Path | None = None  # the data folder: the CSV and sidecar are read only if they lie inside it
 
 
 _NON_SLUG = re.compile(r"[^a-z0-9]+")
@@ -134,6 +137,7 @@ def discover(data_dir: Path, ignore: Sequence[str] = ()) -> tuple[DatasetSource,
                 csv_path=csv_path,
                 sidecar_path=csv_path.with_name(csv_path.name[: -len(".csv")] + ".toml") if rel in sidecars else None,
                 section=section,
+                root=data_dir,
             )
         )
     return tuple(sources)

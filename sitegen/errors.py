@@ -18,7 +18,9 @@ exit codes.
     │   ├── DataLimitError           NAME.csv is over a configured size, row or column limit
     │   ├── FormulaError             the model formula is invalid or names missing columns
     │   └── FitError                 the data do not support the model (too few rows, singular design, …)
-    └── PackError                    a site cannot be packed into a zip or single file
+    ├── PackError                    a site cannot be packed into a zip or single file
+    └── OutsideFolderError           a file leads outside the folder it must stay in (confine.py); callers
+                                     re-raise it as their own kind (a dataset's, site.toml's, a theme's)
 """
 
 from __future__ import annotations
@@ -84,3 +86,7 @@ class FitError(DatasetError):
 
 class PackError(SitegenError):
     """A built site cannot be packed for sending."""
+
+
+class OutsideFolderError(SitegenError):
+    """A file leads outside the folder it must stay in (a link, a path to elsewhere), or is not a plain file."""

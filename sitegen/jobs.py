@@ -75,7 +75,9 @@ def fit_job(job: FitJob) -> FitDone:
         report = replace(report, messages=(Message("warning", text), *report.messages), status=status)
         result = replace(result, report=report)
     job.folder.mkdir(parents=True, exist_ok=True)
-    files = tuple(dataset_files(job.folder, result.report, result.observations, job.source, job.offer_source))
+    max_bytes = int(job.limits.max_megabytes * 1e6)
+    report, obs = result.report, result.observations
+    files = tuple(dataset_files(job.folder, report, obs, job.source, job.offer_source, max_bytes=max_bytes))
     page_files = write_page(job.page, result.report, files, job.folder / "index.html") if job.page else ()
     sha = file_sha256(job.folder / "fit.json")
     if result.report.status == "error":

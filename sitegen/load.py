@@ -32,6 +32,7 @@ from __future__ import annotations
 import codecs
 import csv
 import io
+import os
 import re
 import warnings
 from dataclasses import dataclass
@@ -40,7 +41,8 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from sitegen.errors import DataFileError, DataLimitError
+from sitegen.confine import OUTSIDE_HINT, open_inside
+from sitegen.errors import DataFileError, DataLimitError, OutsideFolderError
 from sitegen.spec import DatasetSpec, Limits
 from sitegen.table import NUMBER, Table, from_columns, from_frame, integer_kind
 
@@ -101,15 +103,19 @@ def _check_size(n_bytes: int, limits: Limits, name: str) -> None:
         )
 
 
-def read_source(path: Path, limits: Limits, name: str) -> bytes:
-    """Read a dataset's file, refusing one over the size limit before reading it.
+def read_source(path: Path, limits: Limits, name: str, root: Path | None = None) -> bytes:
+    """Read a dataset's file, refusing one over the size limit before reading it, and (given the data
+    folder ``root``) one that leads outside the data folder or is not a plain file, without reading it.
 
     ``OSError`` (the file vanished or cannot be opened) is left to the caller,
     which knows how to word it.
     """
-    _check_size(path.stat().st_size, limits, name)
-    with path.open("rb") as fh:
-        raw = fh.read(_max_bytes(limits) + 1)  # the file may have grown since it was measured
+    try:
+        with open_inside(path, root) as fh:
+            _check_size(os.fstat(fh.fileno()).st_size, limits, name)
+            raw = fh.read(_max_bytes(limits) + 1)  # the file may have grown since it was measured
+    except OutsideFolderError as exc:
+        raise DataFileError(f"{name} {exc.message}", hint=OUTSIDE_HINT) from None
     _check_size(len(raw), limits, name)
     return raw
 

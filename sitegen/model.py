@@ -198,6 +198,7 @@ class Calibration:
     ci_high: float
     method: str
     bounded: bool
+    extrapolated: bool = False  # the estimate lies outside the range of x in the data
 
 
 @dataclass(frozen=True, slots=True)
@@ -221,6 +222,7 @@ class Prediction:
     mean_ci_high: float
     pred_low: float
     pred_high: float
+    extrapolated: bool = False  # a predictor value lies outside its range in the data
 
 
 @dataclass(frozen=True, slots=True)

@@ -27,7 +27,7 @@ import re
 from collections.abc import Iterator
 from pathlib import Path
 
-from sitegen.errors import BuildLockedError, OutputFolderError, PackError
+from sitegen.errors import BuildLockedError, OutputFolderError, OutsideFolderError, PackError
 
 MARKER = ".sitegen"
 MARKER_TEXT = "This folder was made by sitegen. Each build replaces it whole; do not keep other files here.\n"
@@ -115,7 +115,15 @@ def _acquire(lock: Path) -> int:
     names the file we locked (else another build replaced it and we try again).
     """
     for _ in range(20):
-        fd = os.open(lock, os.O_RDWR | os.O_CREAT, 0o644)
+        try:  # never through a link: a link in the lock's place could make the build create or lock another file
+            fd = os.open(lock, os.O_RDWR | os.O_CREAT | os.O_NOFOLLOW | os.O_CLOEXEC, 0o644)
+        except OSError as exc:
+            if not lock.is_symlink():
+                raise
+            raise BuildLockedError(
+                f"the build lock {lock} is a symbolic link; sitegen does not follow it",
+                hint="remove the link (no sitegen build makes one) and build again",
+            ) from exc
         try:
             fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
         except BlockingIOError:
@@ -156,7 +164,7 @@ def build_folder(out_dir: Path) -> Iterator[Path]:
         if work.is_symlink() or (work.exists() and not work.is_dir()):
             work.unlink()
         work.mkdir(exist_ok=True)
-        (work / _OWNER).write_text(str(os.getpid()), encoding="utf-8")
+        write_new(work / _OWNER, str(os.getpid()))  # a new file: never written through a link left there
         yield work
     finally:
         with contextlib.suppress(OSError):
@@ -218,8 +226,18 @@ def swap_in(site: Path, out_dir: Path) -> None:
 
 
 def site_files(site: Path) -> list[Path]:
-    """Every file of a built site in sorted order, without sitegen's own marker."""
-    return sorted(p for p in site.rglob("*") if p.is_file() and p.name != MARKER)
+    """Every file of a built site in sorted order, without sitegen's own marker; a link that leads outside
+    the site (or to a folder) is never followed."""
+    from sitegen.confine import outside_reason  # noqa: PLC0415
+
+    found: list[Path] = []
+    for dirpath, dirnames, filenames in os.walk(site, followlinks=False):
+        dirnames.sort()
+        for name in filenames:
+            path = Path(dirpath) / name
+            if name != MARKER and outside_reason(path, site, "site folder") is None and path.is_file():
+                found.append(path)
+    return sorted(found)
 
 
 def folder_name(site: Path) -> str:
@@ -249,6 +267,8 @@ def pack(site: Path, target: Path) -> int:
         raise PackError("the zip file cannot be written inside the site it packs")
     import zipfile  # noqa: PLC0415 - only pack needs it
 
+    from sitegen.confine import read_inside  # noqa: PLC0415
+
     top = folder_name(site)
     tmp = target.with_name(f".{target.name}.partial")
     try:
@@ -258,8 +278,12 @@ def pack(site: Path, target: Path) -> int:
                 info = zipfile.ZipInfo(f"{top}/{rel}", date_time=(2000, 1, 1, 0, 0, 0))
                 info.compress_type = zipfile.ZIP_DEFLATED
                 info.external_attr = 0o644 << 16
-                zf.writestr(info, path.read_bytes(), compresslevel=9)  # a ZipInfo does not take the archive's
+                data = read_inside(path, site, where="site folder")  # checked again as it is opened
+                zf.writestr(info, data, compresslevel=9)  # a ZipInfo does not take the archive's
         tmp.replace(target)
+    except OutsideFolderError as exc:
+        tmp.unlink(missing_ok=True)
+        raise PackError(f"a file of {site} {exc.message}", hint="build the site again") from None
     except OSError as exc:
         tmp.unlink(missing_ok=True)
         raise PackError(f"cannot write {target}: {exc.strerror or exc}") from exc

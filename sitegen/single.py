@@ -14,8 +14,10 @@ import json
 import re
 from pathlib import Path
 
-from sitegen.errors import PackError
+from sitegen.confine import read_inside
+from sitegen.errors import OutsideFolderError, PackError
 from sitegen.publish import MARKER
+from sitegen.report.policy import meta, single_file_policy
 
 MAX_DATASETS = 40  # beyond this a single page is too long to read; send the zip
 
@@ -57,9 +59,19 @@ def _demoted(html: str) -> str:
     return _HEADING.sub(lambda m: f"<{m.group(1)}h{int(m.group(2)) + 1}", html)
 
 
+def _read(site: Path, rel: str) -> str:
+    """A file of the site as text; a file that leads outside the site (a link put into it) is refused."""
+    try:
+        return read_inside(site / rel, site, where="site folder").decode("utf-8")
+    except OutsideFolderError as exc:
+        raise PackError(f"{rel} in {site} {exc.message}", hint="build the site again") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise PackError(f"{rel} in {site} cannot be read: {exc}", hint="build the site again") from exc
+
+
 def _dataset_slugs(site: Path) -> list[str]:
     try:
-        body = json.loads((site / "build.json").read_text(encoding="utf-8"))
+        body = json.loads(_read(site, "build.json"))
         return [str(e["dataset"]) for e in body["datasets"]]
     except (OSError, ValueError, KeyError, TypeError) as exc:
         raise PackError(f"{site} has no readable build.json", hint="build the site again") from exc
@@ -75,7 +87,7 @@ def single_file(site: Path) -> str:
             f"{site} has {len(slugs)} datasets, too many for one readable page (at most {MAX_DATASETS})",
             hint="send the site as a zip instead: sitegen pack SITE -o site.zip",
         )
-    index = (site / "index.html").read_text(encoding="utf-8")
+    index = _read(site, "index.html")
     found = _MAIN.search(index)
     title = re.search(r"<title>(.*?)</title>", index, re.S)
     theme = _CHART_THEME.search(index)
@@ -83,7 +95,7 @@ def single_file(site: Path) -> str:
         raise PackError("the site's pages do not have the structure a single file needs", hint="use the zip")
     parts = [_internal_links(_SECTION_DOWN.sub("", found.group(1)))]
     for slug in slugs:
-        page = (site / "datasets" / slug / "index.html").read_text(encoding="utf-8")
+        page = _read(site, f"datasets/{slug}/index.html")
         article = _ARTICLE.search(page)
         if article is None:
             raise PackError(f"the page of {slug} does not have the structure a single file needs")
@@ -93,25 +105,26 @@ def single_file(site: Path) -> str:
             f'<article class="dataset" id="ds-{slug}" data-chart-scope="{slug}">{body}'
             '<p class="back"><a href="#top">Back to the list of datasets</a></p></article>'
         )
-    css = (site / "assets" / "style.css").read_text(encoding="utf-8")
-    js = (site / "assets" / "site.js").read_text(encoding="utf-8")
-    built = site / "assets" / "built.js"  # the build time shown on each page
-    if built.is_file():
-        js = built.read_text(encoding="utf-8") + "\n" + js
-    bundle = (site / "assets" / "vendor" / "vega-bundle.js").read_text(encoding="utf-8")
+    css = _read(site, "assets/style.css")
+    js = _read(site, "assets/site.js")
+    bundle = _read(site, "assets/vendor/vega-bundle.js")
+    if (site / "assets" / "built.js").is_file():  # the build time shown on each page
+        js = _read(site, "assets/built.js") + "\n" + js
     safe_css = css.replace("</style", "<\\/style")
     footer = re.search(r'<footer class="wrap footer">.*?</footer>', index, re.S)
     foot = _internal_links(footer.group(0)) if footer else ""
+    scripts = [_script_text(bundle), _script_text(js)]
+    policy = meta(single_file_policy(scripts))  # its own two scripts, by hash; nothing from anywhere
     return (
-        '<!DOCTYPE html>\n<html lang="en">\n<head>\n<meta charset="utf-8">\n'
+        f'<!DOCTYPE html>\n<html lang="en">\n<head>\n<meta charset="utf-8">\n{policy}'
         '<meta name="viewport" content="width=device-width, initial-scale=1">\n'
         f"<title>{title.group(1)}</title>\n<style>\n{safe_css}\n</style>\n</head>\n"
         f'<body id="top">\n<main id="main" class="wrap single">\n'
         '<p class="note">This single file holds the whole report; '
         "the downloads named in it are in the full site.</p>\n"
         + "\n".join(parts)
-        + f"\n</main>\n{foot}\n{theme.group(0)}\n<script>{_script_text(bundle)}</script>\n"
-        f"<script>{_script_text(js)}</script>\n</body>\n</html>\n"
+        + f"\n</main>\n{foot}\n{theme.group(0)}\n<script>{scripts[0]}</script>\n"
+        f"<script>{scripts[1]}</script>\n</body>\n</html>\n"
     )
 
 

@@ -9,12 +9,14 @@ boundary for TOML) into :class:`~sitegen.errors.SidecarError` or
 from __future__ import annotations
 
 import math
+import os
 from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field, fields
 from pathlib import Path
 from typing import Any
 
-from sitegen.errors import SidecarError, SiteConfigError
+from sitegen.confine import read_inside
+from sitegen.errors import OutsideFolderError, SidecarError, SiteConfigError
 
 LINE_CHOICES = ("reverse", "orthogonal", "deming", "geometric_mean", "passing_bablok")
 PURPOSES = ("relation", "comparison", "calibration")
@@ -419,10 +421,13 @@ def _toml_hint(exc: ValueError) -> str | None:
     return _TOML_HINT if isinstance(exc.__cause__, tomllib.TOMLDecodeError) else None
 
 
-def _read_toml(path: Path) -> dict[str, Any]:
-    """Parse a TOML file; raises ``ValueError`` with a readable message."""
+def _read_toml(path: Path, root: Path | None = None) -> dict[str, Any]:
+    """Parse a TOML file (refused unread when it leads outside ``root``); raises ``ValueError`` with a readable
+    message."""
     try:
-        raw = path.read_bytes()
+        raw = read_inside(path, root)
+    except OutsideFolderError as exc:
+        raise ValueError(exc.message) from None
     except OSError as exc:
         raise ValueError(f"cannot be read: {exc.strerror or exc}") from exc
     try:
@@ -460,13 +465,14 @@ def _show(value: object) -> str:
     return text if len(text) <= 60 else text[:57] + "..."
 
 
-def read_sidecar(path: Path | None, defaults: Mapping[str, Any], display: str) -> DatasetSpec:
-    """Merge a sidecar over the site's validated defaults into a :class:`DatasetSpec`."""
+def read_sidecar(path: Path | None, defaults: Mapping[str, Any], display: str, root: Path | None = None) -> DatasetSpec:
+    """Merge a sidecar over the site's validated defaults into a :class:`DatasetSpec`; a sidecar that leads
+    outside the data folder ``root`` is refused unread."""
     values = dict(defaults)
     unknown: list[tuple[str, str | None]] = []
     if path is not None:
         try:
-            table = _read_toml(path)
+            table = _read_toml(path, root)
         except ValueError as exc:
             raise SidecarError(f"{display} {exc}", hint=_toml_hint(exc)) from exc
         clean, unknown = validate_keys(table, display)
@@ -525,12 +531,13 @@ def _site_error(msg: str) -> SiteConfigError:
     return SiteConfigError(f"site.toml: {msg}")
 
 
-def read_site_config(path: Path) -> tuple[SiteConfig, list[str]]:
-    """Read ``site.toml`` (absent → defaults). Returns the config and warnings."""
-    if not path.is_file():
+def read_site_config(path: Path, root: Path | None = None) -> tuple[SiteConfig, list[str]]:
+    """Read ``site.toml`` (absent → defaults; leading outside the data folder ``root`` → refused unread).
+    Returns the config and warnings."""
+    if not os.path.lexists(path):
         return SiteConfig(), []
     try:
-        table = _read_toml(path)
+        table = _read_toml(path, root)
     except ValueError as exc:
         raise SiteConfigError(f"site.toml {exc}", hint=_toml_hint(exc)) from exc
     warnings: list[str] = []

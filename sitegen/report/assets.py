@@ -14,7 +14,9 @@ import sys
 from pathlib import Path
 
 from sitegen.cache import cache_dir
-from sitegen.publish import copy_new, write_new
+from sitegen.confine import files_inside, read_inside
+from sitegen.errors import OutsideFolderError
+from sitegen.publish import write_new
 from sitegen.report.theme import Theme
 
 BUNDLE = "assets/vendor/vega-bundle.js"
@@ -132,11 +134,13 @@ def write_static(out: Path, theme: Theme) -> list[str]:
     dest.mkdir(parents=True, exist_ok=True)
     written = []
     for folder in reversed(theme.static_dirs):
-        for path in sorted(folder.rglob("*")):
-            if path.is_file() and not path.name.startswith("."):
-                rel = path.relative_to(folder)
-                target = dest / rel
-                target.parent.mkdir(parents=True, exist_ok=True)
-                copy_new(path, target)
-                written.append(f"assets/{rel.as_posix()}")
-    return written
+        for rel, path in files_inside(folder):  # a link out of the theme folder is never followed
+            try:
+                data = read_inside(path, folder, where="theme folder")
+            except OutsideFolderError:
+                continue
+            target = dest / rel
+            target.parent.mkdir(parents=True, exist_ok=True)
+            write_new(target, data)
+            written.append(f"assets/{rel}")
+    return sorted(set(written))

@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import shutil
 from collections.abc import Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -12,7 +11,10 @@ import numpy as np
 if TYPE_CHECKING:
     from sitegen.derive import Observations
 
+from sitegen.confine import read_inside
+from sitegen.digest import sha256_hex
 from sitegen.discover import DatasetSource
+from sitegen.errors import OutsideFolderError
 from sitegen.jsontext import json_text
 from sitegen.model import FitReport, to_json
 from sitegen.report import variation
@@ -304,18 +306,37 @@ def about_rows(r: FitReport) -> list[list[Any]]:
     return rows
 
 
+def _source_copy(src: DatasetSource, r: FitReport, max_bytes: int | None) -> bytes | None:
+    """The CSV's bytes to offer for download: only a file that was read for fitting (inside the data folder,
+    within the size limit) and still holds the bytes that were fitted."""
+    if not r.input_sha256:  # refused unread: outside the data folder, over the size limit, not a plain file
+        return None
+    try:
+        raw = read_inside(src.csv_path, src.root, max_bytes)
+    except (OSError, OutsideFolderError):
+        return None
+    return raw if sha256_hex(raw) == r.input_sha256 else None
+
+
 def dataset_files(
-    folder: Path, r: FitReport, obs: Observations | None, src: DatasetSource, offer_source: bool
+    folder: Path,
+    r: FitReport,
+    obs: Observations | None,
+    src: DatasetSource,
+    offer_source: bool,
+    *,
+    max_bytes: int | None = None,
 ) -> list[str]:
     """Write a dataset's downloads into its folder; returns their names."""
     files = ["fit.json"]
     (folder / "fit.json").write_text(to_json(r), encoding="utf-8")
-    if offer_source:
+    raw = _source_copy(src, r, max_bytes) if offer_source else None
+    if raw is not None:
         # Named by slug: the original name may hold '#', '?' or bytes that are not UTF-8, which
         # would break the link on the page (the page shows the original name as the link text).
         name = f"source-{src.slug}.csv"
         try:
-            shutil.copyfile(src.csv_path, folder / name)
+            (folder / name).write_bytes(raw)
             files.append(name)
         except OSError:
             pass
@@ -344,12 +365,22 @@ def dataset_files(
         )
         files.append(_table(folder, "lines", cols, [[getattr(ln, c) for c in cols] for ln in r.lines], book))
     if r.calibration:
-        cal_cols = ("response", "estimate", "std_error", "ci_low", "ci_high", "readings", "method", "bounded")
+        cal_cols = (
+            "response",
+            "estimate",
+            "std_error",
+            "ci_low",
+            "ci_high",
+            "readings",
+            "method",
+            "bounded",
+            "extrapolated",
+        )
         cal_rows = [[getattr(c, k) for k in cal_cols] for c in r.calibration]
         files.append(_table(folder, "calibration", cal_cols, cal_rows, book))
     if r.predictions:
         names = sorted({k for p in r.predictions for k, _ in p.at})
-        pred_cols = ("fitted", "std_error", "mean_ci_low", "mean_ci_high", "pred_low", "pred_high")
+        pred_cols = ("fitted", "std_error", "mean_ci_low", "mean_ci_high", "pred_low", "pred_high", "extrapolated")
         rows = [[dict(p.at).get(n) for n in names] + [getattr(p, c) for c in pred_cols] for p in r.predictions]
         files.append(_table(folder, "predictions", (*names, *pred_cols), rows, book))
     files += _purpose_tables(folder, r, book)

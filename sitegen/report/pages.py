@@ -3,17 +3,24 @@
 from __future__ import annotations
 
 import json
+import os
 import re
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from functools import cache
+from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import jinja2
+import jinja2.runtime
+from jinja2.exceptions import SecurityError
+from jinja2.loaders import split_template_path
+from jinja2.sandbox import SandboxedEnvironment
 from markupsafe import Markup
 
 from sitegen import __version__
-from sitegen.errors import SiteConfigError
+from sitegen.confine import files_inside, read_inside
+from sitegen.errors import OutsideFolderError, SiteConfigError
 from sitegen.model import FitReport
 from sitegen.report import charts, fmt, variation
 from sitegen.report.theme import Theme
@@ -29,6 +36,7 @@ _SAFE_SCHEMES = ("http:", "https:", "mailto:", "#", "/", "./", "../")
 def _markdown() -> MarkdownIt:
     """The Markdown renderer, made on first use (most pages have no description to render)."""
     from markdown_it import MarkdownIt  # noqa: PLC0415
+    from markdown_it.common.utils import escapeHtml  # noqa: PLC0415
 
     md = MarkdownIt("commonmark", {"html": False, "linkify": False, "typographer": False})
     default_validate = md.validateLink
@@ -40,6 +48,16 @@ def _markdown() -> MarkdownIt:
         return default_validate(url) and (not has_scheme or u.startswith(_SAFE_SCHEMES))
 
     md.validateLink = validate  # type: ignore[method-assign]
+
+    def image_as_link(_renderer: Any, tokens: Any, idx: int, *_: Any) -> str:
+        # A picture would make every reader's browser fetch it (from anywhere): it becomes a plain link.
+        token = tokens[idx]
+        src = str(token.attrs.get("src", ""))
+        alt = str(token.content or src)
+        text = escapeHtml(f"image: {alt}")
+        return f'<a href="{escapeHtml(src)}" class="image-link">{text}</a>' if src else text
+
+    md.add_render_rule("image", image_as_link)
     return md
 
 
@@ -67,11 +85,15 @@ def _show_char(value: str) -> str:
     return {"\t": "tab", ",": ",", ";": ";", "|": "|"}.get(value, value)
 
 
-def _bytecode_cache() -> jinja2.BytecodeCache | None:
-    """Compiled templates kept in the user's cache folder (keyed by template source), if it is writable."""
+def _bytecode_cache(sandboxed: bool) -> jinja2.BytecodeCache | None:
+    """Compiled templates kept in the user's cache folder (keyed by template source), if it is writable.
+
+    Sandboxed code differs from plain code (every call and attribute goes through the sandbox) while the
+    cache's key does not say which it is, so the two are kept in different folders.
+    """
     from sitegen.cache import cache_dir  # noqa: PLC0415
 
-    folder = cache_dir() / "templates"
+    folder = cache_dir() / ("templates-sandboxed" if sandboxed else "templates")
     try:
         folder.mkdir(parents=True, exist_ok=True)
     except OSError:
@@ -79,12 +101,109 @@ def _bytecode_cache() -> jinja2.BytecodeCache | None:
     return jinja2.FileSystemBytecodeCache(str(folder))
 
 
+class _ThemeLoader(jinja2.BaseLoader):
+    """Templates from the theme's folders, most specific first. A template file that leads outside its theme
+    folder (a link to elsewhere) or is not a plain file is refused, never read."""
+
+    def __init__(self, folders: tuple[Path, ...]) -> None:
+        self.folders = folders
+
+    def get_source(
+        self,
+        environment: jinja2.Environment,  # noqa: ARG002 - Jinja2's signature
+        template: str,
+    ) -> tuple[str, str, Callable[[], bool]]:
+        pieces = split_template_path(template)  # refuses ".." and absolute names
+        for folder in self.folders:
+            path = folder.joinpath(*pieces)
+            if not os.path.lexists(path):
+                continue
+            try:
+                text = read_inside(path, folder, where="theme folder").decode("utf-8")
+                mtime = path.stat().st_mtime_ns
+            except OutsideFolderError as exc:
+                raise SiteConfigError(f"theme template {template} {exc.message}", hint=_THEME_HINT) from None
+            except UnicodeDecodeError as exc:
+                raise SiteConfigError(f"theme template {template} is not UTF-8 text", hint=_THEME_HINT) from exc
+            except OSError as exc:
+                raise SiteConfigError(f"theme template {template} cannot be read: {exc.strerror or exc}") from exc
+
+            def uptodate(path: Path = path, mtime: int = mtime) -> bool:
+                try:
+                    return path.stat().st_mtime_ns == mtime
+                except OSError:
+                    return False
+
+            return text, str(path), uptodate
+        raise jinja2.TemplateNotFound(template)
+
+    def list_templates(self) -> list[str]:
+        return sorted({rel for folder in self.folders for rel, _ in files_inside(folder)})
+
+
+#: Bounds on what a sandboxed template's arithmetic may make (a user theme must not exhaust the build's memory).
+_MAX_POWER_BITS = 4096
+_MAX_REPEAT = 1_000_000
+
+
+class _Sandbox(SandboxedEnvironment):
+    """Jinja2's sandbox, with ``**`` and ``*`` bounded so that a template cannot build huge numbers or strings."""
+
+    intercepted_binops = frozenset({"**", "*"})
+
+    def call_binop(
+        self,
+        context: jinja2.runtime.Context,  # noqa: ARG002 - Jinja2's signature
+        operator: str,
+        left: Any,
+        right: Any,
+    ) -> Any:
+        if operator == "**":
+            big = isinstance(left, int) and isinstance(right, int) and right > 0 and abs(left) > 1
+            if big and right * abs(left).bit_length() > _MAX_POWER_BITS:
+                raise SecurityError("a power this large is not allowed in a theme template")
+            return left**right
+        if isinstance(left, int) and isinstance(right, str | list | tuple):
+            left, right = right, left
+        if isinstance(left, str | list | tuple) and isinstance(right, int) and len(left) * right > _MAX_REPEAT:
+            raise SecurityError("repeating text or a list this many times is not allowed in a theme template")
+        return left * right
+
+
+_THEME_HINT = "fix the theme's template, or remove it to use the default theme's"
+
+
+def check_theme(theme: Theme) -> None:
+    """Compile every template of a user theme, so that a syntax error stops the build before anything is
+    written (:class:`SiteConfigError` naming the template and line)."""
+    env = environment(theme)
+    loader = env.loader
+    if loader is None:
+        return
+    for name in loader.list_templates():
+        if name.endswith((".html", ".htm", ".xml", ".txt", ".j2", ".jinja")):
+            try:
+                env.get_template(name)
+            except jinja2.TemplateSyntaxError as exc:
+                raise _syntax_error(exc, name) from exc
+
+
+def _syntax_error(exc: jinja2.TemplateSyntaxError, name: str) -> SiteConfigError:
+    where = f"{exc.name or name}, line {exc.lineno}"
+    return SiteConfigError(f"theme template {where}: {exc.message}", hint="fix the template")
+
+
 @cache
 def environment(theme: Theme) -> jinja2.Environment:
-    """The Jinja2 environment of a theme (user templates first, default after)."""
-    env = jinja2.Environment(
-        loader=jinja2.FileSystemLoader([str(d) for d in theme.template_dirs]),
-        bytecode_cache=_bytecode_cache(),
+    """The Jinja2 environment of a theme (user templates first, default after).
+
+    A theme with templates of the user's own renders in Jinja2's sandbox (no access to Python internals,
+    bounded arithmetic); the default theme's templates are ours and render without it.
+    """
+    sandboxed = theme.sandboxed
+    env = (_Sandbox if sandboxed else jinja2.Environment)(
+        loader=_ThemeLoader(theme.template_dirs),
+        bytecode_cache=_bytecode_cache(sandboxed),
         autoescape=True,
         undefined=jinja2.StrictUndefined,
         trim_blocks=True,
@@ -362,15 +481,43 @@ def render_page(ctx: SiteContext, template: str, page: str, **values: Any) -> st
     return _render(environment(ctx.theme), template, **_common(ctx, "", page), **values)
 
 
+def _with_policy(html: str) -> str:
+    from sitegen.report.policy import with_policy  # noqa: PLC0415
+
+    return with_policy(html)
+
+
+def _template_line(exc: BaseException, env: jinja2.Environment) -> str:
+    """``name, line N`` of the innermost template frame of an error raised while rendering (Jinja2 rewrites
+    the traceback so that its frames name the template file and line)."""
+    import traceback  # noqa: PLC0415 - only a failing template needs it
+
+    loader = env.loader
+    folders = loader.folders if isinstance(loader, _ThemeLoader) else ()
+    found = ""
+    for frame in traceback.extract_tb(exc.__traceback__):
+        for folder in folders:
+            if frame.filename.startswith(str(folder) + os.sep):
+                found = f"{Path(frame.filename).relative_to(folder).as_posix()}, line {frame.lineno}"
+    return found
+
+
 def _render(env: jinja2.Environment, name: str, **values: Any) -> str:
     """Render a theme template; Jinja's errors (a user theme's typo) become a message naming file and line."""
     try:
-        return env.get_template(name).render(**values)
+        return _with_policy(env.get_template(name).render(**values))
     except jinja2.TemplateSyntaxError as exc:
-        where = f"{exc.filename or exc.name or name}, line {exc.lineno}"
-        raise SiteConfigError(f"theme template {where}: {exc.message}", hint="fix the template") from exc
+        raise _syntax_error(exc, name) from exc
     except jinja2.TemplateError as exc:
+        where = _template_line(exc, env) or f"{name} (or a template it uses)"
         raise SiteConfigError(
-            f"theme template {name} (or a template it uses) cannot be rendered: {exc.message}",
+            f"theme template {where} cannot be rendered: {exc.message}",
             hint="check the names the template uses against the default theme's templates",
+        ) from exc
+    except (ArithmeticError, LookupError, TypeError, ValueError, AttributeError, RecursionError) as exc:
+        if not isinstance(env, SandboxedEnvironment):
+            raise  # the default theme's own templates: a bug of ours, reported as one
+        where = _template_line(exc, env) or f"{name} (or a template it uses)"
+        raise SiteConfigError(
+            f"theme template {where} cannot be rendered: {type(exc).__name__}: {exc}", hint=_THEME_HINT
         ) from exc

@@ -127,6 +127,14 @@
     target.appendChild(p);
   }
 
+  /* Chart expressions are evaluated by Vega's interpreter, not compiled to JavaScript: the pages' security
+     policy allows no evaluation of text as code. */
+  function embedOptions(config) {
+    var opts = { actions: false, renderer: "svg", config: config, ast: true };
+    if (window.vega && window.vega.expressionInterpreter) { opts.expr = window.vega.expressionInterpreter; }
+    return opts;
+  }
+
   function draw() {
     if (!charts.length) { return; }
     if (typeof window.vegaEmbed !== "function") {
@@ -142,7 +150,7 @@
     var cs = colours(name);
     charts.forEach(function (c) {
       if (c.view) { c.view.finalize(); c.view = null; }
-      window.vegaEmbed(c.target, fitFacet(kindColours(c.spec, cs), c.target), { actions: false, renderer: "svg", config: config })
+      window.vegaEmbed(c.target, fitFacet(kindColours(c.spec, cs), c.target), embedOptions(config))
         .then(function (res) {
           if (mine !== generation) { res.view.finalize(); return; }  /* a newer drawing has started */
           c.view = res.view;
