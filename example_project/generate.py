@@ -119,9 +119,12 @@ Six nitrate standards, each read three times in a 10 mm quartz cell against a
 reagent blank. The line converts a sample's absorbance into nitrate-nitrogen.
 
 Three river samples were read twice each; their mean absorbances are listed
-under `calibrate`, and the page gives each one's nitrate with an interval.
+under `calibrate`, and the page gives each one's nitrate with an interval. As a
+calibration, the page reads every standard back from the line and tests whether
+a straight line is enough.
 """
 tags = ["calibration", "nutrients"]
+purpose = "calibration"
 model = "absorbance ~ nitrate"
 units = { nitrate = "mg/L N", absorbance = "AU" }
 # Measured absorbances to turn back into nitrate (inverse prediction).
@@ -135,6 +138,33 @@ requirements.min_r_squared = 0.995
 requirements.max_residual_sd = 0.01
 requirements.back_calculated_within_percent = 15
 requirements.lowest_within_percent = 20
+''',
+    )
+
+
+def iron_ferrozine() -> None:
+    """Standards over two decades whose scatter grows with the level: weighting matters here."""
+    rng = rng_for("calibration/iron_ferrozine")
+    iron = replicate([0.02, 0.05, 0.1, 0.2, 0.5, 1.0, 2.0], 3)
+    absorbance = (0.0015 + 0.412 * iron) * (1.0 + rng.normal(0.0, 0.035, iron.size)) + rng.normal(
+        0.0, 0.0004, iron.size
+    )
+    write_csv("calibration/iron_ferrozine.csv", [("iron", iron, 3), ("absorbance", absorbance, 4)])
+    write_text(
+        "calibration/iron_ferrozine.toml",
+        '''\
+title = "Iron by ferrozine at 562 nm: calibration with a chosen weighting"
+description = """
+Seven iron standards from 0.02 to 2 mg/L, each prepared and read three times in a
+50 mm cell. The scatter of the readings grows with the concentration, so an
+unweighted line reads the low standards back poorly; the page compares the
+weightings and uses the one that reads the standards back best.
+"""
+tags = ["calibration", "metals"]
+purpose = "calibration"
+model = "absorbance ~ iron"
+units = { iron = "mg/L Fe", absorbance = "AU" }
+weighting = "choose"
 ''',
     )
 
@@ -268,6 +298,46 @@ error_ratio = 1.5
 requirements.slope_interval_includes = 1
 requirements.intercept_interval_includes = 0
 requirements.max_bias = { at = [2.0, 5.0], limit = 0.3, limit_percent = 10 }
+''',
+    )
+
+
+def ammonium_analyser_vs_lab() -> None:
+    """An online analyser against the laboratory: proportional bias, one spoilt sample."""
+    rng = rng_for("field/ammonium_analyser_vs_lab")
+    n = 42
+    true = np.exp(rng.uniform(np.log(0.05), np.log(1.6), n))
+    lab = true * (1.0 + rng.normal(0.0, 0.03, n)) + rng.normal(0.0, 0.006, n)
+    analyser = 0.008 + 1.06 * true * (1.0 + rng.normal(0.0, 0.04, n)) + rng.normal(0.0, 0.008, n)
+    analyser[27] = lab[27] + 0.42  # a sample bottle left open: the analyser read it before it changed
+    samples = [f"A{i + 1:02d}" for i in range(n)]
+    write_csv(
+        "field/ammonium_analyser_vs_lab.csv",
+        [("sample", samples, None), ("lab", lab, 3), ("analyser", analyser, 3)],
+    )
+    write_text(
+        "field/ammonium_analyser_vs_lab.toml",
+        '''\
+title = "Ammonium: online analyser against the laboratory (method comparison)"
+description = """
+Forty-two grab samples of treated water, each read by the online ammonium
+analyser at the moment of sampling and by the laboratory's indophenol method the
+same day. The question is whether the analyser can replace the laboratory at the
+plant's action levels of 0.2 and 0.5 mg/L N.
+
+Sample A28 stood open before the laboratory read it; it is left in to show that
+the Passing–Bablok line barely moves for one outlying pair.
+"""
+tags = ["method-comparison", "nutrients"]
+purpose = "comparison"
+model = "analyser ~ lab"
+units = { lab = "mg/L N", analyser = "mg/L N" }
+# The plant's action levels: the bias of the analyser is estimated at each.
+decision_levels = [0.2, 0.5]
+# The differences grow with the level, so show them in percent as well.
+percent_differences = true
+lines = ["passing_bablok", "deming"]
+error_ratio = 1.5
 ''',
     )
 
@@ -543,10 +613,12 @@ def dosing_pump_draft() -> None:
 
 DATASETS = (
     nitrate_uv,
+    iron_ferrozine,
     phosphate_molybdenum_blue,
     free_chlorine_dpd,
     ammonium_fluorescence,
     nitrate_kit_vs_lab,
+    ammonium_analyser_vs_lab,
     turbidity_sensors,
     conductivity_probe_check,
     chlorine_kit_vs_lab,

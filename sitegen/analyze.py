@@ -295,7 +295,8 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
     if weights is not None and fit.df_resid > 0:
         report = replace(report, residual_sd_y=float(np.sqrt(np.sum(fit.resid**2) / fit.df_resid)))
     if spec.requirements is not None:
-        found = judge(report, spec.requirements, derive.acceptance_evidence(design, fit, spec, pieces.lines))
+        evidence = derive.acceptance_evidence(design, fit, spec, lines=report.lines, weighted=weights is not None)
+        found = judge(report, spec.requirements, evidence)
         report = replace(report, requirements=found)
     return DatasetResult(report, pieces.observations)
 

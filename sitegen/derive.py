@@ -31,10 +31,17 @@ from sitegen.model import (
     Message,
     Prediction,
 )
-from sitegen.purposes import CalibrationResults, ComparisonResults, calibration, comparison, passing_bablok_line
+from sitegen.purposes import (
+    CalibrationResults,
+    ComparisonResults,
+    calibration,
+    comparison,
+    comparison_bias,
+    passing_bablok_line,
+    plain_response,
+)
 from sitegen.requirements import Evidence
 from sitegen.spec import DatasetSpec
-from sitegen.stats.acceptance import BiasAt as BiasFigure
 from sitegen.stats.calibration import detection_limits, inverse_predict
 from sitegen.stats.checks import model_checks
 from sitegen.stats.claims import check_claims
@@ -208,7 +215,7 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
     predictions = _predictions(design, fit, spec, messages)
     groups = _groups(design, fit, spec, line_x, messages, weights=weights)
     chart = _chart(design, fit, infl, flags, spec)
-    compared = comparison(design, spec, line_x, lines, level=fit.level, messages=messages)
+    compared = comparison(design, spec, line_x, lines, level=fit.level, messages=messages, weighted=weighted)
     calibrated = CalibrationResults()
     if line_x is not None:
         beta = (float(fit.beta[0]), float(fit.beta[1]))
@@ -353,7 +360,7 @@ def _calibration(
 ) -> tuple[tuple[Calibration, ...], DetectionLimits | None]:
     if not spec.calibrate:
         return (), None
-    if x_col is None or weighted or design.response not in design.variables:
+    if x_col is None or weighted or not plain_response(design):
         messages.append(
             Message(
                 "warning",
@@ -720,12 +727,11 @@ def _observations(
     return Observations(tuple(cols), tuple(cols.values()))
 
 
-def acceptance_evidence(design: Design, fit: OlsFit, spec: DatasetSpec, lines: tuple[AltLine, ...] = ()) -> Evidence:
-    """Standards read back and bias at the ``max_bias`` levels, for the criteria that ask for them.
-
-    For a comparison (``purpose = "comparison"``) the bias comes from the line the page recommends (as the
-    bias at the decision levels does); otherwise from the fitted line, with the mean response's interval.
-    """
+def acceptance_evidence(
+    design: Design, fit: OlsFit, spec: DatasetSpec, *, lines: tuple[AltLine, ...] = (), weighted: bool = False
+) -> Evidence:
+    """Standards read back and bias at the ``max_bias`` levels, for the criteria that ask for them."""
+    from sitegen.stats.acceptance import BiasAt as AcceptedBias  # noqa: PLC0415
     from sitegen.stats.acceptance import bias_at, read_back  # noqa: PLC0415
 
     req = spec.requirements
@@ -747,38 +753,25 @@ def acceptance_evidence(design: Design, fit: OlsFit, spec: DatasetSpec, lines: t
             found = read_back(float(fit.beta[0]), float(fit.beta[1]), design.X[:, 1], design.y, design.rows)
     bias = None
     bias_reason = ""
+    bias_line = ""
     if req.max_bias is not None:
         if x_col is None or not plain_response:
             bias_reason = "the bias (fitted y − x) needs a one-predictor model of an untransformed response"
         else:
             at = np.asarray(req.max_bias.at, dtype=float)
-            try:
-                X_at = design_for(design, {x_col: at})
-            except DatasetError as exc:
-                X_at, bias_reason = None, f"the model cannot be evaluated at those levels ({exc})"
-            if X_at is not None:
-                bias = bias_at(fit, X_at, at)
-            if spec.purpose == "comparison":
-                bias, bias_reason, bias_line = _comparison_bias(design, fit, spec, lines)
-                return Evidence(found, found_reason, bias, bias_reason, x_range, bias_line)
-    return Evidence(found, found_reason, bias, bias_reason, x_range)
-
-
-def _comparison_bias(
-    design: Design, fit: OlsFit, spec: DatasetSpec, lines: tuple[AltLine, ...]
-) -> tuple[tuple[BiasFigure, ...] | None, str, str]:
-    from sitegen.purposes import paired_columns, recommended_line  # noqa: PLC0415
-    from sitegen.stats.bias import bias_at as line_bias  # noqa: PLC0415
-
-    req = spec.requirements
-    assert req is not None
-    assert req.max_bias is not None
-    pair = paired_columns(design, straight_line(design))
-    if pair is None:
-        return None, 'a comparison\'s bias needs a straight line of the test result on the reference ("y ~ x")', ""
-    method, _ = recommended_line(lines, spec.error_ratio)
-    try:
-        found = line_bias(*pair, req.max_bias.at, method=method, level=fit.level, error_ratio=spec.error_ratio)
-    except (FitError, ValueError, ArithmeticError) as exc:
-        return None, f"the bias could not be computed ({exc})", ""
-    return tuple(BiasFigure(b.at, b.estimate, b.ci_low, b.ci_high) for b in found), "", method
+            if spec.purpose == "comparison" and line_x is not None and not weighted:
+                # A comparison's bias comes from the line its page recommends, as in fit.json's "bias".
+                found_bias, bias_reason = comparison_bias(
+                    design, spec, line_x, lines, levels=tuple(at.tolist()), level=fit.level
+                )
+                if found_bias is not None:
+                    bias = tuple(AcceptedBias(b.at, b.estimate, b.ci_low, b.ci_high) for b in found_bias)
+                    bias_line = found_bias[0].line if found_bias else ""
+            else:
+                try:
+                    X_at = design_for(design, {x_col: at})
+                except DatasetError as exc:
+                    X_at, bias_reason = None, f"the model cannot be evaluated at those levels ({exc})"
+                if X_at is not None:
+                    bias = bias_at(fit, X_at, at)
+    return Evidence(found, found_reason, bias, bias_reason, x_range, bias_line)

@@ -10,6 +10,7 @@ page, never the end of the fit.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import asdict, dataclass
 
 import numpy as np
@@ -29,7 +30,7 @@ from sitegen.model import (
 from sitegen.spec import DatasetSpec
 from sitegen.stats.agreement import difference_analysis
 from sitegen.stats.bias import bias_at
-from sitegen.stats.passing_bablok import passing_bablok
+from sitegen.stats.passing_bablok import BOOTSTRAP_MAX_POINTS, passing_bablok
 from sitegen.stats.readback import choose_weighting, mandel_test, read_back, weights_for
 
 FloatArray = NDArray[np.float64]
@@ -70,9 +71,17 @@ class Weighting:
     reason: str = ""
 
 
+def plain_response(design: Design) -> bool:
+    """Whether the response is a data column as it is (``y`` or ``Q('kit result')``, not ``np.log(y)``)."""
+    if design.response in design.variables:
+        return True
+    quoted = re.fullmatch(r"""Q\((['"])(.*)\1\)""", design.response)
+    return quoted is not None and quoted.group(2) in design.variables
+
+
 def paired_columns(design: Design, line_x: str | None) -> tuple[FloatArray, FloatArray] | None:
     """x (reference / nominal) and y (test / response) of a plain ``y ~ x`` model, else None."""
-    if line_x is None or design.response not in design.variables:
+    if line_x is None or not plain_response(design):
         return None
     return np.asarray(design.X[:, 1], dtype=np.float64), np.asarray(design.y, dtype=np.float64)
 
@@ -102,20 +111,26 @@ def passing_bablok_line(x: FloatArray, y: FloatArray, level: float) -> AltLine:
     )
 
 
-def recommended_line(lines: tuple[AltLine, ...], error_ratio: float) -> tuple[str, str]:
+def recommended_line(lines: tuple[AltLine, ...], error_ratio: float, n: int) -> tuple[str, str]:
     """The line the bias is read from, and why (in words)."""
     pb = next((ln for ln in lines if ln.method == "passing_bablok"), None)
     pb_usable = pb is not None and pb.slope > 0.0 and math.isfinite(pb.slope_ci_low)
-    if pb is not None and pb_usable and pb.linear:
+    small = n <= BOOTSTRAP_MAX_POINTS
+    if pb is not None and pb_usable and pb.linear and small:
         return "passing_bablok", (
             "Passing–Bablok, because it allows measurement error in both methods, assumes no particular "
-            "error distribution and is not pulled by single outlying results."
+            "error distribution and is not pulled by single outlying results; its bias intervals are "
+            "percentile bootstrap intervals (1,000 resamples of the pairs, fixed seed)."
         )
     why_not = ""
     if pb is not None:
-        why_not = " Passing–Bablok was not used: " + (
-            "its cusum test finds the relation not linear." if pb_usable else f"{pb.note or 'no interval'}."
-        )
+        if not pb_usable:
+            why = f"{pb.note or 'no interval'}."
+        elif not pb.linear:
+            why = "its cusum test finds the relation not linear."
+        else:
+            why = f"its bootstrap bias interval is limited to {BOOTSTRAP_MAX_POINTS} pairs here."
+        why_not = " Passing–Bablok was not used: " + why
     dem = next((ln for ln in lines if ln.method in _DEMING_METHODS), None)
     if dem is not None:
         ratio = 1.0 if dem.method == "orthogonal" else error_ratio
@@ -141,11 +156,28 @@ def comparison(
     *,
     level: float,
     messages: list[Message],
+    weighted: bool = False,
 ) -> ComparisonResults:
-    """Difference analysis and bias at the decision levels (the latter for any purpose)."""
+    """Difference analysis and bias at the decision levels (the latter for any purpose).
+
+    A comparison's bias is also given at the levels of a ``max_bias`` requirement, so that fit.json's
+    ``bias`` holds every figure the requirement is judged on.
+    """
     wants_agreement = spec.purpose == "comparison"
-    if not wants_agreement and not spec.decision_levels:
+    levels = spec.decision_levels
+    if wants_agreement and spec.requirements is not None and spec.requirements.max_bias is not None:
+        levels = tuple(dict.fromkeys((*levels, *spec.requirements.max_bias.at)))
+    if not wants_agreement and not levels:
         return ComparisonResults()
+    if weighted and levels:
+        messages.append(
+            Message(
+                "warning",
+                "decision_levels: the bias is read from an unweighted line, so it is not given for this "
+                "weighted fit; remove the weights to see it",
+            )
+        )
+        levels = ()
     pair = paired_columns(design, line_x)
     if pair is None:
         messages.append(
@@ -175,11 +207,11 @@ def comparison(
                     "percent_differences = true may suit differences that grow in proportion.",
                 )
             )
-    method, reason = recommended_line(lines, spec.error_ratio)
+    method, reason = recommended_line(lines, spec.error_ratio, int(x.size))
     bias: tuple[BiasAt, ...] = ()
-    if spec.decision_levels:
+    if levels:
         try:
-            found = bias_at(x, y, spec.decision_levels, method=method, level=level, error_ratio=spec.error_ratio)
+            found = bias_at(x, y, levels, method=method, level=level, error_ratio=spec.error_ratio)
             bias = tuple(BiasAt(**asdict(b)) for b in found)
         except (FitError, ValueError, ArithmeticError) as exc:
             messages.append(Message("warning", f"the bias at the decision levels could not be computed: {exc}"))
@@ -187,8 +219,30 @@ def comparison(
     return ComparisonResults(agreement, agreement_percent, bias, method if bias else "", reason if bias else "", text)
 
 
+def comparison_bias(
+    design: Design,
+    spec: DatasetSpec,
+    line_x: str | None,
+    lines: tuple[AltLine, ...],
+    *,
+    levels: tuple[float, ...],
+    level: float,
+) -> tuple[tuple[BiasAt, ...] | None, str]:
+    """The bias at any levels from the line a comparison page recommends (for requirements), or why not."""
+    pair = paired_columns(design, line_x)
+    if pair is None:
+        return None, "the bias needs a straight-line model of the untransformed test result on the reference"
+    x, y = pair
+    method, _ = recommended_line(lines, spec.error_ratio, int(x.size))
+    try:
+        found = bias_at(x, y, levels, method=method, level=level, error_ratio=spec.error_ratio)
+    except (FitError, ValueError, ArithmeticError) as exc:
+        return None, f"the bias could not be computed: {exc}"
+    return tuple(BiasAt(**asdict(b)) for b in found), ""
+
+
 def _fmt(v: float) -> str:
-    return f"{v:.4g}"
+    return f"{v:.4g}".replace("-", "−")
 
 
 def conclusion(agreement: Agreement | None, bias: tuple[BiasAt, ...], lines: tuple[AltLine, ...], level: float) -> str:
@@ -223,15 +277,11 @@ def conclusion(agreement: Agreement | None, bias: tuple[BiasAt, ...], lines: tup
         shown = [b for b in bias if not (b.ci_low <= 0.0 <= b.ci_high) and math.isfinite(b.ci_low)]
         if clear:
             parts.append("At " + ", ".join(_fmt(b.at) for b in clear) + " the bias interval includes zero.")
-        if shown:
+        for b in shown:
+            pct = f" ({b.percent:+.3g} %)" if math.isfinite(b.percent) else ""
             parts.append(
-                "At "
-                + ", ".join(
-                    f"{_fmt(b.at)} the bias is {_fmt(b.estimate)}"
-                    + (f" ({b.percent:+.3g} %)" if math.isfinite(b.percent) else "")
-                    for b in shown
-                )
-                + ", and its interval excludes zero."
+                f"At {_fmt(b.at)} the bias is {_fmt(b.estimate)}{pct}, interval {_fmt(b.ci_low)} to "
+                f"{_fmt(b.ci_high)}: it excludes zero."
             )
     parts.append(
         "Whether the methods can be used interchangeably depends on the bias and spread you can accept at "

@@ -267,8 +267,8 @@ def test_every_contract_path_exists(any_build: Built) -> None:
 def test_example_has_one_dataset_per_csv(example_build: Built) -> None:
     every = sorted(p.relative_to(example_build.data).as_posix() for p in example_build.data.rglob("*.csv"))
     csvs = [c for c in every if not c.endswith(".draft.csv")]  # the example's site.toml ignores drafts
-    assert len(every) == 14
-    assert len(csvs) == 13
+    assert len(every) == 16
+    assert len(csvs) == 15
     assert dataset_dirs(example_build.site) == sorted(contract_slugs(csvs).values())
 
 

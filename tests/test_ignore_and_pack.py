@@ -85,7 +85,7 @@ def test_ignored_files_stay_off_the_example_site(example_build: object) -> None:
     site = example_build.site  # type: ignore[attr-defined]
     summary = json.loads((site / "summary.json").read_text(encoding="utf-8"))
     rows = summary if isinstance(summary, list) else summary["datasets"]
-    assert len(rows) == 13
+    assert len(rows) == 15
     assert not (site / "datasets" / "operations-dosing-pump-draft").exists()
     assert (example_build.data / "operations" / "dosing_pump.draft.csv").is_file()  # type: ignore[attr-defined]
 

@@ -200,3 +200,42 @@ def test_purpose_in_defaults_and_parts_skipped_with_a_reason(tmp_path: Path) -> 
     assert "comparison parts were skipped" in json.dumps(b["messages"])
     c = _fit_json(tmp_path / "site", "c")
     assert c["status"] in ("ok", "warn")
+
+
+def test_max_bias_requirement_is_judged_on_the_pages_bias(tmp_path: Path) -> None:
+    data = _comparison_folder(tmp_path)
+    (data / "kit.toml").write_text(
+        'purpose = "comparison"\nmodel = "kit ~ lab"\ndecision_levels = [1.0]\n'
+        "[requirements]\nmax_bias = { at = [1.0, 8.0], limit_percent = 10 }\n",
+        encoding="utf-8",
+    )
+    result = cli("build", data, "-o", tmp_path / "site")
+    assert "Traceback" not in result.output
+    fit = _fit_json(tmp_path / "site", "kit")
+    bias = fit["bias"]
+    assert isinstance(bias, list)
+    assert [b["at"] for b in bias] == [1.0, 8.0]  # the requirement's levels join the decision levels
+    assert {b["line"] for b in bias} == {"passing_bablok"}
+    requirements = fit["requirements"]
+    assert isinstance(requirements, list)
+    judged = [r for r in requirements if r["name"] == "max_bias"]
+    assert len(judged) == 2
+    for r, b in zip(judged, bias, strict=True):
+        assert r["value"] == pytest.approx(b["estimate"], rel=1e-12)
+
+
+def test_assumed_model_with_quoted_column_names_is_compared(tmp_path: Path) -> None:
+    # Without a sidecar model the columns are quoted (Q('Kit result')): still a plain response.
+    data = tmp_path / "data"
+    write_csv(data / "q.csv", [("Lab result", "Kit result"), *zip(LAB.tolist(), KIT.tolist(), strict=True)])
+    write_toml(data / "q.toml", {"purpose": "comparison", "decision_levels": [2.0], "calibrate": [3.0]})
+    assert cli("build", data, "-o", tmp_path / "site").code == 0
+    fit = _fit_json(tmp_path / "site", "q")
+    assert fit["model"] == "Q('Kit result') ~ Q('Lab result')"
+    agreement = fit["agreement"]
+    assert isinstance(agreement, dict)
+    assert agreement["mean_difference"] == pytest.approx((KIT - LAB).mean(), rel=1e-12)
+    assert isinstance(fit["bias"], list)
+    assert len(fit["bias"]) == 1
+    assert isinstance(fit["calibration"], list)
+    assert len(fit["calibration"]) == 1

@@ -106,7 +106,7 @@ def test_unchanged_example_reuses_everything(example_build: Built, tmp_path: Pat
     before = site_bytes(site, skip=("build.json",))
     assert build(example_build.data, site) == 0
     assert all(reused(site).values())
-    assert len(reused(site)) == 13
+    assert len(reused(site)) == 15
     assert site_bytes(site, skip=("build.json",)) == before
 
 

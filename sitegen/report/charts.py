@@ -354,6 +354,10 @@ def _drift(alt: Any) -> Any:
     return alt.layer(band, line).properties(width=SMALL, height=140)
 
 
+MEAN_DIFFERENCE = "mean difference"
+LIMITS_OF_AGREEMENT = "limits of agreement"
+
+
 def _differences(alt: Any) -> Any:
     """Bland–Altman chart: each pair's difference against the pair's mean, with the mean difference
     and the limits of agreement as rules and their confidence intervals as shaded bands."""
@@ -381,7 +385,7 @@ def _differences(alt: Any) -> Any:
             strokeDash=alt.StrokeDash(
                 "label:N",
                 title="Lines",
-                scale=alt.Scale(range=[[1, 0], [6, 3]]),
+                scale=alt.Scale(domain=[MEAN_DIFFERENCE, LIMITS_OF_AGREEMENT], range=[[1, 0], [6, 3]]),
                 legend=_bottom_legend(alt, "Lines"),
             ),
             tooltip=[alt.Tooltip("label:N", title="Line"), alt.Tooltip("y:Q", title="value", format=",.4~g")],
@@ -405,7 +409,7 @@ def _differences(alt: Any) -> Any:
 
 def _readback(alt: Any) -> Any:
     """Each calibration standard's read-back deviation in percent against its nominal value."""
-    x = alt.X("nominal:Q", title=X_TITLE, scale=alt.Scale(zero=False))
+    x = alt.X("nominal:Q", title=X_TITLE, scale=alt.Scale(zero=False, padding=14))
     zero = alt.Chart(alt.Data(name="zero")).mark_rule(strokeDash=[4, 3]).encode(y="y:Q")
     means = (
         alt.Chart(alt.Data(name="levels"))
@@ -424,7 +428,7 @@ def _readback(alt: Any) -> Any:
         .mark_point(filled=True, opacity=0.75, strokeWidth=0, size=36)
         .encode(
             x=x,
-            y=alt.Y("percent:Q", title="Read-back error (% of nominal)"),
+            y=alt.Y("percent:Q", title="Read-back error (% of nominal)", scale=alt.Scale(padding=10)),
             tooltip=[
                 alt.Tooltip("nominal:Q", title="nominal", format=",.4~g"),
                 alt.Tooltip("found:Q", title="read back", format=",.4~g"),
@@ -769,8 +773,8 @@ def _agreement_data(report: FitReport, percent: bool) -> dict[str, list[dict[str
             continue
         diff = 100.0 * (y - x) / mean if percent else y - x
         rows.append((p[ri], mean, diff))
-    mean_label = "mean difference"
-    limit_label = f"limits of agreement (±{a.multiplier:.3g} SD)"
+    mean_label = MEAN_DIFFERENCE
+    limit_label = LIMITS_OF_AGREEMENT
     return {
         "pairs": _records(("row", "mean", "diff"), rows),
         "rules": [
@@ -832,7 +836,9 @@ def purpose_charts(report: FitReport, units: dict[str, str]) -> dict[str, Spec]:
             for layer in spec.get("layer", []):  # standards spanning decades: a log axis spreads them out
                 enc = layer.get("encoding", {}).get("x")
                 if enc is not None:
-                    enc.setdefault("scale", {})["type"] = "log"
+                    scale = enc.setdefault("scale", {})
+                    scale.pop("zero", None)  # a log scale has no zero
+                    scale.update({"type": "log", "nice": False})
         out["readback"] = spec
     return out
 

@@ -9,10 +9,13 @@ The interval depends on the line (each is the interval that line's own method gi
 ``ols``             the t interval for the mean response at X (on n − 2 degrees of
                     freedom), minus X: exactly the confidence interval of the fitted
                     mean that statsmodels' ``get_prediction(...).conf_int()`` gives.
-``passing_bablok``  the method's own intercept interval (Passing & Bablok 1983) with x
-                    measured from X: median(y − b_high·(x − X)) and
-                    median(y − b_low·(x − X)), minus X. At X = 0 this is the paper's
-                    intercept interval; shifting x leaves the slopes unchanged.
+``passing_bablok``  percentile bootstrap of a + (b − 1)·X over 1,000 resamples of the
+                    pairs from a fixed seed (the method has no closed-form interval for its
+                    value at a level; CLSI EP09 uses the bootstrap here, from memory).
+                    Limited to :data:`~sitegen.stats.passing_bablok.BOOTSTRAP_MAX_POINTS`
+                    pairs (FitError above). The paper's own rank-based construction, applied
+                    to x − X, only carries the slope's uncertainty and so shrinks to nothing
+                    at the centre of the data: it is not used.
 ``deming`` etc.     delete-one jackknife standard error of a + (b − 1)·X, centred on
                     the estimate, t on n − 1 df (as :mod:`sitegen.stats.lines` does for
                     the slope and intercept).
@@ -33,7 +36,7 @@ from numpy.typing import NDArray
 from sitegen.errors import FitError
 from sitegen.stats.distributions import t_ppf
 from sitegen.stats.lines import LINE_METHODS, alternative_lines, leave_one_out
-from sitegen.stats.passing_bablok import passing_bablok, shifted_value_interval
+from sitegen.stats.passing_bablok import bootstrap_values, passing_bablok
 
 __all__ = ["BIAS_METHODS", "Bias", "bias_at"]
 
@@ -112,16 +115,18 @@ def _ols(x: FloatArray, y: FloatArray, levels: Sequence[float], level: float) ->
 
 def _passing_bablok(x: FloatArray, y: FloatArray, levels: Sequence[float], level: float) -> tuple[Bias, ...]:
     pb = passing_bablok(x, y, level=level)
-    out = []
-    for at in levels:
-        est = pb.intercept + (pb.slope - 1.0) * at
-        if pb.interval_available:
-            low, high = shifted_value_interval(x, y, at, pb.slope_ci_low, pb.slope_ci_high)
-            low, high = low - at, high - at
-        else:
-            low = high = math.nan
-        out.append(_make(at, est, low, high, "passing_bablok"))
-    return tuple(out)
+    at = np.asarray(levels, dtype=np.float64)
+    lows, highs = bootstrap_values(x, y, at, level=level)
+    return tuple(
+        _make(
+            float(v),
+            pb.intercept + (pb.slope - 1.0) * float(v),
+            float(lo) - float(v),
+            float(hi) - float(v),
+            "passing_bablok",
+        )
+        for v, lo, hi in zip(at, lows, highs, strict=True)
+    )
 
 
 def _jackknife(

@@ -196,15 +196,19 @@ def choose_weighting(x: FloatArray, y: FloatArray) -> WeightingChoice:
         WeightingOption(name, b, a, total, worst, i == best) for i, (name, a, b, total, worst) in enumerate(scored)
     )
     chosen = options[best]
-    others = ", ".join(f"{o.weighting} {o.sum_abs_percent:.3g} %" for o in options if not o.chosen)
+    names = {"none": "unweighted"}
+    others = ", ".join(
+        f"{names.get(o.weighting, o.weighting)} {o.sum_abs_percent:.3g} %" for o in options if not o.chosen
+    )
     if len(options) == 1:
         reason = (
             "Only the unweighted line could be compared: weights 1/x and 1/y² cannot be formed for these "
             "standards (a zero nominal value and a zero response)."
         )
     else:
+        what = "The unweighted line" if chosen.weighting == "none" else f"Weighting {chosen.weighting}"
         reason = (
-            f"Weighting {chosen.weighting} reads the standards back best: the sum of absolute read-back "
+            f"{what} reads the standards back best: the sum of absolute read-back "
             f"errors is {chosen.sum_abs_percent:.3g} % (against {others})."
         )
     return WeightingChoice(options, chosen.weighting, reason)
