@@ -165,6 +165,9 @@ purpose = "calibration"
 model = "absorbance ~ iron"
 units = { iron = "mg/L Fe", absorbance = "AU" }
 weighting = "choose"
+# Two tap-water samples, each the mean of two readings, read back through the chosen line.
+calibrate = [0.031, 0.262]
+readings = 2
 ''',
     )
 

@@ -211,7 +211,7 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         messages.append(
             Message("warning", f"{len(design.dropped)} row(s) left out ({'; '.join(reasons)}): rows {rows}{more}.")
         )
-    pieces = derive.compute(design, fit, spec, weights)
+    pieces = derive.compute(design, fit, spec, weights, weighting=weighting.name if weighting else None)
     messages += pieces.messages
     groups = pieces.groups
     pooled_contrast = bool(

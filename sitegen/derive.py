@@ -49,6 +49,7 @@ from sitegen.stats.groups import compare_groups
 from sitegen.stats.influence import Influence, PointFlags, flag_points, influence
 from sitegen.stats.lines import alternative_lines, explain_lines
 from sitegen.stats.ols import OlsFit, bands
+from sitegen.stats.readback import inverse_predict_weighted
 from sitegen.stats.robust import hc3_cov
 from sitegen.table import to_float
 
@@ -160,7 +161,9 @@ def replicated_settings(design: Design) -> NDArray[np.bool_]:
     return np.asarray(counts[np.ravel(inverse)] > 1, dtype=bool)
 
 
-def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray | None) -> Derived:
+def compute(
+    design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray | None, *, weighting: str | None = None
+) -> Derived:
     """Derive every requested result; problems with optional extras become warnings."""
     messages: list[Message] = []
     infl = influence(fit.q, fit.resid, fit.df_resid, weights=weights)
@@ -211,7 +214,10 @@ def compute(design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray 
     line_x = straight_line(design)
     weighted = weights is not None
     lines, lines_text = _lines(design, fit, spec, line_x, messages, weighted=weighted)
-    calibration_, limits = _calibration(design, fit, spec, line_x, messages, weighted=weighted)
+    if weighting in ("1/x", "1/x²", "1/y²") and spec.calibrate and line_x is not None and plain_response(design):
+        calibration_, limits = _weighted_calibration(design, fit, spec, weighting, messages)
+    else:
+        calibration_, limits = _calibration(design, fit, spec, line_x, messages, weighted=weighted)
     predictions = _predictions(design, fit, spec, messages)
     groups = _groups(design, fit, spec, line_x, messages, weights=weights)
     chart = _chart(design, fit, infl, flags, spec)
@@ -422,6 +428,36 @@ def _calibration(
             )
         )
     return cal, DetectionLimits(lim.lod, lim.loq, lim.convention, lim.basis)
+
+
+def _weighted_calibration(
+    design: Design, fit: OlsFit, spec: DatasetSpec, weighting: str, messages: list[Message]
+) -> tuple[tuple[Calibration, ...], DetectionLimits | None]:
+    """Inverse predictions through a line weighted 1/x, 1/x² or 1/y² (classical interval; no LOD/LOQ)."""
+    x = np.asarray(design.X[:, 1], dtype=np.float64)
+    y = np.asarray(design.y, dtype=np.float64)
+    try:
+        found = inverse_predict_weighted(
+            x, y, weighting=weighting, level=fit.level, responses=spec.calibrate, readings=spec.readings
+        )
+    except (FitError, ValueError, ArithmeticError) as exc:
+        messages.append(Message("warning", f"inverse prediction could not be computed: {exc}"))
+        return (), None
+    method = f"classical, weighted {weighting}"
+    cal = tuple(
+        Calibration(
+            c.response, c.readings, c.estimate, c.std_error, c.ci_low, c.ci_high, method, math.isfinite(c.std_error)
+        )
+        for c in found
+    )
+    messages.append(
+        Message(
+            "note",
+            f"Samples are read back through the line weighted {weighting}, with the classical interval; "
+            "detection and quantitation limits are not given for a weighted line.",
+        )
+    )
+    return cal, None
 
 
 def _column(values: list[Any]) -> NDArray[Any]:

@@ -239,3 +239,26 @@ def test_assumed_model_with_quoted_column_names_is_compared(tmp_path: Path) -> N
     assert len(fit["bias"]) == 1
     assert isinstance(fit["calibration"], list)
     assert len(fit["calibration"]) == 1
+
+
+def test_weighted_calibration_reads_samples_back_through_its_own_line(tmp_path: Path) -> None:
+    sm = pytest.importorskip("statsmodels.api")
+    data = tmp_path / "data"
+    write_csv(data / "std.csv", [("conc", "area"), *zip(NOMINAL.tolist(), AREA.tolist(), strict=True)])
+    keys = {"purpose": "calibration", "model": "area ~ conc", "weighting": "1/x^2", "calibrate": [3.0]}
+    write_toml(data / "std.toml", keys)
+    assert cli("build", data, "-o", tmp_path / "site").code == 0
+    fit = _fit_json(tmp_path / "site", "std")
+    assert fit["weighting"] == "1/x²"
+    cals = fit["calibration"]
+    assert isinstance(cals, list)
+    assert len(cals) == 1
+    cal = cals[0]
+    res = sm.WLS(AREA, sm.add_constant(NOMINAL), weights=1 / NOMINAL**2).fit()  # statsmodels, independent
+    a, b = res.params
+    x0 = (3.0 - a) / b
+    se = np.sqrt(float(res.get_prediction(np.array([[1.0, x0]])).se_mean[0]) ** 2 + res.scale * x0**2) / abs(b)
+    assert cal["estimate"] == pytest.approx(x0, rel=1e-9)
+    assert cal["std_error"] == pytest.approx(se, rel=1e-8)
+    assert cal["method"] == "classical, weighted 1/x²"
+    assert fit["limits"] is None
