@@ -31,6 +31,7 @@ from sitegen.discover import SITE_CONFIG_NAME, DatasetSource, discover
 from sitegen.errors import INTERNAL_ERROR_WORDS, ConfigError, OutsideFolderError
 from sitegen.jsontext import json_text
 from sitegen.publish import build_folder, check_output_folder, copy_new, marker_intact, swap_in
+from sitegen.report.outputs import is_data_file, site_names
 from sitegen.report.theme import Theme, load_theme
 from sitegen.spec import SiteConfig, read_site_config
 from sitegen.versions import library_versions
@@ -39,10 +40,11 @@ if TYPE_CHECKING:
     from sitegen.executor import Executor
     from sitegen.jobs import FitJob, Neighbours, PageJob
     from sitegen.model import FitReport
+    from sitegen.report.dataset_view import Neighbour
     from sitegen.report.pages import SiteContext
 
 LIBRARIES = ("numpy", "scipy", "pandas", "patsy", "statsmodels")
-RENDER_LIBRARIES = ("altair", "jinja2", "markdown-it-py", "vl-convert-python", "openpyxl")
+RENDER_LIBRARIES = ("altair", "jinja2", "markdown-it-py", "vl-convert-python")
 Progress = Callable[[int, int, str], None]
 
 
@@ -451,11 +453,6 @@ def _files_by_folder(body: dict[str, Any]) -> dict[str, dict[str, Any]]:
     return out
 
 
-def _is_data_file(name: str) -> bool:
-    """A dataset folder's download (not its page or the page's chart images)."""
-    return name != "index.html" and not (name.startswith("chart-") and name.endswith(".svg"))
-
-
 @dataclass(frozen=True, slots=True)
 class _Spare:
     """The build folder as the build before the previous one left it (see :mod:`sitegen.publish`)."""
@@ -610,7 +607,7 @@ class _Build:
             report = self._stored_light(entry, new, src.slug, self.spare.entries[src.slug])
             if report is not None:
                 self.kept.add(src.slug)
-                return report, tuple(n for n in sorted(self.spare.folders[src.slug]) if _is_data_file(n))
+                return report, tuple(n for n in sorted(self.spare.folders[src.slug]) if is_data_file(n))
         old = self.prev.site / "datasets" / src.slug
         report = self._stored_light(entry, old, src.slug, entry)
         if report is None:
@@ -624,7 +621,7 @@ class _Build:
             return None  # a file of its folder is missing or changed since the previous build wrote it
         self.checked.add(src.slug)
         new.mkdir(parents=True, exist_ok=True)
-        files = [name for name in here if "/" not in name and _is_data_file(name)]  # sorted
+        files = [name for name in here if "/" not in name and is_data_file(name)]  # sorted
         for name in files:
             copy_new(old / name, new / name)
         return report, tuple(files)
@@ -710,6 +707,7 @@ class _Build:
     ) -> tuple[list[dict[str, Any]], list[PageJob], dict[str, tuple[str, ...]]]:
         """Which pages to keep, copy or render; their build.json entries; the names of pages already in place."""
         from sitegen.jobs import PageJob  # noqa: PLC0415
+        from sitegen.report.dataset_view import Neighbour  # noqa: PLC0415
         from sitegen.report.files import index_entry, summary_row  # noqa: PLC0415
 
         entries: list[dict[str, Any]] = []
@@ -717,10 +715,11 @@ class _Build:
         in_place: dict[str, tuple[str, ...]] = {}
         for i, (src, report) in enumerate(zip(self.sources, reports, strict=True)):
             files = done[src.slug][1]
-            prev_r = (reports[i - 1].dataset, reports[i - 1].title) if i > 0 else None
-            next_r = (reports[i + 1].dataset, reports[i + 1].title) if i + 1 < len(reports) else None
+            prev_r = Neighbour(reports[i - 1].dataset, reports[i - 1].title) if i > 0 else None
+            next_r = Neighbour(reports[i + 1].dataset, reports[i + 1].title) if i + 1 < len(reports) else None
             fp = self.prints[src.slug][1]
-            key = sha256_hex(json.dumps([fp, self.site_key, list(files), prev_r, next_r, report.status]).encode())
+            around = [[n.dataset, n.title] if n else None for n in (prev_r, next_r)]
+            key = sha256_hex(json.dumps([fp, self.site_key, list(files), *around, report.status]).encode())
             target = self.work / "datasets" / src.slug / "index.html"
             old_entry = self.prev.entries.get(src.slug, {})
             old_page = self.prev.site / "datasets" / src.slug / "index.html" if self.prev.site else None
@@ -728,7 +727,7 @@ class _Build:
             if written is not None and (written.prev, written.next) == (prev_r, next_r):
                 in_place[src.slug] = written_files  # written by the worker that fitted it, with the right neighbours
             elif src.slug in self.kept and self.spare.entries[src.slug].get("page_key") == key:
-                in_place[src.slug] = tuple(n for n in self.spare.folders[src.slug] if not _is_data_file(n))
+                in_place[src.slug] = tuple(n for n in self.spare.folders[src.slug] if not is_data_file(n))
             elif (
                 src.slug in self.checked  # its published folder was found as recorded
                 and old_page is not None
@@ -768,7 +767,7 @@ class _Build:
     def _page_names(self, slug: str) -> tuple[str, ...]:
         names = ["index.html"]
         if self.config.static_images:  # the page's chart images come with it
-            names += [n for n in self.then_files.get(slug, {}) if n != "index.html" and not _is_data_file(n)]
+            names += [n for n in self.then_files.get(slug, {}) if n != "index.html" and not is_data_file(n)]
         return tuple(names)
 
     def _copy_page(self, old: Path, new: Path) -> bool:
@@ -784,8 +783,6 @@ class _Build:
         """Remove from the build folder what the spare held and this site does not: datasets that are
         gone, files a dataset no longer has, site files of other versions."""
         from sitegen.publish import MARKER  # noqa: PLC0415
-        from sitegen.report.files import SUMMARY_FILES  # noqa: PLC0415
-        from sitegen.report.history import HISTORY_FILES  # noqa: PLC0415
 
         folders = self.work / "datasets"
         for slug, names in self.spare.folders.items():
@@ -796,7 +793,7 @@ class _Build:
             for name in names:
                 if name not in keep:
                     _remove(folders / slug / name)
-        top = {"datasets", "assets", "index.html", "build.json", ".owner", MARKER, *SUMMARY_FILES, *HISTORY_FILES}
+        top = {"datasets", "assets", ".owner", MARKER, *site_names()}
         with os.scandir(self.work) as entries:
             for entry in entries:
                 if entry.name not in top:
@@ -807,13 +804,14 @@ class _Build:
             elif path.is_dir() and not any(path.iterdir()):
                 path.rmdir()
 
-    def _expected_title(self, i: int) -> tuple[str, str] | None:
-        """(slug, title) of the ``i``-th dataset as its page will name it: the sidecar's title, else the file
+    def _expected_title(self, i: int) -> Neighbour | None:
+        """The ``i``-th dataset as its page will name it: the sidecar's title, else the file
         name; None past either end.
 
         Read here so that the worker that fits a dataset can write its page too; should a fitted
         title differ after all, the neighbouring pages are simply rendered again.
         """
+        from sitegen.report.dataset_view import Neighbour  # noqa: PLC0415
         from sitegen.spec import read_sidecar  # noqa: PLC0415
 
         if not 0 <= i < len(self.sources):
@@ -825,7 +823,7 @@ class _Build:
             with contextlib.suppress(Exception):
                 title = read_sidecar(src.sidecar_path, dict(self.config.defaults), src.relpath, src.root).title or title
             self.titles[src.slug] = title
-        return src.slug, self.titles[src.slug]
+        return Neighbour(src.slug, self.titles[src.slug])
 
     def _write_build_json(self, entries: list[dict[str, Any]]) -> None:
         import platform  # noqa: PLC0415
@@ -859,10 +857,3 @@ def _with_sha(report: FitReport, sha: str) -> FitReport:
     from dataclasses import replace  # noqa: PLC0415
 
     return report if report.input_sha256 or not sha else replace(report, input_sha256=sha)
-
-
-def load_reports(site: Path) -> list[FitReport]:
-    """Every dataset report of a built site (for tools that read a site)."""
-    from sitegen.model import from_json  # noqa: PLC0415
-
-    return [from_json(p.read_text(encoding="utf-8")) for p in sorted((site / "datasets").glob("*/fit.json"))]

@@ -229,7 +229,6 @@ def _watch(args: argparse.Namespace, out: _Printer) -> int:
     try:
         watch(
             args.data_dir,
-            args.out_dir,
             once,
             interval=args.interval,
             settle=args.settle,

@@ -30,6 +30,7 @@ from sitegen.model import (
     GroupComparison,
     Message,
     Prediction,
+    check_warning,
 )
 from sitegen.purposes import (
     CalibrationResults,
@@ -197,7 +198,7 @@ def compute(
     diagnostics = one_normality_check(diagnostics)
     for d in diagnostics:
         if d.flag:
-            messages.append(Message("warning", f"{d.label}: {d.text} {d.advice}".strip()))
+            messages.append(check_warning(d))
     robust_se = None
     if spec.robust:
         cov = hc3_cov(Xw, fit.resid * sw, np.asarray(infl.leverage), fit.xtx_inv, xtx_root=fit.xtx_root)

@@ -17,6 +17,7 @@ from sitegen.spec import Limits
 
 if TYPE_CHECKING:
     from sitegen.model import FitReport
+    from sitegen.report.dataset_view import Neighbour
     from sitegen.report.pages import SiteContext
 
 
@@ -38,8 +39,8 @@ class Neighbours:
     """What a dataset page needs besides its report: the site, and the datasets before and after it."""
 
     ctx: SiteContext
-    prev: tuple[str, str] | None
-    next: tuple[str, str] | None
+    prev: Neighbour | None
+    next: Neighbour | None
 
 
 @dataclass(frozen=True, slots=True)
@@ -92,8 +93,8 @@ class PageJob:
     ctx: SiteContext
     report: FitReport | None  # None: read the full report from the folder's fit.json
     files: tuple[str, ...]
-    prev: tuple[str, str] | None
-    next: tuple[str, str] | None
+    prev: Neighbour | None
+    next: Neighbour | None
     target: Path
 
 

@@ -74,6 +74,11 @@ class Diagnostic:
     rows: tuple[int, ...] = ()  # CSV rows concerned
 
 
+def check_warning(d: Diagnostic) -> Message:
+    """The warning a flagged check adds to the report's messages (the page shows it once, with the check)."""
+    return Message("warning", f"{d.label}: {d.text} {d.advice}".strip())
+
+
 @dataclass(frozen=True, slots=True)
 class FlaggedPoint:
     """An observation past at least one influence cut-off."""
@@ -370,6 +375,14 @@ class FitReport:
     responsible: tuple[tuple[str, str], ...] = ()  # analyst, reviewer, method reference as declared
     pooled_contrast: bool = False  # per-group slopes differ: the pooled line is shown only as a contrast
     residual_sd_y: float | None = None  # weighted fits: the scatter of the plain residuals, in y units
+
+    def first_message(self, *levels: Level) -> Message | None:
+        """The first message of the first of ``levels`` that has one (e.g. the first error, else warning)."""
+        for level in levels:
+            for m in self.messages:
+                if m.level == level:
+                    return m
+        return None
 
     def coefficient(self, term: str) -> Coefficient | None:
         """The named term's coefficient, if the model has it."""

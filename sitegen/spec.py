@@ -508,10 +508,6 @@ class SiteConfig:
     limits: Limits = Limits()
     ignore: tuple[str, ...] = ()  # glob patterns of files and folders the build skips
 
-    @property
-    def default_values(self) -> dict[str, Any]:
-        return dict(self.defaults)
-
 
 _SITE_KEYS = (
     "title",

@@ -42,7 +42,6 @@ def snapshot(data_dir: Path) -> Snapshot:
 
 def watch(
     data_dir: Path,
-    out_dir: Path,
     build: Callable[[], int],
     *,
     interval: float = 1.0,
@@ -57,7 +56,6 @@ def watch(
     not run (another build held the output folder); the watch then tries again after
     ``settle`` seconds instead of waiting for the next change.
     """
-    del out_dir  # the build callable knows where to write
     builds = 0
     last = snapshot(data_dir)
     changed_at: float | None = None

@@ -29,7 +29,7 @@ import pytest
 CHROMIUM = Path("/usr/bin/chromium")
 ROOT = Path(__file__).resolve().parents[1]
 SHOTS = ROOT / "test-artifacts" / "screenshots"
-THEME_TOML = ROOT / "sitegen" / "themes" / "default" / "theme.toml"
+THEME_TOML = ROOT / "themes" / "default" / "theme.toml"
 
 pytestmark = [
     pytest.mark.browser,

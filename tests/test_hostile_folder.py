@@ -251,7 +251,7 @@ def test_a_sandboxed_theme_still_makes_the_same_pages(run_cli: Cli, small_data: 
     """A user theme that overrides a template with the default's own text renders the same page in the sandbox."""
     plain = tmp_path / "plain"
     assert run_cli("build", small_data, "-o", plain, "-q").code == 0
-    default = Path(__file__).resolve().parents[1] / "sitegen" / "themes" / "default" / "templates"
+    default = Path(__file__).resolve().parents[1] / "themes" / "default" / "templates"
     _user_template(small_data, "dataset.html", (default / "dataset.html").read_text("utf-8"))
     boxed = tmp_path / "boxed"
     assert run_cli("build", small_data, "-o", boxed, "-q").code == 0

@@ -251,7 +251,7 @@ def test_watch_rebuilds_after_a_change_and_ignores_editor_files(tmp_path: Path) 
             (data / "new.csv").write_text("x,y\n1,2\n2,4.1\n3,5.9\n4,8.2\n", encoding="utf-8")
 
     build()  # the watch command builds once before it starts watching
-    builds = watch(data, out, build, interval=0.0, settle=0.0, max_builds=1, clock=lambda: 0.0, sleep=fake_sleep)
+    builds = watch(data, build, interval=0.0, settle=0.0, max_builds=1, clock=lambda: 0.0, sleep=fake_sleep)
     assert builds == 1
     assert codes == [0, 0]
     with (out / "summary.csv").open(encoding="utf-8") as fh:
@@ -324,8 +324,7 @@ def test_watch_retries_when_another_build_holds_the_folder(tmp_path: Path) -> No
         if len(calls) == 0 and not (data / "new.csv").exists():
             (data / "new.csv").write_text("x,y\n1,2\n2,4.1\n3,5.9\n", encoding="utf-8")
 
-    builds = watch(data, tmp_path / "site", build, interval=0.0, settle=0.0, max_builds=2, clock=lambda: 0.0,
-                   sleep=fake_sleep)  # fmt: skip
+    builds = watch(data, build, interval=0.0, settle=0.0, max_builds=2, clock=lambda: 0.0, sleep=fake_sleep)
     assert builds == 2  # the refused build was tried again without any further change
     assert len(calls) == 2
 

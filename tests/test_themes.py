@@ -19,7 +19,7 @@ from pathlib import Path
 import pytest
 
 ROOT = Path(__file__).resolve().parents[1]
-THEME = ROOT / "sitegen" / "themes" / "default"
+THEME = ROOT / "themes" / "default"
 CSS = (THEME / "static" / "style.css").read_text("utf-8")
 CAUTION = "Use with care."
 
@@ -310,6 +310,11 @@ def test_status_is_never_told_by_colour_alone(example_site: Path) -> None:
 
 USER_CSS = "/* brand theme */\nbody { font-family: Georgia, serif; }\n.brand-bar { padding: .5rem; }\n"
 BANNER = '<div class="brand-bar">Water laboratory intranet</div>'
+# One section of the dataset page replaced; it reads the same typed fields as the default one.
+ESTIMATES = (
+    '<section aria-labelledby="h-brand-est"><h2 id="h-brand-est">Slope and intercept, lab style</h2>\n'
+    "<p>{% for c in r.coefficients %}{{ c.term }} = {{ c.estimate | num(4) }}; {% endfor %}</p></section>\n"
+)
 
 
 @pytest.fixture(scope="module")
@@ -328,6 +333,8 @@ def user_theme_site(tmp_path_factory: pytest.TempPathFactory) -> Path:
     user_base = re.sub(r"(<body[^>]*>)", r"\1\n" + BANNER, default_base, count=1)
     (theme / "templates" / "base.html").write_text(user_base, "utf-8")
     (theme / "static" / "style.css").write_text(USER_CSS, "utf-8")
+    (theme / "templates" / "sections").mkdir()
+    (theme / "templates" / "sections" / "estimates.html").write_text(ESTIMATES, "utf-8")
     (theme / "theme.toml").write_text('[charts.light]\nmark = "#8b1e3f"\n', "utf-8")
     (data / "site.toml").write_text('title = "Branded"\ntheme = "_brand"\n', "utf-8")
     out = base / "site"
@@ -345,6 +352,16 @@ def test_user_template_overrides_the_default(user_theme_site: Path) -> None:
         assert CAUTION in html, page
     dataset = next((user_theme_site / "datasets").glob("*/index.html")).read_text("utf-8")
     assert "Can this line be trusted?" in dataset  # the default dataset template still applies
+
+
+def test_user_theme_replaces_one_section_and_keeps_the_others(user_theme_site: Path) -> None:
+    for page in sorted((user_theme_site / "datasets").glob("*/index.html")):
+        html = page.read_text("utf-8")
+        assert "Slope and intercept, lab style" in html, page
+        assert re.search(r"Intercept = -?[0-9.]+; ", html), page
+        assert 'id="h-est"' not in html, page  # the default estimates section is gone
+        for kept in ("Can this line be trusted?", "Where the variation in", "Downloads"):
+            assert kept in html, (page, kept)
 
 
 def test_user_stylesheet_replaces_the_default_and_the_script_stays(user_theme_site: Path) -> None:

@@ -24,7 +24,7 @@ from __future__ import annotations
 import copy
 import json
 import math
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from functools import cache, lru_cache
 from pathlib import Path
@@ -644,7 +644,10 @@ def _data_names(node: Any) -> set[str]:
     return found
 
 
-def _label(column: str, units: dict[str, str]) -> str:
+def axis_label(column: str | None, units: Mapping[str, str]) -> str:
+    """A column's name with its unit, for axes and captions ("x" when there is no single predictor)."""
+    if not column:
+        return "x"
     unit = units.get(column)
     return f"{column} ({unit})" if unit else column
 
@@ -716,8 +719,8 @@ def dataset_charts(report: FitReport) -> dict[str, Spec]:
                 "lines": _line_records(report, chart),
                 "density": _records(chart.density_columns, chart.density),
             },
-            x_title=_label(chart.x, units),
-            y_title=_label(chart.y, units),
+            x_title=axis_label(chart.x, units),
+            y_title=axis_label(chart.y, units),
         )
     zero = [{"y": 0.0}]
     s = report.residual_std_error
@@ -732,18 +735,18 @@ def dataset_charts(report: FitReport) -> dict[str, Spec]:
         out["residual_by_x"] = fill(
             "residual_by_x",
             {"points": points, "zero": zero, "scatter": scatter},
-            x_title=_label(chart.x, units),
+            x_title=axis_label(chart.x, units),
             y_title=resid_title,
         )
         if _is_calibration(report):
             out["residual_percent"] = fill(
-                "residual_percent", {"points": points, "zero": zero}, x_title=_label(chart.x, units)
+                "residual_percent", {"points": points, "zero": zero}, x_title=axis_label(chart.x, units)
             )
     else:
         out["residual_by_fitted"] = fill(
             "residual_by_fitted",
             {"points": points, "zero": zero, "scatter": scatter},
-            x_title=f"Fitted {_label(chart.y, units)}",
+            x_title=f"Fitted {axis_label(chart.y, units)}",
             y_title=resid_title,
         )
     out["residual_order"] = fill("residual_order", {"points": points, "zero": zero}, y_title=resid_title)
@@ -830,7 +833,7 @@ def purpose_charts(report: FitReport, units: dict[str, str]) -> dict[str, Spec]:
             )
     data = _readback_data(report)
     if data:
-        spec = fill("readback", data, x_title=_label(chart.x, units))
+        spec = fill("readback", data, x_title=axis_label(chart.x, units))
         nominal = [r.nominal for r in report.back_calculated if r.nominal > 0]
         if nominal and len(nominal) == len(report.back_calculated) and max(nominal) / min(nominal) >= 20:
             for layer in spec.get("layer", []):  # standards spanning decades: a log axis spreads them out

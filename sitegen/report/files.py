@@ -58,11 +58,8 @@ COEFFICIENT_COLUMNS = ("term", "estimate", "std_error", "t_stat", "p_value", "ci
 
 
 def _message(r: FitReport) -> str:
-    for level in ("error", "warning", "note"):
-        for m in r.messages:
-            if m.level == level:
-                return m.text
-    return ""
+    first = r.first_message("error", "warning", "note")
+    return first.text if first else ""
 
 
 def summary_row(r: FitReport) -> dict[str, Any]:
@@ -95,10 +92,8 @@ def summary_row(r: FitReport) -> dict[str, Any]:
 
 
 def _message_level(r: FitReport) -> str:
-    for level in ("error", "warning", "note"):
-        if any(m.level == level for m in r.messages):
-            return level
-    return ""
+    first = r.first_message("error", "warning", "note")
+    return first.level if first else ""
 
 
 def index_entry(r: FitReport) -> dict[str, Any]:
@@ -386,7 +381,8 @@ def dataset_files(
     files += _purpose_tables(folder, r, book)
     if obs is not None:
         files.append(_observations(folder, obs, book))
-    book.insert(0, ("about", ["field", "value"], about_rows(r)))
+    about_header, about_cells = clean_rows(("field", "value"), about_rows(r))  # text neutralised as in every sheet
+    book.insert(0, ("about", about_header, about_cells))
     (folder / WORKBOOK).write_bytes(workbook(book))
     files.append(WORKBOOK)
     return sorted(files)

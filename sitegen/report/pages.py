@@ -22,7 +22,8 @@ from sitegen import __version__
 from sitegen.confine import files_inside, read_inside
 from sitegen.errors import OutsideFolderError, SiteConfigError
 from sitegen.model import FitReport
-from sitegen.report import charts, fmt, variation
+from sitegen.report import charts, fmt
+from sitegen.report.dataset_view import Neighbour, unmet_words, view
 from sitegen.report.theme import Theme
 from sitegen.spec import SiteConfig
 
@@ -245,213 +246,25 @@ def _common(ctx: SiteContext, root: str, page: str) -> dict[str, Any]:
     }
 
 
-def _label(column: str | None, units: dict[str, str]) -> str:
-    if not column:
-        return "x"
-    return f"{column} ({units[column]})" if column in units else column
-
-
-def sentence(r: FitReport) -> str:
-    """The fit in plain words, followed by what contradicts the user's own declarations (unmet requirements,
-    claims the data reject), so that the headline never reads as sound beside a contradicted claim."""
-    text = _groups_sentence(r) if r.pooled_contrast else _fit_sentence(r)
-    if r.requirements:
-        unmet = [q for q in r.requirements if not q.met]
-        if len(r.requirements) == 1:
-            text += f" The declared requirement {r.requirements[0].name} is {'met' if not unmet else 'not met'}."
-        elif unmet:
-            text += (
-                f" {len(unmet)} of {len(r.requirements)} declared requirements "
-                f"{'is' if len(unmet) == 1 else 'are'} not met ({unmet_words(r)})."
-            )
-        else:
-            text += f" All {len(r.requirements)} declared requirements are met."
-    rejected = [c for c in r.claims if c.rejected]
-    if rejected:
-        names = "; ".join(f"“{c.claim}”" for c in rejected)
-        text += f" The data contradict the declared claim{'s' if len(rejected) > 1 else ''} {names}."
-    return text
-
-
-def _groups_sentence(r: FitReport) -> str:
-    """Per-group lines lead when their slopes differ; the pooled line is named only as a contrast."""
-    g = r.groups
-    if g is None:
-        return _fit_sentence(r)
-    units = dict(r.units)
-    x = r.chart.x if r.chart and r.chart.x else "x"
-    y_unit = f" {units[r.response]}" if r.response in units else ""
-    per = f" per {units[x]}" if x in units else ""
-    lvl = fmt.level(r.level)
-    each = "; ".join(
-        f"{line.group}: {fmt.num(line.slope)}{y_unit}{per} ({lvl} interval {fmt.num(line.slope_ci_low)} to "
-        f"{fmt.num(line.slope_ci_high)}, {fmt.integer(line.n)} rows)"
-        for line in g.lines
-    )
-    return (
-        f"The slope of {r.response} on {x} differs between the groups of {g.column} "
-        f"({fmt.p_phrase(g.p_value)}), so each group has its own line — slopes {each}. "
-        f"The pooled line through all {fmt.integer(r.n)} rows is shown only as a contrast, not as the recommended "
-        "line; the checks and flagged rows below are computed on it."
-    )
-
-
-def _fit_sentence(r: FitReport) -> str:
-    """The fit stated in one plain sentence (two when the direction of the line is not established)."""
-    units = dict(r.units)
-    lvl = fmt.level(r.level)
-    if "Intercept" in r.terms:
-        share = (
-            f"the model explains {fmt.percent(r.r_squared)} of the variation in {r.response} "
-            f"(R² = {fmt.rsquared(r.r_squared)})"
-        )
-    else:
-        share = (
-            f"R² = {fmt.rsquared(r.r_squared)}, measured about zero because the model has no intercept "
-            "(it cannot be compared with the R² of a model that has one)"
-        )
-    y_unit_text = f" {units[r.response]}" if r.response in units else ""
-    if r.weights:
-        fit_part = (
-            f"{share}; fitted by weighted least squares (weights from column {r.weights}), the points scatter about "
-            f"it by {fmt.num(r.residual_sd_y)}{y_unit_text} (the standard deviation of the plain residuals, "
-            f"y − fitted; the weighted residual scale, {fmt.num(r.residual_std_error)}, is not in "
-            f"{r.response}'s units)"
-        )
-    else:
-        fit_part = (
-            f"{share}, and the points scatter about it by {fmt.num(r.residual_std_error)}{y_unit_text}"
-            " (the typical distance of a row from the line)"
-        )
-    chart = r.chart
-    term = r.compare_term
-    c = r.coefficient(term) if term else None
-    straight = (
-        chart is not None and chart.x is not None and term == chart.x and r.terms in (("Intercept", term), (term,))
-    )
-    if straight and c is not None and chart is not None and chart.x is not None:
-        y_unit = f" {units[r.response]}" if r.response in units else ""
-        x_unit = f" {units[chart.x]}" if chart.x in units else ""
-        interval = f"{lvl} interval {fmt.num(c.ci_low)} to {fmt.num(c.ci_high)}"
-        per = f"for each 1{x_unit} of {chart.x}"
-        if c.ci_low > 0 or c.ci_high < 0:
-            direction = "rises" if c.estimate > 0 else "falls"
-            return (
-                f"Across {fmt.integer(r.n)} rows, {r.response} {direction} by {fmt.num(abs(c.estimate))}{y_unit} "
-                f"{per} ({interval}); {fit_part}."
-            )
-        return (
-            f"Across {fmt.integer(r.n)} rows, the slope of {r.response} {per} is {fmt.num(c.estimate)}{y_unit}, "
-            f"but its {interval} includes zero, so these data do not establish whether {r.response} rises or "
-            f"falls with {chart.x}; {fit_part}."
-        )
-    return f"Across {fmt.integer(r.n)} rows fitted with {r.model}, {fit_part}."
-
-
-def unmet_words(r: FitReport) -> str:
-    """The declared requirements not met, by name ("max_residual_sd, max_bias at 1"), or ""."""
-    unmet = [q for q in r.requirements if not q.met]
-    return ", ".join(q.name + (f" at {fmt.given(q.at)}" if q.at is not None else "") for q in unmet)
-
-
 def _first_problem(r: FitReport) -> str:
     """The index's note under a dataset: unmet requirements first, then the first error or warning."""
     unmet = unmet_words(r)
     lead = f"Requirements not met: {unmet}." if unmet else ""
-    for level in ("error", "warning"):
-        for m in r.messages:
-            if m.level == level:
-                return f"{lead} {m.text}".strip()
-    return lead
-
-
-_DESCRIBED = {
-    "fit.json": "every number on this page, at full precision",
-    "coefficients.csv": "estimates with standard errors, tests and intervals",
-    "observations.csv": "every row: data, fitted value, intervals and influence measures",
-    "anova.csv": "the analysis of variance table",
-    "lines.csv": "the other lines with their intervals",
-    "calibration.csv": "inverse predictions with their intervals",
-    "predictions.csv": "predicted values with their intervals",
-    "agreement.csv": "the difference analysis: mean difference, limits of agreement and their intervals",
-    "bias.csv": "the bias at each decision level with its interval",
-    "readback.csv": "every calibration standard read back from the line",
-    "weighting.csv": "the weightings compared and how well each reads the standards back",
-}
-_CHART_NAMES = {
-    "chart-fit.svg": "the line and its bands",
-    "chart-residual-by-x.svg": "residuals across the range of x",
-    "chart-residual-by-fitted.svg": "residuals across the fitted values",
-    "chart-residual-percent.svg": "residuals in percent of the fitted value",
-    "chart-residual-order.svg": "residuals in CSV row order",
-    "chart-shape.svg": "shape of the residuals' scatter",
-    "chart-pull.svg": "each row's pull on the line",
-}
-
-
-def _downloads(r: FitReport, files: Sequence[str]) -> list[tuple[str, str, str]]:
-    out: list[tuple[str, str, str]] = []
-    for name, what in _DESCRIBED.items():
-        if name in files:
-            out.append((name, name, what))
-    if "tables.xlsx" in files:
-        out.append(("tables.xlsx", "tables.xlsx", "the tables above in one workbook, a sheet each"))
-    original = r.source.rsplit("/", 1)[-1]
-    out += [
-        (f, f"original file ({original})", "the data file exactly as delivered")
-        for f in files
-        if f.startswith("source-")
-    ]
-    out += [
-        (f, f, f"static image of the chart: {_CHART_NAMES[f]} (for print and mail)") for f in files if f in _CHART_NAMES
-    ]
-    return out
+    first = r.first_message("error", "warning")
+    return f"{lead} {first.text}".strip() if first else lead
 
 
 def render_dataset(
     ctx: SiteContext,
     r: FitReport,
     files: Sequence[str],
-    prev: tuple[str, str] | None,
-    nxt: tuple[str, str] | None,
+    prev: Neighbour | None,
+    nxt: Neighbour | None,
 ) -> str:
-    """The page of one dataset."""
-    env = environment(ctx.theme)
-    units = dict(r.units)
-    cutoffs = dict(r.cutoffs)
-    ok = r.status != "error"
-    chart_specs = charts.dataset_charts(r) if ok else {}
-    x_label = _label(r.chart.x if r.chart else None, units)
-    fit_caption = (
-        f"{r.response} against {x_label}: the fitted line, its {fmt.level(r.level)} confidence band for the mean "
-        f"(darker) and prediction band for single readings (lighter)"
-        + (", the line of equality y = x (where the methods would agree)" if r.purpose == "comparison" else "")
-        + (", and the other lines listed below" if r.lines else "")
-        + (
-            f"; the pooled line is a contrast only: the slopes differ by {r.groups.column}, so each "
-            f"{r.groups.column}'s own line is the one to use"
-            if r.pooled_contrast and r.groups
-            else ""
-        )
-        + ("; flagged rows are drawn as larger squares." if r.flagged else ".")
-    )
-    return _render(
-        env,
-        "dataset.html",
-        **_common(ctx, "../../", "dataset"),
-        r=r,
-        charts=chart_specs,
-        sentence=sentence(r) if ok else "",
-        downloads=_downloads(r, files),
-        prev={"dataset": prev[0], "title": prev[1]} if prev else None,
-        next={"dataset": nxt[0], "title": nxt[1]} if nxt else None,
-        cutoffs=cutoffs,
-        x_label=x_label,
-        fit_caption=fit_caption,
-        pull_limit=charts.influence_limit(r) if ok else None,
-        variation=variation.parts(r) if ok else (),
-        resid_unit=units.get(r.chart.y, "") if r.chart else "",
-    )
+    """The page of one dataset: ``dataset.html`` with its sections (report/sections.py) filled from the view."""
+    chart_specs = charts.dataset_charts(r) if r.status != "error" else {}
+    v = view(r, files, chart_specs, prev, nxt)
+    return _render(environment(ctx.theme), "dataset.html", **_common(ctx, "../../", "dataset"), v=v, r=r)
 
 
 def render_index(ctx: SiteContext, reports: Sequence[FitReport], tags: Sequence[dict[str, Any]]) -> str:

@@ -11,7 +11,7 @@ from sitegen.report import charts, fmt
 
 def tag_blocks(reports: Sequence[FitReport]) -> list[dict[str, Any]]:
     """One block per tag: its datasets, a forest chart of the compared term and Cochran's Q."""
-    from sitegen.stats.compare import homogeneity  # noqa: PLC0415 - scipy is slow to import
+    from sitegen.stats.compare import homogeneity  # noqa: PLC0415 - numpy: only a site with tags needs it
 
     by_tag: dict[str, list[FitReport]] = {}
     for r in reports:

@@ -22,11 +22,13 @@ from sitegen.errors import OutsideFolderError, SiteConfigError
 
 
 def default_theme_dir() -> Path:
-    """The packaged default theme (``sitegen/themes/default``)."""
-    import importlib  # noqa: PLC0415
-
-    themes = importlib.import_module("sitegen.themes")  # the packaged themes/ folder
-    return Path(next(iter(themes.__path__))) / "default"
+    """The default theme: ``themes/default`` at the top of a source checkout (and so in an editable install),
+    shipped inside the package as ``sitegen/themes/default`` in a wheel (pyproject.toml maps the folder)."""
+    package = Path(__file__).resolve().parent.parent  # the sitegen package folder
+    shipped = package / "themes" / "default"
+    if shipped.is_dir():
+        return shipped
+    return package.parent / "themes" / "default"
 
 
 @dataclass(frozen=True, slots=True)
@@ -53,7 +55,7 @@ def _read_theme_toml(folder: Path, shown: str) -> dict[str, Any]:
     path = folder / "theme.toml"
     if not os.path.lexists(path):
         return {}
-    import tomllib  # noqa: PLC0415 - only a theme of the user's own has this file
+    import tomllib  # noqa: PLC0415 - on the first theme.toml read (the default theme has one)
 
     try:
         return tomllib.loads(read_inside(path, folder, where="theme folder").decode("utf-8"))

@@ -1,8 +1,11 @@
 """Tail probabilities and quantiles of the t, F, χ², beta and normal distributions.
 
 Computed here from the regularised incomplete beta and gamma functions, so that
-fitting a dataset does not import scipy (a fifth of a second in every process
-that fits). The methods are the textbook ones (common practice):
+fitting a dataset does not import scipy. Measured with ``bench/imports.py``:
+importing ``scipy.special`` after numpy takes about 240 ms in a fresh process
+(this module: about 22 ms), paid by every process that fits, about a tenth of a
+one-changed rebuild; that outweighs handing these functions to the library. The
+methods are the textbook ones (common practice):
 
 - incomplete beta: the continued fraction evaluated by the modified Lentz method,
   on the side of the mean where it converges fast, the other tail by symmetry
