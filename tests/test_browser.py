@@ -132,7 +132,8 @@ def watched(browser: Any, site: Path, **context: Any) -> Iterator[tuple[Any, lis
 
 
 def _open(page: Any, site: Path, rel: str) -> None:
-    page.goto((site / rel).as_uri())
+    # The single file draws every chart of the example (about 90) before "load": on a busy machine, over 10 s.
+    page.goto((site / rel).as_uri(), timeout=CHART_WAIT_MS)
     page.wait_for_function(
         "() => [...document.querySelectorAll('.vis')].every(v => v.classList.contains('drawn')"
         " || v.textContent.includes('could not be drawn'))",

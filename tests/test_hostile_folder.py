@@ -126,9 +126,11 @@ def test_a_theme_outside_the_data_folder_needs_the_command_line(run_cli: Cli, sm
         assert "--theme" in res.output
         assert not site.exists()
     (small_data / "site.toml").unlink()
+    (theme / "static" / "extra.js").write_text("/* a script of a theme the user trusts */\n", encoding="utf-8")
     res = run_cli("build", small_data, "-o", site, "--theme", theme, "-q")
     assert res.code == 0, res.output
     assert (site / "assets" / "extra.css").is_file()
+    assert (site / "assets" / "extra.js").is_file()  # named on the command line: trusted with scripts too
 
 
 def test_theme_files_linked_out_of_the_theme_are_not_used(

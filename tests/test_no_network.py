@@ -103,12 +103,15 @@ def _hostile_folder(data: Path, host: str) -> None:
         "p { font-family: x; }\n",
         encoding="utf-8",
     )
+    (theme / "static" / "theme.js").write_text(f"location.href = 'http://{host}/script-ran';\n", encoding="utf-8")
+    (theme / "static" / "page.html").write_text(f"<img src='http://{host}/page.png'>", encoding="utf-8")
     (theme / "templates").mkdir()
     (theme / "templates" / "index.html").write_text(
         '{% extends "base.html" %}\n{% block main %}'
         f'<img src="http://{host}/theme.png"><link rel="stylesheet" href="http://{host}/theme.css">'
         f'<script src="http://{host}/theme.js"></script><iframe src="http://{host}/frame"></iframe>'
-        f'<object data="http://{host}/object"></object>'
+        f'<object data="http://{host}/object"></object><meta http-equiv="refresh" content="0;url=http://{host}/go">'
+        '<script src="assets/theme.js"></script>'
         "{{ super() }}{% endblock %}\n",
         encoding="utf-8",
     )
@@ -125,6 +128,11 @@ def test_a_hostile_site_requests_nothing_from_the_network(tmp_path: Path, listen
     single = tmp_path / "report.html"
     assert cli("pack", site, "-o", single).code == 0
     pages = [*sorted(site.rglob("*.html")), single]
+    # A theme kept in the data folder publishes no scripts and no pages of its own; the rest of its files are used.
+    assert not (site / "assets" / "theme.js").exists()
+    assert not (site / "assets" / "page.html").exists()
+    assert "@import" in (site / "assets" / "style.css").read_text("utf-8")
+    assert all('http-equiv="refresh"' not in p.read_text("utf-8") for p in pages)
     assert all("Content-Security-Policy" in p.read_text("utf-8") for p in pages)
     drawn: dict[str, int] = {}
     with sync_api.sync_playwright() as p:

@@ -190,3 +190,25 @@ def test_calibrations_add_residuals_in_percent_of_the_fitted_value(tmp_path: Pat
     for layer in drawing:  # the percent is worked out in the chart from the residual and fitted value
         calc = [t for t in layer["transform"] if "calculate" in t and t["as"] == "percent"]
         assert calc == [{"calculate": "100 * datum.residual / datum.fitted", "as": "percent"}]
+
+
+def test_crowded_charts_drop_the_sticks_but_keep_the_points() -> None:
+    from sitegen.report import charts
+
+    def rows(n: int) -> list[dict[str, object]]:
+        return [
+            {"row": i + 1, "x": float(i), "fitted": 1.0, "residual": 0.1, "cooks": 0.01, "kind": "ordinary"}
+            for i in range(n)
+        ]
+
+    def marks(spec: dict[str, object]) -> list[tuple[str, str]]:
+        layers = spec["layer"]
+        assert isinstance(layers, list)
+        return [(charts._mark_type(ly), ly.get("data", {}).get("name", "")) for ly in layers]
+
+    few = charts.fill("pull", {"points": rows(10), "limit": [{"value": 0.7, "label": "limit"}]})
+    many = charts.fill("pull", {"points": rows(charts.CROWDED + 1), "limit": [{"value": 0.7, "label": "limit"}]})
+    assert ("rule", "points") in marks(few)
+    assert ("rule", "points") not in marks(many)
+    assert ("point", "points") in marks(many)
+    assert ("rule", "limit") in marks(many)  # the limit line stays

@@ -128,6 +128,23 @@ def write_built_at(out: Path, built_at: str) -> str:
     return BUILT_AT
 
 
+#: What a theme kept in the data folder may publish: style sheets, pictures and fonts (no scripts, no pages).
+UNTRUSTED_STATIC = (
+    ".css",
+    ".png",
+    ".jpg",
+    ".jpeg",
+    ".gif",
+    ".webp",
+    ".svg",
+    ".ico",
+    ".woff",
+    ".woff2",
+    ".ttf",
+    ".otf",
+)
+
+
 def write_static(out: Path, theme: Theme) -> list[str]:
     """Copy the theme's static files (user theme over default) into ``assets/``; returns the paths written."""
     dest = out / "assets"
@@ -135,6 +152,8 @@ def write_static(out: Path, theme: Theme) -> list[str]:
     written = []
     for folder in reversed(theme.static_dirs):
         for rel, path in files_inside(folder):  # a link out of the theme folder is never followed
+            if folder == theme.untrusted_static and not rel.lower().endswith(UNTRUSTED_STATIC):
+                continue  # a script or page from the data folder would run in every reader's browser
             try:
                 data = read_inside(path, folder, where="theme folder")
             except OutsideFolderError:

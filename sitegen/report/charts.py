@@ -586,7 +586,11 @@ def _skeleton(kind: str, x_title: str, y_title: str, shape: _Shape) -> str:
 
 
 def _crowded(spec: Spec) -> None:
-    """Many points: smaller symbols, and the lines drawn over the points so that they stay visible."""
+    """Many points: smaller symbols, no sticks under them, and the lines drawn over the points."""
+    if "layer" in spec:  # a stick per row (a rule from zero) would double the marks and hide the points
+        spec["layer"] = [
+            ly for ly in spec["layer"] if not (_mark_type(ly) == "rule" and ly.get("data", {}).get("name") == SHARED)
+        ]
     layers = spec.get("layer", [spec])
     for layer in layers:
         size = layer.get("encoding", {}).get("size", {})

@@ -30,6 +30,7 @@ def chart_config(colors: dict[str, Any]) -> dict[str, Any]:
         "line": {"color": c.get("mark")},
         "point": {"color": c.get("mark")},
         "rule": {"color": c.get("domain")},
+        "text": {"color": c.get("text")},
         "rect": {"color": c.get("density", c.get("domain"))},
         "axis": axis,
         "legend": {"labelColor": c.get("text"), "titleColor": c.get("text")},

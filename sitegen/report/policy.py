@@ -49,8 +49,20 @@ def meta(policy: str) -> str:
     return f'<meta http-equiv="Content-Security-Policy" content="{policy}">\n'
 
 
+#: Any ``<meta>`` element (quoted attribute values may hold ``>``).
+_META = re.compile(r"""<meta\b(?:[^>"']|"[^"]*"|'[^']*')*>""", re.IGNORECASE)
+_HTTP_EQUIV = re.compile(r"[\s/]http-equiv\s*=", re.IGNORECASE)
+
+
+def _pragma_free(html: str) -> str:
+    """``html`` without ``<meta http-equiv>`` elements: a refresh would send the reader's browser elsewhere
+    (a load the policy cannot forbid), and only sitegen's own policy belongs there. The default theme has none."""
+    return _META.sub(lambda m: "" if _HTTP_EQUIV.search(m.group(0)) else m.group(0), html)
+
+
 def with_policy(html: str, policy: str = SITE_POLICY) -> str:
-    """``html`` with the policy as the first element of its head."""
+    """``html`` with the policy as the first element of its head (and no other ``http-equiv`` pragma)."""
+    html = _pragma_free(html)
     m = _HEAD.match(html)
     at = m.end() if m else 0
     return html[:at] + meta(policy) + html[at:]

@@ -6,7 +6,9 @@ theme folder named on the command line (``--theme``) is the user's own choice an
 may lie anywhere. Either way its files are read only when they lie inside the
 theme's own folder (a link out of it is ignored), and its templates render in
 Jinja2's sandbox (``pages.environment``): a theme cannot run code on the machine
-that builds the site.
+that builds the site. A theme kept in the data folder cannot run code in readers'
+browsers either: of its static files only style sheets, pictures and fonts are
+published (``assets.write_static``), never scripts or pages.
 """
 
 from __future__ import annotations
@@ -40,6 +42,7 @@ class Theme:
     static_dirs: tuple[Path, ...]
     charts_json: str  # chart colours per colour scheme, as JSON (kept as text so the theme is hashable)
     user_templates: bool = False  # a user theme has templates: render every page in the sandbox
+    untrusted_static: Path | None = None  # the static folder of a theme kept in the data folder (no scripts)
 
     @property
     def sandboxed(self) -> bool:
@@ -107,6 +110,9 @@ def load_theme(choice: str, data_dir: Path, trusted: Path | None = None) -> Them
         static_dirs=tuple(f / "static" for f in folders if _folder_inside(f / "static", f)),
         charts_json=json.dumps(charts, sort_keys=True),
         user_templates=any(t.parent != base for t in templates),
+        untrusted_static=next(
+            (f / "static" for f in folders if f != base and trusted is None and _folder_inside(f / "static", f)), None
+        ),
     )
 
 

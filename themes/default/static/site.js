@@ -47,7 +47,7 @@
       range: { category: c.category },
       mark: { color: c.mark },
       area: { color: c.band }, line: { color: c.mark }, point: { color: c.mark }, rule: { color: c.domain },
-      rect: { color: c.density },
+      rect: { color: c.density }, text: { color: c.text },
       axis: axis,
       legend: { labelColor: c.text, titleColor: c.text, symbolFillColor: c.muted,
                 labelFontSize: 11, titleFontSize: 11, titleFontWeight: 600, symbolSize: 60, columnPadding: 14 },
