@@ -195,8 +195,14 @@ def _build(args: argparse.Namespace, out: _Printer) -> int:
     for w in summary.warnings:
         out.warn(w)
     for o in summary.outcomes:
+        for text in o.sidecar_warnings:
+            out.warn(text)
+        sidecar = o.source[: -len(".csv")] + ".toml"
         if o.status == "error":
-            out.error(o.message if o.source in o.message else f"{o.source}: {o.message}")
+            if o.message.startswith(sidecar):  # the fault is in the sidecar: it leads, the dataset follows
+                out.error(f"{o.message} (dataset {o.source} was not fitted)")
+            else:
+                out.error(o.message if o.source in o.message else f"{o.source}: {o.message}")
         elif o.requirements == "unmet":
             out.warn(f"{o.source}: a declared requirement is not met; see its page")
     if args.debug:

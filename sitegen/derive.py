@@ -113,13 +113,62 @@ def straight_line(design: Design) -> str | None:
     return None
 
 
+def one_normality_check(diagnostics: tuple[Diagnostic, ...]) -> tuple[Diagnostic, ...]:
+    """Shapiro–Wilk and Jarque–Bera shown as one check, ``normality``, so that they never read as two verdicts.
+
+    Shapiro–Wilk decides where it is computed (3 to 5,000 rows): it is the more powerful test in small and
+    moderate samples, where Jarque–Bera's χ² approximation is poor (common practice). Above that, Jarque–Bera,
+    a large-sample test, decides. The other test's result is stated in the text, not as a verdict.
+    """
+    by_name = {d.check: d for d in diagnostics}
+    sw, jb = by_name.get("normality_shapiro"), by_name.get("normality_jarque_bera")
+    if sw is None or jb is None:
+        return diagnostics
+    if sw.p_value is not None:
+        lead, other, why = sw, jb, "Shapiro–Wilk decides (the more powerful test up to 5,000 rows)"
+    else:
+        lead, other, why = jb, sw, "Jarque–Bera decides (Shapiro–Wilk is computed for 3 to 5,000 rows only)"
+    aside = ""
+    if other.p_value is not None:
+        start = other.text.rfind(" (")  # the figures are in the sentence's last parentheses
+        inner = other.text[start + 2 : other.text.rfind(")")] if start >= 0 else ""
+        aside = f" For reference only, not a second verdict: {inner}." if inner else ""
+    merged = Diagnostic(
+        "normality",
+        "Bell-shaped residuals",
+        lead.statistic,
+        lead.p_value,
+        lead.flag,
+        f"{lead.text} {why}.{aside}",
+        lead.advice,
+        lead.rows,
+    )
+    out: list[Diagnostic] = []
+    for d in diagnostics:
+        if d.check == "normality_shapiro":
+            out.append(merged)
+        elif d.check != "normality_jarque_bera":
+            out.append(d)
+    return tuple(out)
+
+
+def replicated_settings(design: Design) -> NDArray[np.bool_]:
+    """Rows whose predictor setting (every design column but the intercept) occurs in more than one row."""
+    cols = [j for j, t in enumerate(design.terms) if t != "Intercept"]
+    if not cols:
+        return np.zeros(len(design.y), dtype=bool)
+    settings = np.asarray(design.X[:, cols], dtype=np.float64)
+    _, inverse, counts = np.unique(settings, axis=0, return_inverse=True, return_counts=True)
+    return np.asarray(counts[np.ravel(inverse)] > 1, dtype=bool)
+
+
 def compute(
     design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray | None, *, weighting: str | None = None
 ) -> Derived:
     """Derive every requested result; problems with optional extras become warnings."""
     messages: list[Message] = []
     infl = influence(fit.q, fit.resid, fit.df_resid, weights=weights)
-    flags = flag_points(infl, fit.n, len(fit.terms))
+    flags = flag_points(infl, fit.n, len(fit.terms), designed=replicated_settings(design))
     sw = np.ones(fit.n) if weights is None else np.sqrt(weights)
     Xw = design.X * sw[:, None]
     checks = model_checks(
@@ -147,6 +196,7 @@ def compute(
         )
         for c in checks
     )
+    diagnostics = one_normality_check(diagnostics)
     for d in diagnostics:
         if d.flag:
             messages.append(check_warning(d))
@@ -793,6 +843,7 @@ def acceptance_evidence(
             found = read_back(float(fit.beta[0]), float(fit.beta[1]), design.X[:, 1], design.y, design.rows)
     bias = None
     bias_reason = ""
+    bias_line = ""
     if req.max_bias is not None:
         if x_col is None or not plain_response:
             bias_reason = "the bias (fitted y − x) needs a one-predictor model of an untransformed response"
@@ -805,6 +856,7 @@ def acceptance_evidence(
                 )
                 if found_bias is not None:
                     bias = tuple(AcceptedBias(b.at, b.estimate, b.ci_low, b.ci_high) for b in found_bias)
+                    bias_line = found_bias[0].line if found_bias else ""
             else:
                 try:
                     X_at = design_for(design, {x_col: at})
@@ -812,4 +864,4 @@ def acceptance_evidence(
                     X_at, bias_reason = None, f"the model cannot be evaluated at those levels ({exc})"
                 if X_at is not None:
                     bias = bias_at(fit, X_at, at)
-    return Evidence(found, found_reason, bias, bias_reason, x_range)
+    return Evidence(found, found_reason, bias, bias_reason, x_range, bias_line)

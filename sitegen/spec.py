@@ -94,6 +94,10 @@ class DatasetSpec:
     weighting: str | None = None
     percent_differences: bool = False
     requirements: RequirementSpec | None = None
+    leave_out: tuple[tuple[int, str], ...] = ()
+    analyst: str | None = None
+    reviewer: str | None = None
+    method_reference: str | None = None
     unknown_keys: tuple[tuple[str, str | None], ...] = field(default=(), compare=False)
 
 
@@ -306,6 +310,25 @@ def _bias_limit(v: object) -> BiasLimit:
     return BiasLimit(tuple(dict.fromkeys(at)), limit, limit_percent)
 
 
+def _leave_out(v: object) -> tuple[tuple[int, str], ...]:
+    example = 'a list of tables such as { row = 7, reason = "air bubble in the cell" }'
+    if not isinstance(v, list):
+        raise _BadValueError(example)
+    out: dict[int, str] = {}
+    for item in v:
+        if not isinstance(item, dict) or set(item) != {"row", "reason"}:
+            raise _BadValueError(f"{example}; each entry needs exactly 'row' and 'reason'")
+        row, reason = item["row"], item["reason"]
+        if isinstance(row, bool) or not isinstance(row, int) or row < 1:
+            raise _BadValueError(f"{example}; 'row' is a CSV data row number from 1 (the header not counted)")
+        if not isinstance(reason, str) or not reason.strip():
+            raise _BadValueError(f"{example}; every row left out needs its reason, as text")
+        if row in out:
+            raise _BadValueError(f"{example}; row {row} is listed twice")
+        out[row] = reason.strip()
+    return tuple(sorted(out.items()))
+
+
 _REQUIREMENT_KEYS: Mapping[str, Callable[[object], Any]] = {
     "min_r_squared": _fraction,
     "slope_within": _window,
@@ -383,6 +406,10 @@ _KEYS: Mapping[str, Callable[[object], Any]] = {
     "weighting": _weighting,
     "percent_differences": _boolean,
     "requirements": _requirements,
+    "leave_out": _leave_out,
+    "analyst": _opt_string,
+    "reviewer": _opt_string,
+    "method_reference": _opt_string,
 }
 SIDECAR_KEYS = tuple(sorted(_KEYS))
 assert set(_KEYS) == {f.name for f in fields(DatasetSpec)} - {"unknown_keys"}

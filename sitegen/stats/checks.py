@@ -32,7 +32,11 @@ refined residuals), and the variance inflation factors come from the fit's
 - curvature: Ramsey's RESET, an F test for adding the squared and cubed fitted
   values (computed here so that weights are respected).
 - lack_of_fit: F test of the model against the means of rows with identical
-  predictor values (pure error), when such repeats exist.
+  predictor values (pure error). Our rule: it is judged only when at least
+  ``LOF_MIN_REPEATED`` settings were measured more than once and pure error has at
+  least ``LOF_MIN_PURE_DF`` degrees of freedom; with fewer, the pure-error variance
+  rests on one or two differences and the test can neither find a misfit nor vouch
+  for the line.
 - collinearity: variance inflation factors (flag above 10, common practice) with an
   intercept; without one, the condition number of the column-scaled design (flag
   above 30, common practice).
@@ -437,6 +441,10 @@ def _curvature(d: _Data) -> _Outcome:
     return stat, p, f"RESET F = {_num(stat)}, {_p(p)}"
 
 
+LOF_MIN_REPEATED = 2  # settings measured more than once
+LOF_MIN_PURE_DF = 3  # degrees of freedom of pure error
+
+
 def _lack_of_fit(d: _Data) -> _Outcome:
     pred = d.X[:, _predictors(d)]
     if pred.shape[1] == 0:
@@ -451,6 +459,13 @@ def _lack_of_fit(d: _Data) -> _Outcome:
         return "No predictor setting is repeated, so there is no pure error to compare with."
     if df_lof < 1:
         return f"The model has as many coefficients as distinct settings ({m}), so there is nothing to test."
+    repeated = int(np.sum(np.bincount(groups, minlength=m) > 1))
+    if repeated < LOF_MIN_REPEATED or df_pe < LOF_MIN_PURE_DF:
+        return (
+            f"Too few repeated measurements to judge: {repeated} setting{'s' if repeated != 1 else ''} measured "
+            f"more than once, {df_pe} degree{'s' if df_pe != 1 else ''} of freedom of pure error; the test needs "
+            f"at least {LOF_MIN_REPEATED} repeated settings and {LOF_MIN_PURE_DF} degrees of freedom."
+        )
     means = np.bincount(groups, d.s * d.yw, m) / np.bincount(groups, d.s * d.s, m)
     dev = d.yw - d.s * means[groups]
     ss_pe = float(dev @ dev)
