@@ -73,7 +73,7 @@ def test_index_estimates_carry_their_units(tmp_path: Path) -> None:
 
 def test_chart_axes_keep_their_labels_apart() -> None:
     root = Path(__file__).resolve().parents[1]
-    script = (root / "sitegen" / "themes" / "default" / "static" / "site.js").read_text(encoding="utf-8")
+    script = (root / "themes" / "default" / "static" / "site.js").read_text(encoding="utf-8")
     axis = script[script.index("var axis = {") :].split("};")[0]
     assert 'labelOverlap: "greedy"' in axis
     assert "labelSeparation" in axis
