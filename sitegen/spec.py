@@ -517,7 +517,14 @@ def validate_keys(table: Mapping[str, object], where: str) -> tuple[dict[str, An
         check = _KEYS.get(key)
         if check is None:
             shown = key if len(key) <= 60 else key[:57] + "..."
-            unknown.append((shown, _closest(key, SIDECAR_KEYS) if len(key) <= 60 else None))
+            hint = _closest(key, SIDECAR_KEYS) if len(key) <= 60 else None
+            if hint == "requirements":  # a misspelt [requirements] would drop every criterion without a word
+                raise SidecarError(
+                    f"{where}: unknown key '{shown}' looks like a misspelt 'requirements'; its acceptance "
+                    "criteria would be ignored",
+                    hint="rename the table to [requirements]",
+                )
+            unknown.append((shown, hint))
             continue
         too_large = _size_problem(key, value)
         if too_large:

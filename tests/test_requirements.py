@@ -65,6 +65,27 @@ def test_misspelt_criterion_fails_that_dataset_naming_sidecar_and_closest_key(tm
     assert _summary(tmp_path / "site")["b"]["status"] != "error"
 
 
+@pytest.mark.parametrize("name", ["requirement", "requirments", "Requirements"])
+def test_misspelt_requirements_table_fails_that_dataset_instead_of_dropping_its_criteria(
+    tmp_path: Path, name: str
+) -> None:
+    # A misspelt table name would otherwise be one more unknown key (a warning), every criterion in it
+    # dropped, and --enforce would exit 0 on data that do not meet them.
+    data = tmp_path / "data"
+    write_csv(data / "a.csv", "x,y\n1,2\n2,4.1\n3,5.9\n4,8.2\n")
+    write_toml(data / "a.toml", f"[{name}]\nmin_r_squared = 0.99999\n")
+    write_csv(data / "b.csv", "x,y\n1,2\n2,4.1\n3,5.9\n4,8.2\n")
+    code, out = _build(data, tmp_path / "site", "--enforce")
+    assert code == 1
+    assert "a.toml" in out
+    assert f"'{name}'" in out
+    assert "[requirements]" in out
+    assert "Traceback" not in out
+    summary = _summary(tmp_path / "site")
+    assert summary["a"]["status"] == "error"
+    assert summary["b"]["status"] != "error"
+
+
 @pytest.mark.parametrize(
     ("table", "words"),
     [
