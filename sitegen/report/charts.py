@@ -194,7 +194,7 @@ def _across(alt: Any, along: str) -> Any:
 
 def _percent(alt: Any) -> Any:
     """Residuals as a percentage of the fitted value against x (calibrations; rows at x = 0 left out)."""
-    x = alt.X("x:Q", title=X_TITLE, scale=alt.Scale(zero=False))
+    x = alt.X("x:Q", title=X_TITLE, scale=alt.Scale(zero=False), axis=alt.Axis(tickCount=8, labelOverlap=True))
     keep = "isValid(datum.x) && datum.x != 0 && isValid(datum.fitted) && datum.fitted != 0"
     calc = {"percent": "100 * datum.residual / datum.fitted", "base": "0"}
     y = alt.Y("percent:Q", title="Residual, % of fitted value")

@@ -38,23 +38,25 @@ class Section:
 DATASET_SECTIONS: tuple[Section, ...] = (
     Section("heading", "always"),  # title, status, source file, tags
     Section("description", "always"),  # the sidecar's Markdown description
+    Section("provenance", "always"),  # when built, from which input (SHA-256), who is responsible
     Section("failure", "failed"),  # why the dataset could not be fitted
     Section("glance", "fitted"),  # the fit in one sentence and four figures
     Section("requirements", "fitted"),  # the declared acceptance criteria, met or not
+    Section("excluded", "fitted"),  # rows the sidecar leaves out, with their reasons
     Section("notes", "fitted"),  # warnings and notes that no check below restates
     Section("comparison", "fitted", ("comparison",)),  # what a method comparison leads with
     Section("calibration", "fitted", ("calibration",)),  # what a calibration leads with (includes "inverse")
     Section("trust", "fitted"),  # the model checks and their verdicts
     Section("line", "fitted"),  # the line chart with its bands
-    Section("estimates", "fitted"),  # coefficients, adjusted R², F, condition number
+    Section("estimates", "fitted"),  # coefficients, then the line as a whole in sentences
     Section("claims", "fitted"),  # declared hypotheses and their tests
     Section("lines", "fitted"),  # other lines through the same points
     Section("inverse", "fitted", ("relation", "comparison")),  # inverse predictions, detection limits
     Section("predictions", "fitted"),  # predicted values at chosen points
     Section("groups", "fitted"),  # one line per group
-    Section("residuals", "fitted"),  # the four residual charts
+    Section("residuals", "fitted"),  # each residual chart beside the checks it supports
     Section("flagged", "fitted"),  # rows past the influence cut-offs
-    Section("anova", "fitted"),  # the analysis of variance
+    Section("anova", "fitted"),  # where the variation goes: the analysis of variance from the total down
     Section("method", "always"),  # how this page was made
     Section("downloads", "always"),  # the dataset's files
 )

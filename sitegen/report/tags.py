@@ -20,8 +20,10 @@ def tag_blocks(reports: Sequence[FitReport]) -> list[dict[str, Any]]:
     blocks = []
     for tag, members in sorted(by_tag.items()):
         rows: list[dict[str, Any]] = []
+        left_out = [r.title for r in members if r.pooled_contrast]
         for r in members:
-            c = r.coefficient(r.compare_term) if r.compare_term and r.status != "error" else None
+            usable = r.compare_term and r.status != "error" and not r.pooled_contrast
+            c = r.coefficient(r.compare_term) if usable and r.compare_term else None
             if c is not None:
                 rows.append(
                     {
@@ -39,7 +41,7 @@ def tag_blocks(reports: Sequence[FitReport]) -> list[dict[str, Any]]:
         drawn = rows if summary is None else summary["drawn"]
         forest = (
             charts.forest_chart(drawn, terms[0] if len(terms) == 1 else "estimate of each dataset's term")
-            if drawn
+            if drawn and len(rows) >= 2  # one dataset has nothing to be compared with; its page shows its interval
             else None
         )
         test = ""
@@ -53,8 +55,8 @@ def tag_blocks(reports: Sequence[FitReport]) -> list[dict[str, Any]]:
                 )
                 test = (
                     f"{verdict} (Cochran's Q = {fmt.num(h.q)} on {h.df} df, {fmt.p_phrase(h.p_value)}; "
-                    f"pooled estimate {fmt.num(h.pooled)} ± {fmt.num(h.pooled_se)}). The test treats each "
-                    "dataset's standard error as known and is tested at the 5% level."
+                    f"pooled estimate {fmt.num(h.pooled)}, standard error {fmt.num(h.pooled_se)}). "
+                    "The test treats each dataset's standard error as known and is tested at the 5% level."
                 )
         elif len(rows) >= 2:
             test = (
@@ -65,6 +67,11 @@ def tag_blocks(reports: Sequence[FitReport]) -> list[dict[str, Any]]:
         caption = f"Estimates with intervals for the {len(rows)} {sets} tagged {tag}" + (
             f" (term {terms[0]})." if len(terms) == 1 else "."
         )
+        if left_out:
+            test = (
+                f"{test} Left out: {', '.join(left_out)} — its groups have different slopes, so its pooled line is "
+                "not a value to compare."
+            ).strip()
         if summary is not None:
             caption = (
                 f"The {EXTREMES} lowest and {EXTREMES} highest of the {len(rows)} estimates tagged {tag}"

@@ -128,8 +128,14 @@ class PointFlags:
     rows: tuple[int, ...]
 
 
-def flag_points(infl: Influence, n: int, p: int) -> PointFlags:
+def flag_points(infl: Influence, n: int, p: int, designed: NDArray[np.bool_] | None = None) -> PointFlags:
     """Mark rows by the usual rules of thumb (all common practice).
+
+    ``designed`` marks rows at a setting of the design that was measured more than once (a calibration's
+    standards, its end points included): their leverage is the design's choice, so leverage above 2p/n does
+    not mark them, nor do Cook's distance above 4/n and |DFFITS| above 2√(p/n), which grow with leverage
+    alone; they are marked by a large residual, leverage 1, or Cook's distance above the median of
+    F(p, n − p) (the stricter limit of the model check on influence).
 
     - leverage above 2p/n (twice the average leverage p/n);
     - leverage ≈ 1 (above ``LEVERAGE_ONE``): the point alone sets a coefficient;
@@ -147,7 +153,14 @@ def flag_points(infl: Influence, n: int, p: int) -> PointFlags:
         resid = np.abs(np.asarray(infl.studentized_residual, dtype=np.float64)) > res_cut
         cooks = np.asarray(infl.cooks_distance, dtype=np.float64) > cooks_cut
         dffits = np.abs(np.asarray(infl.dffits, dtype=np.float64)) > dffits_cut
-    rows = np.flatnonzero(high | one | resid | cooks | dffits)
+    marked = high | one | resid | cooks | dffits
+    if designed is not None and n > p:
+        from sitegen.stats.distributions import f_ppf  # noqa: PLC0415
+
+        with np.errstate(invalid="ignore"):
+            strong = np.asarray(infl.cooks_distance, dtype=np.float64) > f_ppf(0.5, p, n - p)
+        marked &= ~np.asarray(designed, dtype=bool) | resid | one | strong
+    rows = np.flatnonzero(marked)
     return PointFlags(
         high_leverage=high,
         leverage_one=one,

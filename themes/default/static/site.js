@@ -38,7 +38,8 @@
 
   function chartConfig(name) {
     var c = colours(name);
-    var axis = { labelColor: c.text, titleColor: c.text, gridColor: c.grid, domainColor: c.domain,
+    var axis = { labelOverlap: "greedy", labelSeparation: 6, labelFlush: true,
+                 labelColor: c.text, titleColor: c.text, gridColor: c.grid, domainColor: c.domain,
                  tickColor: c.domain, labelFontSize: 11, titleFontSize: 12, titleFontWeight: 600 };
     return {
       background: null,
@@ -71,7 +72,11 @@
   /* Faceted charts cannot take the container's width by themselves; give them its width here. */
   function fitFacet(spec, target) {
     if (spec.facet && spec.spec && typeof spec.spec.width === "number" && target.clientWidth > 0) {
-      spec.spec.width = Math.max(200, Math.min(640, target.clientWidth - 24));
+      var width = Math.max(160, Math.min(640, target.clientWidth - 40));
+      spec.spec.width = width;
+      /* row headings above each panel: no wider than the panel, so a phone or the paper holds them */
+      var row = spec.facet.row;
+      if (row && row.header) { row.header.labelLimit = width; }
     }
     return spec;
   }
@@ -275,7 +280,31 @@
     });
   }
 
+  /* ---- narrow screens: every table of numbers can be read as one card per row ----
+     Each cell is labelled with its column heading (data-label); the style sheet stacks the cells under
+     40rem, so that no column, the status included, hides behind a horizontal scroll. */
+
+  function labelCells() {
+    document.querySelectorAll("table.numbers").forEach(function (table) {
+      var heads = table.tHead ? table.tHead.rows[table.tHead.rows.length - 1].cells : [];
+      if (!heads.length) { return; }
+      var names = Array.prototype.map.call(heads, function (th) { return th.textContent.replace(/[↕↑↓]/g, "").trim(); });
+      Array.prototype.forEach.call(table.tBodies, function (body) {
+        Array.prototype.forEach.call(body.rows, function (row) {
+          if (row.classList.contains("group-row")) { return; }
+          var col = 0;
+          Array.prototype.forEach.call(row.cells, function (cell) {
+            if (!cell.hasAttribute("data-label") && names[col]) { cell.setAttribute("data-label", names[col]); }
+            col += cell.colSpan || 1;
+          });
+        });
+      });
+      table.classList.add("stackable");
+    });
+  }
+
   function start() {
+    labelCells();
     setupSorting();
     setupFilters();
     collect();
