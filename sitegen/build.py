@@ -25,14 +25,28 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from sitegen import __version__
-from sitegen.confine import files_under, outside_reason, read_inside
+from sitegen.confine import files_under, read_inside
 from sitegen.digest import file_sha256, sha256_hex
 from sitegen.discover import SITE_CONFIG_NAME, DatasetSource, discover
 from sitegen.errors import INTERNAL_ERROR_WORDS, ConfigError, OutsideFolderError
 from sitegen.jsontext import json_text
-from sitegen.publish import build_folder, check_output_folder, copy_new, marker_intact, swap_in
+from sitegen.publish import build_folder, check_output_folder, copy_new, swap_in
+from sitegen.records import (
+    Measured,
+    PreviousBuild,
+    file_stat,
+    files_by_folder,
+    fit_json_intact,
+    input_stat,
+    manifest,
+    measure,
+    nothing_changed,
+    read_previous,
+    retimed,
+)
 from sitegen.report.outputs import is_data_file, site_names
-from sitegen.report.theme import Theme, load_theme
+from sitegen.report.theme import Theme, default_theme_dir, load_theme
+from sitegen.spare import Spare, open_spare, remove
 from sitegen.spec import SiteConfig, read_site_config
 from sitegen.versions import library_versions
 
@@ -101,54 +115,8 @@ def _now() -> str:
     return time.strftime("%Y-%m-%dT%H:%M:%S+00:00", time.gmtime())
 
 
-#: A file whose modification time is this close to the moment its hash was recorded is hashed
-#: again next time, as its content may still change within the file system's clock resolution
-#: (common practice: git's rule for "racily clean" files).
-_RACY_NS = 2_000_000_000
-
-
-def _stat(path: Path) -> list[int] | None:
-    """Size, modification time, inode and change time of one of our own output files (as the site's file
-    manifest records them: a file rewritten in place, its modification time set back, still differs)."""
-    try:
-        st = path.stat()
-    except OSError:
-        return None
-    return [st.st_size, st.st_mtime_ns, st.st_ino, st.st_ctime_ns]
-
-
-def _input_stat(path: Path) -> list[int] | None:
-    """Size, modification time, inode, change time and device of an input file.
-
-    The change time cannot be set back (a copy that restores the modification time, such as
-    ``cp -p`` or ``rsync -t``, still moves it), so an edit is always noticed (common practice, as git).
-    """
-    try:
-        st = path.stat()
-    except OSError:
-        return None
-    return [st.st_size, st.st_mtime_ns, st.st_ino, st.st_ctime_ns, st.st_dev]
-
-
-def _refused(path: Path | None, root: Path | None) -> str | None:
-    """A stand-in hash for an input that leads outside the data folder (it is never read, not even to hash it);
-    None for a file that may be read."""
-    if path is None or root is None:
-        return None
-    reason = outside_reason(path, root)
-    return None if reason is None else sha256_hex(f"refused: {reason}".encode())
-
-
-def _known_sha(stat: list[int] | None, record: Any, name: str) -> str | None:
-    """The recorded sha256 of file ``name`` when its size, time and inode are as recorded, else None."""
-    if stat is None or not isinstance(record, dict) or record.get(name) != stat:
-        return None
-    sha = record.get(f"{name}_sha256")
-    return sha if isinstance(sha, str) and len(sha) == 64 else None
-
-
 def _shared_inputs(config: SiteConfig, versions: dict[str, str]) -> str:
-    """What shapes every dataset's numbers besides its own files, as text for :func:`_fingerprint`."""
+    """What shapes every dataset's numbers besides its own files, as text for :func:`sitegen.records.measure`."""
     return json.dumps(
         {
             "defaults": [[k, v] for k, v in config.defaults],
@@ -162,51 +130,16 @@ def _shared_inputs(config: SiteConfig, versions: dict[str, str]) -> str:
     )
 
 
-def _fingerprint(
-    src: DatasetSource, shared: str, record: Any = None
-) -> tuple[str, str, dict[str, Any], tuple[list[int] | None, list[int] | None]]:
-    """(input sha256, fingerprint of everything that shapes the dataset's numbers, stat record, and the CSV's and
-    sidecar's stats as they are now).
-
-    Files whose size, modification time and inode match the previous build's record are not
-    read again; their recorded hashes stand (the record is kept in build.json).
-    """
-    now = time.time_ns()
-    csv_refused = _refused(src.csv_path, src.root)
-    csv_stat = _input_stat(src.csv_path) if csv_refused is None else None
-    csv_sha = _known_sha(csv_stat, record, "csv") if csv_refused is None else csv_refused
-    if csv_sha is None:
-        try:
-            csv_sha = file_sha256(src.csv_path)
-        except OSError:
-            return "", "", {}, (None, None)
-    side_refused = _refused(src.sidecar_path, src.root)
-    side_stat = _input_stat(src.sidecar_path) if src.sidecar_path is not None and side_refused is None else None
-    side_sha = _known_sha(side_stat, record, "sidecar") if src.sidecar_path else sha256_hex(b"")
-    if side_refused is not None:
-        side_sha = side_refused
-    elif side_sha is None:
-        sidecar = b""
-        if src.sidecar_path is not None:
-            try:
-                sidecar = read_inside(src.sidecar_path, src.root)
-            except (OSError, OutsideFolderError):
-                sidecar = b"<unreadable>"
-        side_sha = sha256_hex(sidecar)
-    payload = shared + "\n" + json.dumps([csv_sha, side_sha, src.relpath, src.slug, src.section])
-
-    def settled(stat: list[int] | None) -> list[int] | None:
-        return stat if stat is not None and max(stat[1], stat[3]) < now - _RACY_NS else None
-
-    stats = {"csv": settled(csv_stat), "csv_sha256": csv_sha, "sidecar": settled(side_stat), "sidecar_sha256": side_sha}
-    return csv_sha, sha256_hex(payload.encode()), stats, (csv_stat, side_stat)
-
-
 def _site_key(config: SiteConfig, theme: Theme) -> str:
     """Fingerprint of everything besides a dataset's own inputs that shapes its page."""
     parts = [repr(config).encode(), __version__.encode()]
     parts.append(json.dumps(library_versions(RENDER_LIBRARIES), sort_keys=True).encode())
+    ours = default_theme_dir()
     for folder in (*theme.template_dirs, *theme.static_dirs):
+        if folder.parent == ours:  # the default theme is sitegen's own files: read without the confinement checks
+            for path in sorted(p for p in folder.rglob("*") if p.is_file()):
+                parts += [path.relative_to(folder).as_posix().encode(), path.read_bytes()]
+            continue
         for rel, path, refused in files_under(folder):  # a file refused (a link out) counts by its name only
             try:
                 data = refused.encode() if refused else read_inside(path, folder, where="theme folder")
@@ -215,28 +148,6 @@ def _site_key(config: SiteConfig, theme: Theme) -> str:
             parts += [rel.encode(), data]
     parts.append(theme.charts_json.encode())
     return sha256_hex(b"".join(parts))
-
-
-@dataclass(frozen=True, slots=True)
-class _Previous:
-    """What the previous build left that can be reused."""
-
-    site: Path | None
-    entries: dict[str, dict[str, Any]]
-    site_key: str
-    body: dict[str, Any]
-    text: str = ""  # build.json as read
-
-
-def _previous(out_dir: Path) -> _Previous:
-    path = out_dir / "build.json"
-    try:
-        text = path.read_text(encoding="utf-8")
-        body = json.loads(text)
-        entries = {str(e["dataset"]): e for e in body["datasets"] if isinstance(e, dict)}
-        return _Previous(out_dir, entries, str(body.get("site_key", "")), body, text)
-    except (OSError, ValueError, KeyError, TypeError):
-        return _Previous(out_dir if out_dir.is_dir() else None, {}, "", {})
 
 
 # --- the build --------------------------------------------------------------------------
@@ -257,19 +168,16 @@ def run_build(
     shared = _shared_inputs(config, library_versions(LIBRARIES))
     site_key = _site_key(config, theme)
     with build_folder(out_dir) as work:
-        prev = _previous(out_dir) if not options.refit else _Previous(None, {}, "", {})
-        measured = {s.slug: _fingerprint(s, shared, prev.entries.get(s.slug, {}).get("stat")) for s in sources}
-        prints = {slug: (m[0], m[1]) for slug, m in measured.items()}
-        stats = {slug: m[2] for slug, m in measured.items()}
-        inputs = {slug: m[3] for slug, m in measured.items()}
-        if _nothing_changed(prev, sources, prints, site_key):
-            outcomes = _touch_build_json(out_dir, prev, stats)
+        prev = read_previous(out_dir) if not options.refit else PreviousBuild(None, {}, "", {})
+        measured = {s.slug: measure(s, shared, prev.entries.get(s.slug, {}).get("stat")) for s in sources}
+        if nothing_changed(prev, sources, measured, site_key):
+            outcomes = _touch_build_json(out_dir, prev, measured)
             return BuildSummary(out_dir, outcomes, 0, len(sources), time.perf_counter() - started, tuple(warnings))
         if theme.sandboxed:  # a user's templates: a syntax error stops the build before the spare is touched
             from sitegen.report.pages import check_theme  # noqa: PLC0415
 
             check_theme(theme)
-        spare = _open_spare(work, trusted=prev.site is not None)
+        spare = open_spare(work, trusted=prev.site is not None)
         from sitegen.executor import make_executor  # noqa: PLC0415 - a process pool only when there is work
 
         # Chart images run the chart converter, whose threads must stay out of this process (a pool
@@ -281,13 +189,11 @@ def run_build(
                 spare=spare,
                 prev=prev,
                 sources=sources,
-                prints=prints,
+                measured=measured,
                 config=config,
                 site_key=site_key,
                 run=run,
                 progress=progress,
-                stats=stats,
-                inputs=inputs,
             )
             try:
                 summary = state.execute(theme)
@@ -308,36 +214,6 @@ def run_build(
     )
 
 
-def _nothing_changed(
-    prev: _Previous, sources: Sequence[DatasetSource], prints: dict[str, tuple[str, str]], site_key: str
-) -> bool:
-    if prev.site is None or not prev.entries or prev.site_key != site_key:
-        return False
-    if set(prev.entries) != {s.slug for s in sources}:
-        return False
-    for s in sources:
-        e = prev.entries[s.slug]
-        if e.get("fingerprint") != prints[s.slug][1] or not prints[s.slug][1]:
-            return False
-        if e.get("status") == "error" and e.get("failure_kept") is not True:
-            return False  # a failure is reused only when it came from the input itself
-    if not marker_intact(prev.site):
-        return False  # a build rewrites it
-    # every file the previous build wrote is still there as it was written, and nothing else is
-    files = _manifest(prev.site)
-    if prev.body.get("files") != files:
-        return False
-    for s in sources:  # each fit.json is the one whose sha256 was recorded (read from the walk: no more stats)
-        e = prev.entries[s.slug]
-        if not e.get("fit_sha256"):
-            return False
-        if e.get("fit_stat") != files.get(f"datasets/{s.slug}/fit.json") and not _fit_json_intact(
-            prev.site / "datasets" / s.slug / "fit.json", e
-        ):
-            return False  # missing, changed or corrupt since the previous build wrote it
-    return True
-
-
 def _failure_from_input(report: FitReport, csv_sha: str) -> bool:
     """A failed result read from the bytes the fingerprint covers (or refused before reading) and not
     sitegen's own failure. The build also checks that no input file changed while it ran."""
@@ -348,44 +224,6 @@ def _failure_from_input(report: FitReport, csv_sha: str) -> bool:
         and report.input_sha256 in ("", csv_sha)
         and not any(INTERNAL_ERROR_WORDS in t for t in errors)
     )
-
-
-def _fit_json_intact(path: Path, entry: dict[str, Any]) -> bool:
-    """The stored fit.json is the one the previous build recorded: same size, time and inode, or same sha256.
-
-    Our own output, recorded right after it was written; a file rewritten since has a new time.
-    """
-    sha = entry.get("fit_sha256")
-    if not sha:
-        return False
-    stat = _stat(path)
-    if stat is None:
-        return False
-    if stat == entry.get("fit_stat"):
-        return True
-    try:
-        return bool(file_sha256(path) == sha)
-    except OSError:
-        return False
-
-
-def _manifest(site: Path) -> dict[str, list[int]]:
-    """Size, modification time, inode and change time of every file of a built site, except build.json and
-    sitegen's own top-level dot files (a file changed since, even to the same size and time, no longer matches)."""
-    out: dict[str, list[int]] = {}
-
-    def walk(folder: str, prefix: str) -> None:
-        with os.scandir(folder) as entries:
-            for entry in entries:
-                rel = prefix + entry.name
-                if entry.is_dir(follow_symlinks=False):
-                    walk(entry.path, rel + "/")
-                elif entry.is_file(follow_symlinks=False) and rel != "build.json" and not rel.startswith("."):
-                    st = entry.stat(follow_symlinks=False)
-                    out[rel] = [st.st_size, st.st_mtime_ns, st.st_ino, st.st_ctime_ns]
-
-    walk(str(site), "")
-    return dict(sorted(out.items()))
 
 
 def _stored_report(folder: Path, slug: str, csv_sha: str) -> FitReport | None:
@@ -405,13 +243,16 @@ def _stored_report(folder: Path, slug: str, csv_sha: str) -> FitReport | None:
     return report
 
 
-def _touch_build_json(out_dir: Path, prev: _Previous, stats: dict[str, dict[str, Any]]) -> tuple[Outcome, ...]:
+def _touch_build_json(out_dir: Path, prev: PreviousBuild, measured: dict[str, Measured]) -> tuple[Outcome, ...]:
     """Nothing changed: record this build in build.json (atomically) and leave the rest."""
     body = dict(prev.body)
     body["built_at"] = _now()
-    body["datasets"] = [dict(e, reused=True, stat=stats.get(e.get("dataset"), {})) for e in body.get("datasets", [])]
+    body["datasets"] = [
+        dict(e, reused=True, stat=m.record if (m := measured.get(e.get("dataset", ""))) else {})
+        for e in body.get("datasets", [])
+    ]
     tmp = out_dir / f".build.json.{os.getpid()}.tmp"
-    tmp.write_text(_retimed(prev, body) or json_text(body), encoding="utf-8")
+    tmp.write_text(retimed(prev, body) or json_text(body), encoding="utf-8")
     tmp.replace(out_dir / "build.json")
     return tuple(
         Outcome(
@@ -425,110 +266,9 @@ def _touch_build_json(out_dir: Path, prev: _Previous, stats: dict[str, dict[str,
     )
 
 
-def _retimed(prev: _Previous, body: dict[str, Any]) -> str | None:
-    """The previous build.json's text with only its build time changed, when that is all that differs from
-    ``body`` (a rebuild with nothing to do after one that reused everything); else None.
-
-    Top-level keys are the only lines that begin with a line break and one space (see :mod:`sitegen.jsontext`).
-    """
-    if body["datasets"] != prev.body.get("datasets") or "built_at" not in prev.body:
-        return None
-    old = '\n "built_at": ' + json.dumps(prev.body["built_at"], ensure_ascii=False) + ",\n"
-    if prev.text.count(old) != 1:
-        return None
-    return prev.text.replace(old, '\n "built_at": ' + json.dumps(body["built_at"], ensure_ascii=False) + ",\n")
-
-
-def _files_by_folder(body: dict[str, Any]) -> dict[str, dict[str, Any]]:
-    """A build.json's file manifest, grouped by dataset folder: slug -> {name: [size, mtime, inode, ctime]}."""
-    out: dict[str, dict[str, Any]] = {}
-    files = body.get("files")
-    if isinstance(files, dict):
-        for key, stat in files.items():
-            if key.startswith("datasets/"):
-                slug, _, name = key[len("datasets/") :].partition("/")
-                out.setdefault(slug, {})[name] = stat
-    return out
-
-
-@dataclass(frozen=True, slots=True)
-class _Spare:
-    """The build folder as the build before the previous one left it (see :mod:`sitegen.publish`)."""
-
-    entries: dict[str, dict[str, Any]]  # its build.json's datasets when it may be trusted, else empty
-    recorded: dict[str, dict[str, Any]]  # its build.json's file manifest by dataset folder
-    folders: dict[str, dict[str, list[int]]]  # what its dataset folders hold now: name -> [size, times, inode]
-
-
-def _open_spare(work: Path, *, trusted: bool) -> _Spare:
-    """Read the spare's record, then unseal it and clear out what a site of ours cannot hold.
-
-    Its build.json goes first: a build killed while updating the spare leaves one that is never
-    trusted again. The site-wide files go too (every build writes them anew), and so do symbolic
-    links and other odd entries. Nothing in the spare is ever rewritten in place: a file is
-    replaced by a new one, so whoever still reads a file of an earlier site keeps reading it whole,
-    and nothing written here can change a file elsewhere (a ``cp -al`` backup, say).
-    """
-    entries: dict[str, dict[str, Any]] = {}
-    recorded: dict[str, dict[str, Any]] = {}
-    if trusted:
-        spare = _previous(work)
-        entries, recorded = spare.entries, _files_by_folder(spare.body)
-    _remove(work / "build.json")
-    folders: dict[str, dict[str, list[int]]] = {}
-    with os.scandir(work) as top:
-        for entry in top:
-            if entry.name == "datasets" and entry.is_dir(follow_symlinks=False):
-                with os.scandir(entry.path) as sets:
-                    for folder in sets:
-                        if folder.is_dir(follow_symlinks=False):
-                            folders[folder.name] = _own_files(folder.path, nested=False)
-                        else:
-                            _remove(Path(folder.path))
-            elif entry.is_dir(follow_symlinks=False):
-                _own_files(entry.path, nested=True)
-            elif entry.name not in _KEEP_AT_TOP or not entry.is_file(follow_symlinks=False):
-                _remove(Path(entry.path))
-    return _Spare(entries, recorded, folders)
-
-
-_KEEP_AT_TOP = (".sitegen", ".owner")  # the marker and the running build's owner file (publish.py)
-
-
-def _own_files(folder: str, *, nested: bool) -> dict[str, list[int]]:
-    """Size, time and inode of the plain, singly linked files in ``folder``; removes anything else
-    (sub-folders unless ``nested``)."""
-    out: dict[str, list[int]] = {}
-    with os.scandir(folder) as entries:
-        for entry in entries:
-            if entry.is_dir(follow_symlinks=False):
-                if nested:
-                    _own_files(entry.path, nested=True)
-                else:
-                    _remove(Path(entry.path))
-                continue
-            st = entry.stat(follow_symlinks=False) if entry.is_file(follow_symlinks=False) else None
-            if st is None or st.st_nlink > 1:
-                _remove(Path(entry.path))
-            else:
-                out[entry.name] = [st.st_size, st.st_mtime_ns, st.st_ino, st.st_ctime_ns]
-    return out
-
-
 def _sizes(manifest: dict[str, Any]) -> dict[str, Any]:
     """The sizes of a manifest's files (a build.json of an earlier version recorded sizes alone)."""
     return {name: stat[0] if isinstance(stat, list) and stat else stat for name, stat in manifest.items()}
-
-
-def _remove(path: Path) -> None:
-    """Delete a file, link or folder tree, if there."""
-    if path.is_dir() and not path.is_symlink():
-        import shutil  # noqa: PLC0415 - not needed by a rebuild with nothing to do
-
-        shutil.rmtree(path, ignore_errors=True)
-    else:
-        with contextlib.suppress(OSError):
-            path.unlink(missing_ok=True)
 
 
 class _Build:
@@ -539,24 +279,21 @@ class _Build:
         *,
         work: Path,
         published: Path,
-        spare: _Spare,
-        prev: _Previous,
+        spare: Spare,
+        prev: PreviousBuild,
         sources: Sequence[DatasetSource],
-        prints: dict[str, tuple[str, str]],
+        measured: dict[str, Measured],
         config: SiteConfig,
         site_key: str,
         run: Executor,
         progress: Progress | None,
-        stats: dict[str, dict[str, Any]],
-        inputs: dict[str, tuple[list[int] | None, list[int] | None]],
     ) -> None:
-        self.work, self.spare, self.prev, self.sources, self.prints = work, spare, prev, sources, prints
+        self.work, self.spare, self.prev, self.sources = work, spare, prev, sources
+        self.measured = measured  # per dataset: its inputs' hashes, fingerprint and stats (records.Measured)
         self.published = published  # the output folder
         self.config, self.site_key, self.run, self.progress = config, site_key, run, progress
-        self.stats = stats  # per dataset: file stats and hashes, recorded for the next build
-        self.inputs = inputs  # per dataset: the CSV's and sidecar's stats when the build began
         self.fit_shas: dict[str, str] = {}  # the known sha256 of each dataset's fit.json (checked or just written)
-        self.then_files = _files_by_folder(prev.body)  # the previous manifest by dataset folder
+        self.then_files = files_by_folder(prev.body)  # the previous manifest by dataset folder
         self.kept: set[str] = set()  # reused datasets whose folder in the spare was already right
         self.checked: set[str] = set()  # reused datasets whose published folder was checked file by file
         self.titles: dict[str, str] = {}  # expected titles of the neighbours of datasets being fitted
@@ -570,7 +307,7 @@ class _Build:
 
         index = entry.get("index")
         if entry.get("fit_sha256"):
-            if not _fit_json_intact(old / "fit.json", record):
+            if not fit_json_intact(old / "fit.json", record):
                 return None  # changed since the build that wrote it: fit again rather than trust it
             if isinstance(index, dict) and index.get("status") != "error":
                 try:
@@ -579,7 +316,7 @@ class _Build:
                     return report
                 except (KeyError, TypeError, ValueError):
                     pass
-        return _stored_report(old, slug, self.prints[slug][0])
+        return _stored_report(old, slug, self.measured[slug].input_sha256)
 
     def _spare_holds(self, slug: str, entry: dict[str, Any]) -> bool:
         """The spare's folder for ``slug`` holds the same result as the published one, whole."""
@@ -594,7 +331,7 @@ class _Build:
 
     def _reuse(self, src: DatasetSource) -> tuple[FitReport, tuple[str, ...]] | None:
         entry = self.prev.entries.get(src.slug)
-        fp = self.prints[src.slug][1]
+        fp = self.measured[src.slug].fingerprint
         if self.prev.site is None or entry is None or entry.get("fingerprint") != fp or not fp:
             return None
         if entry.get("status") == "error" and entry.get("failure_kept") is not True:
@@ -610,7 +347,7 @@ class _Build:
         if report is None:
             return None
         then_here = self.then_files.get(src.slug)
-        here = _manifest(old)
+        here = manifest(old)
         # By size: a published site copied elsewhere (new inodes and times) is still reused; its fit.json
         # was checked by hash. The spare, our own hidden copy, is held to the full record (_spare_holds).
         if not then_here or _sizes(then_here) != _sizes(here):
@@ -641,7 +378,7 @@ class _Build:
                 folder = self.work / "datasets" / src.slug
                 for name in self.spare.folders.get(src.slug, {}):  # written anew by the fit, or no longer wanted
                     (folder / name).unlink(missing_ok=True)
-                sha = self.prints[src.slug][0]
+                sha = self.measured[src.slug].input_sha256
                 config = self.config
                 around = Neighbours(ctx, self._expected_title(i - 1), self._expected_title(i + 1))
                 jobs.append(FitJob(src, config.defaults, config.limits, folder, config.offer_source, sha, around))
@@ -652,7 +389,7 @@ class _Build:
         paged: dict[str, tuple[Neighbours | None, tuple[str, ...]]] = {}
         for i, res in self.run.run(fit_job, jobs):
             slug = jobs[i].source.slug
-            report = res.report or report_from_index_entry(res.entry or {}, self.prints[slug][0])
+            report = res.report or report_from_index_entry(res.entry or {}, self.measured[slug].input_sha256)
             done[slug] = (report, res.files)
             paged[slug] = (res.paged, res.page_files)
             if res.fit_sha256:
@@ -663,7 +400,7 @@ class _Build:
             if self.progress:
                 self.progress(count, total, jobs[i].source.relpath)
         refitted = {j.source.slug for j in jobs}
-        reports = [_with_sha(done[s.slug][0], self.prints[s.slug][0]) for s in self.sources]
+        reports = [_with_sha(done[s.slug][0], self.measured[s.slug].input_sha256) for s in self.sources]
         entries, page_jobs, page_files = self._plan_pages(ctx, reports, done, refitted, paged)
         pending = self.run.run(page_job, page_jobs)  # the pool renders pages while this process does the rest
         index = pages.render_index(ctx, reports, tag_blocks(reports))
@@ -702,7 +439,7 @@ class _Build:
             files = done[src.slug][1]
             prev_r = Neighbour(reports[i - 1].dataset, reports[i - 1].title) if i > 0 else None
             next_r = Neighbour(reports[i + 1].dataset, reports[i + 1].title) if i + 1 < len(reports) else None
-            fp = self.prints[src.slug][1]
+            fp = self.measured[src.slug].fingerprint
             around = [[n.dataset, n.title] if n else None for n in (prev_r, next_r)]
             key = sha256_hex(json.dumps([fp, self.site_key, list(files), *around, report.status]).encode())
             target = self.work / "datasets" / src.slug / "index.html"
@@ -727,14 +464,14 @@ class _Build:
                 {
                     "dataset": src.slug,
                     "source": src.relpath,
-                    "input_sha256": self.prints[src.slug][0],
+                    "input_sha256": self.measured[src.slug].input_sha256,
                     "fingerprint": fp,
                     "page_key": key,
                     "reused": src.slug not in refitted,
                     "status": report.status,
                     "message": summary_row(report)["message"],
                     "index": index_entry(report),
-                    "stat": self.stats.get(src.slug, {}),
+                    "stat": self.measured[src.slug].record,
                     "failure_kept": self._failure_kept(src, done[src.slug][0]),
                 }
             )
@@ -743,11 +480,12 @@ class _Build:
     def _failure_kept(self, src: DatasetSource, report: FitReport) -> bool:
         """The dataset failed because of its input, read as the fingerprint saw it: no input file changed
         while this build ran (a file away, garbled or too large for a moment is tried again next time)."""
-        if report.status != "error" or not _failure_from_input(report, self.prints[src.slug][0]):
+        if report.status != "error" or not _failure_from_input(report, self.measured[src.slug].input_sha256):
             return False
-        csv_then, sidecar_then = self.inputs.get(src.slug, (None, None))
-        sidecar_now = _input_stat(src.sidecar_path) if src.sidecar_path is not None else None
-        return csv_then is not None and _input_stat(src.csv_path) == csv_then and sidecar_now == sidecar_then
+        then = self.measured[src.slug]
+        csv_then, sidecar_then = then.csv_stat, then.sidecar_stat
+        sidecar_now = input_stat(src.sidecar_path) if src.sidecar_path is not None else None
+        return csv_then is not None and input_stat(src.csv_path) == csv_then and sidecar_now == sidecar_then
 
     def _page_names(self, slug: str) -> tuple[str, ...]:
         names = ["index.html"]
@@ -773,19 +511,19 @@ class _Build:
         for slug, names in self.spare.folders.items():
             keep = wanted.get(slug)
             if keep is None:
-                _remove(folders / slug)
+                remove(folders / slug)
                 continue
             for name in names:
                 if name not in keep:
-                    _remove(folders / slug / name)
+                    remove(folders / slug / name)
         top = {"datasets", "assets", ".owner", MARKER, *site_names()}
         with os.scandir(self.work) as entries:
             for entry in entries:
                 if entry.name not in top:
-                    _remove(Path(entry.path))
+                    remove(Path(entry.path))
         for path in sorted((self.work / "assets").rglob("*"), reverse=True):  # files before their folders
             if path.is_file() and path.relative_to(self.work).as_posix() not in site_assets:
-                _remove(path)
+                remove(path)
             elif path.is_dir() and not any(path.iterdir()):
                 path.rmdir()
 
@@ -817,7 +555,7 @@ class _Build:
             stored = self.work / "datasets" / entry["dataset"] / "fit.json"
             known = self.fit_shas.get(entry["dataset"])
             entry["fit_sha256"] = known or file_sha256(stored)
-            entry["fit_stat"] = _stat(stored)
+            entry["fit_stat"] = file_stat(stored)
         body = {
             "generator": "sitegen",
             "sitegen_version": __version__,
@@ -828,7 +566,7 @@ class _Build:
             "title": self.config.title,
             "mail_budget_megabytes": self.config.mail_budget_megabytes,
             "datasets": entries,
-            "files": _manifest(self.work),  # written last: every other file of the site is in place
+            "files": manifest(self.work),  # written last: every other file of the site is in place
         }
         (self.work / "build.json").write_text(json_text(body), encoding="utf-8")
 

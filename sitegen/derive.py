@@ -343,7 +343,16 @@ def _calibration(
             readings=spec.readings,
         )
         lim = detection_limits(slope=b, residual_sd=fit.sigma, intercept_se=float(fit.std_error[0]))
-    except (FitError, ValueError, ArithmeticError) as exc:  # e.g. overflow for responses near 1e308
+    except OverflowError:  # responses near 1e308: the interval's arithmetic leaves double precision
+        messages.append(
+            Message(
+                "warning",
+                "inverse prediction could not be computed: a response is too large for floating-point arithmetic "
+                "(about 1.8e308 at most, less once squared); the 'calibrate' request was skipped",
+            )
+        )
+        return (), None
+    except (FitError, ValueError, ArithmeticError) as exc:
         messages.append(Message("warning", f"inverse prediction could not be computed: {exc}"))
         return (), None
     lo, hi = float(x.min()), float(x.max())
@@ -464,6 +473,19 @@ def _predictions(design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[
     if not rows:
         return ()
     b = bands(fit, X_new)
+    finite = np.isfinite(b.fit) & np.isfinite(b.pred_low) & np.isfinite(b.pred_high)
+    for row in (r for r, ok in zip(rows, finite, strict=True) if not ok):
+        at = ", ".join(f"{k} = {v:g}" for k, v in row.items())
+        messages.append(
+            Message(
+                "warning", f"predict_at {at}: the prediction is beyond the range of floating-point numbers; left out"
+            )
+        )
+    keep = [i for i, ok in enumerate(finite) if ok]
+    rows = [rows[i] for i in keep]
+    b = bands(fit, X_new[keep])
+    if not rows:
+        return ()
     ranges = _ranges(design, names)
     outside = [_outside(row, ranges) for row in rows]
     beyond = [text for found in outside for text in found]

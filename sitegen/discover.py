@@ -18,6 +18,8 @@ from dataclasses import dataclass
 from fnmatch import fnmatchcase
 from pathlib import Path
 
+from sitegen.confine import is_inside
+
 SITE_CONFIG_NAME = "site.toml"
 
 
@@ -103,6 +105,14 @@ def _isfile(path: str) -> bool:
         return False
 
 
+def _readable(path: str, root: str) -> bool:
+    """A plain file to read, or a link that leads out of the data folder (listed, so that its dataset gets an
+    error page saying it is refused, whatever it leads to: a file, a device such as /dev/zero, nothing)."""
+    if _isfile(path):
+        return True
+    return os.path.islink(path) and not is_inside(path, root)  # noqa: PTH114
+
+
 def discover(data_dir: Path, ignore: Sequence[str] = ()) -> tuple[DatasetSource, ...]:
     """List every dataset under ``data_dir`` in sorted path order, skipping hidden and ``ignore``d names."""
     found: list[str] = []
@@ -118,11 +128,11 @@ def discover(data_dir: Path, ignore: Sequence[str] = ()) -> tuple[DatasetSource,
                 continue
             if ignore and ignored(prefix + name, ignore):
                 continue
-            if not _isfile(os.path.join(dirpath, name)):  # noqa: PTH118 - broken link, fifo, link loop, …
+            if not _readable(os.path.join(dirpath, name), root):  # noqa: PTH118 - broken link, fifo, link loop, …
                 continue
             found.append(prefix + name)
             toml = name[: -len(".csv")] + ".toml"
-            if toml in names and _isfile(os.path.join(dirpath, toml)):  # noqa: PTH118
+            if toml in names and _readable(os.path.join(dirpath, toml), root):  # noqa: PTH118
                 sidecars.add(prefix + name)
     slugs = assign_slugs(found)
     sources = []

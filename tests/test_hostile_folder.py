@@ -90,13 +90,17 @@ def test_a_link_into_proc_is_refused(run_cli: Cli, small_data: Path, tmp_path: P
     try:
         (small_data / "env.csv").symlink_to("/proc/self/environ")
         (small_data / "status.csv").symlink_to("/proc/self/status")
+        (small_data / "zeros.csv").symlink_to("/dev/zero")  # would never end if read
+        (small_data / "gone.csv").symlink_to("/nonexistent/elsewhere.csv")
         site = tmp_path / "site"
         res = run_cli("build", small_data, "-o", site, "-q")
     finally:
         del os.environ["SITEGEN_TEST_SECRET"]
     assert res.code == 1
     rows = _summary(site)
-    assert rows["env"]["status"] == rows["status"]["status"] == "error"
+    for name in ("env", "status", "zeros", "gone"):  # each listed, with its own error page
+        assert rows[name]["status"] == "error", name
+        assert "leads outside the data folder" in str(rows[name]["message"])
     assert "outside the data folder" in str(rows["env"]["message"])
     assert SECRET not in _everything(site)
     assert "VmPeak" not in _everything(site)

@@ -117,3 +117,17 @@ def test_extrapolation_is_marked_on_the_page_in_the_downloads_and_in_the_status(
     assert page.count('class="extrapolated"') == 2
     inside = (site / "datasets" / "inside" / "index.html").read_text("utf-8")
     assert 'class="extrapolated"' not in inside
+
+
+def test_predictions_beyond_floating_point_are_left_out_with_the_reason(run_cli: Cli, tmp_path: Path) -> None:
+    data = tmp_path / "data"
+    write_csv(data / "line.csv", _rows(XS, YS))
+    write_toml(data / "line.toml", {"model": "y ~ x", "predict_at": [3.0, 1e308], "calibrate": [5.0, 1.7e308]})
+    site = tmp_path / "site"
+    assert run_cli("build", data, "-o", site, "-q").code == 0
+    fit = json.loads((site / "datasets" / "line" / "fit.json").read_text("utf-8"))
+    texts = " ".join(m["text"] for m in fit["messages"])
+    assert "predict_at x = 1e+308: the prediction is beyond the range of floating-point numbers" in texts
+    assert "too large for floating-point arithmetic" in texts
+    assert [r["x"] for r in _csv(site / "datasets" / "line" / "predictions.csv")] == ["3.0"]
+    assert fit["status"] == "warn"
