@@ -8,8 +8,8 @@ STAMP := $(VENV)/.installed
 
 $(STAMP): pyproject.toml
 	$(PYTHON) -m venv $(VENV)
-	$(BIN)/python -m pip install --quiet --upgrade pip
-	$(BIN)/python -m pip install --quiet -e '.[test,dev]' --config-settings editable_mode=compat
+	PIP_DISABLE_PIP_VERSION_CHECK=1 $(BIN)/python -m pip install -qq --upgrade pip
+	PIP_DISABLE_PIP_VERSION_CHECK=1 $(BIN)/python -m pip install -qq -e '.[test,dev]' --config-settings editable_mode=compat
 	touch $(STAMP)
 
 # Byte-compile our modules: with PYTHONDONTWRITEBYTECODE set, every run would compile them again.

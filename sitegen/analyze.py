@@ -28,8 +28,10 @@ from sitegen.model import AnovaLine, Coefficient, FitReport, Message, Status
 from sitegen.purposes import choose_weights
 from sitegen.requirements import judge
 from sitegen.spec import DatasetSpec, Limits, read_sidecar
+from sitegen.stats import ext
 from sitegen.stats.ols import OlsFit, anova_table, fit_ols
 from sitegen.stats.soundness import RESCALE, data_problem, figures_problem
+from sitegen.stats.text import p_text
 from sitegen.table import to_float
 
 
@@ -51,9 +53,24 @@ class DatasetResult:
     debug_trace: str | None = None
 
 
+def error_report(src: DatasetSource, text: str = "") -> FitReport:
+    """The report of a dataset that could not be fitted (with ``text`` as its error, when given)."""
+    base = FitReport(
+        dataset=src.slug,
+        source=src.relpath,
+        section=src.section,
+        title=Path(src.relpath).stem,
+        status="error",
+        model="",
+        level=0.95,
+    )
+    return replace(base, messages=(Message("error", text),)) if text else base
+
+
 def analyze(task: FitTask) -> DatasetResult:
-    """Fit one dataset; never raises. Floating-point overflow and the like print nothing: figures that
-    are not finite are caught by ``stats/soundness.py`` and reported in the dataset's own words."""
+    """Fit one dataset; never raises, except :class:`MemoryError` (the worker running it reports the memory
+    bound). Floating-point overflow and the like print nothing: figures that are not finite are caught by
+    ``stats/soundness.py`` and reported in the dataset's own words."""
     import warnings  # noqa: PLC0415
 
     with np.errstate(all="ignore"), warnings.catch_warnings():
@@ -64,21 +81,18 @@ def analyze(task: FitTask) -> DatasetResult:
 def _analyze(task: FitTask) -> DatasetResult:
     src = task.source
     title = Path(src.relpath).stem
-    base = FitReport(
-        dataset=src.slug,
-        source=src.relpath,
-        section=src.section,
-        title=title,
-        status="error",
-        model="",
-        level=0.95,
-    )
+    base = error_report(src)
     try:
         raw = read_source(src.csv_path, task.limits, src.relpath, src.root)  # refuses a file over the size limit unread
     except OSError as exc:
-        msg = (
-            f"{src.relpath} cannot be read: {exc.strerror or exc} (it may have been moved or deleted during the build)"
-        )
+        import errno  # noqa: PLC0415
+
+        why = {
+            errno.ENAMETOOLONG: "its path is too long for the file system; move it to a folder with a shorter path",
+            errno.EACCES: "there is no permission to read it; ask for read access or move it",
+            errno.ELOOP: "it is a symbolic link that loops; remove or correct the link",
+        }.get(exc.errno or 0, "it may have been moved or deleted during the build")
+        msg = f"{src.relpath} cannot be read: {exc.strerror or exc} ({why})"
         return DatasetResult(replace(base, messages=(Message("error", msg),)), None)
     except DatasetError as exc:
         return DatasetResult(replace(base, messages=(Message("error", str(exc)),)), None)
@@ -96,11 +110,17 @@ def _analyze(task: FitTask) -> DatasetResult:
             units=spec.units,
         )
         table = read_table(raw, spec, task.limits, src.relpath)
+        del raw  # the file's bytes are not needed again (a large file's 20 bytes a row)
+        base = replace(base, responsible=_responsible(spec))
         return _fit(base, spec, table)
     except DatasetError as exc:
         messages = [*_spec_messages(spec, sidecar_name), Message("error", str(exc))]
         return DatasetResult(replace(base, messages=tuple(messages)), None)
+    except MemoryError:
+        raise
     except Exception as exc:
+        if isinstance(exc, ImportError | OSError) and any(w in str(exc).lower() for w in ("memory", "failed to map")):
+            raise MemoryError(str(exc)) from exc  # a library could not be loaded within the memory bound
         text = (
             f"sitegen could not process {src.relpath} {INTERNAL_ERROR_WORDS} "
             f"({type(exc).__name__}: {exc}); please report it with the file"
@@ -108,13 +128,48 @@ def _analyze(task: FitTask) -> DatasetResult:
         return DatasetResult(replace(base, messages=(Message("error", text),)), None, traceback.format_exc())
 
 
+def _responsible(spec: DatasetSpec) -> tuple[tuple[str, str], ...]:
+    named = (("analyst", spec.analyst), ("reviewer", spec.reviewer), ("method_reference", spec.method_reference))
+    return tuple((k, v.strip()) for k, v in named if v and v.strip())
+
+
+def _leave_out(
+    spec: DatasetSpec, table: LoadedTable, sidecar: str
+) -> tuple[LoadedTable, list[Message], tuple[tuple[int, str], ...]]:
+    """The table without the rows the sidecar leaves out (the CSV file itself is never changed)."""
+    if not spec.leave_out:
+        return table, [], ()
+    wanted = dict(spec.leave_out)
+    present = set(table.table.rows.tolist())
+    missing = sorted(r for r in wanted if r not in present)
+    messages = []
+    if missing:
+        messages.append(
+            Message(
+                "warning",
+                f"{sidecar}: leave_out names row(s) {', '.join(map(str, missing))}, which the CSV does not have "
+                f"(it has data rows 1 to {len(table.table)}); nothing was left out for them",
+            )
+        )
+    keep = np.array([r not in wanted for r in table.table.rows.tolist()], dtype=bool)
+    if not bool(keep.any()):
+        raise FitError(f"{sidecar}: leave_out removes every row; there is nothing left to fit")
+    excluded = tuple((r, why) for r, why in spec.leave_out if r in present)
+    return replace(table, table=table.table.take(keep)), messages, excluded
+
+
 def _spec_messages(spec: DatasetSpec | None, sidecar_name: str) -> list[Message]:
     if spec is None:
         return []
+    from sitegen.spec import MAX_UNKNOWN_SHOWN  # noqa: PLC0415
+
     out = []
-    for key, hint in spec.unknown_keys:
+    for key, hint in spec.unknown_keys[:MAX_UNKNOWN_SHOWN]:
         tip = f"; did you mean '{hint}'?" if hint else "; see the README for the keys a sidecar may hold"
         out.append(Message("warning", f"{sidecar_name}: unknown sidecar key '{key}' was ignored{tip}"))
+    more = len(spec.unknown_keys) - MAX_UNKNOWN_SHOWN
+    if more > 0:
+        out.append(Message("warning", f"{sidecar_name}: {more:,} more unknown sidecar keys were ignored"))
     return out
 
 
@@ -133,6 +188,9 @@ def _model_formula(spec: DatasetSpec, table: LoadedTable, name: str) -> tuple[st
 
 def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResult:
     name = base.source
+    sidecar = base.source[: -len(".csv")] + ".toml"
+    n_read = len(table.table)
+    table, left_out_messages, excluded = _leave_out(spec, table, sidecar)
     formula, assumed = _model_formula(spec, table, name)
     extra = tuple(c for c in (spec.weights, spec.group) if c)
     design = build_design(formula, table.table, name, extra)
@@ -151,6 +209,9 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         level=spec.level,
         weights=weights,
     )
+    if ext.needs_double_double(fit.condition):  # badly conditioned: design and fit again in double-double
+        with ext.forced(ext.DOUBLE_DOUBLE):
+            return _fit(base, spec, table)
     messages = _spec_messages(spec, base.source[: -len(".csv")] + ".toml")
     if assumed:
         messages.append(
@@ -160,6 +221,15 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
             )
         )
     messages += [Message("warning" if "not UTF-8" in n else "note", n) for n in table.notes]
+    messages += left_out_messages
+    if excluded:
+        messages.append(
+            Message(
+                "note",
+                f"{len(excluded)} row(s) left out as the sidecar asks, each with its reason (listed on the page): "
+                f"rows {', '.join(str(r) for r, _ in excluded)}.",
+            )
+        )
     if design.dropped:
         rows = ", ".join(str(r) for r, _ in design.dropped[:20])
         more = f" and {len(design.dropped) - 20} more" if len(design.dropped) > 20 else ""
@@ -169,6 +239,20 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         )
     pieces = derive.compute(design, fit, spec, weights, weighting=weighting.name if weighting else None)
     messages += pieces.messages
+    groups = pieces.groups
+    pooled_contrast = bool(
+        groups is not None and groups.p_value is not None and groups.p_value < 1 - spec.level  # NaN: False
+    )
+    if pooled_contrast and groups is not None and groups.p_value is not None:
+        messages.insert(
+            0,
+            Message(
+                "warning",
+                f"The slopes differ between the groups of {groups.column} "
+                f"({p_text(groups.p_value)}): the pooled line is not the recommended one "
+                f"and is shown only as a contrast; use each {groups.column}'s own line.",
+            ),
+        )
     status: Status = "warn" if any(m.level in ("warning", "error") for m in messages) else "ok"
     if any(d.flag for d in pieces.diagnostics):
         status = "warn"
@@ -182,7 +266,8 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         variables=design.variables,
         weights=spec.weights,
         n=fit.n,
-        n_rows=len(table.table),
+        n_rows=n_read,
+        excluded_rows=excluded,
         dropped_rows=design.dropped,
         df_model=fit.df_model,
         df_resid=fit.df_resid,
@@ -206,6 +291,7 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         predictions=pieces.predictions,
         claims=pieces.claims,
         groups=pieces.groups,
+        pooled_contrast=pooled_contrast,
         compare_term=spec.compare or next((t for t in design.terms if t != "Intercept"), None),
         chart=pieces.chart,
         reading=(("delimiter", table.delimiter), ("decimal", table.decimal), ("encoding", table.encoding)),
@@ -229,7 +315,7 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         raise FitError(f"{name}: the figures of this fit cannot be trusted: {problem}", hint=RESCALE)
     if report.compare_term and report.coefficient(report.compare_term) is None:
         raise FormulaError(
-            f"compare = {spec.compare!r} is not a term of the model",
+            f"{base.source[: -len('.csv')]}.toml: compare = {spec.compare!r} is not a term of the model",
             hint=f"choose one of {', '.join(design.terms)}",
         )
     if weights is not None and fit.df_resid > 0:

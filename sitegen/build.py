@@ -20,7 +20,7 @@ import json
 import os
 import time
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, field
+from dataclasses import astuple, dataclass, field
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -82,6 +82,7 @@ class Outcome:
     status: str
     message: str
     requirements: str = "none"  # "met", "unmet" or "none" (nothing declared)
+    sidecar_warnings: tuple[str, ...] = ()  # unknown or misspelt sidecar keys, for the terminal too
 
 
 @dataclass(frozen=True, slots=True)
@@ -120,7 +121,7 @@ def _shared_inputs(config: SiteConfig, versions: dict[str, str]) -> str:
     return json.dumps(
         {
             "defaults": [[k, v] for k, v in config.defaults],
-            "limits": [config.limits.max_megabytes, config.limits.max_rows, config.limits.max_columns],
+            "limits": list(astuple(config.limits)),  # a failure past a bound is kept only while the bound stays
             "offer_source": config.offer_source,
             "sitegen": __version__,
             "libraries": versions,
@@ -261,6 +262,7 @@ def _touch_build_json(out_dir: Path, prev: PreviousBuild, measured: dict[str, Me
             e.get("status", "ok"),
             e.get("message", ""),
             str((e.get("index") or {}).get("requirements", "none")),
+            tuple(str(w) for w in (e.get("index") or {}).get("sidecar_warnings", ())),
         )
         for e in body["datasets"]
     )
@@ -297,6 +299,7 @@ class _Build:
         self.kept: set[str] = set()  # reused datasets whose folder in the spare was already right
         self.checked: set[str] = set()  # reused datasets whose published folder was checked file by file
         self.titles: dict[str, str] = {}  # expected titles of the neighbours of datasets being fitted
+        self.built_at = _now()
 
     def _stored_light(self, entry: dict[str, Any], old: Path, slug: str, record: dict[str, Any]) -> FitReport | None:
         """The stored result, light: from build.json when its fit.json is unchanged, else parsed from fit.json.
@@ -361,7 +364,7 @@ class _Build:
         return report, tuple(files)
 
     def execute(self, theme: Theme) -> tuple[tuple[Outcome, ...], int, list[str], tuple[tuple[str, str], ...]]:
-        from sitegen.jobs import FitJob, Neighbours, fit_job, page_job  # noqa: PLC0415
+        from sitegen.jobs import FitJob, Neighbours, fit_bounds, fit_job, page_job  # noqa: PLC0415
         from sitegen.report import assets, history, pages  # noqa: PLC0415
         from sitegen.report.files import report_from_index_entry, summary_files, summary_row  # noqa: PLC0415
         from sitegen.report.tags import tag_blocks  # noqa: PLC0415
@@ -387,7 +390,7 @@ class _Build:
         if self.progress:
             self.progress(count, total, "")
         paged: dict[str, tuple[Neighbours | None, tuple[str, ...]]] = {}
-        for i, res in self.run.run(fit_job, jobs):
+        for i, res in self.run.run(fit_job, jobs, fit_bounds(self.config.limits)):
             slug = jobs[i].source.slug
             report = res.report or report_from_index_entry(res.entry or {}, self.measured[slug].input_sha256)
             done[slug] = (report, res.files)
@@ -408,13 +411,25 @@ class _Build:
         summary_files(self.work, reports)
         # The history goes on after --refit too (which reuses nothing else of the published site).
         hist_warnings = history.write(self.work, ctx, reports, self.published)
-        site_assets = {*assets.write_bundle(self.work), *assets.write_static(self.work, theme)}
+        self.built_at = _now()
+        site_assets = {
+            *assets.write_bundle(self.work),
+            *assets.write_static(self.work, theme),
+            assets.write_built_at(self.work, self.built_at),
+        }
         for i, names in pending:
             page_files[page_jobs[i].target.parent.name] = names
         self._tidy({slug: {*files, *page_files[slug]} for slug, (_, files) in done.items()}, site_assets)
         self._write_build_json(entries)
         outcomes = tuple(
-            Outcome(r.dataset, r.source, r.status, str(summary_row(r)["message"]), r.requirements_state)
+            Outcome(
+                r.dataset,
+                r.source,
+                r.status,
+                str(summary_row(r)["message"]),
+                r.requirements_state,
+                sidecar_warnings(r),
+            )
             for r in reports
         )
         return outcomes, len(jobs), hist_warnings, tuple(traces)
@@ -561,7 +576,7 @@ class _Build:
             "sitegen_version": __version__,
             "libraries": library_versions(LIBRARIES) | library_versions(RENDER_LIBRARIES),
             "python": platform.python_version(),
-            "built_at": _now(),
+            "built_at": self.built_at,
             "site_key": self.site_key,
             "title": self.config.title,
             "mail_budget_megabytes": self.config.mail_budget_megabytes,
@@ -569,6 +584,11 @@ class _Build:
             "files": manifest(self.work),  # written last: every other file of the site is in place
         }
         (self.work / "build.json").write_text(json_text(body), encoding="utf-8")
+
+
+def sidecar_warnings(report: FitReport) -> tuple[str, ...]:
+    """The report's warnings about its sidecar's keys (each names the sidecar file)."""
+    return tuple(m.text for m in report.messages if m.level == "warning" and "sidecar key" in m.text)
 
 
 def _with_sha(report: FitReport, sha: str) -> FitReport:

@@ -23,8 +23,23 @@ EXIT_OK, EXIT_DATASET_FAILED, EXIT_NOTHING_WRITTEN, EXIT_REQUIREMENT_UNMET = 0, 
 DEFAULT_MAIL_BUDGET_MB = 20.0
 
 
+def printable(text: str) -> str:
+    """``text`` with every control character (C0, DEL, C1, and the bidirectional-text controls that can
+    reorder what a terminal shows) written as an escape such as ``\\x1b``: file names and cells come from
+    an untrusted folder, and must not move the cursor, change colours or retitle the terminal."""
+    if text.isprintable():
+        return text
+    return "".join(ch if ch.isprintable() or ch == " " else _escape(ch) for ch in text)
+
+
+def _escape(ch: str) -> str:
+    code = ord(ch)
+    return f"\\x{code:02x}" if code < 0x100 else f"\\u{code:04x}" if code < 0x10000 else f"\\U{code:08x}"
+
+
 class _Printer:
-    """Messages to stderr, with colour and a progress bar only on a terminal."""
+    """Messages to stderr, with colour and a progress bar only on a terminal; every text is made
+    :func:`printable` first."""
 
     def __init__(self, stream: TextIO, quiet: bool) -> None:
         self.stream = stream
@@ -36,19 +51,20 @@ class _Printer:
         return f"\033[{code}m{text}\033[0m" if self.color else text
 
     def error(self, text: str) -> None:
-        print(f"{self._paint('error', '1;31')}: {text}", file=self.stream)
+        print(f"{self._paint('error', '1;31')}: {printable(text)}", file=self.stream)
 
     def warn(self, text: str) -> None:
         if not self.quiet:
-            print(f"{self._paint('warning', '1;33')}: {text}", file=self.stream)
+            print(f"{self._paint('warning', '1;33')}: {printable(text)}", file=self.stream)
 
     def info(self, text: str) -> None:
         if not self.quiet:
-            print(text, file=self.stream)
+            print(printable(text), file=self.stream)
 
     def progress(self, done: int, total: int, name: str) -> None:
         if self.quiet or total == 0:
             return
+        name = printable(name)
         if self.tty:
             width = 28
             filled = int(width * done / total)
@@ -148,7 +164,9 @@ def _port(text: str) -> int:
 
 
 def _common_build_options(p: argparse.ArgumentParser) -> None:
-    p.add_argument("-j", "--jobs", type=int, default=None, help="worker processes (default: all cores)")
+    p.add_argument(
+        "-j", "--jobs", type=int, default=None, help="worker processes (default: all cores; at most 2 per core)"
+    )
     p.add_argument("--refit", action="store_true", help="fit every dataset again, ignoring stored results")
     p.add_argument("-q", "--quiet", action="store_true", help="print only errors")
     p.add_argument("--debug", action="store_true", help="show tracebacks of internal errors")
@@ -177,13 +195,19 @@ def _build(args: argparse.Namespace, out: _Printer) -> int:
     for w in summary.warnings:
         out.warn(w)
     for o in summary.outcomes:
+        for text in o.sidecar_warnings:
+            out.warn(text)
+        sidecar = o.source[: -len(".csv")] + ".toml"
         if o.status == "error":
-            out.error(o.message if o.source in o.message else f"{o.source}: {o.message}")
+            if o.message.startswith(sidecar):  # the fault is in the sidecar: it leads, the dataset follows
+                out.error(f"{o.message} (dataset {o.source} was not fitted)")
+            else:
+                out.error(o.message if o.source in o.message else f"{o.source}: {o.message}")
         elif o.requirements == "unmet":
             out.warn(f"{o.source}: a declared requirement is not met; see its page")
     if args.debug:
         for name, trace in summary.debug_traces:
-            print(f"--- traceback for {name} ---\n{trace}", file=out.stream)
+            print(f"--- traceback for {printable(name)} ---\n{trace}", file=out.stream)
     n = len(summary.outcomes)
     out.info(
         f"Built {summary.out_dir}/index.html: {n} dataset{'s' if n != 1 else ''} — {summary.fitted} fitted, "

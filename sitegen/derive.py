@@ -44,12 +44,12 @@ from sitegen.purposes import (
 from sitegen.requirements import Evidence
 from sitegen.spec import DatasetSpec
 from sitegen.stats.calibration import detection_limits, inverse_predict
-from sitegen.stats.checks import model_checks
+from sitegen.stats.checks import Precise, model_checks
 from sitegen.stats.claims import check_claims
 from sitegen.stats.groups import compare_groups
 from sitegen.stats.influence import Influence, PointFlags, flag_points, influence
 from sitegen.stats.lines import alternative_lines, explain_lines
-from sitegen.stats.ols import OlsFit, bands
+from sitegen.stats.ols import OlsFit, bands, row_bands
 from sitegen.stats.readback import inverse_predict_weighted
 from sitegen.stats.robust import hc3_cov
 from sitegen.table import to_float
@@ -113,13 +113,62 @@ def straight_line(design: Design) -> str | None:
     return None
 
 
+def one_normality_check(diagnostics: tuple[Diagnostic, ...]) -> tuple[Diagnostic, ...]:
+    """Shapiro–Wilk and Jarque–Bera shown as one check, ``normality``, so that they never read as two verdicts.
+
+    Shapiro–Wilk decides where it is computed (3 to 5,000 rows): it is the more powerful test in small and
+    moderate samples, where Jarque–Bera's χ² approximation is poor (common practice). Above that, Jarque–Bera,
+    a large-sample test, decides. The other test's result is stated in the text, not as a verdict.
+    """
+    by_name = {d.check: d for d in diagnostics}
+    sw, jb = by_name.get("normality_shapiro"), by_name.get("normality_jarque_bera")
+    if sw is None or jb is None:
+        return diagnostics
+    if sw.p_value is not None:
+        lead, other, why = sw, jb, "Shapiro–Wilk decides (the more powerful test up to 5,000 rows)"
+    else:
+        lead, other, why = jb, sw, "Jarque–Bera decides (Shapiro–Wilk is computed for 3 to 5,000 rows only)"
+    aside = ""
+    if other.p_value is not None:
+        start = other.text.rfind(" (")  # the figures are in the sentence's last parentheses
+        inner = other.text[start + 2 : other.text.rfind(")")] if start >= 0 else ""
+        aside = f" For reference only, not a second verdict: {inner}." if inner else ""
+    merged = Diagnostic(
+        "normality",
+        "Bell-shaped residuals",
+        lead.statistic,
+        lead.p_value,
+        lead.flag,
+        f"{lead.text} {why}.{aside}",
+        lead.advice,
+        lead.rows,
+    )
+    out: list[Diagnostic] = []
+    for d in diagnostics:
+        if d.check == "normality_shapiro":
+            out.append(merged)
+        elif d.check != "normality_jarque_bera":
+            out.append(d)
+    return tuple(out)
+
+
+def replicated_settings(design: Design) -> NDArray[np.bool_]:
+    """Rows whose predictor setting (every design column but the intercept) occurs in more than one row."""
+    cols = [j for j, t in enumerate(design.terms) if t != "Intercept"]
+    if not cols:
+        return np.zeros(len(design.y), dtype=bool)
+    settings = np.asarray(design.X[:, cols], dtype=np.float64)
+    _, inverse, counts = np.unique(settings, axis=0, return_inverse=True, return_counts=True)
+    return np.asarray(counts[np.ravel(inverse)] > 1, dtype=bool)
+
+
 def compute(
     design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray | None, *, weighting: str | None = None
 ) -> Derived:
     """Derive every requested result; problems with optional extras become warnings."""
     messages: list[Message] = []
     infl = influence(fit.q, fit.resid, fit.df_resid, weights=weights)
-    flags = flag_points(infl, fit.n, len(fit.terms))
+    flags = flag_points(infl, fit.n, len(fit.terms), designed=replicated_settings(design))
     sw = np.ones(fit.n) if weights is None else np.sqrt(weights)
     Xw = design.X * sw[:, None]
     checks = model_checks(
@@ -132,6 +181,7 @@ def compute(
         infl=infl,
         alpha=1 - fit.level,
         weights=weights,
+        precise=Precise(design.X_ext, fit.resid_ext, fit.y_ext - fit.resid_ext, fit.q, fit.xtx_inv, fit.condition),
     )
     diagnostics = tuple(
         Diagnostic(
@@ -146,16 +196,19 @@ def compute(
         )
         for c in checks
     )
+    diagnostics = one_normality_check(diagnostics)
     for d in diagnostics:
         if d.flag:
             messages.append(check_warning(d))
+    if weights is not None:
+        messages.append(Message("note", reading_weight_note(spec)))
     robust_se = None
     if spec.robust:
         cov = hc3_cov(Xw, fit.resid * sw, np.asarray(infl.leverage), fit.xtx_inv, xtx_root=fit.xtx_root)
         robust_se = np.sqrt(np.clip(np.diag(cov), 0, None))
     claims = []
     if spec.claims:
-        for found in check_claims(fit, Xw, design.y * sw, list(spec.claims)):
+        for found in check_claims(fit, list(spec.claims)):
             if isinstance(found, DatasetError):
                 messages.append(Message("warning", str(found)))
             else:
@@ -169,15 +222,23 @@ def compute(
         calibration_, limits = _weighted_calibration(design, fit, spec, weighting, messages)
     else:
         calibration_, limits = _calibration(design, fit, spec, line_x, messages, weighted=weighted)
-    predictions = _predictions(design, fit, spec, messages)
+    predictions = _predictions(design, fit, spec, messages, weights)
     groups = _groups(design, fit, spec, line_x, messages, weights=weights)
-    chart = _chart(design, fit, infl, flags, spec)
+    chart = _chart(design, fit, infl, flags, spec, weights)
     compared = comparison(design, spec, line_x, lines, level=fit.level, messages=messages, weighted=weighted)
     calibrated = CalibrationResults()
     if line_x is not None:
         beta = (float(fit.beta[0]), float(fit.beta[1]))
         calibrated = calibration(design, beta, fit.fitted, spec, line_x=line_x, weights=weights, messages=messages)
-    observations = _observations(design, fit, infl, flags, weights, residual_percent=calibrated.residual_percent)
+    observations = _observations(
+        design,
+        fit,
+        infl,
+        flags,
+        weights,
+        reading_weight=spec.reading_weight,
+        residual_percent=calibrated.residual_percent,
+    )
     return Derived(
         messages=messages,
         diagnostics=diagnostics,
@@ -204,18 +265,54 @@ def compute(
     )
 
 
+def reading_weight_note(spec: DatasetSpec) -> str:
+    """The sentence that says which weight a new reading has in the prediction intervals."""
+    w = spec.reading_weight
+    return (
+        f"Prediction intervals (the chart's band, the predictions and observations.csv) are for one new "
+        f"reading of weight {w:g}, whose variance is σ²/{w:g}; set 'reading_weight' in the sidecar "
+        "to the weight a new reading will have."
+    )
+
+
+def _new_weights(spec: DatasetSpec, weights: FloatArray | None, k: int) -> FloatArray | None:
+    """Weights of k new readings: the sidecar's reading_weight for a weighted fit, else none."""
+    return None if weights is None else np.full(k, float(spec.reading_weight))
+
+
+#: The reasons a row is flagged, in the order they are listed; the first two exclude each other.
+_REASONS = (
+    "alone sets a coefficient (leverage 1)",
+    "leverage above 2p/n",
+    "|studentized residual| above 3",
+    "Cook's distance above 4/n",
+    "|DFFITS| above 2√(p/n)",
+)
+
+
+def _reason_codes(flags: PointFlags) -> NDArray[np.intp]:
+    """Each row's reasons as a bit mask (bit k: ``_REASONS[k]``), for every row at once."""
+    high_only = np.asarray(flags.high_leverage) & ~np.asarray(flags.leverage_one)
+    marks = (flags.leverage_one, high_only, flags.large_residual, flags.large_cooks, flags.large_dffits)
+    code = np.zeros(len(flags.leverage_one), dtype=np.intp)
+    for bit, mark in enumerate(marks):
+        code |= np.asarray(mark, dtype=np.intp) << bit
+    return code
+
+
+def _reasons_of(code: int) -> tuple[str, ...]:
+    return tuple(text for bit, text in enumerate(_REASONS) if code >> bit & 1)
+
+
 def _reasons(flags: PointFlags, i: int) -> tuple[str, ...]:
     out = []
     if flags.leverage_one[i]:
-        out.append("alone sets a coefficient (leverage 1)")
+        out.append(_REASONS[0])
     elif flags.high_leverage[i]:
-        out.append("leverage above 2p/n")
-    if flags.large_residual[i]:
-        out.append("|studentized residual| above 3")
-    if flags.large_cooks[i]:
-        out.append("Cook's distance above 4/n")
-    if flags.large_dffits[i]:
-        out.append("|DFFITS| above 2√(p/n)")
+        out.append(_REASONS[1])
+    for mark, text in zip((flags.large_residual, flags.large_cooks, flags.large_dffits), _REASONS[2:], strict=True):
+        if mark[i]:
+            out.append(text)
     return tuple(out)
 
 
@@ -427,7 +524,9 @@ def _column(values: list[Any]) -> NDArray[Any]:
     return np.array(values, dtype=object)
 
 
-def _predictions(design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[Message]) -> tuple[Prediction, ...]:
+def _predictions(
+    design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[Message], weights: FloatArray | None
+) -> tuple[Prediction, ...]:
     if not spec.predict_at:
         return ()
     first = spec.predict_at[0]
@@ -472,7 +571,7 @@ def _predictions(design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[
     X_new = X_new[defined]
     if not rows:
         return ()
-    b = bands(fit, X_new)
+    b = bands(fit, X_new, _new_weights(spec, weights, len(X_new)))
     finite = np.isfinite(b.fit) & np.isfinite(b.pred_low) & np.isfinite(b.pred_high)
     for row in (r for r, ok in zip(rows, finite, strict=True) if not ok):
         at = ", ".join(f"{k} = {v:g}" for k, v in row.items())
@@ -483,7 +582,7 @@ def _predictions(design: Design, fit: OlsFit, spec: DatasetSpec, messages: list[
         )
     keep = [i for i, ok in enumerate(finite) if ok]
     rows = [rows[i] for i in keep]
-    b = bands(fit, X_new[keep])
+    b = bands(fit, X_new[keep], _new_weights(spec, weights, len(keep)))
     if not rows:
         return ()
     ranges = _ranges(design, names)
@@ -625,41 +724,45 @@ def _clean(values: FloatArray) -> tuple[float | None, ...]:
     return tuple(v if math.isfinite(v) else None for v in arr.tolist())
 
 
-def _chart(design: Design, fit: OlsFit, infl: Influence, flags: PointFlags, spec: DatasetSpec) -> ChartData:
+def _chart(  # noqa: PLR0917 - the fit and what was derived from it
+    design: Design, fit: OlsFit, infl: Influence, flags: PointFlags, spec: DatasetSpec, weights: FloatArray | None
+) -> ChartData:
     x_col = single_predictor(design)
     idx, sampled = _chart_sample(fit.n, flags.rows, np.asarray(infl.cooks_distance))
     std = np.asarray(infl.standardized_residual)
     is_flag = np.zeros(fit.n)
     is_flag[list(flags.rows)] = 1.0
+    # Only the drawn rows (idx) are computed.
     cols: dict[str, FloatArray] = {
-        "row": design.rows.astype(float),
-        "y": design.y,
-        "fitted": fit.fitted,
-        "residual": fit.resid,
-        "studentized": np.asarray(infl.studentized_residual),
-        "leverage": np.asarray(infl.leverage),
-        "cooks": np.asarray(infl.cooks_distance),
-        "std_resid": std,
-        "flag": is_flag,
+        "row": design.rows[idx].astype(float),
+        "y": design.y[idx],
+        "fitted": fit.fitted[idx],
+        "residual": fit.resid[idx],
+        "studentized": np.asarray(infl.studentized_residual)[idx],
+        "leverage": np.asarray(infl.leverage)[idx],
+        "cooks": np.asarray(infl.cooks_distance)[idx],
+        "std_resid": std[idx],
+        "flag": is_flag[idx],
     }
-    if x_col is not None:
-        cols["x"] = design.data[x_col].astype(float)
+    x_all = design.data[x_col].astype(float) if x_col is not None else None
+    if x_all is not None:
+        cols["x"] = x_all[idx]
     names = tuple(sorted(cols))
-    points = tuple(zip(*(_clean(cols[c][idx]) for c in names), strict=True))
+    points = tuple(zip(*(_clean(cols[c]) for c in names), strict=True))
     groups: tuple[str, ...] = ()
     if spec.group and x_col is not None:
         groups = tuple(str(v) for v in design.data[spec.group][idx].tolist())
     band_cols: tuple[str, ...] = ()
     band: tuple[tuple[float | None, ...], ...] = ()
-    if x_col is not None:
-        xs = cols["x"]
+    if x_col is not None and x_all is not None:
+        xs = x_all
         grid = np.linspace(float(xs.min()), float(xs.max()), BAND_STEPS)
         try:
             Xg = design_for(design, {x_col: grid})
         except DatasetError:
             Xg = None
         if Xg is not None and Xg.shape[1] == len(fit.terms):
-            b = bands(fit, Xg)
+            b = bands(fit, Xg, _new_weights(spec, weights, len(Xg)))
             band_cols = ("x", "fit", "mean_low", "mean_high", "pred_low", "pred_high")
             band = tuple(
                 zip(
@@ -669,8 +772,8 @@ def _chart(design: Design, fit: OlsFit, infl: Influence, flags: PointFlags, spec
             )
     density_cols: tuple[str, ...] = ()
     density: tuple[tuple[float | None, ...], ...] = ()
-    if sampled and x_col is not None:
-        density_cols, density = _density(cols["x"], design.y)
+    if sampled and x_all is not None:
+        density_cols, density = _density(x_all, design.y)
     return ChartData(
         x=x_col,
         y=design.response,
@@ -705,9 +808,10 @@ def _observations(
     flags: PointFlags,
     weights: FloatArray | None,
     *,
+    reading_weight: float = 1.0,
     residual_percent: FloatArray | None = None,
 ) -> Observations:
-    b = bands(fit, design.X, weights)
+    b = row_bands(fit, weights, reading_weight)
     cols: dict[str, NDArray[np.generic]] = {"row": design.rows}
     for v in design.variables:
         cols[v] = design.data[v].astype(float)
@@ -715,9 +819,8 @@ def _observations(
         cols[design.response] = design.y
     if weights is not None:
         cols["weight"] = weights
-    flag_text = np.full(fit.n, "", dtype=object)
-    for i in flags.rows:
-        flag_text[i] = "; ".join(_reasons(flags, i))
+    texts = np.array(["; ".join(_reasons_of(code)) for code in range(1 << len(_REASONS))], dtype=object)
+    flag_text = texts[_reason_codes(flags)]
     cols |= {
         "fitted": fit.fitted,
         "residual": fit.resid,
@@ -762,6 +865,7 @@ def acceptance_evidence(
             found = read_back(float(fit.beta[0]), float(fit.beta[1]), design.X[:, 1], design.y, design.rows)
     bias = None
     bias_reason = ""
+    bias_line = ""
     if req.max_bias is not None:
         if x_col is None or not plain_response:
             bias_reason = "the bias (fitted y − x) needs a one-predictor model of an untransformed response"
@@ -774,6 +878,7 @@ def acceptance_evidence(
                 )
                 if found_bias is not None:
                     bias = tuple(AcceptedBias(b.at, b.estimate, b.ci_low, b.ci_high) for b in found_bias)
+                    bias_line = found_bias[0].line if found_bias else ""
             else:
                 try:
                     X_at = design_for(design, {x_col: at})
@@ -781,4 +886,4 @@ def acceptance_evidence(
                     X_at, bias_reason = None, f"the model cannot be evaluated at those levels ({exc})"
                 if X_at is not None:
                     bias = bias_at(fit, X_at, at)
-    return Evidence(found, found_reason, bias, bias_reason, x_range)
+    return Evidence(found, found_reason, bias, bias_reason, x_range, bias_line)

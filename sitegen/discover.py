@@ -38,10 +38,22 @@ class DatasetSource:
 _NON_SLUG = re.compile(r"[^a-z0-9]+")
 
 
+#: Longest slug: a slug names a folder of the site, and file systems allow 255 bytes per name.
+MAX_SLUG_CHARS = 160
+
+
 def base_slug(relpath: str) -> str:
-    """The contract's slug: path without ``.csv``, lower-cased, runs of other characters → ``-``."""
+    """The contract's slug: path without ``.csv``, lower-cased, runs of other characters → ``-``.
+
+    A slug longer than :data:`MAX_SLUG_CHARS` (a path of very long folder and file names) is cut, and the
+    first 8 hex digits of its full text's SHA-256 are added, so the dataset's folder can be made.
+    """
     stem = relpath[: -len(".csv")] if relpath.lower().endswith(".csv") else relpath
     slug = _NON_SLUG.sub("-", stem.lower()).strip("-")
+    if len(slug) > MAX_SLUG_CHARS:
+        import hashlib  # noqa: PLC0415 - only for such paths
+
+        slug = slug[: MAX_SLUG_CHARS - 9].rstrip("-") + "-" + hashlib.sha256(slug.encode()).hexdigest()[:8]
     return slug or "dataset"
 
 

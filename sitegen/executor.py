@@ -1,31 +1,75 @@
-"""The one seam through which work runs: in this process, or a local process pool.
+"""The one seam through which work runs: in this process, or in worker processes of our own.
 
 Work items and results are plain picklable data, so another engine (for example a
 Dask client's ``submit``/``as_completed``) can stand in by implementing
-:class:`Executor`. ``run`` submits every item at once and returns an iterator of
+:class:`Executor`. ``run`` starts the items at once and returns an iterator of
 (index, result) in completion order, so the caller can do other work while the
-items run. One pool serves a whole build (workers keep what they imported).
+items run. One set of workers serves a whole build (workers keep what they imported).
+
+Work that must stay within bounds (fitting a dataset from an untrusted folder) is
+run with a :class:`Bounded`: each item then runs in a worker process — never in
+this one, even when it is the only item — whose address space is capped at what it
+already uses plus ``megabytes`` while the item runs, and which ends when the item has
+used ``seconds`` of processor time (or, by the clock, :func:`_clock_bound` of it).
+An item past a bound gets the result ``Bounded.fallback`` makes for it (in this process), the worker is replaced, and
+the other items go on. The standard library's ``ProcessPoolExecutor`` cannot end
+one overdue task without breaking the whole pool, which is why the workers here
+are our own: each is a ``multiprocessing`` process fed through a pipe.
 """
 
 from __future__ import annotations
 
+import contextlib
+import math
 import os
+import signal
 import sys
+import time
+from collections import deque
 from collections.abc import Callable, Iterator
+from dataclasses import dataclass
 from types import TracebackType
-from typing import TYPE_CHECKING, Protocol, Self, TypeVar
+from typing import TYPE_CHECKING, Any, Generic, Literal, Protocol, Self, TypeVar
 
 if TYPE_CHECKING:
-    from concurrent.futures import Future, ProcessPoolExecutor
+    from multiprocessing.connection import Connection
+    from multiprocessing.process import BaseProcess
 
 T = TypeVar("T")
 R = TypeVar("R")
+
+#: Which bound an item went past: its time, its memory, or its worker ended for another reason (a crash,
+#: the system's out-of-memory killer).
+Overrun = Literal["time", "memory", "ended"]
+
+#: ``-j`` is capped at this many workers per core (a larger number only adds memory and start-up).
+JOBS_PER_CORE = 2
+#: A bounded item is stopped after ``seconds`` of processor time, or by the clock after this many times
+#: ``seconds`` and at least :data:`CLOCK_GRACE` seconds more (an item waiting on something uses no processor
+#: time; a busy machine shares it out).
+CLOCK_FACTOR = 3
+CLOCK_GRACE = 30.0
+
+
+def _clock_bound(seconds: float) -> float:
+    return max(CLOCK_FACTOR * seconds, seconds + CLOCK_GRACE)
+
+
+@dataclass(frozen=True, slots=True)
+class Bounded(Generic[T, R]):
+    """Bounds for each item of a run, and the result an item past one gets instead of its own."""
+
+    seconds: float
+    megabytes: float
+    fallback: Callable[[T, Overrun], R]
 
 
 class Executor(Protocol):
     """Runs a function over work items; yields (index, result) as each finishes."""
 
-    def run(self, fn: Callable[[T], R], items: list[T]) -> Iterator[tuple[int, R]]: ...
+    def run(
+        self, fn: Callable[[T], R], items: list[T], bounded: Bounded[T, R] | None = None
+    ) -> Iterator[tuple[int, R]]: ...
 
     def __enter__(self) -> Self: ...
 
@@ -35,9 +79,13 @@ class Executor(Protocol):
 
 
 class InlineExecutor:
-    """Runs every item in this process, in order, when its result is asked for."""
+    """Runs every item in this process, in order, when its result is asked for (no bounds: for tests and
+    for work that is trusted)."""
 
-    def run(self, fn: Callable[[T], R], items: list[T]) -> Iterator[tuple[int, R]]:
+    def run(
+        self, fn: Callable[[T], R], items: list[T], bounded: Bounded[T, R] | None = None
+    ) -> Iterator[tuple[int, R]]:
+        del bounded
         return ((i, fn(item)) for i, item in enumerate(items))
 
     def __enter__(self) -> Self:
@@ -49,47 +97,154 @@ class InlineExecutor:
         return None
 
 
-class PoolExecutor:
-    """A local process pool (``fork`` on Linux, so workers start with the parent's imports)."""
+@dataclass(slots=True)
+class _Worker:
+    process: BaseProcess
+    conn: Connection
+
+
+@dataclass(slots=True)
+class _Busy:
+    worker: _Worker
+    index: int
+    deadline: float  # monotonic seconds; inf without a time bound
+
+
+class WorkerExecutor:
+    """Worker processes of our own (``fork`` on Linux, so workers start with the parent's imports).
+
+    Unbounded work runs in this process when it is a lone item (``inline_single``) or ``jobs`` is 1; bounded
+    work always runs in a worker. No run starts more workers than it has items, nor more than ``jobs``.
+    """
 
     def __init__(self, jobs: int, *, inline_single: bool = True) -> None:
         self.jobs = max(1, jobs)
-        self.inline_single = inline_single  # a lone item runs here rather than starting a pool for it
-        self._pool: ProcessPoolExecutor | None = None
+        self.inline_single = inline_single  # a lone unbounded item runs here rather than starting a worker
+        self._workers: list[_Worker] = []
+        self._frozen = False
 
-    def _ensure(self) -> ProcessPoolExecutor:
-        import multiprocessing  # noqa: PLC0415 - a build with one item to fit never starts a pool
-        from concurrent.futures import ProcessPoolExecutor  # noqa: PLC0415
+    @property
+    def workers(self) -> int:
+        """How many worker processes are running (for tests)."""
+        return len(self._workers)
 
-        if self._pool is None:
-            # Forking copies only the calling thread: a library that runs threads of its own (the chart
-            # converter's JavaScript engine, once loaded here) would leave a forked worker waiting for ever
-            # on a lock one of those threads held. Then the workers start afresh instead.
-            threaded = any(name in sys.modules for name in _THREADED_LIBRARIES)
-            method = "fork" if sys.platform.startswith("linux") and not threaded else "spawn"
+    def run(
+        self, fn: Callable[[T], R], items: list[T], bounded: Bounded[T, R] | None = None
+    ) -> Iterator[tuple[int, R]]:
+        if not items:
+            return iter(())
+        if bounded is None and (self.jobs == 1 or (len(items) == 1 and not self._workers and self.inline_single)):
+            return InlineExecutor().run(fn, items)
+        self._grow(min(self.jobs, len(items)))
+        queue = deque(enumerate(items))
+        busy: dict[Connection, _Busy] = {}
+        self._feed(fn, items, queue, busy, bounded)  # start at once: the caller may do other work meanwhile
+        return self._results(fn, items, queue, busy, bounded)
+
+    def _feed(
+        self,
+        fn: Callable[[T], R],
+        items: list[T],
+        queue: deque[tuple[int, T]],
+        busy: dict[Connection, _Busy],
+        bounded: Bounded[T, R] | None,
+    ) -> None:
+        taken = {b.worker.conn for b in busy.values()}
+        for at in range(len(self._workers)):
+            if not queue:
+                return
+            if self._workers[at].conn in taken:
+                continue
+            i, item = queue.popleft()
+            message = (fn, item, (bounded.seconds, bounded.megabytes) if bounded else None)
+            try:
+                self._workers[at].conn.send(message)
+            except OSError:  # the worker ended while idle (the system's out-of-memory killer): start another
+                self._replace(self._workers[at])
+                self._workers[at].conn.send(message)
+            deadline = time.monotonic() + _clock_bound(bounded.seconds) if bounded else float("inf")
+            busy[self._workers[at].conn] = _Busy(self._workers[at], i, deadline)
+        del items
+
+    def _results(
+        self,
+        fn: Callable[[T], R],
+        items: list[T],
+        queue: deque[tuple[int, T]],
+        busy: dict[Connection, _Busy],
+        bounded: Bounded[T, R] | None,
+    ) -> Iterator[tuple[int, R]]:
+        from multiprocessing.connection import wait  # noqa: PLC0415
+
+        while busy:
+            soonest = min(b.deadline for b in busy.values())
+            timeout = None if soonest == float("inf") else max(0.0, soonest - time.monotonic())
+            ready = wait(list(busy), timeout)
+            outcomes: list[tuple[int, Overrun | None, Any]] = []
+            for conn in ready:
+                job = busy.pop(conn)  # type: ignore[call-overload]
+                try:
+                    kind, value = job.worker.conn.recv()
+                except (EOFError, OSError):
+                    job.worker.process.join(timeout=5)
+                    out_of_time = job.worker.process.exitcode == -_SIGXCPU
+                    kind, value = ("time" if out_of_time else "ended"), None
+                if kind in ("time", "memory", "ended"):
+                    self._replace(job.worker)
+                if kind in ("done", "raised"):
+                    outcomes.append((job.index, None, value))
+                else:
+                    outcomes.append((job.index, kind, None))
+            now = time.monotonic()
+            for conn, job in list(busy.items()):
+                if job.deadline <= now:
+                    del busy[conn]
+                    self._replace(job.worker)
+                    outcomes.append((job.index, "time", None))
+            for index, overrun, value in outcomes:
+                if overrun is not None:
+                    if bounded is None:
+                        raise RuntimeError(f"a worker process ended unexpectedly ({overrun})")
+                    yield index, bounded.fallback(items[index], overrun)
+                elif isinstance(value, _Raised):
+                    raise value.exc
+                else:
+                    yield index, value
+            # The next items start once the caller has taken these results: with one worker, items run in
+            # order, one after the other's result was handled (as they would in this process).
+            self._feed(fn, items, queue, busy, bounded)
+
+    def _grow(self, target: int) -> None:
+        while len(self._workers) < target:
+            self._workers.append(self._start())
+
+    def _start(self) -> _Worker:
+        import multiprocessing  # noqa: PLC0415 - a build with nothing to fit starts no worker
+
+        # Forking copies only the calling thread: a library that runs threads of its own (the chart
+        # converter's JavaScript engine, once loaded here) would leave a forked worker waiting for ever
+        # on a lock one of those threads held. Then the workers start afresh instead.
+        threaded = any(name in sys.modules for name in _THREADED_LIBRARIES)
+        method = "fork" if sys.platform.startswith("linux") and not threaded else "spawn"
+        if method == "fork" and not self._frozen:
             import gc  # noqa: PLC0415
 
             # Forked workers share the parent's objects; frozen, the workers' collector leaves them alone
-            # (no scans of the whole inherited heap, fewer copy-on-write pages). Undone when the pool ends.
+            # (no scans of the whole inherited heap, fewer copy-on-write pages). Undone when the run ends.
             gc.freeze()
-            self._pool = ProcessPoolExecutor(
-                max_workers=self.jobs,
-                mp_context=multiprocessing.get_context(method),
-                initializer=_die_with_parent,
-                initargs=(os.getpid(),),
-            )
-        return self._pool
+            self._frozen = True
+        ctx = multiprocessing.get_context("fork") if method == "fork" else multiprocessing.get_context("spawn")
+        ours, theirs = ctx.Pipe()
+        process = ctx.Process(target=_serve, args=(theirs, os.getpid()), daemon=True)
+        process.start()
+        theirs.close()
+        return _Worker(process, ours)
 
-    def run(self, fn: Callable[[T], R], items: list[T]) -> Iterator[tuple[int, R]]:
-        if not items:
-            return iter(())
-        if len(items) == 1 and self._pool is None and self.inline_single:
-            return InlineExecutor().run(fn, items)
-        from concurrent.futures import as_completed  # noqa: PLC0415
-
-        pool = self._ensure()
-        futures: dict[Future[R], int] = {pool.submit(fn, item): i for i, item in enumerate(items)}
-        return ((futures[f], f.result()) for f in as_completed(futures))
+    def _replace(self, worker: _Worker) -> None:
+        """End a worker (overdue, or left in doubt by a memory error) and start another in its place."""
+        _end(worker, kill=True)
+        at = self._workers.index(worker)
+        self._workers[at] = self._start()
 
     def __enter__(self) -> Self:
         return self
@@ -97,16 +252,111 @@ class PoolExecutor:
     def __exit__(
         self, exc_type: type[BaseException] | None, exc: BaseException | None, tb: TracebackType | None
     ) -> None:
-        if self._pool is not None:
-            self._pool.shutdown(wait=exc_type is None, cancel_futures=exc_type is not None)
-            self._pool = None
+        for worker in self._workers:
+            _end(worker, kill=exc_type is not None)
+        self._workers = []
+        if self._frozen:
             import gc  # noqa: PLC0415
 
             gc.unfreeze()  # a long-running watch must not keep each build's objects for ever
+            self._frozen = False
 
 
-#: Native libraries that start threads of their own when used (see :meth:`PoolExecutor._ensure`).
+def _end(worker: _Worker, *, kill: bool) -> None:
+    if not kill:
+        try:
+            worker.conn.send(None)  # the worker's signal to finish
+        except OSError:
+            kill = True
+    if kill and worker.process.is_alive():
+        worker.process.kill()
+    worker.process.join(timeout=None if kill else 5)
+    if worker.process.is_alive():
+        worker.process.kill()
+        worker.process.join()
+    worker.conn.close()
+
+
+@dataclass(frozen=True, slots=True)
+class _Raised:
+    """An exception a work function raised in a worker, to be raised again where its result is asked for."""
+
+    exc: BaseException
+
+
+#: Native libraries that start threads of their own when used (see :meth:`WorkerExecutor._start`).
 _THREADED_LIBRARIES = ("vl_convert",)
+
+
+def _serve(conn: Connection, parent: int) -> None:
+    """A worker's life: run (function, item, bounds) messages until told to stop."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl+C is the build's to handle; it ends the workers
+    _die_with_parent(parent)
+    with contextlib.suppress(ImportError, OSError, ValueError):
+        import resource  # noqa: PLC0415
+
+        resource.setrlimit(resource.RLIMIT_CORE, (0, resource.getrlimit(resource.RLIMIT_CORE)[1]))  # no core files
+    while True:
+        try:
+            message = conn.recv()
+        except (EOFError, OSError):
+            return
+        if message is None:
+            return
+        fn, item, bounds = message
+        try:
+            with _held_to(bounds):
+                reply: tuple[str, Any] = ("done", fn(item))
+        except MemoryError:
+            reply = ("memory", None)
+        except Exception as exc:  # raised again in the parent, where the result is asked for
+            reply = ("raised", _Raised(exc))
+        try:
+            conn.send(reply)
+        except Exception as exc:  # e.g. a result or exception that cannot be pickled
+            conn.send(("raised", _Raised(RuntimeError(f"a worker's result could not be sent back: {exc!r}"))))
+        if reply[0] == "memory":
+            return  # after a memory error, start afresh
+
+
+_SIGXCPU = getattr(signal, "SIGXCPU", -1)  # the kernel's word that a process ran past its processor time
+
+
+class _held_to:  # noqa: N801 - used as a context manager, named like one
+    """Cap this process's address space at what it uses now plus ``megabytes``, and its processor time at
+    what it has used plus ``seconds`` (the kernel ends it with SIGXCPU past that); None: no caps."""
+
+    def __init__(self, bounds: tuple[float, float] | None) -> None:
+        self.bounds = bounds
+        self.saved: list[tuple[int, tuple[int, int]]] = []
+
+    def __enter__(self) -> None:
+        if self.bounds is None:
+            return
+        seconds, megabytes = self.bounds
+        try:
+            import resource  # noqa: PLC0415
+            from pathlib import Path  # noqa: PLC0415
+
+            used = int(Path("/proc/self/statm").read_text("ascii").split()[0]) * os.sysconf("SC_PAGE_SIZE")
+            usage = resource.getrusage(resource.RUSAGE_SELF)
+            spent = usage.ru_utime + usage.ru_stime
+            for which, cap in (
+                (resource.RLIMIT_AS, used + int(megabytes * 1024 * 1024)),
+                (resource.RLIMIT_CPU, math.ceil(spent + seconds)),
+            ):
+                soft, hard = resource.getrlimit(which)
+                self.saved.append((which, (soft, hard)))
+                resource.setrlimit(which, (cap if hard == resource.RLIM_INFINITY else min(cap, hard), hard))
+        except (ImportError, OSError, ValueError):  # pragma: no cover - not Linux: the clock bound still holds
+            self.__exit__()
+
+    def __exit__(self, *exc: object) -> None:
+        import resource  # noqa: PLC0415
+
+        for which, limits in reversed(self.saved):
+            resource.setrlimit(which, limits)
+        self.saved = []
 
 
 def _die_with_parent(parent: int) -> None:
@@ -135,8 +385,13 @@ def default_jobs() -> int:
         return os.cpu_count() or 1
 
 
-def make_executor(jobs: int | None, *, inline_single: bool = True) -> InlineExecutor | PoolExecutor:
-    """The executor for ``--jobs``: None means all cores. ``inline_single=False`` sends even a lone item to
-    a worker process (for work that must not run in this one)."""
+def max_jobs() -> int:
+    """The most workers ``-j`` may start: :data:`JOBS_PER_CORE` per core."""
+    return JOBS_PER_CORE * default_jobs()
+
+
+def make_executor(jobs: int | None, *, inline_single: bool = True) -> WorkerExecutor:
+    """The executor for ``--jobs``: None means all cores; capped at :func:`max_jobs`. ``inline_single=False``
+    sends even a lone item to a worker process (for work that must not run in this one)."""
     n = default_jobs() if jobs is None else jobs
-    return InlineExecutor() if n <= 1 else PoolExecutor(n, inline_single=inline_single)
+    return WorkerExecutor(min(max(1, n), max_jobs()), inline_single=inline_single)

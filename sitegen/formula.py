@@ -25,6 +25,7 @@ from numpy.typing import ArrayLike, NDArray
 from sitegen import __version__
 from sitegen.cache import read_record, write_record
 from sitegen.errors import DataFileError, FitError, FormulaError
+from sitegen.stats import ext
 from sitegen.table import Table, as_table, from_columns, to_float
 
 #: numpy functions a formula may call, as ``np.NAME`` or bare ``NAME``.
@@ -50,6 +51,15 @@ SAFE_FUNCTIONS = frozenset(
 PATSY_FUNCTIONS = frozenset({"I", "Q", "center", "standardize", "scale"})
 #: Longest model formula accepted (a guard against pathological sidecars).
 MAX_FORMULA_CHARS = 10_000
+#: Largest power a formula may raise to (``x**MAX_EXPONENT``); Python would compute a power of a power of
+#: whole numbers (``10**10**10``) exactly, for hours and gigabytes, before numpy ever saw it.
+MAX_EXPONENT = 1000
+#: Largest whole number written in a formula (beyond it numpy cannot hold it; write 1e20 instead).
+MAX_INTEGER = 10**18
+#: Most terms a formula may expand to (``(a+b+c)**2`` has 6); ``(a+…+z)**20`` would be millions.
+MAX_TERMS = 1000
+#: Highest order of interaction ``(a+b)**N`` may ask for (patsy loops N times, whatever N is).
+MAX_INTERACTION_ORDER = 10
 _ALLOWED_NODES = (
     ast.Expression,
     ast.Name,
@@ -85,14 +95,18 @@ class Design:
     variables: tuple[str, ...]  # data columns the model uses, in formula order
     data: Table  # used rows of `variables` (+ weights/group columns), with their CSV rows
     design_info: Any  # a Plan (simple designs) or patsy's DesignInfo of the right-hand side, for predictions
-    X_ext: NDArray[np.longdouble]  # the same design evaluated in extended precision
-    y_ext: NDArray[np.longdouble]
+    X_ext: Any  # the same design evaluated in extended precision (long double or ext.DD)
+    y_ext: Any
     simple: bool = False  # every term is a product of numeric expressions: evaluated without patsy
+
+
+#: Names a formula uses for functions and modules: a column named so is reached only as ``Q("name")``.
+CALLABLE_NAMES = PATSY_FUNCTIONS | SAFE_FUNCTIONS | {"np", "numpy"}
 
 
 def quote_name(column: str) -> str:
     """How a column name must be written inside a formula."""
-    if column.isidentifier() and not keyword.iskeyword(column) and column not in PATSY_FUNCTIONS:
+    if column.isidentifier() and not keyword.iskeyword(column) and column not in CALLABLE_NAMES:
         return column
     return "Q(" + repr(column) + ")"
 
@@ -139,6 +153,18 @@ class _FactorChecker(ast.NodeVisitor):
                 f"only numbers may appear as constants in a model formula, not {repr(node.value)[:60]}",
                 hint="quote column names with Q(\"name\") in key 'model'",
             )
+        if isinstance(node.value, int) and abs(node.value) > MAX_INTEGER:
+            raise FormulaError(
+                f"the whole number {_digits(node.value)} in the model is too large to compute with",
+                hint=f"key 'model' may hold whole numbers up to 1e18; write larger ones as decimals, e.g. "
+                f"{float(node.value):.3g}",
+            )
+
+    def visit_BinOp(self, node: ast.BinOp) -> None:
+        if isinstance(node.op, ast.Pow):
+            _check_exponent(node.right)
+        _constant_value(node)  # a part made of numbers only must come to a finite number
+        self.generic_visit(node)
 
     def visit_Call(self, node: ast.Call) -> None:
         func = node.func
@@ -163,6 +189,9 @@ class _FactorChecker(ast.NodeVisitor):
                 f"function '{ast.unparse(func)[:60]}' is not allowed in a model formula",
                 hint=f"key 'model' may call only {allowed} and I(), Q(), center(), standardize(), scale()",
             )
+        name = func.id if isinstance(func, ast.Name) else func.attr if isinstance(func, ast.Attribute) else ""
+        if name == "power" and len(node.args) == 2:
+            _check_exponent(node.args[1])
         for arg in node.args:
             self.visit(arg)
 
@@ -183,6 +212,115 @@ class _FactorChecker(ast.NodeVisitor):
             self.missing.append(name)
 
 
+def _digits(value: int) -> str:
+    """A whole number for a message: itself when short, else its first digits and its length."""
+    text = str(abs(value)) if value.bit_length() < 10_000 else ""
+    if text and len(text) <= 24:
+        return str(value)
+    return f"of {len(text):,} digits" if text else f"of about {int(value.bit_length() * 0.30103):,} digits"
+
+
+def _constant_value(node: ast.AST) -> float | None:
+    """The value of a part of a formula made of numbers only, worked out in floating point (so never a
+    huge whole number); None when the part names a column or calls a function."""
+    if isinstance(node, ast.Constant) and isinstance(node.value, int | float) and not isinstance(node.value, bool):
+        return float(node.value) if abs(node.value) <= MAX_INTEGER else float("inf")
+    if isinstance(node, ast.UnaryOp) and isinstance(node.op, ast.USub | ast.UAdd):
+        inner = _constant_value(node.operand)
+        return None if inner is None else (-inner if isinstance(node.op, ast.USub) else inner)
+    if not isinstance(node, ast.BinOp):
+        return None
+    left, right = _constant_value(node.left), _constant_value(node.right)
+    if left is None or right is None:
+        return None
+    try:
+        if isinstance(node.op, ast.Add):
+            value = left + right
+        elif isinstance(node.op, ast.Sub):
+            value = left - right
+        elif isinstance(node.op, ast.Mult):
+            value = left * right
+        elif isinstance(node.op, ast.Div):
+            value = left / right
+        elif isinstance(node.op, ast.FloorDiv):
+            value = left // right
+        elif isinstance(node.op, ast.Mod):
+            value = left % right
+        elif isinstance(node.op, ast.Pow):
+            value = abs(left) ** right if abs(right) <= MAX_EXPONENT else float("inf")
+        else:
+            return None
+    except ZeroDivisionError:
+        raise FormulaError(f"'{ast.unparse(node)[:60]}' in the model divides by zero", hint="fix key 'model'") from None
+    except OverflowError:
+        value = float("inf")
+    if not np.isfinite(value):
+        raise FormulaError(
+            f"'{ast.unparse(node)[:60]}' in the model is a number too large to compute with",
+            hint="key 'model' may hold numbers up to about 1e308 and powers up to "
+            f"{MAX_EXPONENT}; a power of a power of a number is refused",
+        )
+    return value
+
+
+def _check_exponent(node: ast.AST) -> None:
+    """Refuse a power whose exponent is a number beyond :data:`MAX_EXPONENT`."""
+    exponent = _constant_value(node)
+    if exponent is not None and abs(exponent) > MAX_EXPONENT:
+        raise FormulaError(
+            f"the power '{ast.unparse(node)[:60]}' in the model is larger than {MAX_EXPONENT}",
+            hint=f"key 'model' may raise to powers up to {MAX_EXPONENT}; a power of a power of a number is refused",
+        )
+
+
+def _check_expansion(formula: str) -> None:
+    """Refuse, before patsy expands it, a formula whose terms would run into the millions (``(a+…+z)**20``)
+    or whose interaction order patsy would loop over for ever (``(a+b)**1000000000``)."""
+    from patsy.parse_formula import parse_formula  # noqa: PLC0415
+
+    def bound(node: Any) -> int:  # an upper bound on the terms a formula node expands to
+        args = [bound(a) for a in node.args if node.type != "**" or a is node.args[0]]
+        if node.type == "**":
+            order_text = node.args[1].origin.code[node.args[1].origin.start : node.args[1].origin.end]
+            try:
+                order = int(order_text)
+            except ValueError:
+                return args[0]  # patsy reports a power that is not a whole number itself
+            if order > MAX_INTERACTION_ORDER:
+                raise FormulaError(
+                    f"the model asks for interactions of order {_digits(order)}, more than {MAX_INTERACTION_ORDER}",
+                    hint=f"key 'model' may raise a sum of terms to powers up to {MAX_INTERACTION_ORDER}; "
+                    "use I(x**2) for the square of a column",
+                )
+            return int(min(2 ** min(args[0], 64), (args[0] + 1) ** order))
+        if node.type == ":":
+            return args[0] * args[1]
+        if node.type in ("*", "/"):
+            return args[0] + args[1] + args[0] * args[1]
+        if node.type in ("+", "~"):
+            return sum(args)
+        if node.type == "-":
+            return args[0] if len(args) == 2 else 1
+        return max(1, sum(args))
+
+    try:
+        tree = parse_formula(formula)
+    except (RecursionError, MemoryError) as exc:
+        raise _too_deep(formula) from exc
+    except Exception:
+        return
+    try:
+        terms = bound(tree)
+    except RecursionError as exc:
+        raise _too_deep(formula) from exc
+    if terms > MAX_TERMS:
+        raise FormulaError(
+            f"the model {_show(formula)} expands to {'over ' if terms >= 2**64 else ''}{terms:,} terms, "
+            f"more than the {MAX_TERMS:,} allowed",
+            hint="key 'model' must name fewer terms and interactions",
+        )
+
+
 def _factor_codes(formula: str) -> tuple[list[str], list[str], bool]:
     """(lhs factor codes, rhs factor codes, has intercept) without evaluating anything."""
     if len(formula) > MAX_FORMULA_CHARS:
@@ -199,12 +337,13 @@ def _factor_codes(formula: str) -> tuple[list[str], list[str], bool]:
     if isinstance(known, dict):
         try:
             lhs, rhs = [str(c) for c in known["lhs"]], [str(c) for c in known["rhs"]]
-            if _same_names(formula, lhs + rhs):
+            if _same_names(formula, lhs + rhs) and known.get("bounded") is True:  # checked by _check_expansion
                 return lhs, rhs, bool(known["intercept"])
         except (KeyError, TypeError):
             pass
     import patsy  # noqa: PLC0415 - only for a formula not parsed before
 
+    _check_expansion(formula)
     try:
         desc = patsy.ModelDesc.from_formula(formula)
     except patsy.PatsyError as exc:
@@ -222,7 +361,7 @@ def _factor_codes(formula: str) -> tuple[list[str], list[str], bool]:
             f"the model {_show(formula)} has no response on the left of '~'",
             hint="name the response column first, e.g. \"y ~ x\" (key 'model')",
         )
-    _remember("parse", formula, {"lhs": lhs, "rhs": rhs, "intercept": intercept})
+    _remember("parse", formula, {"lhs": lhs, "rhs": rhs, "intercept": intercept, "bounded": True})
     return lhs, rhs, intercept
 
 
@@ -420,7 +559,7 @@ def build_design(formula: str, frame: Table | Any, name: str, extra: tuple[str, 
             data = data.assign(col, table[col][keep])
     plan = _plan(formula, used)
     if plan is not None:
-        evaluated = _evaluate_design(plan, data, np.longdouble)
+        evaluated = _evaluate_design(plan, data, _ext_dtype())
         if evaluated is not None:
             return _finish_simple(
                 plan,
@@ -452,7 +591,7 @@ def _patsy_design(
         with np.errstate(all="ignore"):
             y_dm, x_dm = patsy.dmatrices(
                 formula,
-                data.as_dict(),
+                _for_patsy(data.as_dict()),
                 eval_env=env,
                 return_type="matrix",
                 # The data hold finite numbers only; a NaN can only come from a transformation
@@ -464,7 +603,7 @@ def _patsy_design(
             f"{name}: the model {_show(formula)} cannot be applied to the data: {_patsy_message(exc)}",
             hint="check key 'model'",
         ) from exc
-    except (ValueError, TypeError, ArithmeticError, MemoryError) as exc:
+    except (ValueError, TypeError, ArithmeticError) as exc:  # a MemoryError is the memory bound's (executor)
         raise FormulaError(
             f"{name}: the model {_show(formula)} cannot be evaluated: {str(exc)[:200]}",
             hint="check key 'model'",
@@ -570,7 +709,7 @@ def design_for(design: Design, new: Mapping[str, ArrayLike] | Any) -> NDArray[np
             raise FormulaError("prediction values do not fit the model: the model's columns need numbers") from exc
         cols = _evaluate_terms(design.design_info.x_terms, floats, np.float64)
         if cols is not None:
-            return cols
+            return np.asarray(cols, dtype=np.float64)
         missing = [v for v in design.variables if v not in columns]
         raise FormulaError(
             "prediction values do not fit the model" + (f": no value for {missing[-1]!r}" if missing else "")
@@ -579,7 +718,7 @@ def design_for(design: Design, new: Mapping[str, ArrayLike] | Any) -> NDArray[np
 
     try:
         with np.errstate(all="ignore"):
-            (mat,) = patsy.build_design_matrices([design.design_info], columns, NA_action="raise")
+            (mat,) = patsy.build_design_matrices([design.design_info], _for_patsy(columns), NA_action="raise")
     except patsy.PatsyError as exc:
         raise FormulaError(f"prediction values do not fit the model: {_patsy_message(exc)}") from exc
     return np.asarray(mat, dtype=float)
@@ -588,29 +727,43 @@ def design_for(design: Design, new: Mapping[str, ArrayLike] | Any) -> NDArray[np
 _STATEFUL = ("center", "standardize", "scale")
 
 
-def _evaluate(code: str, namespace: dict[str, Any]) -> NDArray[np.longdouble]:
+def _ext_dtype() -> Any:
+    """The extended type designs are evaluated in: long double, or double-double where long
+    double is a plain double (or when forced; see :mod:`sitegen.stats.ext`)."""
+    return ext.DOUBLE_DOUBLE if ext.current() == ext.DOUBLE_DOUBLE else np.longdouble
+
+
+def _is_dd(dtype: Any) -> bool:
+    return isinstance(dtype, str) and dtype == ext.DOUBLE_DOUBLE
+
+
+def _evaluate(code: str, namespace: dict[str, Any]) -> Any:
     # The code passed _FactorChecker: only column names, numbers, arithmetic and
     # whitelisted numpy functions can appear, and builtins are withheld.
     value = eval(compile(code, "<formula>", "eval"), {"__builtins__": {}}, namespace)  # noqa: S307
-    return np.broadcast_to(np.asarray(value, dtype=np.longdouble), (len(namespace["__rows__"]),))
+    shape = (len(namespace["__rows__"]),)
+    if isinstance(value, ext.DD):
+        return ext.broadcast_to(value, shape)
+    if namespace.get("__dd__"):
+        return ext.DD(np.broadcast_to(np.asarray(value, dtype=np.float64), shape))
+    return np.broadcast_to(np.asarray(value, dtype=np.longdouble), shape)
 
 
-def _extended(
-    x_info: Any, y_info: Any, data: Table, X: NDArray[np.float64], y: NDArray[np.float64]
-) -> tuple[NDArray[np.longdouble], NDArray[np.longdouble]]:
+def _extended(x_info: Any, y_info: Any, data: Table, X: NDArray[np.float64], y: NDArray[np.float64]) -> tuple[Any, Any]:
     """Re-evaluate the design in extended precision so powers such as x**10 keep their digits.
 
     Falls back to the float64 design when a term is categorical or uses a
     stateful transform, or when the two evaluations disagree beyond rounding.
     """
-    fallback = X.astype(np.longdouble), y.astype(np.longdouble)
+    dtype = _ext_dtype()
+    fallback = (ext.DD(X), ext.DD(y)) if _is_dd(dtype) else (X.astype(np.longdouble), y.astype(np.longdouble))
     codes = [f.code for t in x_info.terms for f in t.factors] + [f.code for t in y_info.terms for f in t.factors]
     if any(s in code for code in codes for s in _STATEFUL) or X.shape[1] != len(x_info.terms):
         return fallback
     plan = _plan_of(x_info, y_info)
     if plan is None:
         return fallback
-    evaluated = _evaluate_design(plan, data, np.longdouble)
+    evaluated = _evaluate_design(plan, data, dtype)
     if evaluated is None:
         return fallback
     X_ext, y_ext = evaluated
@@ -621,10 +774,27 @@ def _extended(
     return (X_ext, y_ext) if same else fallback
 
 
+#: Where a column named like a function (Q, I, log, np, …) is kept in the data patsy sees, so that the name
+#: still means the function; ``Q("name")`` reaches the column there.
+_HIDDEN = "\x00column:"
+
+
+def _for_patsy(columns: Mapping[str, Any]) -> dict[str, Any]:
+    return {(_HIDDEN + k if k in CALLABLE_NAMES else k): v for k, v in columns.items()}
+
+
+def _quoted(name: str) -> Any:
+    """patsy's ``Q``, which also finds a column named like a function (see :data:`_HIDDEN`)."""
+    import patsy  # noqa: PLC0415
+
+    namespace = patsy.EvalEnvironment.capture(1).namespace  # the data being evaluated, as patsy's own Q does
+    return namespace[_HIDDEN + name if name in CALLABLE_NAMES else name]
+
+
 def _environment() -> Any:
     import patsy  # noqa: PLC0415
 
-    return patsy.EvalEnvironment([{"np": np, "numpy": np} | {f: getattr(np, f) for f in SAFE_FUNCTIONS}])
+    return patsy.EvalEnvironment([{"np": np, "numpy": np, "Q": _quoted} | {f: getattr(np, f) for f in SAFE_FUNCTIONS}])
 
 
 @dataclass(frozen=True, slots=True)
@@ -714,7 +884,7 @@ def _probe_plan(formula: str, used: tuple[str, ...]) -> Plan | None:
     try:
         with np.errstate(all="ignore"):
             y_dm, x_dm = patsy.dmatrices(
-                formula, probe.as_dict(), eval_env=_environment(), return_type="matrix",
+                formula, _for_patsy(probe.as_dict()), eval_env=_environment(), return_type="matrix",
                 NA_action=patsy.NAAction(NA_types=[]),
             )  # fmt: skip
     except (patsy.PatsyError, ValueError, TypeError, ArithmeticError, KeyError, NameError):
@@ -735,39 +905,44 @@ def _same(a: NDArray[Any], b: NDArray[Any]) -> bool:
 
 
 def _namespace(table: Table, dtype: Any) -> dict[str, Any]:
-    namespace: dict[str, Any] = {
-        name: values.astype(dtype)
+    dd = _is_dd(dtype)
+    columns: dict[str, Any] = {
+        name: ext.DD(values.astype(np.float64)) if dd else values.astype(dtype)
         for name, values in zip(table.names, table.columns, strict=True)
         if values.dtype.kind in "fiub"
     }
-    namespace |= {
+    namespace = dict(columns)
+    namespace |= {  # a column named like one of these is reached through Q("name") only
         "np": np,
         "numpy": np,
         "I": lambda v: v,
-        "Q": lambda name: namespace[name],
+        "Q": lambda name: columns[name],
         "__rows__": table.rows,
+        "__dd__": dd,
     }
     namespace |= {f: getattr(np, f) for f in SAFE_FUNCTIONS}
     return namespace
 
 
-def _evaluate_terms(x_terms: tuple[tuple[str, ...], ...], table: Table, dtype: Any) -> NDArray[Any] | None:
+def _evaluate_terms(x_terms: tuple[tuple[str, ...], ...], table: Table, dtype: Any) -> Any:
     """The design columns of the terms over ``table``, or None when they cannot be evaluated here."""
     namespace = _namespace(table, dtype)
     try:
         with np.errstate(all="ignore"):
-            cols = []
+            cols: list[Any] = []
             for factors in x_terms:
-                col = np.ones(len(table), dtype=dtype)
+                col: Any = ext.DD(np.ones(len(table))) if _is_dd(dtype) else np.ones(len(table), dtype=dtype)
                 for code in factors:
                     col = col * _evaluate(code, namespace).astype(dtype)
                 cols.append(col)
     except (TypeError, ValueError, KeyError, NameError, ArithmeticError, AttributeError):
         return None
+    if _is_dd(dtype):
+        return ext.column_stack(cols) if cols else ext.DD(np.empty((len(table), 0)))
     return np.column_stack(cols) if cols else np.empty((len(table), 0), dtype=dtype)
 
 
-def _evaluate_design(plan: Plan, table: Table, dtype: Any) -> tuple[NDArray[Any], NDArray[Any]] | None:
+def _evaluate_design(plan: Plan, table: Table, dtype: Any) -> tuple[Any, Any] | None:
     X = _evaluate_terms(plan.x_terms, table, dtype)
     if X is None:
         return None
@@ -783,7 +958,7 @@ def _evaluate_design(plan: Plan, table: Table, dtype: Any) -> tuple[NDArray[Any]
 def _finish_simple(
     plan: Plan,
     *,
-    evaluated: tuple[NDArray[Any], NDArray[Any]],
+    evaluated: tuple[Any, Any],
     data: Table,
     dropped: list[tuple[int, str]],
     intercept: bool,
@@ -802,8 +977,8 @@ def _finish_simple(
     terms = plan.x_names
     _check_constant_terms(X, terms, intercept, name)
     return Design(
-        X_ext=np.ascontiguousarray(X_ext),
-        y_ext=np.ascontiguousarray(y_ext),
+        X_ext=X_ext if isinstance(X_ext, ext.DD) else np.ascontiguousarray(X_ext),
+        y_ext=y_ext if isinstance(y_ext, ext.DD) else np.ascontiguousarray(y_ext),
         X=np.ascontiguousarray(X),
         y=y,
         terms=terms,

@@ -16,6 +16,8 @@ from sitegen.publish import write_new
 from sitegen.spec import Limits
 
 if TYPE_CHECKING:
+    from sitegen.analyze import DatasetResult
+    from sitegen.executor import Bounded, Overrun
     from sitegen.model import FitReport
     from sitegen.report.dataset_view import Neighbour
     from sitegen.report.pages import SiteContext
@@ -59,9 +61,46 @@ class FitDone:
 def fit_job(job: FitJob) -> FitDone:
     """Worker: fit one dataset and write its downloads."""
     from sitegen.analyze import FitTask, analyze  # noqa: PLC0415
-    from sitegen.report.files import dataset_files, index_entry  # noqa: PLC0415
 
     result = analyze(FitTask(job.source, job.defaults, job.limits))
+    return _finish(job, result)
+
+
+def fit_overrun(job: FitJob, overrun: Overrun) -> FitDone:
+    """What a dataset whose fit went past a bound gets (in the build's own process): an error report
+    naming the bound and the ``[limits]`` key that sets it, written as a failed fit's would be."""
+    import shutil  # noqa: PLC0415
+
+    from sitegen.analyze import DatasetResult, error_report  # noqa: PLC0415
+
+    limits = job.limits
+    name = job.source.relpath
+    if overrun == "time":
+        text = (
+            f"fitting {name} was stopped after {limits.max_fit_seconds:g} s, the time bound for one dataset "
+            "([limits] max_fit_seconds in site.toml); the other datasets were built. Check the model formula "
+            "and the file's size, or raise the bound if a fit this long is expected"
+        )
+    elif overrun == "memory":
+        text = (
+            f"fitting {name} was stopped when it needed more than {limits.max_fit_megabytes:g} MB, the memory "
+            "bound for one dataset ([limits] max_fit_megabytes in site.toml); the other datasets were built. "
+            "Check the model formula and the file's size, or raise the bound if this much is expected"
+        )
+    else:
+        text = (
+            f"fitting {name} stopped: the process fitting it ended unexpectedly (the system may have run out of "
+            "memory); the other datasets were built. Build again; if it happens again, lower [limits] "
+            "max_fit_megabytes in site.toml or leave the file out"
+        )
+    shutil.rmtree(job.folder, ignore_errors=True)  # whatever the stopped fit had written
+    return _finish(job, DatasetResult(error_report(job.source, text), None))
+
+
+def _finish(job: FitJob, result: DatasetResult) -> FitDone:
+    """Write a fitted (or failed) dataset's downloads, and its page when its neighbours are known."""
+    from sitegen.report.files import dataset_files, index_entry  # noqa: PLC0415
+
     report = result.report
     if job.input_sha256 and report.input_sha256 and report.input_sha256 != job.input_sha256:
         from dataclasses import replace  # noqa: PLC0415
@@ -79,11 +118,21 @@ def fit_job(job: FitJob) -> FitDone:
     max_bytes = int(job.limits.max_megabytes * 1e6)
     report, obs = result.report, result.observations
     files = tuple(dataset_files(job.folder, report, obs, job.source, job.offer_source, max_bytes=max_bytes))
-    page_files = write_page(job.page, result.report, files, job.folder / "index.html") if job.page else ()
+    # Chart images run a JavaScript engine that reserves far more address space than a fit's memory bound
+    # allows: such pages are written in the build's page round, outside the bound.
+    page = job.page if job.page is not None and not job.page.ctx.config.static_images else None
+    page_files = write_page(page, result.report, files, job.folder / "index.html") if page else ()
     sha = file_sha256(job.folder / "fit.json")
     if result.report.status == "error":
-        return FitDone(result.report, None, files, result.debug_trace, job.page, page_files, sha)
-    return FitDone(None, index_entry(result.report), files, result.debug_trace, job.page, page_files, sha)
+        return FitDone(result.report, None, files, result.debug_trace, page, page_files, sha)
+    return FitDone(None, index_entry(result.report), files, result.debug_trace, page, page_files, sha)
+
+
+def fit_bounds(limits: Limits) -> Bounded[FitJob, FitDone]:
+    """The bounds every dataset's fit runs under, from ``[limits]``."""
+    from sitegen.executor import Bounded  # noqa: PLC0415
+
+    return Bounded(limits.max_fit_seconds, limits.max_fit_megabytes, fit_overrun)
 
 
 @dataclass(frozen=True, slots=True)

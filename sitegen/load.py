@@ -52,6 +52,8 @@ if TYPE_CHECKING:
 _CANDIDATE_DELIMITERS = (",", ";", "\t", "|")
 _DELIM_NAMES = {",": "comma", ";": "semicolon", "\t": "tab", "|": "vertical bar"}
 _HEAD_BYTES = 1 << 16
+#: Longest column name read (names appear on every chart and table of the page).
+MAX_NAME_CHARS = 300
 _PLAIN_MAX_BYTES = 2_000_000  # above this, pandas' C reader is faster than splitting lines here
 _LINE_BREAK = re.compile(r"\r\n|\r|\n")
 _SEP_LINE = re.compile(r"^\ufeff?\"?sep=(.)\"?[ \t]*$")
@@ -110,12 +112,21 @@ def read_source(path: Path, limits: Limits, name: str, root: Path | None = None)
     ``OSError`` (the file vanished or cannot be opened) is left to the caller,
     which knows how to word it.
     """
+    cap = _max_bytes(limits) + 1  # the file may have grown since it was measured
     try:
         with open_inside(path, root) as fh:
-            _check_size(os.fstat(fh.fileno()).st_size, limits, name)
-            raw = fh.read(_max_bytes(limits) + 1)  # the file may have grown since it was measured
+            size = os.fstat(fh.fileno()).st_size
+            _check_size(size, limits, name)
+            # read() sets aside as much memory as it is asked for: ask for the file's size, then for more in
+            # pieces while it keeps growing, never for the whole limit at once.
+            pieces = [fh.read(min(size + 1, cap))]
+            total = len(pieces[0])
+            while pieces[-1] and total < cap:
+                pieces.append(fh.read(min(1 << 20, cap - total)))
+                total += len(pieces[-1])
     except OutsideFolderError as exc:
         raise DataFileError(f"{name} {exc.message}", hint=OUTSIDE_HINT) from None
+    raw = pieces[0] if len(pieces) == 1 else b"".join(pieces)
     _check_size(len(raw), limits, name)
     return raw
 
@@ -203,8 +214,10 @@ def _drop_trailing_blank_lines(raw: bytes) -> bytes:
 
 
 def _decode_head(raw: bytes, encoding: str, name: str) -> tuple[str, str, list[str]]:
-    """Decode the start of the file; returns (text, encoding used, notes)."""
-    head = raw[:_HEAD_BYTES]
+    """Decode the start of the file (the whole header line, however long, and what follows it up to
+    :data:`_HEAD_BYTES`); returns (text, encoding used, notes)."""
+    first_break = raw.find(b"\n")
+    head = raw[: max(_HEAD_BYTES, (len(raw) if first_break < 0 else first_break) + _HEAD_BYTES)]
     if codecs.lookup(encoding).name in ("utf-8", "utf-8-sig"):
         try:
             return head.decode("utf-8-sig", errors="strict"), "utf-8-sig", []
@@ -444,6 +457,13 @@ def _check_header(header: list[str], name: str, limits: Limits, decimal: str) ->
             f"{name}: the first line ({preview}) holds numbers, not column names",
             hint="add a header line that names each column, e.g. x,y, above the data",
         )
+    for i, h in enumerate(named, start=1):
+        if len(h) > MAX_NAME_CHARS:
+            raise DataFileError(
+                f"{name}: the name of column {i} ({h[:40]!r}…) is {len(h):,} characters long, more than the "
+                f"{MAX_NAME_CHARS:,} allowed",
+                hint="shorten the column names in the header line",
+            )
     blanks = [i + 1 for i, h in enumerate(named) if not h]
     if blanks:
         raise DataFileError(f"{name}: column {blanks[0]} of the header has no name", hint="give every column a name")
@@ -516,13 +536,15 @@ def _parse(
         ) from exc
     except pd.errors.ParserError as exc:
         detail = _parser_detail(exc)
+        if "out of memory" in detail:
+            raise MemoryError(detail) from exc  # the memory bound of this fit (see sitegen.executor)
         hint = (
             'a quotation mark (") opened there is never closed: close it or remove it'
             if "inside string" in detail
             else f"every line needs the same number of separators as the header{comma_hint}"
         )
         raise DataFileError(f"{name} cannot be parsed as a table: {detail}", hint=hint) from exc
-    except (UnicodeError, ValueError, OverflowError, MemoryError) as exc:
+    except (UnicodeError, ValueError, OverflowError) as exc:
         raise DataFileError(f"{name} cannot be read: {exc}") from exc
     frame.columns = [str(c).strip() for c in frame.columns]
     return frame

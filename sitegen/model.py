@@ -371,6 +371,9 @@ class FitReport:
     linearity: LinearityCheck | None = None
     working_range: tuple[float, float] | None = None
     requirements: tuple[Requirement, ...] = ()
+    excluded_rows: tuple[tuple[int, str], ...] = ()  # CSV rows the sidecar leaves out, with the reasons given
+    responsible: tuple[tuple[str, str], ...] = ()  # analyst, reviewer, method reference as declared
+    pooled_contrast: bool = False  # per-group slopes differ: the pooled line is shown only as a contrast
     residual_sd_y: float | None = None  # weighted fits: the scatter of the plain residuals, in y units
 
     def first_message(self, *levels: Level) -> Message | None:

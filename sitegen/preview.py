@@ -9,10 +9,27 @@ from pathlib import Path
 
 from sitegen.errors import ConfigError
 
+#: A small icon served at /favicon.ico when the site has none, so that a browser's console stays clean.
+FAVICON = (
+    b'<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 16 16">'
+    b'<rect width="16" height="16" rx="3" fill="#2b6a89"/>'
+    b'<path d="M3 12 L13 4" stroke="#ffffff" stroke-width="2"/></svg>'
+)
+
 
 class _QuietHandler(http.server.SimpleHTTPRequestHandler):
     def log_message(self, format: str, *args: object) -> None:
         pass
+
+    def do_GET(self) -> None:
+        if self.path.split("?")[0] == "/favicon.ico" and not (Path(self.directory) / "favicon.ico").is_file():
+            self.send_response(200)
+            self.send_header("Content-Type", "image/svg+xml")
+            self.send_header("Content-Length", str(len(FAVICON)))
+            self.end_headers()
+            self.wfile.write(FAVICON)
+            return
+        super().do_GET()
 
 
 def make_server(site: Path, port: int) -> http.server.ThreadingHTTPServer:

@@ -34,10 +34,21 @@ MARKER_TEXT = "This folder was made by sitegen. Each build replaces it whole; do
 _OWNER = ".owner"
 
 
+def _resolved(path: Path, what: str) -> Path:
+    """``path`` with every symbolic link followed; a link that loops is refused by name."""
+    try:
+        return path.resolve()
+    except (RuntimeError, OSError) as exc:  # Python 3.11 raises RuntimeError for a loop, later ones OSError
+        raise OutputFolderError(
+            f"the {what} {path} cannot be followed: a symbolic link on its way loops back on itself",
+            hint=f"remove or correct the link, or give another {what}",
+        ) from exc
+
+
 def check_output_folder(data_dir: Path, out_dir: Path) -> None:
     """Refuse an output folder that overlaps the data folder or holds files sitegen did not make."""
-    data = data_dir.resolve()
-    out = out_dir.resolve()
+    data = _resolved(data_dir, "data folder")
+    out = _resolved(out_dir, "output folder")
     if out == data or out.is_relative_to(data):
         raise OutputFolderError(
             f"the output folder {out_dir} is inside the data folder {data_dir}",
@@ -55,6 +66,46 @@ def check_output_folder(data_dir: Path, out_dir: Path) -> None:
             f"the output folder {out_dir} is not empty and was not made by sitegen; nothing was touched",
             hint="choose a new or empty folder; sitegen replaces its output folder whole on every build",
         )
+
+
+def output_error(exc: OSError, out_dir: Path) -> OutputFolderError:
+    """What to tell the user when writing the site failed (the published site is unchanged)."""
+    import errno  # noqa: PLC0415
+
+    where = str(exc.filename) if exc.filename else str(out_dir)
+    code = exc.errno
+    if code in (errno.ENOSPC, errno.EDQUOT, errno.EFBIG):
+        why = "is full" if code != errno.EFBIG else "allows no file that large (a file-size limit)"
+        detail = f"{exc.strerror}: {exc.filename}" if exc.filename else exc.strerror
+        return OutputFolderError(
+            f"the disk holding {out_dir} {why} ({detail}); the published site is unchanged",
+            hint="free some space there (or choose another output folder with -o) and build again; "
+            "what this build had written was removed",
+        )
+    if code == errno.EROFS:
+        return OutputFolderError(
+            f"{where} is on a read-only disk; the published site is unchanged",
+            hint="choose an output folder on a disk you can write to with -o",
+        )
+    if code in (errno.EACCES, errno.EPERM):
+        return OutputFolderError(
+            f"no permission to write {where}; the published site is unchanged",
+            hint="choose an output folder you may write to with -o, or ask for write access to it",
+        )
+    if code == errno.ELOOP:
+        return OutputFolderError(
+            f"{where} cannot be followed: a symbolic link on its way loops back on itself",
+            hint="remove or correct the link, or choose another output folder with -o",
+        )
+    if code == errno.ENAMETOOLONG:
+        return OutputFolderError(
+            f"a path in the site is too long for the file system: {where[:120]}…",
+            hint="choose an output folder with a shorter path, or shorten the data folder's sub-folder names",
+        )
+    return OutputFolderError(
+        f"the site could not be written ({exc.strerror or exc}: {where}); the published site is unchanged",
+        hint="check the output folder and the disk, then build again",
+    )
 
 
 def marker_intact(site: Path) -> bool:
@@ -148,10 +199,13 @@ def build_folder(out_dir: Path) -> Iterator[Path]:
     docstring); anything at its path that is not a plain folder is removed first.
     """
     work = build_dir_for(out_dir)
-    work.parent.mkdir(parents=True, exist_ok=True)
     lock = lock_path_for(out_dir)
+    try:
+        work.parent.mkdir(parents=True, exist_ok=True)
+        fd = _acquire(lock)
+    except OSError as exc:
+        raise output_error(exc, out_dir) from exc
     global _held  # noqa: PLW0603 - the fork hook needs it
-    fd = _acquire(lock)
     if fd < 0:
         owner = _read_owner(work)
         who = f" (process {owner})" if owner else ""
@@ -166,6 +220,14 @@ def build_folder(out_dir: Path) -> Iterator[Path]:
         work.mkdir(exist_ok=True)
         write_new(work / _OWNER, str(os.getpid()))  # a new file: never written through a link left there
         yield work
+    except OSError as exc:
+        import errno  # noqa: PLC0415
+
+        if exc.errno in (errno.ENOSPC, errno.EDQUOT, errno.EFBIG):  # give the space back (the spare goes too)
+            import shutil  # noqa: PLC0415
+
+            shutil.rmtree(work, ignore_errors=True)
+        raise output_error(exc, out_dir) from exc
     finally:
         with contextlib.suppress(OSError):
             (work / _OWNER).unlink(missing_ok=True)

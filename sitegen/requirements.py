@@ -34,6 +34,16 @@ LABELS = {
 }
 
 
+_LINE_NAMES = {
+    "ols": "least-squares",
+    "passing_bablok": "Passing–Bablok",
+    "deming": "Deming",
+    "orthogonal": "orthogonal",
+    "geometric_mean": "geometric-mean",
+    "reverse": "reverse",
+}
+
+
 @dataclass(frozen=True, slots=True)
 class Evidence:
     """What the criteria need beyond the report: standards read back and bias at the ``max_bias`` levels.
@@ -46,6 +56,7 @@ class Evidence:
     bias: tuple[BiasAt, ...] | None = None
     bias_reason: str = ""
     x_range: tuple[float, float] | None = None
+    bias_line: str = ""  # the method of the line the bias was read from, when not the fitted line
 
 
 def _unit(units: dict[str, str], column: str | None) -> str:
@@ -168,8 +179,9 @@ def _bias(rule: BiasLimit, ev: Evidence, lvl: str, y_unit: str, x_unit: str) -> 
             continue
         met = abs(b.estimate) <= limit
         how = _limit_words(rule, b.at, y_unit)
+        source = f", read from the {_LINE_NAMES.get(ev.bias_line, ev.bias_line)} line" if ev.bias_line else ""
         figure = (
-            f"the bias at {given(b.at)}{x_unit} is {num(b.estimate)}{y_unit} "
+            f"the bias at {given(b.at)}{x_unit}{source} is {num(b.estimate)}{y_unit} "
             f"({lvl} interval {num(b.ci_low)} to {num(b.ci_high)})"
         )
         if met:

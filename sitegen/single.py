@@ -108,6 +108,8 @@ def single_file(site: Path) -> str:
     css = _read(site, "assets/style.css")
     js = _read(site, "assets/site.js")
     bundle = _read(site, "assets/vendor/vega-bundle.js")
+    if (site / "assets" / "built.js").is_file():  # the build time shown on each page
+        js = _read(site, "assets/built.js") + "\n" + js
     safe_css = css.replace("</style", "<\\/style")
     footer = re.search(r'<footer class="wrap footer">.*?</footer>', index, re.S)
     foot = _internal_links(footer.group(0)) if footer else ""

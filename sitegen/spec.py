@@ -82,6 +82,7 @@ class DatasetSpec:
     readings: int = 1
     predict_at: tuple[tuple[tuple[str, float], ...], ...] | tuple[float, ...] = ()
     weights: str | None = None
+    reading_weight: float = 1.0  # the weight of one new reading in prediction intervals of a weighted fit
     robust: bool = False
     group: str | None = None
     compare: str | None = None
@@ -93,6 +94,10 @@ class DatasetSpec:
     weighting: str | None = None
     percent_differences: bool = False
     requirements: RequirementSpec | None = None
+    leave_out: tuple[tuple[int, str], ...] = ()
+    analyst: str | None = None
+    reviewer: str | None = None
+    method_reference: str | None = None
     unknown_keys: tuple[tuple[str, str | None], ...] = field(default=(), compare=False)
 
 
@@ -213,9 +218,17 @@ def _encoding(v: object) -> str:
     import codecs  # noqa: PLC0415 - only needed when the key is given
 
     s = _string(v)
+    sample = "x,y\n1.5,-2e3\n"
     try:
-        codecs.lookup(s)
-        "x,y\n".encode(s).decode(s)  # rejects codecs that are not text encodings (rot13, base64, …)
+        name = codecs.lookup(s).name
+        sample.encode(s).decode(s)  # rejects codecs that are not text encodings (rot13, base64, …)
+        # A file's encoding reads plain ASCII text as itself, with "replace" for odd bytes (which idna,
+        # punycode and the like cannot do); UTF-16 and UTF-32 are the exceptions, and are checked when read.
+        if not name.startswith(("utf-16", "utf-32")):
+            ascii_ok = sample.encode("ascii").decode(s, errors="replace") == sample
+            b"\xff\xfe\x80 ".decode(s, errors="replace")
+            if not ascii_ok:
+                raise ValueError(s)
     except (LookupError, ValueError):
         raise _BadValueError('a text encoding name such as "utf-8", "latin-1" or "cp1252"') from None
     return s
@@ -297,6 +310,25 @@ def _bias_limit(v: object) -> BiasLimit:
     return BiasLimit(tuple(dict.fromkeys(at)), limit, limit_percent)
 
 
+def _leave_out(v: object) -> tuple[tuple[int, str], ...]:
+    example = 'a list of tables such as { row = 7, reason = "air bubble in the cell" }'
+    if not isinstance(v, list):
+        raise _BadValueError(example)
+    out: dict[int, str] = {}
+    for item in v:
+        if not isinstance(item, dict) or set(item) != {"row", "reason"}:
+            raise _BadValueError(f"{example}; each entry needs exactly 'row' and 'reason'")
+        row, reason = item["row"], item["reason"]
+        if isinstance(row, bool) or not isinstance(row, int) or row < 1:
+            raise _BadValueError(f"{example}; 'row' is a CSV data row number from 1 (the header not counted)")
+        if not isinstance(reason, str) or not reason.strip():
+            raise _BadValueError(f"{example}; every row left out needs its reason, as text")
+        if row in out:
+            raise _BadValueError(f"{example}; row {row} is listed twice")
+        out[row] = reason.strip()
+    return tuple(sorted(out.items()))
+
+
 _REQUIREMENT_KEYS: Mapping[str, Callable[[object], Any]] = {
     "min_r_squared": _fraction,
     "slope_within": _window,
@@ -362,6 +394,7 @@ _KEYS: Mapping[str, Callable[[object], Any]] = {
     "readings": _readings,
     "predict_at": _predict_at,
     "weights": _opt_string,
+    "reading_weight": _positive,
     "robust": _boolean,
     "group": _opt_string,
     "compare": _opt_string,
@@ -373,6 +406,10 @@ _KEYS: Mapping[str, Callable[[object], Any]] = {
     "weighting": _weighting,
     "percent_differences": _boolean,
     "requirements": _requirements,
+    "leave_out": _leave_out,
+    "analyst": _opt_string,
+    "reviewer": _opt_string,
+    "method_reference": _opt_string,
 }
 SIDECAR_KEYS = tuple(sorted(_KEYS))
 assert set(_KEYS) == {f.name for f in fields(DatasetSpec)} - {"unknown_keys"}
@@ -394,15 +431,32 @@ def _toml_hint(exc: ValueError) -> str | None:
     return _TOML_HINT if isinstance(exc.__cause__, tomllib.TOMLDecodeError) else None
 
 
+#: Largest sidecar or site.toml read (a few keys take a few hundred bytes).
+MAX_TOML_BYTES = 1_000_000
+#: Deepest nesting of lists and tables a sidecar or site.toml may hold.
+MAX_TOML_DEPTH = 16
+#: Longest text a key may hold, by key (others: :data:`_MAX_TEXT`), and most entries a list or table may hold.
+_MAX_TEXT_BY_KEY = {"title": 500, "description": 50_000, "model": 10_000}
+_MAX_TEXT = 2_000
+_MAX_ENTRIES = 1_000
+#: Unknown keys named one by one in messages; the rest are counted.
+MAX_UNKNOWN_SHOWN = 10
+
+
 def _read_toml(path: Path, root: Path | None = None) -> dict[str, Any]:
     """Parse a TOML file (refused unread when it leads outside ``root``); raises ``ValueError`` with a readable
     message."""
     try:
-        raw = read_inside(path, root)
+        raw = read_inside(path, root, MAX_TOML_BYTES)
     except OutsideFolderError as exc:
         raise ValueError(exc.message) from None
     except OSError as exc:
         raise ValueError(f"cannot be read: {exc.strerror or exc}") from exc
+    if len(raw) > MAX_TOML_BYTES:
+        raise ValueError(
+            f"is larger than {MAX_TOML_BYTES // 1_000_000} MB, far more than any settings need; "
+            "check that it is the right file"
+        )
     try:
         text = raw.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
@@ -410,9 +464,49 @@ def _read_toml(path: Path, root: Path | None = None) -> dict[str, Any]:
     import tomllib  # noqa: PLC0415 - a rebuild with nothing to do reads no TOML
 
     try:
-        return tomllib.loads(text)
+        table = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ValueError(f"is not valid TOML: {exc}") from exc
+    except RecursionError as exc:
+        raise ValueError(
+            f"is nested too deeply to be read (lists or tables within each other more than {MAX_TOML_DEPTH} deep)"
+        ) from exc
+    if _depth(table) > MAX_TOML_DEPTH:
+        raise ValueError(f"holds lists or tables nested more than {MAX_TOML_DEPTH} deep; no setting needs that")
+    return table
+
+
+def _depth(value: object) -> int:
+    """How deeply lists and tables nest in a parsed TOML value (without recursion)."""
+    deepest, stack = 0, [(value, 0)]
+    while stack:
+        item, level = stack.pop()
+        deepest = max(deepest, level)
+        if isinstance(item, dict):
+            stack.extend((v, level + 1) for v in item.values())
+        elif isinstance(item, list):
+            stack.extend((v, level + 1) for v in item)
+    return deepest
+
+
+def _size_problem(key: str, value: object) -> str | None:
+    """What is too large about a key's value (too long a text, too many entries), or None."""
+    longest = _MAX_TEXT_BY_KEY.get(key, _MAX_TEXT)
+    entries, stack = 0, [value]
+    while stack:
+        item = stack.pop()
+        if isinstance(item, str) and len(item) > longest:
+            return f"holds a text of {len(item):,} characters, more than the {longest:,} allowed"
+        if isinstance(item, dict):
+            entries += len(item)
+            stack.extend(item.values())
+            stack.extend(k for k in item if len(k) > longest)
+        elif isinstance(item, list):
+            entries += len(item)
+            stack.extend(item)
+        if entries > _MAX_ENTRIES:
+            return f"holds more than {_MAX_ENTRIES:,} entries"
+    return None
 
 
 def validate_keys(table: Mapping[str, object], where: str) -> tuple[dict[str, Any], list[tuple[str, str | None]]]:
@@ -422,8 +516,19 @@ def validate_keys(table: Mapping[str, object], where: str) -> tuple[dict[str, An
     for key, value in table.items():
         check = _KEYS.get(key)
         if check is None:
-            unknown.append((key, _closest(key, SIDECAR_KEYS)))
+            shown = key if len(key) <= 60 else key[:57] + "..."
+            hint = _closest(key, SIDECAR_KEYS) if len(key) <= 60 else None
+            if hint == "requirements":  # a misspelt [requirements] would drop every criterion without a word
+                raise SidecarError(
+                    f"{where}: unknown key '{shown}' looks like a misspelt 'requirements'; its acceptance "
+                    "criteria would be ignored",
+                    hint="rename the table to [requirements]",
+                )
+            unknown.append((shown, hint))
             continue
+        too_large = _size_problem(key, value)
+        if too_large:
+            raise SidecarError(f"{where}: key '{key}' {too_large}", hint="shorten it")
         try:
             clean[key] = check(value)
         except _RequirementError as exc:
@@ -465,6 +570,8 @@ class Limits:
     max_megabytes: float = 512.0
     max_rows: int = 5_000_000
     max_columns: int = 200
+    max_fit_seconds: float = 600.0  # processor time one dataset's fit may take (3x that by the clock)
+    max_fit_megabytes: float = 6000.0  # memory one dataset's fit may take beyond what its worker holds
 
 
 @dataclass(frozen=True, slots=True)
@@ -493,11 +600,25 @@ _SITE_KEYS = (
     "limits",
     "ignore",
 )
-_LIMIT_KEYS = ("max_megabytes", "max_rows", "max_columns")
+_LIMIT_KEYS = ("max_megabytes", "max_rows", "max_columns", "max_fit_seconds", "max_fit_megabytes")
 
 
 def _site_error(msg: str) -> SiteConfigError:
     return SiteConfigError(f"site.toml: {msg}")
+
+
+def _unknown_site_keys(table: Mapping[str, object]) -> list[str]:
+    """Warnings for the keys of site.toml that sitegen does not know (the first few by name)."""
+    warnings = []
+    strange = [key for key in table if key not in _SITE_KEYS]
+    for key in strange[:MAX_UNKNOWN_SHOWN]:
+        hint = (_closest(key, _SITE_KEYS) or _closest(key, SIDECAR_KEYS)) if len(key) <= 60 else None
+        tip = f"; did you mean '{hint}'?" if hint else ""
+        shown = key if len(key) <= 60 else key[:57] + "..."
+        warnings.append(f"site.toml: unknown key '{shown}' is ignored{tip}")
+    if len(strange) > MAX_UNKNOWN_SHOWN:
+        warnings.append(f"site.toml: {len(strange) - MAX_UNKNOWN_SHOWN:,} more unknown keys are ignored")
+    return warnings
 
 
 def read_site_config(path: Path, root: Path | None = None) -> tuple[SiteConfig, list[str]]:
@@ -510,16 +631,15 @@ def read_site_config(path: Path, root: Path | None = None) -> tuple[SiteConfig, 
     except ValueError as exc:
         raise SiteConfigError(f"site.toml {exc}", hint=_toml_hint(exc)) from exc
     warnings: list[str] = []
-    for key in table:
-        if key not in _SITE_KEYS:
-            hint = _closest(key, _SITE_KEYS) or _closest(key, SIDECAR_KEYS)
-            tip = f"; did you mean '{hint}'?" if hint else ""
-            warnings.append(f"site.toml: unknown key '{key}' is ignored{tip}")
+    warnings += _unknown_site_keys(table)
     values: dict[str, Any] = {}
     for key in ("title", "description", "theme"):
         if key in table:
             if not isinstance(table[key], str):
                 raise _site_error(f"key '{key}' must be a string; got {_show(table[key])}")
+            too_large = _size_problem(key, table[key])
+            if too_large:
+                raise _site_error(f"key '{key}' {too_large}; shorten it")
             values[key] = table[key]
     for key in ("offer_source", "static_images"):
         if key in table:
@@ -542,8 +662,10 @@ def read_site_config(path: Path, root: Path | None = None) -> tuple[SiteConfig, 
         raise SiteConfigError(exc.message) from None
     warnings += [
         f"site.toml [defaults]: unknown key '{k}' is ignored" + (f"; did you mean '{h}'?" if h else "")
-        for k, h in unknown
+        for k, h in unknown[:MAX_UNKNOWN_SHOWN]
     ]
+    if len(unknown) > MAX_UNKNOWN_SHOWN:
+        warnings.append(f"site.toml [defaults]: {len(unknown) - MAX_UNKNOWN_SHOWN:,} more unknown keys are ignored")
     values["defaults"] = tuple(sorted(clean.items()))
     values["limits"] = _read_limits(table.get("limits", {}))
     values["ignore"] = _read_ignore(table.get("ignore", []))
@@ -587,11 +709,10 @@ def _read_limits(table: object) -> Limits:
             if isinstance(v, bool) or not isinstance(v, int) or v < 1:
                 raise _site_error(f"[limits] key '{key}' must be a positive whole number; got {_show(v)}")
             out[key] = v
-    if "max_megabytes" in table:
-        try:
-            out["max_megabytes"] = _positive(table["max_megabytes"])
-        except _BadValueError as exc:
-            raise _site_error(
-                f"[limits] key 'max_megabytes' must be {exc}; got {_show(table['max_megabytes'])}"
-            ) from None
+    for key in ("max_megabytes", "max_fit_seconds", "max_fit_megabytes"):
+        if key in table:
+            try:
+                out[key] = _positive(table[key])
+            except _BadValueError as exc:
+                raise _site_error(f"[limits] key '{key}' must be {exc}; got {_show(table[key])}") from None
     return Limits(**out)

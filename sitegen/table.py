@@ -72,8 +72,8 @@ def from_columns(columns: Mapping[str, ArrayLike], rows: ArrayLike | None = None
 def from_frame(frame: Any) -> Table:
     """A table from a pandas DataFrame (the general CSV reader's result, or a test's frame).
 
-    Numeric and boolean columns keep their dtype; anything else becomes text with None where
-    the frame has a missing value.
+    Numeric columns keep their dtype; anything else (booleans included: a cell reading ``True`` is a word,
+    not the number 1) becomes text with None where the frame has a missing value.
     """
     names = []
     cols = []
@@ -84,9 +84,7 @@ def from_frame(frame: Any) -> Table:
             values: NDArray[Any] = series.to_numpy(dtype=np.float64)
         elif kind in "iu":
             values = series.to_numpy()
-        elif kind == "b":
-            values = series.to_numpy(dtype=bool)
-        else:
+        else:  # text, and words such as True/False, which pandas reads as booleans: text, not numbers
             values = np.array([_text_or_none(v) for v in series.tolist()], dtype=object)
         names.append(str(key))
         cols.append(values)

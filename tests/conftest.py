@@ -194,7 +194,12 @@ def tree_snapshot(root: Path) -> Snapshot:
 
 
 def site_bytes(site: Path, skip: Sequence[str] = ()) -> dict[str, bytes]:
-    """Every file of a site by relative path, except those named in ``skip``."""
+    """Every file of a site by relative path, except those named in ``skip``.
+
+    Skipping build.json skips assets/built.js too: both carry the build time (the pages show it from there).
+    """
+    if "build.json" in skip:
+        skip = (*skip, "assets/built.js")
     return {
         p.relative_to(site).as_posix(): p.read_bytes()
         for p in sorted(site.rglob("*"))

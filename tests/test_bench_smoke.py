@@ -27,3 +27,17 @@ def test_bench_runs_on_a_tiny_folder() -> None:
         assert isinstance(figures[key], int | float), key
         assert figures[key] >= 0, key
     assert figures["datasets"] == 4
+
+
+def test_large_bench_runs_on_a_small_file() -> None:
+    out = subprocess.run(
+        [sys.executable, str(ROOT / "bench" / "large.py"), "--rows", "3000"],
+        capture_output=True, text=True, cwd=ROOT, check=True, timeout=600,
+    )  # fmt: skip
+    lines = out.stdout.strip().splitlines()
+    assert "interpreter_peak_mb" in json.loads(lines[0])
+    head, row = lines[-2].split(" | "), lines[-1].split(" | ")
+    figures = dict(zip(head, row, strict=True))
+    assert int(figures["rows"]) == 3000
+    for key in ("floor_s", "sitegen_s", "ratio", "floor_peak_mb", "sitegen_peak_mb"):
+        assert float(figures[key]) > 0, key

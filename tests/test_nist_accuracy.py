@@ -27,6 +27,7 @@ from __future__ import annotations
 
 import json
 import math
+import os
 import shutil
 import warnings
 from collections.abc import Callable, Iterable
@@ -39,6 +40,8 @@ import pandas as pd
 import patsy
 import pytest
 from nist_data import ALL_NIST, NIST_DIR, NistCase, load_nist
+from nist_figures import DIAGNOSTICS, KINDS, OBSERVATION_COLUMNS, digits
+from nist_reference import reference
 from numpy.typing import NDArray
 from scipy import stats
 
@@ -48,6 +51,7 @@ from sitegen.discover import discover
 from sitegen.formula import build_design
 from sitegen.model import FitReport
 from sitegen.spec import Limits
+from sitegen.stats import ext
 from sitegen.stats.ols import OlsFit, anova_table, bands, fit_ols
 
 COEF_DIGITS = 9.0
@@ -111,15 +115,18 @@ def independent_leverage(case: NistCase) -> NDArray[np.float64]:
 Built = tuple[dict[str, Any], pd.DataFrame]
 
 
-@pytest.fixture(scope="module")
-def nist_build(tmp_path_factory: pytest.TempPathFactory) -> Callable[[str], Built]:
-    """Build a one-dataset site per NIST set (lazily, once per module); return fit.json and observations."""
+@pytest.fixture(scope="module", params=KINDS)
+def nist_build(tmp_path_factory: pytest.TempPathFactory, request: pytest.FixtureRequest) -> Callable[[str], Built]:
+    """Build a one-dataset site per NIST set (lazily, once per module and arithmetic); return fit.json and
+    observations. The arithmetic is chosen as a user on another platform would have it, by the
+    environment variable SITEGEN_EXTENDED (double-double is what platforms without a wide long double get)."""
     done: dict[str, Built] = {}
+    kind = str(request.param)
 
     def get(name: str) -> Built:
         if name not in done:
             case = load_nist(name)
-            root = tmp_path_factory.mktemp(f"nist-{name.lower()}")
+            root = tmp_path_factory.mktemp(f"nist-{name.lower()}-{kind}")
             data = root / "data"
             data.mkdir()
             shutil.copyfile(case.csv_path, data / f"{name}.csv")
@@ -127,7 +134,15 @@ def nist_build(tmp_path_factory: pytest.TempPathFactory) -> Callable[[str], Buil
                 f'title = "NIST StRD {name}"\nmodel = "{case.formula}"\n', encoding="utf-8"
             )
             out = root / "site"
-            code = main(["build", str(data), "-o", str(out), "-j", "1", "-q"])
+            before = os.environ.get(ext.ENV)
+            os.environ[ext.ENV] = kind
+            try:
+                code = main(["build", str(data), "-o", str(out), "-j", "1", "-q"])
+            finally:
+                if before is None:
+                    del os.environ[ext.ENV]
+                else:
+                    os.environ[ext.ENV] = before
             assert code in (0, 1), f"build of {name} exited with {code}"
             folder = out / "datasets" / name.lower()
             fit = json.loads((folder / "fit.json").read_text(encoding="utf-8"))
@@ -218,6 +233,44 @@ def test_build_bands_follow_the_leverage(nist_build: Callable[[str], Built], nam
     s = case.residual_sd
     np.testing.assert_allclose(mean_half, t * s * np.sqrt(h), rtol=1e-5, err_msg=f"{name} mean band")
     np.testing.assert_allclose(pred_half, t * s * np.sqrt(1 + h), rtol=1e-5, err_msg=f"{name} prediction band")
+
+
+#: Checks sitegen judges only on some sets: lack of fit needs enough repeated settings (our rule,
+#: stats/checks.py), and Jarque–Bera is computed only where Shapiro–Wilk does not decide normality.
+NOT_ALWAYS_JUDGED = frozenset({"lack_of_fit", "normality_jarque_bera"})
+
+
+@pytest.mark.parametrize("name", ALL_NIST)
+def test_build_publishes_every_figure_to_nine_digits(nist_build: Callable[[str], Built], name: str) -> None:
+    # Reference: the same figures in 80-digit mpmath arithmetic (tests/nist_reference.py): every
+    # column of observations.csv and every diagnostic's statistic and p-value in fit.json, as written.
+    ref = reference(name)
+    fit = fitted_json(nist_build, name)
+    _, obs = nist_build(name)
+    short = {}
+    for col in OBSERVATION_COLUMNS:
+        if col in ref.rows:
+            d = digits(obs[col].to_numpy(dtype=float), ref.rows[col])
+            if d < COEF_DIGITS:
+                short[col] = round(d, 1)
+    by_check = {d["check"]: d for d in fit["diagnostics"]}
+    for check, (stat_key, p_key) in DIAGNOSTICS.items():
+        for key, field in ((stat_key, "statistic"), (p_key, "p_value")):
+            published = by_check.get(check, {}).get(field)
+            if published is None and check in NOT_ALWAYS_JUDGED:
+                continue  # deliberately not judged on this set (see NOT_ALWAYS_JUDGED)
+            if key in ref.scalars:
+                d = digits(published, ref.scalars[key])
+                if d < COEF_DIGITS:
+                    short[key] = round(d, 1)
+    if "vif" in ref.rows:
+        d = digits(by_check["collinearity"]["statistic"], max(ref.rows["vif"]))
+        if d < COEF_DIGITS:
+            short["largest VIF"] = round(d, 1)
+    d = digits(fit["condition_number"], ref.scalars["condition_number"])
+    if d < COEF_DIGITS:
+        short["condition number"] = round(d, 1)
+    assert not short, f"{name}: fewer than {COEF_DIGITS} correct digits: {short}"
 
 
 # --- unit level: build_design + fit_ols ---------------------------------------------------------

@@ -35,7 +35,7 @@ from sitegen.discover import discover
 from sitegen.formula import Design, build_design, design_for
 from sitegen.model import FitReport
 from sitegen.spec import Limits
-from sitegen.stats.ols import OlsFit, anova_table, bands, fit_ols
+from sitegen.stats.ols import OlsFit, anova_table, bands, fit_ols, row_bands
 from sitegen.stats.robust import hc3_cov
 
 COEFFICIENT_COLUMNS = ("term", "estimate", "std_error", "t_stat", "p_value", "ci_low", "ci_high")  # DESIGN.md
@@ -273,10 +273,25 @@ def test_bands_at_new_values_match_get_prediction(case: Case) -> None:
 
 @pytest.mark.parametrize("case", CASES, ids=IDS)
 def test_bands_at_observed_rows_match_get_prediction(case: Case) -> None:
-    # Reference: get_prediction() at the data (WLS: the model's own weights).
+    # Reference: get_prediction() at the data (WLS: the model's own weights for a new reading).
     design, fit, w = ours(case)
     frame = reference(case).get_prediction().summary_frame(alpha=1 - case.level)
     _assert_bands_match(bands(fit, design.X, w), frame)
+
+
+@pytest.mark.parametrize("case", CASES, ids=IDS)
+@pytest.mark.parametrize("reading_weight", [1.0, 2.5])
+def test_row_bands_agree_with_bands_at_the_rows(case: Case, reading_weight: float) -> None:
+    # Reference: statsmodels get_prediction at the data's own design rows with every new
+    # reading of one weight (WLS), as observations.csv, the chart band and predictions use it.
+    _, fit, w = ours(case)
+    res = reference(case)
+    if w is None:
+        pred = res.get_prediction()
+    else:
+        pred = res.get_prediction(exog=res.model.exog, weights=np.full(fit.n, reading_weight))
+    got = row_bands(fit, w, reading_weight if w is not None else 1.0)
+    _assert_bands_match(got, pred.summary_frame(alpha=1 - case.level))
 
 
 @pytest.mark.parametrize("case", CASES, ids=IDS)
@@ -370,7 +385,12 @@ def test_build_outputs_match_statsmodels(built_site: Path, name: str) -> None:
     close(coefs["ci_high"], ci[:, 1], what="CI high")
     obs = pd.read_csv(folder / "observations.csv")
     assert list(obs["row"]) == list(case.frame.index)
-    frame = ref.get_prediction().summary_frame(alpha=1 - case.level)
+    # Prediction intervals are for one new reading of weight 1 (the sidecar's reading_weight default).
+    if case.weights is None:
+        frame = ref.get_prediction().summary_frame(alpha=1 - case.level)
+    else:
+        new_w = np.ones(len(ref.model.endog))
+        frame = ref.get_prediction(exog=ref.model.exog, weights=new_w).summary_frame(alpha=1 - case.level)
     close(obs["fitted"], frame["mean"], what="fitted")
     close(obs["mean_ci_low"], frame["mean_ci_lower"], what="mean CI low")
     close(obs["mean_ci_high"], frame["mean_ci_upper"], what="mean CI high")

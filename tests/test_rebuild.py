@@ -359,7 +359,7 @@ class _Meddling:
     def __init__(self, slug: str, meddle: Callable[[Path], Callable[[], None]]) -> None:
         self.slug, self.meddle = slug, meddle
 
-    def run(self, fn: Callable[[Any], Any], items: list[Any]) -> Any:
+    def run(self, fn: Callable[[Any], Any], items: list[Any], bounded: Any = None) -> Any:
         def one(item: Any) -> Any:
             src = getattr(item, "source", None)
             if src is None or src.slug != self.slug:

@@ -65,6 +65,27 @@ def test_misspelt_criterion_fails_that_dataset_naming_sidecar_and_closest_key(tm
     assert _summary(tmp_path / "site")["b"]["status"] != "error"
 
 
+@pytest.mark.parametrize("name", ["requirement", "requirments", "Requirements"])
+def test_misspelt_requirements_table_fails_that_dataset_instead_of_dropping_its_criteria(
+    tmp_path: Path, name: str
+) -> None:
+    # A misspelt table name would otherwise be one more unknown key (a warning), every criterion in it
+    # dropped, and --enforce would exit 0 on data that do not meet them.
+    data = tmp_path / "data"
+    write_csv(data / "a.csv", "x,y\n1,2\n2,4.1\n3,5.9\n4,8.2\n")
+    write_toml(data / "a.toml", f"[{name}]\nmin_r_squared = 0.99999\n")
+    write_csv(data / "b.csv", "x,y\n1,2\n2,4.1\n3,5.9\n4,8.2\n")
+    code, out = _build(data, tmp_path / "site", "--enforce")
+    assert code == 1
+    assert "a.toml" in out
+    assert f"'{name}'" in out
+    assert "[requirements]" in out
+    assert "Traceback" not in out
+    summary = _summary(tmp_path / "site")
+    assert summary["a"]["status"] == "error"
+    assert summary["b"]["status"] != "error"
+
+
 @pytest.mark.parametrize(
     ("table", "words"),
     [
@@ -339,3 +360,28 @@ def test_contradicted_claim_reaches_headline_status_and_index(tmp_path: Path) ->
     assert "contradict 1 of the 1 declared claim" in trust
     index = (site / "index.html").read_text(encoding="utf-8")
     assert "Declared claim &#39;x = 1&#39;" in index or "Declared claim 'x = 1'" in index
+
+
+def test_comparison_bias_comes_from_the_recommended_line(tmp_path: Path) -> None:
+    """With purpose = "comparison" the bias is read from the line the page recommends, the same figures as the
+    page's bias at the decision levels (fit.json ``bias``)."""
+    rows = [(0.5, 0.56), (1.0, 1.02), (1.5, 1.62), (2.0, 2.11), (3.0, 3.09), (4.0, 4.26), (5.0, 5.22), (6.0, 6.31)]
+    data = tmp_path / "data"
+    write_csv(data / "kit.csv", [("lab", "kit"), *rows])
+    write_toml(
+        data / "kit.toml",
+        'model = "kit ~ lab"\npurpose = "comparison"\ndecision_levels = [1.0, 4.0]\n'
+        "[requirements]\nmax_bias = { at = [1.0, 4.0], limit = 0.2 }\n",
+    )
+    site = tmp_path / "site"
+    _build(data, site)
+    fit = _fit(site, "kit")
+    listed = fit["bias"]
+    assert isinstance(listed, list)
+    bias = {b["at"]: b for b in listed}
+    got = _requirements(site, "kit")
+    for at in (1.0, 4.0):
+        q = got[f"max_bias@{at}"]
+        assert q["value"] == pytest.approx(bias[at]["estimate"], rel=1e-12)
+        assert q["interval"] == pytest.approx([bias[at]["ci_low"], bias[at]["ci_high"]], rel=1e-12)
+        assert "read from the" in q["text"]

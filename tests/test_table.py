@@ -40,14 +40,16 @@ def test_parse_number_refuses_what_is_not_a_number() -> None:
 
 
 def test_from_frame_keeps_types_and_row_numbers() -> None:
+    """Numbers keep their type; booleans (pandas reads the words True/False so) become the words again."""
     frame = pd.DataFrame(
         {"i": [1, 2, 3], "f": [1.5, np.nan, 3.0], "t": ["a", None, "c"], "b": [True, False, True]},
         index=pd.RangeIndex(1, 4),
     )
     table = from_frame(frame)
     assert table.names == ("i", "f", "t", "b")
-    assert [c.dtype.kind for c in table.columns] == ["i", "f", "O", "b"]
+    assert [c.dtype.kind for c in table.columns] == ["i", "f", "O", "O"]
     assert table["t"].tolist() == ["a", None, "c"]
+    assert table["b"].tolist() == ["True", "False", "True"]
     assert table.rows.tolist() == [1, 2, 3]
 
 

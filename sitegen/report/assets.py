@@ -101,6 +101,33 @@ def write_bundle(out: Path) -> tuple[str, str]:
     return (BUNDLE, BUNDLE_VERSION)
 
 
+BUILT_AT = "assets/built.js"
+
+
+def write_built_at(out: Path, built_at: str) -> str:
+    """``assets/built.js``: puts the build time into every page's ``[data-built-at]`` element.
+
+    The time lives in this one small file (and build.json), so the pages themselves stay byte-identical
+    between builds of the same input and need not be written again when only the time changed.
+    """
+    import json  # noqa: PLC0415
+
+    shown = built_at.replace("T", " ").replace("+00:00", " UTC")
+    text = (
+        "(function () {\n"
+        f"  var iso = {json.dumps(built_at)}, shown = {json.dumps(shown)};\n"
+        '  document.querySelectorAll("[data-built-at]").forEach(function (el) {\n'
+        '    el.textContent = shown; el.setAttribute("datetime", iso);\n'
+        "  });\n"
+        "})();\n"
+    )
+    target = out / BUILT_AT
+    target.parent.mkdir(parents=True, exist_ok=True)
+    target.unlink(missing_ok=True)  # a new file, never one rewritten in place
+    target.write_text(text, encoding="utf-8")
+    return BUILT_AT
+
+
 #: What a theme kept in the data folder may publish: style sheets, pictures and fonts (no scripts, no pages).
 UNTRUSTED_STATIC = (
     ".css",

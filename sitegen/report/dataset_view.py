@@ -78,10 +78,12 @@ class DatasetView:
 def sentence(r: FitReport) -> str:
     """The fit in plain words, followed by what contradicts the user's own declarations (unmet requirements,
     claims the data reject), so that the headline never reads as sound beside a contradicted claim."""
-    text = _fit_sentence(r)
+    text = _groups_sentence(r) if r.pooled_contrast else _fit_sentence(r)
     if r.requirements:
         unmet = [q for q in r.requirements if not q.met]
-        if unmet:
+        if len(r.requirements) == 1:
+            text += f" The declared requirement {r.requirements[0].name} is {'met' if not unmet else 'not met'}."
+        elif unmet:
             text += (
                 f" {len(unmet)} of {len(r.requirements)} declared requirements "
                 f"{'is' if len(unmet) == 1 else 'are'} not met ({unmet_words(r)})."
@@ -101,6 +103,29 @@ def unmet_words(r: FitReport) -> str:
     return ", ".join(q.name + (f" at {fmt.given(q.at)}" if q.at is not None else "") for q in unmet)
 
 
+def _groups_sentence(r: FitReport) -> str:
+    """Per-group lines lead when their slopes differ; the pooled line is named only as a contrast."""
+    g = r.groups
+    if g is None:
+        return _fit_sentence(r)
+    units = dict(r.units)
+    x = r.chart.x if r.chart and r.chart.x else "x"
+    y_unit = f" {units[r.response]}" if r.response in units else ""
+    per = f" per {units[x]}" if x in units else ""
+    lvl = fmt.level(r.level)
+    each = "; ".join(
+        f"{line.group}: {fmt.num(line.slope)}{y_unit}{per} ({lvl} interval {fmt.num(line.slope_ci_low)} to "
+        f"{fmt.num(line.slope_ci_high)}, {fmt.integer(line.n)} rows)"
+        for line in g.lines
+    )
+    return (
+        f"The slope of {r.response} on {x} differs between the groups of {g.column} "
+        f"({fmt.p_phrase(g.p_value)}), so each group has its own line — slopes {each}. "
+        f"The pooled line through all {fmt.integer(r.n)} rows is shown only as a contrast, not as the recommended "
+        "line; the checks and flagged rows below are computed on it."
+    )
+
+
 def _fit_sentence(r: FitReport) -> str:
     """The fit stated in one plain sentence (two when the direction of the line is not established)."""
     units = dict(r.units)
@@ -115,12 +140,19 @@ def _fit_sentence(r: FitReport) -> str:
             f"R² = {fmt.rsquared(r.r_squared)}, measured about zero because the model has no intercept "
             "(it cannot be compared with the R² of a model that has one)"
         )
-    y_unit = dict(r.units).get(r.response, "")
-    fit_part = (
-        f"{share}, and the points scatter about it by {fmt.num(r.residual_std_error)}"
-        + (f" {y_unit}" if y_unit else "")
-        + " (the typical distance of a row from the line)"
-    )
+    y_unit_text = f" {units[r.response]}" if r.response in units else ""
+    if r.weights:
+        fit_part = (
+            f"{share}; fitted by weighted least squares (weights from column {r.weights}), the points scatter about "
+            f"it by {fmt.num(r.residual_sd_y)}{y_unit_text} (the standard deviation of the plain residuals, "
+            f"y − fitted; the weighted residual scale, {fmt.num(r.residual_std_error)}, is not in "
+            f"{r.response}'s units)"
+        )
+    else:
+        fit_part = (
+            f"{share}, and the points scatter about it by {fmt.num(r.residual_std_error)}{y_unit_text}"
+            " (the typical distance of a row from the line)"
+        )
     chart = r.chart
     term = r.compare_term
     c = r.coefficient(term) if term else None
@@ -200,6 +232,12 @@ def view(
         f"(darker) and prediction band for single readings (lighter)"
         + (", the line of equality y = x (where the methods would agree)" if r.purpose == "comparison" else "")
         + (", and the other lines listed below" if r.lines else "")
+        + (
+            f"; the pooled line is a contrast only: the slopes differ by {r.groups.column}, so each "
+            f"{r.groups.column}'s own line is the one to use"
+            if r.pooled_contrast and r.groups
+            else ""
+        )
         + ("; flagged rows are drawn as larger squares." if r.flagged else ".")
     )
     has_line_chart = "fit" in charts

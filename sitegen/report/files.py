@@ -17,7 +17,7 @@ from sitegen.discover import DatasetSource
 from sitegen.errors import OutsideFolderError
 from sitegen.jsontext import json_text
 from sitegen.model import FitReport, to_json
-from sitegen.report import variation
+from sitegen.report import bulkcsv, variation
 from sitegen.report.tables import (
     cell_kinds,
     clean_rows,
@@ -104,6 +104,12 @@ def index_entry(r: FitReport) -> dict[str, Any]:
     row = {k: _json_value(v) for k, v in summary_row(r).items()}
     row["tags"] = list(r.tags)
     row["message_level"] = _message_level(r)
+    row["pooled_contrast"] = r.pooled_contrast
+    row["sidecar_warnings"] = [m.text for m in r.messages if m.level == "warning" and "sidecar key" in m.text]
+    row["weights"] = r.weights
+    row["residual_sd_y"] = _json_value(r.residual_sd_y)
+    row["units"] = dict(r.units)
+    row["response"] = r.response
     row["requirement_list"] = [
         {"name": q.name, "met": q.met, "label": q.label, "text": q.text, "at": q.at} for q in r.requirements
     ]
@@ -128,7 +134,12 @@ def report_from_index_entry(entry: dict[str, Any], input_sha256: str) -> FitRepo
                 nan, nan, num("ci_low"), num("ci_high"),
             ),
         )  # fmt: skip
-    messages = (Message(entry["message_level"], str(entry["message"])),) if entry.get("message") else ()
+    messages: tuple[Message, ...] = (
+        (Message(entry["message_level"], str(entry["message"])),) if entry.get("message") else ()
+    )
+    messages += tuple(
+        Message("warning", str(w)) for w in entry.get("sidecar_warnings", ()) if str(w) != entry.get("message")
+    )
     requirements = tuple(
         Requirement(
             name=str(q["name"]), met=bool(q["met"]), value=None, limit=None, text=str(q["text"]),
@@ -157,6 +168,11 @@ def report_from_index_entry(entry: dict[str, Any], input_sha256: str) -> FitRepo
         messages=messages,
         input_sha256=input_sha256,
         requirements=requirements,
+        pooled_contrast=bool(entry.get("pooled_contrast", False)),
+        weights=entry.get("weights"),
+        residual_sd_y=entry.get("residual_sd_y"),
+        units=tuple(sorted((str(k), str(v)) for k, v in (entry.get("units") or {}).items())),
+        response=str(entry.get("response", "")),
     )
 
 
@@ -190,8 +206,11 @@ def _table(folder: Path, name: str, columns: Sequence[str], rows: Sequence[Seque
 
 def _observations(folder: Path, obs: Observations, book: list[Sheet]) -> str:
     n = len(obs.values[0]) if obs.values else 0
-    if n > XLSX_MAX_ROWS:  # large: pandas streams the CSV in chunks; not in the workbook
-        write_large_csv(obs.columns, obs.values, folder / "observations.csv")
+    if n > XLSX_MAX_ROWS:  # large: written in chunks, not in the workbook
+        if bulkcsv.can_write(obs.values):
+            bulkcsv.write_csv(obs.columns, obs.values, folder / "observations.csv")
+        else:  # yes/no or mixed cells: pandas, slower
+            write_large_csv(obs.columns, obs.values, folder / "observations.csv")
         return "observations.csv"
     header, _ = clean_rows(obs.columns, [])
     text = columns_to_csv(header, obs.values)
@@ -256,6 +275,33 @@ def _purpose_tables(folder: Path, r: FitReport, book: list[Sheet]) -> list[str]:
         rows = [[getattr(o, c) for c in WEIGHTING_COLUMNS] for o in r.weighting_options]
         files.append(_table(folder, "weighting", WEIGHTING_COLUMNS, rows, book))
     return files
+
+
+CAUTION = (
+    "Results computed automatically from the files as delivered. Before a result is used for a decision that "
+    "affects health, safety or compliance, check it against your laboratory's validated method, the regulations "
+    "that apply to you and the judgement of accredited or licensed staff."
+)
+
+
+def about_rows(r: FitReport) -> list[list[Any]]:
+    """The workbook's metadata sheet: where the numbers come from, their level and units, who answers for them."""
+    from sitegen import __version__  # noqa: PLC0415
+
+    rows: list[list[Any]] = [
+        ["dataset", r.dataset],
+        ["title", r.title],
+        ["source file", r.source],
+        ["input SHA-256", r.input_sha256],
+        ["model", r.model],
+        ["fit", f"weighted least squares, weights from column {r.weights}" if r.weights else "ordinary least squares"],
+        ["confidence level of every interval (ci_*, mean_ci_*, pred_*)", r.level],
+    ]
+    rows += [[f"unit of {column}", unit] for column, unit in r.units]
+    rows += [[key.replace("_", " "), value] for key, value in r.responsible]
+    rows += [[f"row {row} left out", why] for row, why in r.excluded_rows]
+    rows += [["made by", f"sitegen {__version__}"], ["caution", CAUTION]]
+    return rows
 
 
 def _source_copy(src: DatasetSource, r: FitReport, max_bytes: int | None) -> bytes | None:
@@ -338,6 +384,8 @@ def dataset_files(
     files += _purpose_tables(folder, r, book)
     if obs is not None:
         files.append(_observations(folder, obs, book))
+    about_header, about_cells = clean_rows(("field", "value"), about_rows(r))  # text neutralised as in every sheet
+    book.insert(0, ("about", about_header, about_cells))
     (folder / WORKBOOK).write_bytes(workbook(book))
     files.append(WORKBOOK)
     return sorted(files)

@@ -1,4 +1,10 @@
-"""The one place numbers are rounded for reading. Downloads keep full precision."""
+"""The one place numbers are rounded for reading. Downloads keep full precision.
+
+One rule for significant digits on every page, in sentences, cards, tables and intervals alike: measured
+quantities (estimates, intervals, fitted values, scatter, limits, bias) have 4 significant digits, trailing
+zeros included; percentages, diagnostic measures and test statistics 3; p-values 3 (below 0.0001 as
+"< 0.0001"); counts are exact; limits the user declared are shown as written (:func:`given`).
+"""
 
 from __future__ import annotations
 
@@ -29,9 +35,7 @@ def num(x: object, digits: int = 4) -> str:
     mag = math.floor(math.log10(abs(v)))
     if -4 <= mag < 7:
         decimals = max(digits - 1 - mag, 0)
-        text = f"{v:,.{decimals}f}"
-        if "." in text:
-            text = text.rstrip("0").rstrip(".") if decimals > digits else text
+        text = f"{v:,.{decimals}f}"  # trailing zeros are significant digits: kept (one rule everywhere)
     else:
         mantissa, exponent = f"{v:.{digits - 1}e}".split("e")
         text = f"{mantissa} × 10{str(int(exponent)).translate(_SUPERSCRIPT)}"

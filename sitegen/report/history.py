@@ -47,6 +47,7 @@ def snapshot(reports: Sequence[FitReport]) -> dict[str, Record]:
             "low": _finite(c.ci_low) if c else None,
             "high": _finite(c.ci_high) if c else None,
             "level": _finite(r.level),
+            "requirements": r.requirements_state,
         }
     return out
 
@@ -116,6 +117,29 @@ def _figures(entry: Record) -> Record:
 _TEXT_KEYS = ("title", "status", "input_sha256")
 _NUMBER_KEYS = ("estimate", "std_error", "low", "high", "level")
 FIGURE_KEYS = frozenset((*_TEXT_KEYS, "term", *_NUMBER_KEYS))
+REQUIREMENT_STATES = ("met", "unmet", "none")
+#: How bad a status or requirement state is: a change towards a larger number is a worsening.
+_STATUS_RANK = {"ok": 0, "warn": 1, "error": 2}
+_REQUIREMENT_RANK = {"none": 0, "met": 0, "unmet": 1}
+
+
+def _verdict_change(slug: str, old: Mapping[str, Any], new: Mapping[str, Any]) -> dict[str, Any] | None:
+    """The change of a dataset's status or requirement state, if either changed."""
+    req_old, req_new = old.get("requirements", new.get("requirements", "none")), new.get("requirements", "none")
+    if old["status"] == new["status"] and req_old == req_new:
+        return None
+    worse = _STATUS_RANK[new["status"]] > _STATUS_RANK[old["status"]] or (
+        _REQUIREMENT_RANK.get(req_new, 0) > _REQUIREMENT_RANK.get(req_old, 0)
+    )
+    return {
+        "dataset": slug,
+        "title": new["title"],
+        "status_before": old["status"],
+        "status": new["status"],
+        "requirements_before": req_old,
+        "requirements": req_new,
+        "worse": worse,
+    }
 
 
 def _build_number(value: Any) -> int:
@@ -126,7 +150,9 @@ def _build_number(value: Any) -> int:
 
 def _valid_figures(rec: Any) -> Record:
     """One dataset's figures as :func:`snapshot` writes them; raises ``ValueError`` otherwise."""
-    if not isinstance(rec, dict) or set(rec) != FIGURE_KEYS:
+    if not isinstance(rec, dict) or set(rec) - {"requirements"} != FIGURE_KEYS:
+        raise ValueError("not a dataset's figures")
+    if rec.get("requirements", "none") not in REQUIREMENT_STATES:  # absent in histories written before it
         raise ValueError("not a dataset's figures")
     if not all(isinstance(rec[k], str) for k in _TEXT_KEYS) or rec["status"] not in ("ok", "warn", "error"):
         raise ValueError("not a dataset's figures")
@@ -222,8 +248,14 @@ def changes(old: Mapping[str, Any] | None, new: Mapping[str, Any], seq: int, bef
     added = sorted(set(new) - set(old))
     removed = sorted(set(old) - set(new))
     refitted = []
+    verdicts = []
     for slug in sorted(set(new) & set(old)):
-        if new[slug]["input_sha256"] != old[slug]["input_sha256"] or new[slug] != old[slug]:
+        verdict = _verdict_change(slug, old[slug], new[slug])
+        if verdict is not None:
+            verdicts.append(verdict)
+        was = dict(old[slug])
+        was.setdefault("requirements", new[slug].get("requirements", "none"))  # a history written before it
+        if new[slug]["input_sha256"] != old[slug]["input_sha256"] or new[slug] != was:
             refitted.append(
                 {
                     "dataset": slug,
@@ -239,6 +271,8 @@ def changes(old: Mapping[str, Any] | None, new: Mapping[str, Any], seq: int, bef
         "new": [{"dataset": s, "title": new[s]["title"], "status": new[s]["status"]} for s in added],
         "removed": [{"dataset": s, "title": old[s]["title"]} for s in removed],
         "refitted": refitted,
+        # worsenings first (was met, now unmet; was sound, now failing), then improvements
+        "verdicts": sorted(verdicts, key=lambda v: (not v["worse"], v["dataset"])),
         "failed": [{"dataset": s, "title": new[s]["title"]} for s in failed],
     }
 

@@ -284,7 +284,8 @@ def render_index(ctx: SiteContext, reports: Sequence[FitReport], tags: Sequence[
         counts=counts,
         tags=tags,
         first_problem=_first_problem,
-        level_text=fmt.level(levels[0]) if len(levels) == 1 else "stated",
+        level_text=fmt.level(levels[0]) if len(levels) == 1 else "confidence",
+        mixed_levels=len(levels) > 1,
     )
 
 

@@ -38,9 +38,11 @@ class Section:
 DATASET_SECTIONS: tuple[Section, ...] = (
     Section("heading", "always"),  # title, status, source file, tags
     Section("description", "always"),  # the sidecar's Markdown description
+    Section("provenance", "always"),  # when built, from which input (SHA-256), who is responsible
     Section("failure", "failed"),  # why the dataset could not be fitted
     Section("glance", "fitted"),  # the fit in one sentence and four figures
     Section("requirements", "fitted"),  # the declared acceptance criteria, met or not
+    Section("excluded", "fitted"),  # rows the sidecar leaves out, with their reasons
     Section("notes", "fitted"),  # warnings and notes that no check below restates
     Section("comparison", "fitted", ("comparison",)),  # what a method comparison leads with
     Section("calibration", "fitted", ("calibration",)),  # what a calibration leads with (includes "inverse")

@@ -42,8 +42,8 @@ def _cell(value: Any) -> Any:
 
 def clean_rows(columns: Sequence[str], rows: Sequence[Sequence[Any]]) -> tuple[list[str], list[list[Any]]]:
     """Header and rows with every cell cleaned (neutralised text, NaN/inf as missing)."""
-    header = [_one_line_end(neutralise(str(c))) for c in columns]
-    return header, [[_one_line_end(_cell(v)) for v in row] for row in rows]
+    header = [one_line_end(neutralise(str(c))) for c in columns]
+    return header, [[one_line_end(_cell(v)) for v in row] for row in rows]
 
 
 def rows_to_csv_bytes(header: Sequence[str], rows: Sequence[Sequence[Any]]) -> bytes:
@@ -115,11 +115,11 @@ def rows_from_columns(values: Sequence[np.ndarray[Any, Any]]) -> list[list[Any]]
         elif arr.dtype.kind in "iub":
             cols.append(arr.tolist())
         else:
-            cols.append([_one_line_end(_cell(v)) for v in arr.tolist()])
+            cols.append([one_line_end(_cell(v)) for v in arr.tolist()])
     return [list(r) for r in zip(*cols, strict=True)]
 
 
-def _one_line_end(value: Any) -> Any:
+def one_line_end(value: Any) -> Any:
     # With LF line ends the CSV writer quotes a cell holding "\n" but not one holding a bare "\r",
     # which readers take for a line break: text line ends become "\n" so such cells are quoted.
     if isinstance(value, str) and "\r" in value:
@@ -136,12 +136,12 @@ def write_large_csv(columns: Sequence[str], values: Sequence[np.ndarray[Any, Any
 
     data: dict[str, Any] = {}
     for name, arr in zip(columns, values, strict=True):
-        key = _one_line_end(neutralise(str(name)))
+        key = one_line_end(neutralise(str(name)))
         if arr.dtype.kind == "f":
             data[key] = np.where(np.isfinite(arr), arr, np.nan)
         elif arr.dtype.kind in "iub":
             data[key] = arr
         else:
-            data[key] = [_one_line_end(_cell(v)) for v in arr.tolist()]
+            data[key] = [one_line_end(_cell(v)) for v in arr.tolist()]
     with path.open("w", encoding="utf-8", newline="") as fh:
         pd.DataFrame(data).to_csv(fh, index=False, na_rep="", lineterminator="\n", chunksize=20_000)

@@ -20,8 +20,10 @@ def tag_blocks(reports: Sequence[FitReport]) -> list[dict[str, Any]]:
     blocks = []
     for tag, members in sorted(by_tag.items()):
         rows: list[dict[str, Any]] = []
+        left_out = [r.title for r in members if r.pooled_contrast]
         for r in members:
-            c = r.coefficient(r.compare_term) if r.compare_term and r.status != "error" else None
+            usable = r.compare_term and r.status != "error" and not r.pooled_contrast
+            c = r.coefficient(r.compare_term) if usable and r.compare_term else None
             if c is not None:
                 rows.append(
                     {
@@ -35,9 +37,11 @@ def tag_blocks(reports: Sequence[FitReport]) -> list[dict[str, Any]]:
                     }
                 )
         terms = sorted({row["term"] for row in rows})
+        summary = _summary(rows, len(terms) == 1)
+        drawn = rows if summary is None else summary["drawn"]
         forest = (
-            charts.forest_chart(rows, terms[0] if len(terms) == 1 else "estimate of each dataset's term")
-            if rows
+            charts.forest_chart(drawn, terms[0] if len(terms) == 1 else "estimate of each dataset's term")
+            if drawn and len(rows) >= 2  # one dataset has nothing to be compared with; its page shows its interval
             else None
         )
         test = ""
@@ -51,8 +55,8 @@ def tag_blocks(reports: Sequence[FitReport]) -> list[dict[str, Any]]:
                 )
                 test = (
                     f"{verdict} (Cochran's Q = {fmt.num(h.q)} on {h.df} df, {fmt.p_phrase(h.p_value)}; "
-                    f"pooled estimate {fmt.num(h.pooled)} ± {fmt.num(h.pooled_se)}). The test treats each "
-                    "dataset's standard error as known and is tested at the 5% level."
+                    f"pooled estimate {fmt.num(h.pooled)}, standard error {fmt.num(h.pooled_se)}). "
+                    "The test treats each dataset's standard error as known and is tested at the 5% level."
                 )
         elif len(rows) >= 2:
             test = (
@@ -63,5 +67,56 @@ def tag_blocks(reports: Sequence[FitReport]) -> list[dict[str, Any]]:
         caption = f"Estimates with intervals for the {len(rows)} {sets} tagged {tag}" + (
             f" (term {terms[0]})." if len(terms) == 1 else "."
         )
-        blocks.append({"name": tag, "reports": members, "forest": forest, "caption": caption, "test": test})
+        if left_out:
+            test = (
+                f"{test} Left out: {', '.join(left_out)} — its groups have different slopes, so its pooled line is "
+                "not a value to compare."
+            ).strip()
+        if summary is not None:
+            caption = (
+                f"The {EXTREMES} lowest and {EXTREMES} highest of the {len(rows)} estimates tagged {tag}"
+                + (f" (term {terms[0]})." if len(terms) == 1 else ".")
+                if drawn
+                else ""
+            )
+        blocks.append(
+            {"name": tag, "reports": members, "forest": forest, "caption": caption, "test": test, "summary": summary}
+        )
     return blocks
+
+
+#: A tag with more estimates than this is summarised rather than drawn row by row (a forest of 5,000 rows is
+#: 250,000 px tall and slows the index down to seconds).
+MAX_FOREST_ROWS = 60
+EXTREMES = 10  # the lowest and highest estimates drawn when summarised
+PERCENTILES = (0, 5, 25, 50, 75, 95, 100)
+
+
+def _percentile_name(p: int) -> str:
+    return {0: "lowest", 50: "median", 100: "highest"}.get(p, f"{p}th percentile")
+
+
+def _summary(rows: list[dict[str, Any]], one_term: bool) -> dict[str, Any] | None:
+    """For a tag with many estimates: the extremes to draw and the distribution of the estimates.
+
+    Percentiles by linear interpolation between order statistics (numpy's default; Hyndman and Fan's
+    definition 7). Estimates of different terms are on different scales: neither drawn nor summarised.
+    """
+    if len(rows) <= MAX_FOREST_ROWS:
+        return None
+    import numpy as np  # noqa: PLC0415
+
+    ordered = sorted(rows, key=lambda row: (row["estimate"], row["label"]))
+    finite = [row for row in ordered if np.isfinite(row["estimate"])]
+    if not one_term or not finite:
+        return {"count": len(rows), "drawn": [], "percentiles": []}
+    drawn = finite[:EXTREMES] + finite[-EXTREMES:] if len(finite) > 2 * EXTREMES else finite
+    values = np.array([row["estimate"] for row in finite], dtype=float)
+    found = np.percentile(values, PERCENTILES)
+    statuses = {s: sum(1 for row in rows if row["status"] == s) for s in ("ok", "warn")}
+    return {
+        "count": len(rows),
+        "drawn": drawn,
+        "percentiles": [(_percentile_name(p), float(v)) for p, v in zip(PERCENTILES, found, strict=True)],
+        "statuses": statuses,
+    }

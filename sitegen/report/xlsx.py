@@ -93,9 +93,18 @@ _CONTROL = re.compile(r"[\x00-\x08\x0b\x0c\x0e-\x1f]")
 _INFINITE = (math.inf, -math.inf)
 
 
+#: Most characters a spreadsheet cell holds (Excel's limit, in UTF-16 code units; common practice).
+CELL_LIMIT = 32_767
+
+
 def _illegal_free(text: str) -> str:
     # XML 1.0 forbids most control characters; drop them rather than write a broken file.
-    return _CONTROL.sub("", text)
+    text = _CONTROL.sub("", text)
+    if len(text) <= CELL_LIMIT // 2 or len(text.encode("utf-16-le")) <= 2 * CELL_LIMIT:
+        return text
+    # Cut to the limit (a text over it makes spreadsheet programs refuse or repair the workbook), ending in "…".
+    units = text.encode("utf-16-le")[: 2 * (CELL_LIMIT - 1)]
+    return units.decode("utf-16-le", errors="ignore") + "…"
 
 
 def _cell(value: object) -> str:

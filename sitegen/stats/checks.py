@@ -13,19 +13,30 @@ where the model's errors have constant variance.
 
 Tests and rules (``alpha`` is the significance level for every p-value):
 
+Every auxiliary regression (Breusch–Pagan, RESET) goes through the fit's own
+solver (:mod:`sitegen.stats.solver`: scaled columns, extended-precision QR,
+refined residuals), and the variance inflation factors come from the fit's
+(X'X)⁻¹ of that factorisation, never from inverting a correlation matrix.
+
 - constant_variance: Breusch–Pagan in Koenker's studentized form (statsmodels
-  ``het_breuschpagan``, computed in numpy), squared residuals against a constant and the predictors.
+  ``het_breuschpagan``), squared residuals against a constant and the predictors.
 - independence: Durbin–Watson d in row order; one-sided p-value for positive
   autocorrelation (small d: neighbouring rows agree, as with drift or carry-over; the
-  classical direction of the test) from a beta distribution on [0, 4] with d's exact
-  mean and variance under independence (the moment-matched approximation of Durbin
-  and Watson, from memory).
+  classical direction of the test), exact up to
+  :data:`sitegen.stats.durbin_watson.EXACT_MAX_ROWS` rows (Imhof's inversion of the
+  characteristic function, see that module) and beyond it from a beta distribution
+  with d's exact mean and variance (Durbin and Watson's moment-matched approximation),
+  which the sentence then says.
 - normality_shapiro: Shapiro–Wilk (scipy) for 3 to 5000 rows; normality_jarque_bera:
   Jarque–Bera (scipy), a large-sample test.
 - curvature: Ramsey's RESET, an F test for adding the squared and cubed fitted
   values (computed here so that weights are respected).
 - lack_of_fit: F test of the model against the means of rows with identical
-  predictor values (pure error), when such repeats exist.
+  predictor values (pure error). Our rule: it is judged only when at least
+  ``LOF_MIN_REPEATED`` settings were measured more than once and pure error has at
+  least ``LOF_MIN_PURE_DF`` degrees of freedom; with fewer, the pure-error variance
+  rests on one or two differences and the test can neither find a misfit nor vouch
+  for the line.
 - collinearity: variance inflation factors (flag above 10, common practice) with an
   intercept; without one, the condition number of the column-scaled design (flag
   above 30, common practice).
@@ -45,9 +56,12 @@ from functools import partial
 import numpy as np
 from numpy.typing import NDArray
 
+from sitegen.errors import FitError
 from sitegen.stats import distributions as dist
+from sitegen.stats import durbin_watson, ext
 from sitegen.stats.influence import LEVERAGE_ONE, Influence
 from sitegen.stats.shapiro import shapiro_wilk
+from sitegen.stats.solver import Ext, kind_of, ops, residual_ss, solve
 from sitegen.stats.text import minus, p_text
 
 FloatArray = NDArray[np.float64]
@@ -144,6 +158,46 @@ class _Data:
     df: int
     ssr: float
     why_not: str | None  # why the residuals cannot be judged, if they cannot
+    ext: Precise
+    s_ext: Ext  # √weights, extended
+    ew_ext: Ext  # residuals, weighted scale, extended
+
+
+@dataclass(frozen=True, slots=True)
+class Precise:
+    """The fit's extended-precision pieces the checks build on (all from the main solver)."""
+
+    X_ext: Ext  # design, data scale (unweighted), extended
+    resid_ext: Ext  # y − fitted, data scale, extended
+    fitted_ext: Ext
+    q: FloatArray  # thin Q of the weighted design, from the extended factorisation
+    xtx_inv: FloatArray  # (X'WX)⁻¹ from the extended factorisation (NaN when not available)
+    condition: float  # condition number of the weighted design with unit-length columns
+
+
+def precise_inputs(  # noqa: PLR0917 - the fit's arrays
+    X: FloatArray,
+    y: FloatArray,
+    resid: FloatArray,
+    fitted: FloatArray,
+    terms: Sequence[str],
+    weights: FloatArray | None,
+) -> Precise:
+    """The pieces of :class:`Precise` for a fit given only in float64 (solved here by the same solver)."""
+    o = ops()
+    n, p = np.shape(X)
+    Xe = o.of(np.asarray(X, dtype=np.float64))
+    s = o.of(np.ones(n) if weights is None else np.sqrt(np.asarray(weights, dtype=np.float64)))
+    try:
+        sol = solve(Xe * s[:, None], o.of(np.asarray(y, dtype=np.float64)) * s, tuple(terms))
+        q, xtx_inv, cond = sol.q, sol.xtx_inv, sol.condition
+    except FitError:
+        Xw = np.asarray(X, dtype=np.float64) * o.f(s)[:, None]
+        q = np.linalg.qr(Xw)[0] if n and p else np.zeros((n, p))
+        xtx_inv, cond = np.full((p, p), np.nan), math.inf
+    return Precise(
+        Xe, o.of(np.asarray(resid, dtype=np.float64)), o.of(np.asarray(fitted, dtype=np.float64)), q, xtx_inv, cond
+    )
 
 
 #: A test's outcome: (statistic, p-value, the numbers for the sentence), or why it was not computed.
@@ -201,6 +255,7 @@ def _prepare(
     terms: Sequence[str],
     has_intercept: bool,
     weights: FloatArray | None,
+    precise: Precise | None = None,
 ) -> _Data:
     X = np.asarray(X, dtype=np.float64)
     y, e, f = (np.asarray(a, dtype=np.float64) for a in (y, resid, fitted))
@@ -208,13 +263,17 @@ def _prepare(
     if len(terms) != p or not y.shape == e.shape == f.shape == (n,):
         raise ValueError(f"shapes do not match: X {X.shape}, {len(terms)} terms, y {y.shape}")
     s = np.ones(n) if weights is None else np.sqrt(np.asarray(weights, dtype=np.float64))
-    q, r = np.linalg.qr(X * s[:, None])
+    pre = precise if precise is not None else precise_inputs(X, y, e, f, terms=terms, weights=weights)
+    o = ops()
+    s_ext = o.of(s) if weights is None else o.sqrt(o.of(np.asarray(weights, dtype=np.float64)))
+    ew_ext = pre.resid_ext * s_ext
+    q = pre.q
     icol = None
     if has_intercept and n > 0:
         consts = [j for j in range(p) if X[0, j] != 0 and np.all(X[:, j] == X[0, j])]
         icol = list(terms).index("Intercept") if "Intercept" in terms else (consts[0] if consts else None)
-    ew = e * s
-    ssr = float(ew @ ew)
+    ew = o.f(ew_ext)
+    ssr = float(o.f(o.dot(ew_ext, ew_ext)))
     why = None
     if n <= p:
         why = f"With {n} rows for {p} coefficients nothing is left over to judge the residuals."
@@ -222,44 +281,59 @@ def _prepare(
         why = "Some residuals are not finite numbers, so they cannot be judged."
     elif math.sqrt(ssr) <= _ZERO * float(np.linalg.norm(y * s)):
         why = "The model passes through every point, so there is no scatter to examine."
-    return _Data(X, s, y * s, ew, f, q, r, icol, tuple(terms), n, p, n - p, ssr, why)
+    r = np.zeros((p, p))  # not used: the condition number comes from the solver
+    return _Data(X, s, y * s, ew, f, q, r, icol, tuple(terms), n, p, n - p, ssr, why, pre, s_ext, ew_ext)
 
 
-def _independent_columns(Z: FloatArray) -> FloatArray:
-    """Drop columns that (nearly) repeat earlier ones, keeping the order."""
+def _independent_columns(Z: FloatArray) -> NDArray[np.bool_]:
+    """Which columns do not (nearly) repeat earlier ones."""
     norms = np.linalg.norm(Z, axis=0)
     diag = np.abs(np.diag(np.linalg.qr(Z / np.where(norms > 0, norms, 1.0), mode="r")))
-    return Z[:, diag > _RANK_TOL]
+    return np.asarray(diag > _RANK_TOL)
 
 
 def _constant_variance(d: _Data) -> _Outcome:
-    Z = _independent_columns(np.column_stack([np.ones(d.n), d.X[:, _predictors(d)]]))
-    if Z.shape[1] < 2:
+    o = ops()
+    pred = _predictors(d)
+    if not pred:
         return "There is no predictor for the scatter to change with."
     if np.ptp(d.ew**2) == 0:
         return "All residuals have the same size, so their scatter cannot change."
+    cols = [o.of(np.ones(d.n)), *(d.ext.X_ext[:, j] for j in pred)]
     try:
-        lm, p = _breusch_pagan(d.ew, Z)
-    except np.linalg.LinAlgError as exc:
-        return f"The Breusch–Pagan test could not be computed ({exc})."
+        lm, p = _breusch_pagan(d.ew_ext, cols)
+    except FitError:
+        # exactly dependent predictors (possible without an intercept): keep the independent ones
+        Z = np.column_stack([np.ones(d.n), d.X[:, pred]])
+        keep = np.flatnonzero(_independent_columns(Z))
+        if keep.size < 2:
+            return "There is no predictor for the scatter to change with."
+        try:
+            lm, p = _breusch_pagan(d.ew_ext, [cols[int(k)] for k in keep])
+        except FitError as exc:
+            return f"The Breusch–Pagan test could not be computed ({exc.message})."
     if not (math.isfinite(lm) and math.isfinite(p)):
         return "The Breusch–Pagan test gave no usable result for these data."
     return lm, p, f"Breusch–Pagan LM = {_num(lm)}, {_p(p)}"
 
 
-def _breusch_pagan(e: FloatArray, Z: FloatArray) -> tuple[float, float]:
+def _breusch_pagan(e: Ext, cols: list[Ext]) -> tuple[float, float]:
     """Koenker's studentized Breusch–Pagan LM = n·R² of e² on Z, χ² on (columns − 1) df.
 
     The same statistic as statsmodels' ``het_breuschpagan`` (robust form), which the
-    tests use as the reference; computed here to avoid importing statsmodels per build.
+    tests use as a reference; the regression of e² on Z is solved by the fit's own
+    solver in extended precision. Raises FitError when Z is rank-deficient.
     """
-    u = e**2
-    coef, *_ = np.linalg.lstsq(Z, u, rcond=None)
-    fitted = Z @ coef
-    tss = float(np.sum((u - u.mean()) ** 2))
-    r2 = 1 - float(np.sum((u - fitted) ** 2)) / tss if tss > 0 else 0.0
-    lm = len(u) * r2
-    return lm, dist.chi2_sf(lm, Z.shape[1] - 1)
+    o = ops()
+    u = e * e
+    n = len(u)
+    Z = o.columns(cols)
+    ssr = residual_ss(Z, u, tuple(f"z{j}" for j in range(len(cols))))
+    dev = u - o.dot(u, o.of(np.ones(n))) / n
+    tss = float(o.f(o.dot(dev, dev)))
+    r2 = 1 - ssr / tss if tss > 0 else 0.0
+    lm = n * r2
+    return lm, dist.chi2_sf(lm, len(cols) - 1)
 
 
 def dw_moments(q: FloatArray, df_resid: int) -> tuple[float, float]:
@@ -286,16 +360,26 @@ def _independence(d: _Data) -> _Outcome:
         return "Too few rows are left over to judge neighbouring residuals."
     dw = float(np.sum(np.diff(d.ew) ** 2)) / d.ssr
     lag1 = float(d.ew[1:] @ d.ew[:-1]) / d.ssr
-    mean, var = dw_moments(d.q, d.df)
-    m, v = mean / 4.0, var / 16.0
-    if not (0 < m < 1 and 0 < v < m * (1 - m)):
+    how = ""
+    if d.n <= durbin_watson.EXACT_MAX_ROWS:
+        # One-sided, as the classical test: small d means neighbours agree (positive autocorrelation),
+        # the pattern of drift and carry-over. Rows in arbitrary order often alternate by chance.
+        p = durbin_watson.exact_cdf(dw, d.q)
+    else:
+        mean, var = dw_moments(d.q, d.df)
+        m, v = mean / 4.0, var / 16.0
+        if not (0 < m < 1 and 0 < v < m * (1 - m)):
+            return f"Durbin–Watson d = {_num(dw)}, but no p-value can be given for this design."
+        a, b = m * (m * (1 - m) / v - 1), (1 - m) * (m * (1 - m) / v - 1)
+        p = min(1.0, dist.beta_cdf(dw / 4, a, b))
+        how = (
+            f"; above {durbin_watson.EXACT_MAX_ROWS:,} rows the p-value is approximate "
+            "(a beta distribution with d's exact mean and variance)"
+        )
+    if not math.isfinite(p):
         return f"Durbin–Watson d = {_num(dw)}, but no p-value can be given for this design."
-    a, b = m * (m * (1 - m) / v - 1), (1 - m) * (m * (1 - m) / v - 1)
-    # One-sided, as the classical test: small d means neighbours agree (positive autocorrelation),
-    # the pattern of drift and carry-over. Rows in arbitrary order often alternate by chance.
-    p = min(1.0, dist.beta_cdf(dw / 4, a, b))
     note = "; residuals alternate in sign, which is not flagged" if dw > 2 and p > 0.5 else ""
-    return dw, p, f"Durbin–Watson d = {_num(dw)}, lag-one correlation {_num(lag1)}, {_p(p)}{note}"
+    return dw, p, f"Durbin–Watson d = {_num(dw)}, lag-one correlation {_num(lag1)}, {_p(p)}{how}{note}"
 
 
 def _jarque_bera(e: FloatArray) -> tuple[float, float]:
@@ -322,25 +406,43 @@ def _normality(d: _Data, shapiro: bool) -> _Outcome:
 
 
 def _curvature(d: _Data) -> _Outcome:
-    z = d.fitted - np.mean(d.fitted) if d.icol is not None else d.fitted.copy()
+    o = ops()
+    fe = d.ext.fitted_ext
+    ze = fe - o.dot(fe, o.of(np.ones(d.n))) / d.n if d.icol is not None else fe.copy()
+    z = o.f(ze)
     scale = float(np.max(np.abs(z)))
     if scale <= _ZERO * float(np.max(np.abs(d.fitted))):
         return "The fitted values are all equal, so there is no bend to look for."
-    z /= scale  # powers of the centred, scaled fitted values span the same space with the design
-    A = np.column_stack([d.s * z**2, d.s * z**3])
+    ze = ze / scale  # powers of the centred, scaled fitted values span the same space with the design
+    new = [d.s_ext * ze * ze, d.s_ext * ze * ze * ze]
+    # How many of the two new columns are new to the design (a rank decision, so float64 will do).
+    A = np.column_stack([o.f(c) for c in new])
     W = A - d.q @ (d.q.T @ A)
     W -= d.q @ (d.q.T @ W)  # second pass for accuracy
-    u, sv, _ = np.linalg.svd(W / np.linalg.norm(A, axis=0), full_matrices=False)
-    basis = u[:, sv > _RANK_TOL]
-    k = basis.shape[1]
+    W /= np.linalg.norm(A, axis=0)
+    sv = np.linalg.svd(W, compute_uv=False)
+    k = int(np.sum(sv > _RANK_TOL))
     if k == 0 or d.df - k < 1:
         why = "too few distinct fitted values" if k == 0 else "too few rows"
         return f"The curvature test needs more data than this fit has ({why})."
-    extra = float(np.sum((basis.T @ d.ew) ** 2))
-    rest = max(d.ssr - extra, 0.0)
+    if k == 1:  # keep the power that adds more
+        new = [new[int(np.argmax(np.linalg.norm(W, axis=0)))]]
+    Xw = d.ext.X_ext * d.s_ext[:, None]
+    aug = o.columns([*(Xw[:, j] for j in range(d.p)), *new])
+    yw = (d.ext.fitted_ext + d.ext.resid_ext) * d.s_ext
+    try:
+        rest = residual_ss(aug, yw, (*d.terms, *("z²", "z³")[:k]))
+    except FitError:
+        return "The curvature test needs more data than this fit has (too few distinct fitted values)."
+    extra = max(d.ssr - rest, 0.0)
+    rest = max(rest, 0.0)
     stat = math.inf if rest == 0 else (extra / k) / (rest / (d.df - k))
     p = 0.0 if rest == 0 else dist.f_sf(stat, k, d.df - k)
     return stat, p, f"RESET F = {_num(stat)}, {_p(p)}"
+
+
+LOF_MIN_REPEATED = 2  # settings measured more than once
+LOF_MIN_PURE_DF = 3  # degrees of freedom of pure error
 
 
 def _lack_of_fit(d: _Data) -> _Outcome:
@@ -357,6 +459,13 @@ def _lack_of_fit(d: _Data) -> _Outcome:
         return "No predictor setting is repeated, so there is no pure error to compare with."
     if df_lof < 1:
         return f"The model has as many coefficients as distinct settings ({m}), so there is nothing to test."
+    repeated = int(np.sum(np.bincount(groups, minlength=m) > 1))
+    if repeated < LOF_MIN_REPEATED or df_pe < LOF_MIN_PURE_DF:
+        return (
+            f"Too few repeated measurements to judge: {repeated} setting{'s' if repeated != 1 else ''} measured "
+            f"more than once, {df_pe} degree{'s' if df_pe != 1 else ''} of freedom of pure error; the test needs "
+            f"at least {LOF_MIN_REPEATED} repeated settings and {LOF_MIN_PURE_DF} degrees of freedom."
+        )
     means = np.bincount(groups, d.s * d.yw, m) / np.bincount(groups, d.s * d.s, m)
     dev = d.yw - d.s * means[groups]
     ss_pe = float(dev @ dev)
@@ -367,25 +476,45 @@ def _lack_of_fit(d: _Data) -> _Outcome:
     return stat, p, f"lack-of-fit F = {_num(stat)}, {_p(p)}, {m} distinct settings"
 
 
-def vif(X: FloatArray, intercept: int, weights: FloatArray | None = None) -> FloatArray:
+def vif(
+    X: FloatArray,
+    intercept: int,
+    weights: FloatArray | None = None,
+    *,
+    xtx_inv: FloatArray | None = None,
+    X_ext: Ext = None,
+) -> FloatArray:
     """Variance inflation factor of every column but the intercept, in column order.
 
     VIF_j = 1 / (1 − R_j²), the diagonal of the inverse correlation matrix of the
     predictors after the intercept is taken out (weighted when weights are given).
+    Computed in a well-conditioned form: by the partitioned inverse, the block of
+    (X'WX)⁻¹ that belongs to the predictors is the inverse of their centred cross
+    products, so VIF_j = [(X'WX)⁻¹]_jj · Σ w (x_j − x̄_j)², with (X'WX)⁻¹ from the
+    solver's extended-precision factorisation (``xtx_inv`` when the fit has it) and
+    the centred sums of squares in extended precision. Inverting the correlation
+    matrix in float64 instead loses cond² · ε (NIST Filip: cond² near 1e19).
     """
-    s = np.ones(X.shape[0]) if weights is None else np.sqrt(np.asarray(weights, dtype=np.float64))
-    Xw = np.asarray(X, dtype=np.float64) * s[:, None]
+    o = ops()
+    n, p = np.shape(X)
+    Xe = o.of(np.asarray(X, dtype=np.float64)) if X_ext is None else o.of(X_ext)
+    s = o.of(np.ones(n)) if weights is None else o.sqrt(o.of(np.asarray(weights, dtype=np.float64)))
+    Xw = Xe * s[:, None]
+    if xtx_inv is None:
+        try:
+            xtx_inv = solve(Xw, o.of(np.zeros(n)), tuple(f"x{j}" for j in range(p))).xtx_inv
+        except FitError:
+            return np.full(p - 1, np.inf)
     c = Xw[:, intercept]
-    Z = np.delete(Xw, intercept, axis=1)
-    Z = Z - np.outer(c, (c @ Z) / (c @ c))
-    cross = Z.T @ Z
-    scale = np.sqrt(np.diag(cross))
-    if np.any(scale == 0):
-        return np.full(Z.shape[1], np.inf)
-    try:
-        return np.asarray(np.diag(np.linalg.inv(cross / np.outer(scale, scale))), dtype=np.float64)
-    except np.linalg.LinAlgError:
-        return np.full(Z.shape[1], np.inf)
+    cc = o.dot(c, c)
+    out = []
+    for j in range(p):
+        if j == intercept:
+            continue
+        zj = Xw[:, j]
+        dev = zj - c * (o.dot(c, zj) / cc)
+        out.append(float(xtx_inv[j, j]) * float(o.f(o.dot(dev, dev))))
+    return np.asarray(out, dtype=np.float64)
 
 
 def _collinearity(d: _Data, weights: FloatArray | None) -> Check:
@@ -393,14 +522,13 @@ def _collinearity(d: _Data, weights: FloatArray | None) -> Check:
     pred = _predictors(d)
     if len(pred) < 2:
         return _check(name, False, "With fewer than two predictors there is nothing to overlap.")
-    norms = np.linalg.norm(d.r, axis=0)
-    sv = np.linalg.svd(d.r / np.where(norms > 0, norms, 1.0), compute_uv=False)
-    cond = float(sv[0] / sv[-1]) if sv[-1] > 0 else math.inf
+    cond = d.ext.condition
     if d.icol is None:
         flag = cond > CONDITION_LIMIT
         text = f"{WORDING[name][1 if flag else 2]}: the condition number of the scaled design is {_num(cond)}."
         return _check(name, flag, text, cond)
-    factors = vif(d.X, d.icol, weights)
+    xtx_inv = None if not bool(np.all(np.isfinite(d.ext.xtx_inv))) else d.ext.xtx_inv
+    factors = vif(d.X, d.icol, weights, xtx_inv=xtx_inv, X_ext=d.ext.X_ext)
     named = sorted(zip(factors.tolist(), (d.terms[j] for j in pred), strict=True), reverse=True)
     high = [f"{t} {_num(v)}" for v, t in named if v > VIF_LIMIT]
     vifs = ", ".join(high) if high else f"largest {_num(named[0][0])}"
@@ -455,14 +583,30 @@ def model_checks(
     infl: Influence,
     alpha: float,
     weights: FloatArray | None = None,
+    precise: Precise | None = None,
 ) -> tuple[Check, ...]:
     """Run every check on one fit, in a fixed order (see the module docstring).
 
     ``terms`` names the columns of ``X``; the intercept column is the one named
     ``Intercept`` or else a constant column. Raises ``ValueError`` only on
-    mismatched shapes, a programming error.
+    mismatched shapes, a programming error. ``precise`` carries the fit's own
+    extended-precision pieces; without it they are computed here by the same solver.
     """
-    d = _prepare(X, y, resid, fitted, terms=terms, has_intercept=has_intercept, weights=weights)
+    if precise is not None and kind_of(precise.X_ext) != ext.current():
+        with ext.forced(kind_of(precise.X_ext)):  # the checks work in the fit's own arithmetic
+            return model_checks(
+                X,
+                y,
+                resid,
+                fitted,
+                terms=terms,
+                has_intercept=has_intercept,
+                infl=infl,
+                alpha=alpha,
+                weights=weights,
+                precise=precise,
+            )
+    d = _prepare(X, y, resid, fitted, terms=terms, has_intercept=has_intercept, weights=weights, precise=precise)
     tests: list[tuple[str, Callable[[_Data], _Outcome]]] = [
         ("constant_variance", _constant_variance),
         ("independence", _independence),

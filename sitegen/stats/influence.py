@@ -32,6 +32,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 FloatArray = NDArray[np.float64]
+BoolArray = NDArray[np.bool_]
 
 #: A leverage above this counts as 1: the point alone determines a coefficient.
 LEVERAGE_ONE = 1.0 - 1e-10
@@ -111,14 +112,15 @@ class PointFlags:
     """Which rows cross each common rule-of-thumb cut-off, and the cut-offs used.
 
     NaN measures never cross a cut-off. ``rows`` lists the 0-based indices of
-    rows marked by at least one rule, in row order.
+    rows marked by at least one rule, in row order. The marks are arrays (a tuple of a
+    million Python booleans costs 8 MB each).
     """
 
-    high_leverage: tuple[bool, ...]  # leverage > leverage_cutoff
-    leverage_one: tuple[bool, ...]  # leverage ≈ 1: this point alone sets a coefficient
-    large_residual: tuple[bool, ...]  # |studentized residual| > residual_cutoff
-    large_cooks: tuple[bool, ...]  # Cook's distance > cooks_cutoff
-    large_dffits: tuple[bool, ...]  # |DFFITS| > dffits_cutoff
+    high_leverage: BoolArray  # leverage > leverage_cutoff
+    leverage_one: BoolArray  # leverage ≈ 1: this point alone sets a coefficient
+    large_residual: BoolArray  # |studentized residual| > residual_cutoff
+    large_cooks: BoolArray  # Cook's distance > cooks_cutoff
+    large_dffits: BoolArray  # |DFFITS| > dffits_cutoff
     leverage_cutoff: float
     residual_cutoff: float
     cooks_cutoff: float
@@ -126,8 +128,14 @@ class PointFlags:
     rows: tuple[int, ...]
 
 
-def flag_points(infl: Influence, n: int, p: int) -> PointFlags:
+def flag_points(infl: Influence, n: int, p: int, designed: NDArray[np.bool_] | None = None) -> PointFlags:
     """Mark rows by the usual rules of thumb (all common practice).
+
+    ``designed`` marks rows at a setting of the design that was measured more than once (a calibration's
+    standards, its end points included): their leverage is the design's choice, so leverage above 2p/n does
+    not mark them, nor do Cook's distance above 4/n and |DFFITS| above 2√(p/n), which grow with leverage
+    alone; they are marked by a large residual, leverage 1, or Cook's distance above the median of
+    F(p, n − p) (the stricter limit of the model check on influence).
 
     - leverage above 2p/n (twice the average leverage p/n);
     - leverage ≈ 1 (above ``LEVERAGE_ONE``): the point alone sets a coefficient;
@@ -145,13 +153,20 @@ def flag_points(infl: Influence, n: int, p: int) -> PointFlags:
         resid = np.abs(np.asarray(infl.studentized_residual, dtype=np.float64)) > res_cut
         cooks = np.asarray(infl.cooks_distance, dtype=np.float64) > cooks_cut
         dffits = np.abs(np.asarray(infl.dffits, dtype=np.float64)) > dffits_cut
-    rows = np.flatnonzero(high | one | resid | cooks | dffits)
+    marked = high | one | resid | cooks | dffits
+    if designed is not None and n > p:
+        from sitegen.stats.distributions import f_ppf  # noqa: PLC0415
+
+        with np.errstate(invalid="ignore"):
+            strong = np.asarray(infl.cooks_distance, dtype=np.float64) > f_ppf(0.5, p, n - p)
+        marked &= ~np.asarray(designed, dtype=bool) | resid | one | strong
+    rows = np.flatnonzero(marked)
     return PointFlags(
-        high_leverage=tuple(high.tolist()),
-        leverage_one=tuple(one.tolist()),
-        large_residual=tuple(resid.tolist()),
-        large_cooks=tuple(cooks.tolist()),
-        large_dffits=tuple(dffits.tolist()),
+        high_leverage=high,
+        leverage_one=one,
+        large_residual=resid,
+        large_cooks=cooks,
+        large_dffits=dffits,
         leverage_cutoff=lev_cut,
         residual_cutoff=res_cut,
         cooks_cutoff=cooks_cut,

@@ -1,7 +1,9 @@
 """Ordinary (and weighted) least squares with the inference a report needs.
 
-Estimates come from :mod:`sitegen.stats.solver` (extended precision); the
-t and F distributions from scipy. statsmodels is the independent reference in
+Estimates come from :mod:`sitegen.stats.solver` (extended precision), and so
+does everything per row: residuals and fitted values from the refined residual,
+leverages from the extended-precision Q, x'(X'X)⁻¹x from W = S·R⁻¹ in extended
+precision; the t and F distributions from scipy. statsmodels is the independent reference in
 the tests, not the engine here, because its default solver loses digits on
 ill-conditioned designs (NIST StRD Filip).
 """
@@ -15,7 +17,7 @@ from numpy.typing import NDArray
 
 from sitegen.errors import FitError
 from sitegen.stats import distributions as dist
-from sitegen.stats.solver import LD, solve
+from sitegen.stats.solver import Ext, Ops, kind_of, ops, solve
 
 FloatArray = NDArray[np.float64]
 #: Residuals below this fraction of the (weighted) response are rounding residue of an exact
@@ -55,6 +57,10 @@ class OlsFit:
     level: float
     t_crit: float
     has_intercept: bool
+    beta_ext: Ext = None  # the coefficients in the solver's extended arithmetic
+    root_ext: Ext = None  # W in the solver's extended arithmetic
+    resid_ext: Ext = None  # y − fitted in the solver's extended arithmetic (unweighted)
+    y_ext: Ext = None  # the response in the solver's extended arithmetic
 
 
 def _nan_div(a: float, b: float) -> float:
@@ -78,33 +84,41 @@ def fit_ols(
             "to estimate its uncertainty",
             hint=f"add data (at least {p + 1} rows with all model columns present) or simplify the model",
         )
+    o = ops()
+    X, y = o.of(X), o.of(y)
+    sw: Ext = None
     if weights is not None:
         if not bool(np.all(np.isfinite(weights))) or bool(np.any(weights <= 0)):
             raise FitError("weights must be positive, finite numbers in every used row")
-        sw = np.sqrt(weights.astype(LD))
+        sw = o.sqrt(o.of(weights))
         sol = solve(X * sw[:, None], y * sw, terms)
+        resid_ext = sol.resid_ext / sw
     else:
         sol = solve(X, y, terms)
+        resid_ext = sol.resid_ext
     beta = sol.beta
     df_resid = n - p
     df_model = p - 1 if has_intercept else p
-    yd = y.astype(float)
-    fitted = (X @ beta.astype(LD)).astype(float)
-    resid = (y - X @ beta.astype(LD)).astype(float)
+    # Per-row values from the refined residual (never y − Xb in float64: on NIST Filip that
+    # subtraction of nearly equal numbers keeps only about seven digits).
+    fitted = o.f(y - resid_ext)
+    resid = o.f(resid_ext)
     ssr = sol.ssr
-    yw = y if weights is None else y * np.sqrt(weights.astype(LD))
-    if np.sqrt(ssr) <= EXACT_FIT_RTOL * float(np.sqrt(np.sum(yw * yw))):
+    yw = y if sw is None else y * sw
+    if np.sqrt(ssr) <= EXACT_FIT_RTOL * float(np.sqrt(float(o.f(o.dot(yw, yw))))):
         # An exact fit: what is left is rounding, not scatter. SE 0, F infinite, and no
         # influence flags computed on noise (as NIST certifies for Wampler1/2).
         resid = np.zeros(n)
-        fitted = y.astype(float)
+        resid_ext = o.of(resid)
+        fitted = o.f(y)
         ssr = 0.0
-    w = np.ones(n) if weights is None else weights
+    w = o.of(np.ones(n) if weights is None else weights)
     if has_intercept:
-        ybar = np.average(y, weights=w.astype(LD))
-        tss = float(np.sum(w.astype(LD) * (y - ybar) ** 2))
+        ybar = o.dot(w, y) / o.dot(w, o.of(np.ones(n)))
+        dev = y - ybar
+        tss = float(o.f(o.dot(w * dev, dev)))
     else:
-        tss = float(np.sum(w.astype(LD) * y * y))
+        tss = float(o.f(o.dot(w * y, y)))
     sigma2 = ssr / df_resid
     sigma = float(np.sqrt(sigma2))
     se = np.sqrt(np.clip(np.diag(sol.xtx_inv) * sigma2, 0, None))
@@ -122,7 +136,6 @@ def fit_ols(
         f_stat, f_p = float("inf"), 0.0
     else:
         f_stat, f_p = float("nan"), float("nan")
-    leverage = np.sum(sol.q * sol.q, axis=1)
     return OlsFit(
         terms=terms,
         beta=beta,
@@ -144,14 +157,18 @@ def fit_ols(
         f_stat=float(f_stat),
         f_p_value=f_p,
         fitted=fitted,
-        resid=resid if weights is None else yd - fitted,
-        leverage=leverage,
+        resid=resid,
+        leverage=sol.leverage,
         q=sol.q,
         effects=sol.effects,
         condition=sol.condition,
         level=level,
         t_crit=t_crit,
         has_intercept=has_intercept,
+        beta_ext=sol.beta_ext,
+        root_ext=sol.root_ext,
+        resid_ext=resid_ext,
+        y_ext=y,
     )
 
 
@@ -168,17 +185,47 @@ class Bands:
 
 
 def bands(fit: OlsFit, X_new: FloatArray, weights: FloatArray | None = None) -> Bands:
-    """Intervals at new (or observed) rows; ``weights`` scale the prediction variance (σ²/w)."""
+    """Intervals at new (or observed) rows; ``weights`` are the weights of the new readings
+    (prediction variance σ²/w; weight 1 when None)."""
     with np.errstate(all="ignore"):
         return _bands(fit, X_new, weights)
 
 
 def _bands(fit: OlsFit, X_new: FloatArray, weights: FloatArray | None) -> Bands:
-    yhat = X_new @ fit.beta
-    # x'(X'X)^-1 x as ||x'W||² (W from the QR factor): never negative, and free of the
-    # cancellation that x'(X'X)^-1 x suffers in float64 on ill-conditioned designs (NIST Filip).
-    z = np.asarray(X_new, dtype=float) @ fit.xtx_root
-    var_mean = np.sum(z * z, axis=1) * fit.sigma**2
+    # x'b and x'(X'X)^-1 x as ||x'W||², both in extended precision (W from the QR factor): never
+    # negative, and free of the cancellation they suffer in float64 on ill-conditioned designs.
+    Xf = np.asarray(X_new, dtype=float)
+    if fit.beta_ext is not None and fit.root_ext is not None:
+        o = Ops(kind_of(fit.beta_ext))
+        Xe = o.of(Xf)
+        yhat = o.f(o.dot(Xe, o.of(fit.beta_ext)))
+        z = o.dot(Xe, o.of(fit.root_ext))
+        quad = o.f(o.rowsum(z * z))
+    else:
+        yhat = Xf @ fit.beta
+        zf = Xf @ fit.xtx_root
+        quad = np.sum(zf * zf, axis=1)
+    return _intervals(fit, yhat, quad, weights)
+
+
+def row_bands(fit: OlsFit, weights: FloatArray | None = None, reading_weight: float = 1.0) -> Bands:
+    """Intervals at the observed rows, from the fit's own per-row values.
+
+    The fitted values come from the refined residuals and x'(X'X)⁻¹x is the leverage
+    (divided by the row's weight for a weighted fit), so no design row is multiplied out
+    again. ``weights`` are the fit's weights; the prediction interval is for one new
+    reading of weight ``reading_weight`` (variance σ²/reading_weight), the same weight
+    that :func:`bands` is given for the chart band and predictions.
+    """
+    quad = np.asarray(fit.leverage, dtype=float)
+    if weights is not None:
+        quad = quad / np.asarray(weights, dtype=float)
+    with np.errstate(all="ignore"):
+        return _intervals(fit, np.asarray(fit.fitted, dtype=float), quad, np.full(fit.n, float(reading_weight)))
+
+
+def _intervals(fit: OlsFit, yhat: FloatArray, quad: FloatArray, weights: FloatArray | None) -> Bands:
+    var_mean = quad * fit.sigma**2
     se_mean = np.sqrt(var_mean)
     noise = fit.sigma**2 if weights is None else fit.sigma**2 / weights
     se_pred = np.sqrt(var_mean + noise)

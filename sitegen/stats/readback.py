@@ -38,6 +38,7 @@ from numpy.typing import NDArray
 
 from sitegen.errors import FitError
 from sitegen.stats.distributions import f_ppf, f_sf, t_ppf
+from sitegen.stats.solver import ops, residual_ss
 
 __all__ = [
     "LinearityTest",
@@ -217,13 +218,23 @@ def choose_weighting(x: FloatArray, y: FloatArray) -> WeightingChoice:
 
 
 def _ssr(x: FloatArray, y: FloatArray, w: FloatArray | None, degree: int) -> float:
-    sw = np.ones_like(x) if w is None else np.sqrt(w)
+    """Residual sum of squares of the polynomial of ``degree``, by the fit's own solver (scaled,
+    extended-precision QR, refined), so that Mandel's difference SSR₁ − SSR₂ keeps its digits."""
+    o = ops()
+    sw = o.of(np.ones_like(x)) if w is None else o.sqrt(o.of(w))
     scale = float(np.max(np.abs(x))) or 1.0
-    u = x / scale
-    X = np.vander(u, degree + 1, increasing=True) * sw[:, None]
-    beta, *_ = np.linalg.lstsq(X, y * sw, rcond=None)
-    r = y * sw - X @ beta
-    return float(r @ r)
+    u = o.of(x) / scale
+    cols = [o.of(np.ones_like(x))]
+    for _ in range(degree):
+        cols.append(cols[-1] * u)
+    X = o.columns(cols) * sw[:, None]
+    try:
+        return residual_ss(X, o.of(y) * sw, tuple(f"x^{k}" for k in range(degree + 1)))
+    except FitError:  # dependent columns (too few distinct levels): least squares in float64 as a fallback
+        Xf = o.f(X)
+        beta, *_ = np.linalg.lstsq(Xf, o.f(o.of(y) * sw), rcond=None)
+        r = o.f(o.of(y) * sw) - Xf @ beta
+        return float(r @ r)
 
 
 def mandel_test(x: FloatArray, y: FloatArray, weights: FloatArray | None = None) -> LinearityTest:

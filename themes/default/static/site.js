@@ -38,7 +38,8 @@
 
   function chartConfig(name) {
     var c = colours(name);
-    var axis = { labelColor: c.text, titleColor: c.text, gridColor: c.grid, domainColor: c.domain,
+    var axis = { labelOverlap: "greedy", labelSeparation: 6, labelFlush: true,
+                 labelColor: c.text, titleColor: c.text, gridColor: c.grid, domainColor: c.domain,
                  tickColor: c.domain, labelFontSize: 11, titleFontSize: 12, titleFontWeight: 600 };
     return {
       background: null,
@@ -71,7 +72,11 @@
   /* Faceted charts cannot take the container's width by themselves; give them its width here. */
   function fitFacet(spec, target) {
     if (spec.facet && spec.spec && typeof spec.spec.width === "number" && target.clientWidth > 0) {
-      spec.spec.width = Math.max(200, Math.min(640, target.clientWidth - 24));
+      var width = Math.max(160, Math.min(640, target.clientWidth - 40));
+      spec.spec.width = width;
+      /* row headings above each panel: no wider than the panel, so a phone or the paper holds them */
+      var row = spec.facet.row;
+      if (row && row.header) { row.header.labelLimit = width; }
     }
     return spec;
   }
@@ -191,22 +196,27 @@
     var ascending = th.getAttribute("aria-sort") !== "ascending";
     table.querySelectorAll("thead th[aria-sort]").forEach(function (h) { h.setAttribute("aria-sort", "none"); });
     th.setAttribute("aria-sort", ascending ? "ascending" : "descending");
-    var rows = dataRows(table);
-    rows.forEach(function (r, i) { if (!r.hasAttribute("data-order")) { r.setAttribute("data-order", String(i)); } });
-    rows.sort(function (a, b) {
-      var x = cellValue(a, index, type), y = cellValue(b, index, type);
+    /* Each row's key is read once (not in every comparison), and the rows go back in one fragment:
+       sorting 5,000 rows then takes milliseconds rather than seconds. */
+    var keyed = dataRows(table).map(function (r, i) {
+      if (!r.hasAttribute("data-order")) { r.setAttribute("data-order", String(i)); }
+      return { row: r, key: cellValue(r, index, type), order: Number(r.getAttribute("data-order")) };
+    });
+    keyed.sort(function (a, b) {
+      var x = a.key, y = b.key;
       if (x === null && y === null) { return 0; }
       if (x === null) { return 1; }   /* empty cells last in either direction */
       if (y === null) { return -1; }
       var c = x < y ? -1 : x > y ? 1 : 0;
-      if (c === 0) { c = Number(a.getAttribute("data-order")) - Number(b.getAttribute("data-order")); return c; }
+      if (c === 0) { return a.order - b.order; }
       return ascending ? c : -c;
     });
     /* Sorted rows leave their folder groups; the folder stays visible in its own column. */
     table.classList.add("sorted");
     table.querySelectorAll("tr.group-row").forEach(function (g) { g.hidden = true; });
-    var first = table.tBodies[0];
-    rows.forEach(function (r) { first.appendChild(r); });
+    var fragment = document.createDocumentFragment();
+    keyed.forEach(function (k) { fragment.appendChild(k.row); });
+    table.tBodies[0].appendChild(fragment);
     var status = document.getElementById(table.id + "-sort-status");
     if (status) {
       status.textContent = "Sorted by " + th.textContent.trim() + (ascending ? ", ascending." : ", descending.");
@@ -270,7 +280,31 @@
     });
   }
 
+  /* ---- narrow screens: every table of numbers can be read as one card per row ----
+     Each cell is labelled with its column heading (data-label); the style sheet stacks the cells under
+     40rem, so that no column, the status included, hides behind a horizontal scroll. */
+
+  function labelCells() {
+    document.querySelectorAll("table.numbers").forEach(function (table) {
+      var heads = table.tHead ? table.tHead.rows[table.tHead.rows.length - 1].cells : [];
+      if (!heads.length) { return; }
+      var names = Array.prototype.map.call(heads, function (th) { return th.textContent.replace(/[↕↑↓]/g, "").trim(); });
+      Array.prototype.forEach.call(table.tBodies, function (body) {
+        Array.prototype.forEach.call(body.rows, function (row) {
+          if (row.classList.contains("group-row")) { return; }
+          var col = 0;
+          Array.prototype.forEach.call(row.cells, function (cell) {
+            if (!cell.hasAttribute("data-label") && names[col]) { cell.setAttribute("data-label", names[col]); }
+            col += cell.colSpan || 1;
+          });
+        });
+      });
+      table.classList.add("stackable");
+    });
+  }
+
   function start() {
+    labelCells();
     setupSorting();
     setupFilters();
     collect();

@@ -1,0 +1,137 @@
+"""The portable extended arithmetic (double-double) and the exact Durbin–Watson distribution.
+
+Sources: exactness of TwoSum/TwoProduct is checked with Python's exact rational arithmetic
+(fractions.Fraction); double-double operations against mpmath at 50 digits; the Durbin–Watson
+probabilities against Imhof's integral in mpmath (tests/nist_reference.py) and Monte Carlo draws.
+"""
+
+from __future__ import annotations
+
+import math
+from fractions import Fraction
+
+import mpmath as mp
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+from nist_reference import imhof_below_zero
+
+from sitegen.stats import durbin_watson, ext
+from sitegen.stats.checks import model_checks
+from sitegen.stats.influence import influence
+
+# TwoProduct is exact while the product neither underflows nor a factor nears overflow (Dekker 1971).
+finite = st.floats(min_value=-1e140, max_value=1e140, allow_nan=False, allow_infinity=False).filter(
+    lambda v: v == 0 or abs(v) > 1e-140
+)
+
+
+@settings(max_examples=300, deadline=None)
+@given(finite, finite)
+def test_two_sum_and_two_product_are_exact(a: float, b: float) -> None:
+    s, e = ext.two_sum(np.array([a]), np.array([b]))
+    assert Fraction(float(s[0])) + Fraction(float(e[0])) == Fraction(a) + Fraction(b)
+    p, f = ext.two_product(np.array([a]), np.array([b]))
+    assert Fraction(float(p[0])) + Fraction(float(f[0])) == Fraction(a) * Fraction(b)
+
+
+def _mp(x: ext.DD) -> list[mp.mpf]:
+    return [mp.mpf(float(h)) + mp.mpf(float(lo)) for h, lo in zip(x.hi.ravel(), x.lo.ravel(), strict=True)]
+
+
+def test_double_double_operations_keep_about_thirty_digits() -> None:
+    rng = np.random.default_rng(3)
+    a = ext.DD(rng.uniform(0.5, 2, 50), rng.uniform(-1, 1, 50) * 1e-17)
+    b = ext.DD(rng.uniform(0.5, 2, 50), rng.uniform(-1, 1, 50) * 1e-17)
+    with mp.workdps(50):
+        A, B = _mp(a), _mp(b)
+        for got, want in (
+            (a + b, [x + y for x, y in zip(A, B, strict=True)]),
+            (a - b, [x - y for x, y in zip(A, B, strict=True)]),
+            (a * b, [x * y for x, y in zip(A, B, strict=True)]),
+            (a / b, [x / y for x, y in zip(A, B, strict=True)]),
+            (ext.sqrt(a), [mp.sqrt(x) for x in A]),
+            (a**10, [x**10 for x in A]),
+        ):
+            for g, w in zip(_mp(got), want, strict=True):
+                assert abs(g - w) <= mp.mpf("1e-30") * abs(w)
+        total = ext.tree_sum(a)
+        assert abs(_mp(total)[0] - mp.fsum(A)) <= mp.mpf("1e-30") * abs(mp.fsum(A))
+        M = ext.DD(rng.normal(size=(7, 3)))
+        v = ext.DD(rng.normal(size=3))
+        Mv = ext.matmul(M, v)
+        for i in range(7):
+            want_i = mp.fsum(mp.mpf(float(M.hi[i, j])) * mp.mpf(float(v.hi[j])) for j in range(3))
+            assert abs(_mp(Mv[i])[0] - want_i) <= mp.mpf("1e-30") * max(abs(want_i), mp.mpf(1))
+
+
+def test_double_double_leaves_other_functions_to_float64() -> None:
+    x = ext.DD(np.array([1.0, 2.0, 4.0]))
+    got = np.log(x)
+    assert isinstance(got, ext.DD)
+    np.testing.assert_allclose(got.to_float(), np.log([1.0, 2.0, 4.0]), rtol=1e-15)
+
+
+def test_environment_variable_chooses_the_arithmetic(monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.setenv(ext.ENV, "double-double")
+    assert ext.current() == ext.DOUBLE_DOUBLE
+    monkeypatch.setenv(ext.ENV, "long-double")
+    assert ext.current() == ext.LONG_DOUBLE
+    monkeypatch.delenv(ext.ENV)
+    assert ext.current() == (ext.LONG_DOUBLE if ext.long_double_is_wide() else ext.DOUBLE_DOUBLE)
+    with ext.forced(ext.DOUBLE_DOUBLE):
+        assert ext.current() == ext.DOUBLE_DOUBLE
+
+
+@pytest.mark.parametrize(("shift", "seed"), [(0.3, 1), (1.0, 2), (2.0, 3), (3.2, 4)])
+def test_durbin_watson_tail_matches_imhof_in_mpmath(shift: float, seed: int) -> None:
+    # Imhof's real-axis integral at 30 digits (mpmath) against the program's saddle-point line;
+    # the shifts reach from p ≈ 1e-15 (far tail) to p near 1.
+    lam = np.sort(np.random.default_rng(seed).uniform(0, 4, 30))
+    got = durbin_watson.prob_below_zero(lam - shift)
+    with mp.workdps(30):
+        want = float(imhof_below_zero([mp.mpf(float(v)) for v in lam - shift]))
+    assert want > 1e-16
+    assert got == pytest.approx(want, rel=1e-9)
+
+
+def test_durbin_watson_exact_p_agrees_with_monte_carlo() -> None:
+    # 400,000 seeded draws of independent normal errors through the same design; the exact
+    # probability must lie within four binomial standard errors of the simulated share.
+    rng = np.random.default_rng(11)
+    n = 25
+    X = np.column_stack([np.ones(n), np.arange(n, dtype=float), rng.uniform(size=n)])
+    q = np.linalg.qr(X)[0]
+    M = np.eye(n) - q @ q.T
+    E = rng.standard_normal((400_000, n)) @ M
+    d_sim = np.sum(np.diff(E, axis=1) ** 2, axis=1) / np.sum(E**2, axis=1)
+    for d in (1.2, 1.6, 2.0):
+        p = durbin_watson.exact_cdf(d, q)
+        share = float(np.mean(d_sim <= d))
+        assert abs(p - share) <= 4 * math.sqrt(share * (1 - share) / len(d_sim)) + 1e-6
+
+
+def test_durbin_watson_beyond_the_exact_size_says_it_is_approximate() -> None:
+    n = durbin_watson.EXACT_MAX_ROWS + 1
+    rng = np.random.default_rng(5)
+    x = rng.uniform(0, 10, n)
+    X = np.column_stack([np.ones(n), x])
+    y = 1 + 2 * x + rng.normal(size=n)
+    beta = np.linalg.lstsq(X, y, rcond=None)[0]
+    e = y - X @ beta
+    infl = influence(np.linalg.qr(X)[0], e, n - 2)
+    checks = model_checks(X, y, e, X @ beta, terms=("Intercept", "x"), has_intercept=True, infl=infl, alpha=0.05)
+    text = next(c.text for c in checks if c.check == "independence")
+    assert "approximate" in text
+    small = model_checks(
+        X[:50],
+        y[:50],
+        e[:50],
+        (X @ beta)[:50],
+        terms=("Intercept", "x"),
+        has_intercept=True,
+        infl=influence(np.linalg.qr(X[:50])[0], e[:50], 48),
+        alpha=0.05,
+    )
+    assert "approximate" not in next(c.text for c in small if c.check == "independence")
