@@ -23,11 +23,13 @@ def _block(value: Any) -> str:
             flat = json.dumps(value, sort_keys=True, ensure_ascii=False, allow_nan=False, separators=(",\n  ", ": "))
             return "{\n  " + flat[1:-1] + "\n }"
         if all(isinstance(v, list) for v in value.values()):
-            # lists (a file manifest): one encoder call, then a line break before each key. Inside a JSON
-            # string a quote is escaped, so '],"' is always between two values: a line break there is
-            # whitespace between tokens (before the next key, or inside a nested list), never in a string.
+            # lists (a file manifest): one encoder call, then a line break before each key. Every entry
+            # but the last ends in '],"' (its list, then the next key), so there are len - 1 such places;
+            # any more means a string that ends in '],' (or a nested list before a string), where a line
+            # break could fall inside a string: then the entries are written one by one below.
             flat = json.dumps(value, sort_keys=True, ensure_ascii=False, allow_nan=False, separators=(",", ":"))
-            return "{\n  " + flat[1:-1].replace('],"', '],\n  "') + "\n }"
+            if flat.count('],"') == len(value) - 1:
+                return "{\n  " + flat[1:-1].replace('],"', '],\n  "') + "\n }"
         return "{\n  " + ",\n  ".join(f"{_dumps(k)}: {_dumps(v)}" for k, v in sorted(value.items())) + "\n }"
     return _dumps(value)
 
