@@ -203,8 +203,12 @@ def comparison(
                     "warning",
                     "The differences change with the level (their slope on the pairs' means is "
                     f"{agreement.trend_slope:.3g}, p = {agreement.trend_p_value:.2g}): one pair of limits of "
-                    "agreement does not describe the whole range. Look at the difference chart; "
-                    "percent_differences = true may suit differences that grow in proportion.",
+                    "agreement does not describe the whole range. Look at the difference chart"
+                    + (
+                        " in percent."
+                        if spec.percent_differences
+                        else "; percent_differences = true may suit differences that grow in proportion."
+                    ),
                 )
             )
     method, reason = recommended_line(lines, spec.error_ratio, int(x.size))

@@ -46,6 +46,11 @@ def test_comparison_fit_json_has_the_contract_fields(tmp_path: Path) -> None:
     assert result.code == 0, result.output
     fit = _fit_json(tmp_path / "site", "kit")
     assert fit["purpose"] == "comparison"
+    page = (tmp_path / "site" / "datasets" / "kit" / "index.html").read_text(encoding="utf-8")
+    assert "means" in page
+    assert " p 0." not in page  # a p-value in a sentence reads "p = 0.0123" or "p < 0.0001"
+    assert "p = &lt;" not in page
+    assert "percent_differences = true may suit" not in page  # it is set already
     agreement = fit["agreement"]
     assert isinstance(agreement, dict)
     d = KIT - LAB
