@@ -51,6 +51,7 @@ class DatasetResult:
     report: FitReport
     observations: Observations | None
     debug_trace: str | None = None
+    transient: bool = False  # the CSV could not be read (an OSError): tried again, never kept as the input's state
 
 
 def error_report(src: DatasetSource, text: str = "") -> FitReport:
@@ -93,7 +94,7 @@ def _analyze(task: FitTask) -> DatasetResult:
             errno.ELOOP: "it is a symbolic link that loops; remove or correct the link",
         }.get(exc.errno or 0, "it may have been moved or deleted during the build")
         msg = f"{src.relpath} cannot be read: {exc.strerror or exc} ({why})"
-        return DatasetResult(replace(base, messages=(Message("error", msg),)), None)
+        return DatasetResult(replace(base, messages=(Message("error", msg),)), None, transient=True)
     except DatasetError as exc:
         return DatasetResult(replace(base, messages=(Message("error", str(exc)),)), None)
     base = replace(base, input_sha256=sha256_hex(raw))

@@ -75,12 +75,14 @@ def build_site(
     refit: bool = False,
     theme: str | Path | None = None,
     progress: Callable[[int, int, str], None] | None = None,
+    cluster: str | None = None,
 ) -> SiteResult:
     """Build (or rebuild) the site of ``data_dir`` into ``out_dir``, as ``sitegen build`` does.
 
     ``jobs`` is the number of worker processes (default: all cores), ``refit`` fits every dataset again,
     ``theme`` is a theme folder you trust (as ``--theme``; it may lie outside the data folder), and
-    ``progress(done, total, source)`` is called as datasets finish. Raises :class:`sitegen.errors.ConfigError`
+    ``progress(done, total, source)`` is called as datasets finish, ``cluster`` is a Dask scheduler's address to
+    run the work on (as ``--cluster``). Raises :class:`sitegen.errors.ConfigError`
     (or a subclass) when nothing could be written: a missing data folder, an invalid site.toml or theme, an
     unsafe or locked output folder.
     """
@@ -88,7 +90,9 @@ def build_site(
 
     if jobs is not None and jobs < 1:
         raise ConfigError("jobs must be at least 1")
-    options = BuildOptions(Path(data_dir), Path(out_dir), jobs, refit, theme=Path(theme) if theme else None)
+    options = BuildOptions(
+        Path(data_dir), Path(out_dir), jobs, refit, theme=Path(theme) if theme else None, cluster=cluster
+    )
     try:
         summary = run_build(options, progress=progress)
     except OSError as exc:  # as the command reports it: nothing was published

@@ -60,6 +60,9 @@ if TYPE_CHECKING:
 LIBRARIES = ("numpy", "scipy", "pandas", "patsy", "statsmodels")
 RENDER_LIBRARIES = ("altair", "jinja2", "markdown-it-py", "vl-convert-python")
 Progress = Callable[[int, int, str], None]
+#: How often a dataset whose fit failed transiently (its CSV could not be read, a cluster worker was lost with
+#: it) is tried in one build, in all.
+TRANSIENT_TRIES = 3
 
 
 @dataclass(frozen=True, slots=True)
@@ -71,6 +74,7 @@ class BuildOptions:
     jobs: int | None = None
     refit: bool = False
     theme: Path | None = None  # a theme folder named on the command line (trusted: it may lie anywhere)
+    cluster: str | None = None  # a Dask scheduler's address (tcp://HOST:PORT): the work runs there (cluster.py)
 
 
 @dataclass(frozen=True, slots=True)
@@ -160,6 +164,8 @@ def run_build(
     """Build the site; raises :class:`~sitegen.errors.ConfigError` when nothing may be written."""
     started = time.perf_counter()
     data_dir, out_dir = options.data_dir, options.out_dir
+    if options.cluster:  # workers see the folders at the same absolute paths, whatever their working folder
+        data_dir, out_dir = data_dir.absolute(), out_dir.absolute()
     if not data_dir.is_dir():
         raise ConfigError(f"the data folder {data_dir} does not exist or is not a folder")
     check_output_folder(data_dir, out_dir)
@@ -178,12 +184,22 @@ def run_build(
             from sitegen.report.pages import check_theme  # noqa: PLC0415
 
             check_theme(theme)
-        spare = open_spare(work, trusted=prev.site is not None)
+        cluster = None
+        if options.cluster and executor is None:  # asked before anything is sent: can every worker see the folders?
+            from sitegen.cluster import connect  # noqa: PLC0415
+
+            cluster = connect(options.cluster, data_dir, out_dir, sources, theme)
+        try:
+            spare = open_spare(work, trusted=prev.site is not None)
+        except BaseException:
+            if cluster is not None:
+                cluster.close()
+            raise
         from sitegen.executor import make_executor  # noqa: PLC0415 - a process pool only when there is work
 
         # Chart images run the chart converter, whose threads must stay out of this process (a pool
         # forked from it later could wait for ever on their locks): then even a lone job goes to a worker.
-        with executor or make_executor(options.jobs, inline_single=not config.static_images) as run:
+        with executor or cluster or make_executor(options.jobs, inline_single=not config.static_images) as run:
             state = _Build(
                 work=work,
                 published=out_dir,
@@ -299,6 +315,7 @@ class _Build:
         self.kept: set[str] = set()  # reused datasets whose folder in the spare was already right
         self.checked: set[str] = set()  # reused datasets whose published folder was checked file by file
         self.titles: dict[str, str] = {}  # expected titles of the neighbours of datasets being fitted
+        self.transient: set[str] = set()  # datasets whose failure was transient (never kept: see _failure_kept)
         self.built_at = _now()
 
     def _stored_light(self, entry: dict[str, Any], old: Path, slug: str, record: dict[str, Any]) -> FitReport | None:
@@ -390,18 +407,30 @@ class _Build:
         if self.progress:
             self.progress(count, total, "")
         paged: dict[str, tuple[Neighbours | None, tuple[str, ...]]] = {}
-        for i, res in self.run.run(fit_job, jobs, fit_bounds(self.config.limits)):
-            slug = jobs[i].source.slug
-            report = res.report or report_from_index_entry(res.entry or {}, self.measured[slug].input_sha256)
-            done[slug] = (report, res.files)
-            paged[slug] = (res.paged, res.page_files)
-            if res.fit_sha256:
-                self.fit_shas[slug] = res.fit_sha256
-            if res.debug_trace:
-                traces.append((jobs[i].source.relpath, res.debug_trace))
-            count += 1
-            if self.progress:
-                self.progress(count, total, jobs[i].source.relpath)
+        round_jobs = jobs
+        for tries_left in range(TRANSIENT_TRIES - 1, -1, -1):
+            again: list[FitJob] = []  # a read error or a lost cluster worker: tried again (TRANSIENT_TRIES)
+            for i, res in self.run.run(fit_job, round_jobs, fit_bounds(self.config.limits)):
+                job = round_jobs[i]
+                slug = job.source.slug
+                if res.transient and tries_left:
+                    again.append(job)
+                    continue
+                if res.transient:
+                    self.transient.add(slug)
+                report = res.report or report_from_index_entry(res.entry or {}, self.measured[slug].input_sha256)
+                done[slug] = (report, res.files)
+                paged[slug] = (res.paged, res.page_files)
+                if res.fit_sha256:
+                    self.fit_shas[slug] = res.fit_sha256
+                if res.debug_trace:
+                    traces.append((job.source.relpath, res.debug_trace))
+                count += 1
+                if self.progress:
+                    self.progress(count, total, job.source.relpath)
+            if not again:
+                break
+            round_jobs = again
         refitted = {j.source.slug for j in jobs}
         reports = [_with_sha(done[s.slug][0], self.measured[s.slug].input_sha256) for s in self.sources]
         entries, page_jobs, page_files = self._plan_pages(ctx, reports, done, refitted, paged)
@@ -496,6 +525,8 @@ class _Build:
         """The dataset failed because of its input, read as the fingerprint saw it: no input file changed
         while this build ran (a file away, garbled or too large for a moment is tried again next time)."""
         if report.status != "error" or not _failure_from_input(report, self.measured[src.slug].input_sha256):
+            return False
+        if src.slug in self.transient:  # a read error or a lost cluster worker says nothing about the input
             return False
         then = self.measured[src.slug]
         csv_then, sidecar_then = then.csv_stat, then.sidecar_stat

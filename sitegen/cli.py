@@ -176,6 +176,13 @@ def _common_build_options(p: argparse.ArgumentParser) -> None:
         help="exit with 3 when a declared requirement is not met (1 still wins when a dataset failed)",
     )
     p.add_argument(
+        "--cluster",
+        default=None,
+        metavar="ADDRESS",
+        help="run the work on an existing Dask cluster (tcp://HOST:PORT of its scheduler); every worker must see "
+        "DATA_DIR and SITE_DIR's parent at the same absolute paths (needs the 'cluster' extra)",
+    )
+    p.add_argument(
         "--theme",
         type=Path,
         default=None,
@@ -190,7 +197,8 @@ def _build(args: argparse.Namespace, out: _Printer) -> int:
     if args.jobs is not None and args.jobs < 1:
         raise ConfigError("--jobs must be at least 1")
     summary = run_build(
-        BuildOptions(args.data_dir, args.out_dir, args.jobs, args.refit, theme=args.theme), progress=out.progress
+        BuildOptions(args.data_dir, args.out_dir, args.jobs, args.refit, theme=args.theme, cluster=args.cluster),
+        progress=out.progress,
     )
     for w in summary.warnings:
         out.warn(w)

@@ -10,8 +10,9 @@ exit codes.
     SitegenError                     base: a problem sitegen can explain
     ├── ConfigError                  site-wide settings or command line; nothing is written (exit 2)
     │   ├── SiteConfigError          site.toml is unreadable or invalid
-    │   └── OutputFolderError        the output folder is unsafe to write into
-    │       └── BuildLockedError     another build holds the output folder's lock
+    │   ├── OutputFolderError        the output folder is unsafe to write into
+    │   │   └── BuildLockedError     another build holds the output folder's lock
+    │   └── ClusterError             the cluster named by --cluster cannot be reached or cannot see the folders
     ├── DatasetError                 one dataset cannot be fitted; the others go on
     │   ├── SidecarError             NAME.toml is unreadable or invalid
     │   ├── DataFileError            NAME.csv cannot be read as a table
@@ -58,6 +59,11 @@ class OutputFolderError(ConfigError):
 
 class BuildLockedError(OutputFolderError):
     """Another build is writing the same output folder."""
+
+
+class ClusterError(ConfigError):
+    """The Dask cluster named by ``--cluster`` cannot be reached, or a worker cannot do the build's work (it
+    cannot see the data folder or the output's parent, or runs other versions); nothing is published."""
 
 
 class DatasetError(SitegenError):

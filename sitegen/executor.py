@@ -39,8 +39,9 @@ T = TypeVar("T")
 R = TypeVar("R")
 
 #: Which bound an item went past: its time, its memory, or its worker ended for another reason (a crash,
-#: the system's out-of-memory killer).
-Overrun = Literal["time", "memory", "ended"]
+#: the system's out-of-memory killer); "lost": a cluster's worker was lost with the item, again and again
+#: (``sitegen/cluster.py``; the cluster, not the input, is to blame).
+Overrun = Literal["time", "memory", "ended", "lost"]
 
 #: ``-j`` is capped at this many workers per core (a larger number only adds memory and start-up).
 JOBS_PER_CORE = 2
@@ -117,9 +118,10 @@ class WorkerExecutor:
     work always runs in a worker. No run starts more workers than it has items, nor more than ``jobs``.
     """
 
-    def __init__(self, jobs: int, *, inline_single: bool = True) -> None:
+    def __init__(self, jobs: int, *, inline_single: bool = True, spawn: bool = False) -> None:
         self.jobs = max(1, jobs)
         self.inline_single = inline_single  # a lone unbounded item runs here rather than starting a worker
+        self.spawn = spawn  # start workers afresh even where forking is possible (a process that runs threads)
         self._workers: list[_Worker] = []
         self._frozen = False
 
@@ -225,7 +227,7 @@ class WorkerExecutor:
         # converter's JavaScript engine, once loaded here) would leave a forked worker waiting for ever
         # on a lock one of those threads held. Then the workers start afresh instead.
         threaded = any(name in sys.modules for name in _THREADED_LIBRARIES)
-        method = "fork" if sys.platform.startswith("linux") and not threaded else "spawn"
+        method = "fork" if sys.platform.startswith("linux") and not threaded and not self.spawn else "spawn"
         if method == "fork" and not self._frozen:
             import gc  # noqa: PLC0415
 

@@ -56,6 +56,9 @@ class FitDone:
     paged: Neighbours | None = None  # the page was written, between these neighbours
     page_files: tuple[str, ...] = ()  # what writing the page wrote (index.html, chart images)
     fit_sha256: str = ""  # of the fit.json written (hashed here, in parallel, rather than by the build)
+    # The failure says nothing about the input (a read error, a cluster worker lost): the build tries it again
+    # and never records it as the dataset's state.
+    transient: bool = False
 
 
 def fit_job(job: FitJob) -> FitDone:
@@ -87,6 +90,12 @@ def fit_overrun(job: FitJob, overrun: Overrun) -> FitDone:
             "bound for one dataset ([limits] max_fit_megabytes in site.toml); the other datasets were built. "
             "Check the model formula and the file's size, or raise the bound if this much is expected"
         )
+    elif overrun == "lost":
+        text = (
+            f"fitting {name} stopped: the cluster worker fitting it was lost (it ended or could not be reached), "
+            "again on each try; the other datasets were built. Build again; if it happens again, look at the "
+            "workers' logs (memory, the worker's own limits) or build without --cluster"
+        )
     else:
         text = (
             f"fitting {name} stopped: the process fitting it ended unexpectedly (the system may have run out of "
@@ -94,7 +103,7 @@ def fit_overrun(job: FitJob, overrun: Overrun) -> FitDone:
             "max_fit_megabytes in site.toml or leave the file out"
         )
     shutil.rmtree(job.folder, ignore_errors=True)  # whatever the stopped fit had written
-    return _finish(job, DatasetResult(error_report(job.source, text), None))
+    return _finish(job, DatasetResult(error_report(job.source, text), None, transient=overrun == "lost"))
 
 
 def _finish(job: FitJob, result: DatasetResult) -> FitDone:
@@ -124,7 +133,7 @@ def _finish(job: FitJob, result: DatasetResult) -> FitDone:
     page_files = write_page(page, result.report, files, job.folder / "index.html") if page else ()
     sha = file_sha256(job.folder / "fit.json")
     if result.report.status == "error":
-        return FitDone(result.report, None, files, result.debug_trace, page, page_files, sha)
+        return FitDone(result.report, None, files, result.debug_trace, page, page_files, sha, result.transient)
     return FitDone(None, index_entry(result.report), files, result.debug_trace, page, page_files, sha)
 
 

@@ -40,9 +40,11 @@ def _imported(folder: Path) -> set[str]:
 def test_every_dependency_is_imported_where_it_is_declared() -> None:
     project = tomllib.loads((ROOT / "pyproject.toml").read_text("utf-8"))["project"]
     runtime = _requirements(project["dependencies"])
-    test_only = _requirements(project["optional-dependencies"]["test"]) - {"setuptools"}
+    extra = _requirements(project["optional-dependencies"]["cluster"])  # optional at run time, tested too
+    test_only = _requirements(project["optional-dependencies"]["test"]) - {"setuptools"} - extra
     in_code = _imported(ROOT / "sitegen")
     in_tests = _imported(ROOT / "tests") | _imported(ROOT / "bench")
     assert {MODULE.get(n, n) for n in runtime} <= in_code
+    assert {MODULE.get(n, n) for n in extra} <= in_code & in_tests
     assert {MODULE.get(n, n) for n in test_only} <= in_tests
     assert not {MODULE.get(n, n) for n in test_only} & in_code, "a test-only library is imported at run time"
