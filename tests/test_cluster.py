@@ -31,6 +31,7 @@ from typing import Any
 
 import pytest
 from conftest import LINE_CSV, cli, copy_example, write_csv
+from test_bounds import _large
 
 from sitegen.build import TRANSIENT_TRIES, BuildOptions, run_build
 
@@ -268,6 +269,25 @@ def test_a_worker_that_cannot_see_the_data_folder_stops_the_build_before_any_dat
     finally:
         _stop(blind)
         _wait_for(lambda: "blind" not in cluster.workers(), 30, "the blind worker did not leave")
+
+
+def test_a_fit_past_its_memory_bound_on_a_worker_gets_its_error_page_and_the_worker_goes_on(
+    cluster: _Cluster, tmp_path: Path
+) -> None:
+    data = tmp_path / "data"
+    data.mkdir()
+    _large(data, 100_000)  # needs far more than 20 MB to fit
+    write_csv(data / "small.csv", LINE_CSV)
+    (data / "site.toml").write_text("[limits]\nmax_fit_megabytes = 20\n", encoding="utf-8")
+    result = cli("build", data, "-o", tmp_path / "site", "--cluster", cluster.address)
+    assert result.code == 1, result.output
+    entries = _entries(tmp_path / "site")
+    assert entries["small"]["status"] == "ok"
+    assert entries["large"]["status"] == "error"
+    assert "more than 20 MB" in entries["large"]["message"]
+    assert "[limits] max_fit_megabytes" in entries["large"]["message"]
+    assert entries["large"]["failure_kept"] is True  # a bound's verdict is the input's, as on one machine
+    assert set(cluster.workers()) == {"one", "two"}  # the bound ended a child of the worker, not the worker
 
 
 def test_kill_9_of_a_worker_mid_build_leaves_the_published_site_whole(cluster: _Cluster, tmp_path: Path) -> None:
