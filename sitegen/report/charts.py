@@ -329,8 +329,11 @@ def _forest(alt: Any, *, shared_axis: bool) -> Any:
         labelFontSize=12,
         labelPadding=3,
     )
+    # Rows in the order given (``order``: a summarised tag's extremes by estimate); without a sort field the
+    # facet orders its rows by heading, alphabetically.
+    order = alt.EncodingSortField(field="order", op="min", order="ascending")
     chart = inner.facet(
-        row=alt.Row("heading:N", title=None, sort=None, header=header), data=alt.Data(name="rows")
+        row=alt.Row("heading:N", title=None, sort=order, header=header), data=alt.Data(name="rows")
     ).properties(spacing=6 if shared_axis else 10)
     return chart if shared_axis else chart.resolve_scale(x="independent")
 
@@ -965,7 +968,10 @@ def forest_chart(rows: list[dict[str, Any]], term: str) -> Spec:
     """
     terms = {row.get("term") for row in rows}
     mixed = len(terms) > 1
-    headed = [{**row, "heading": f"{row['label']} — {row.get('term')}" if mixed else row["label"]} for row in rows]
+    headed = [
+        {**row, "heading": f"{row['label']} — {row.get('term')}" if mixed else row["label"], "order": i}
+        for i, row in enumerate(rows)
+    ]
     spec = fill("forest_mixed" if mixed else "forest", {"rows": headed}, x_title=term)
     present = [s for s in STATUS_SHAPES if any(row.get("status") == s for row in rows)]
     spec["spec"]["layer"][1]["encoding"]["shape"]["legend"]["values"] = present

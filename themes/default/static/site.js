@@ -171,7 +171,16 @@
     if (query.addEventListener) { query.addEventListener("change", draw); }
   }
 
-  /* ---- the index table: sort ---- */
+  /* ---- the index table: sort and filter ----
+     Each table's rows are read once into a list (their filter attributes, and each column's sort key when that
+     column is first sorted). Sorting and filtering work on the list; the page then holds the rows to show.
+     A table of more than WINDOW rows (or its data-window) shows the first WINDOW that match, with buttons for
+     more: a browser lays out every row it shows, and 5,000 rows took seconds to lay out after each sort (rows
+     not shown are kept out of the page, so they cost nothing). Smaller tables keep every row in the page, hiding
+     the others. */
+
+  var WINDOW = 200;
+  var tables = {};  /* table id -> { table, items, sorted, window, limit, attached, more } */
 
   function cellValue(row, index, type) {
     var cell = row.children[index];
@@ -191,20 +200,95 @@
     return rows;
   }
 
+  function stateOf(table) {
+    var state = tables[table.id];
+    if (state) { return state; }
+    var items = dataRows(table).map(function (r, i) {
+      return { row: r, home: r.parentNode, order: i, ok: true, keys: {},
+               search: r.getAttribute("data-search") || "", status: r.getAttribute("data-status"),
+               req: r.getAttribute("data-requirements"), folder: r.getAttribute("data-folder"),
+               tags: (r.getAttribute("data-tags") || "").split("|") };
+    });
+    var size = parseInt(table.getAttribute("data-window") || "", 10);
+    size = size > 0 ? size : WINDOW;
+    state = { table: table, items: items, sorted: null, window: size, limit: size, attached: items.slice(), more: null };
+    tables[table.id] = state;
+    return state;
+  }
+
+  /* Put the rows to show into the page (see above), hide the folder headings with nothing under them, and
+     offer the rows beyond the window. Returns how many rows match. */
+  function render(state) {
+    var table = state.table;
+    var list = state.sorted || state.items;
+    var small = state.items.length <= state.window;
+    var shown = [];
+    var matched = 0;
+    list.forEach(function (it) {
+      if (it.ok) { matched += 1; }
+      if (small || (it.ok && matched <= state.limit)) { shown.push(it); }
+    });
+    if (!small || state.sorted) {
+      if (!small) { state.attached.forEach(function (it) { if (it.row.parentNode) { it.row.parentNode.removeChild(it.row); } }); }
+      var into = state.sorted ? [table.tBodies[0]] : null;
+      var fragment = document.createDocumentFragment();
+      var body = into ? into[0] : null;
+      shown.forEach(function (it) {
+        var target = into ? into[0] : it.home;
+        if (target !== body) { if (body) { body.appendChild(fragment); } body = target; }
+        fragment.appendChild(it.row);
+      });
+      if (body) { body.appendChild(fragment); }
+    }
+    shown.forEach(function (it) { it.row.hidden = !it.ok; });
+    state.attached = shown;
+    if (!state.sorted) {
+      Array.prototype.forEach.call(table.tBodies, function (b) {
+        var g = b.querySelector("tr.group-row");
+        if (g) { g.hidden = !Array.prototype.some.call(b.rows, function (r) { return !r.classList.contains("group-row") && !r.hidden; }); }
+      });
+    }
+    offerMore(state, matched, small ? matched : Math.min(matched, state.limit));
+    return matched;
+  }
+
+  function offerMore(state, matched, drawn) {
+    var box = state.more;
+    if (!box) {
+      if (state.items.length <= state.window) { return; }
+      box = document.createElement("p");
+      box.className = "more-rows";
+      box.id = state.table.id + "-more";
+      var note = document.createElement("span");
+      var next = document.createElement("button");
+      var all = document.createElement("button");
+      next.type = "button"; all.type = "button";
+      next.addEventListener("click", function () { state.limit += state.window; render(state); });
+      all.addEventListener("click", function () { state.limit = Infinity; render(state); });
+      box.appendChild(note); box.appendChild(next); box.appendChild(all);
+      var wrap = state.table.closest(".table-wrap") || state.table;
+      wrap.parentNode.insertBefore(box, wrap.nextSibling);
+      state.more = box;
+    }
+    var rest = matched - drawn;
+    box.hidden = rest <= 0;
+    box.children[0].textContent = "Showing " + drawn + " of " + matched + " rows. ";
+    box.children[1].textContent = "Show " + Math.min(state.window, rest) + " more";
+    box.children[2].textContent = "Show all " + matched;
+  }
+
   function sortTable(table, th, type) {
     var index = Array.prototype.indexOf.call(th.parentNode.children, th);
     var ascending = th.getAttribute("aria-sort") !== "ascending";
     table.querySelectorAll("thead th[aria-sort]").forEach(function (h) { h.setAttribute("aria-sort", "none"); });
     th.setAttribute("aria-sort", ascending ? "ascending" : "descending");
-    /* Each row's key is read once (not in every comparison), and the rows go back in one fragment:
-       sorting 5,000 rows then takes milliseconds rather than seconds. */
-    var keyed = dataRows(table).map(function (r, i) {
-      if (!r.hasAttribute("data-order")) { r.setAttribute("data-order", String(i)); }
-      return { row: r, key: cellValue(r, index, type), order: Number(r.getAttribute("data-order")) };
+    var state = stateOf(table);
+    state.items.forEach(function (it) {
+      if (!(index in it.keys)) { it.keys[index] = cellValue(it.row, index, type); }
     });
-    keyed.sort(function (a, b) {
-      var x = a.key, y = b.key;
-      if (x === null && y === null) { return 0; }
+    state.sorted = state.items.slice().sort(function (a, b) {
+      var x = a.keys[index], y = b.keys[index];
+      if (x === null && y === null) { return a.order - b.order; }
       if (x === null) { return 1; }   /* empty cells last in either direction */
       if (y === null) { return -1; }
       var c = x < y ? -1 : x > y ? 1 : 0;
@@ -214,9 +298,8 @@
     /* Sorted rows leave their folder groups; the folder stays visible in its own column. */
     table.classList.add("sorted");
     table.querySelectorAll("tr.group-row").forEach(function (g) { g.hidden = true; });
-    var fragment = document.createDocumentFragment();
-    keyed.forEach(function (k) { fragment.appendChild(k.row); });
-    table.tBodies[0].appendChild(fragment);
+    state.limit = state.window;
+    render(state);
     var status = document.getElementById(table.id + "-sort-status");
     if (status) {
       status.textContent = "Sorted by " + th.textContent.trim() + (ascending ? ", ascending." : ", descending.");
@@ -231,8 +314,6 @@
       });
     });
   }
-
-  /* ---- the index table: filter ---- */
 
   function setupFilters() {
     document.querySelectorAll("form.filters").forEach(function (form) {
@@ -250,23 +331,14 @@
         var q = form.elements.q.value.trim().toLowerCase();
         var status = form.elements.status.value, tag = form.elements.tag.value, folder = form.elements.folder.value;
         var req = form.elements.requirements ? form.elements.requirements.value : "";
-        var shown = 0, total = 0;
-        dataRows(table).forEach(function (r) {
-          total += 1;
-          var ok = (!q || (r.getAttribute("data-search") || "").indexOf(q) >= 0) &&
-            (!status || r.getAttribute("data-status") === status) &&
-            (!req || r.getAttribute("data-requirements") === req) &&
-            (!tag || (r.getAttribute("data-tags") || "").split("|").indexOf(tag) >= 0) &&
-            (!folder || r.getAttribute("data-folder") === folder);
-          r.hidden = !ok;
-          if (ok) { shown += 1; }
+        var state = stateOf(table);
+        state.items.forEach(function (it) {
+          it.ok = (!q || it.search.indexOf(q) >= 0) && (!status || it.status === status) &&
+            (!req || it.req === req) && (!tag || it.tags.indexOf(tag) >= 0) && (!folder || it.folder === folder);
         });
-        if (!table.classList.contains("sorted")) {
-          Array.prototype.forEach.call(table.tBodies, function (b) {
-            var g = b.querySelector("tr.group-row");
-            if (g) { g.hidden = !Array.prototype.some.call(b.rows, function (r) { return !r.classList.contains("group-row") && !r.hidden; }); }
-          });
-        }
+        state.limit = state.window;
+        var shown = render(state);
+        var total = state.items.length;
         var empty = document.getElementById(table.id + "-empty");
         if (empty) { empty.hidden = shown > 0; }
         var filtering = q || status || req || tag || folder;
