@@ -18,6 +18,7 @@ from nist_reference import Reference, reference
 
 from sitegen import derive
 from sitegen.formula import build_design
+from sitegen.model import Diagnostic
 from sitegen.spec import DatasetSpec
 from sitegen.stats import ext
 from sitegen.stats.checks import Check, Precise, model_checks, vif
@@ -88,7 +89,8 @@ def program_figures(name: str, kind: str) -> dict[str, Any]:
         out |= {c: np.asarray(obs[c], dtype=float) for c in OBSERVATION_COLUMNS}
         if derived.robust_se is not None:
             out["hc3_std_errors"] = derived.robust_se
-        for d in (*derived.diagnostics, *_normality_tests(design, fit, infl)):
+        published: list[Check | Diagnostic] = [*derived.diagnostics, *_normality_tests(design, fit, infl)]
+        for d in published:
             if d.check in DIAGNOSTICS:
                 stat_key, p_key = DIAGNOSTICS[d.check]
                 out[stat_key], out[p_key] = d.statistic, d.p_value
