@@ -18,7 +18,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from sitegen.errors import DatasetError, FitError
-from sitegen.formula import Design, design_for
+from sitegen.formula import Design, design_for, plain_column
 from sitegen.model import (
     AltLine,
     Calibration,
@@ -108,7 +108,12 @@ def _in_rhs(design: Design, var: str) -> bool:
 def straight_line(design: Design) -> str | None:
     """The predictor of a plain ``y ~ x`` model (intercept and one untransformed column)."""
     x = single_predictor(design)
-    if x is not None and design.has_intercept and len(design.terms) == 2 and design.terms[1] in (x, f"Q('{x}')"):
+    if (
+        x is not None
+        and design.has_intercept
+        and len(design.terms) == 2
+        and plain_column(design.terms[1], design.variables) == x
+    ):
         return x
     return None
 
@@ -162,13 +167,21 @@ def replicated_settings(design: Design) -> NDArray[np.bool_]:
     return np.asarray(counts[np.ravel(inverse)] > 1, dtype=bool)
 
 
+def designed_rows(design: Design, spec: DatasetSpec) -> NDArray[np.bool_]:
+    """Rows whose x are set values of the design: every row of a calibration (its standards, replicated or
+    not), and elsewhere the settings measured more than once. Their leverage alone never flags them."""
+    if spec.purpose == "calibration":
+        return np.ones(len(design.y), dtype=bool)
+    return replicated_settings(design)
+
+
 def compute(
     design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray | None, *, weighting: str | None = None
 ) -> Derived:
     """Derive every requested result; problems with optional extras become warnings."""
     messages: list[Message] = []
     infl = influence(fit.q, fit.resid, fit.df_resid, weights=weights)
-    flags = flag_points(infl, fit.n, len(fit.terms), designed=replicated_settings(design))
+    flags = flag_points(infl, fit.n, len(fit.terms), designed=designed_rows(design, spec))
     sw = np.ones(fit.n) if weights is None else np.sqrt(weights)
     Xw = design.X * sw[:, None]
     checks = model_checks(
@@ -297,6 +310,8 @@ def _reason_codes(flags: PointFlags) -> NDArray[np.intp]:
     code = np.zeros(len(flags.leverage_one), dtype=np.intp)
     for bit, mark in enumerate(marks):
         code |= np.asarray(mark, dtype=np.intp) << bit
+    if flags.marked is not None:  # a designed row that crossed a cut-off by its leverage alone: no reason
+        code[~np.asarray(flags.marked, dtype=bool)] = 0
     return code
 
 
@@ -850,7 +865,7 @@ def acceptance_evidence(
     if req is None:
         return Evidence()
     line_x = straight_line(design)
-    plain_response = design.response in design.variables
+    plain_response = plain_column(design.response, design.variables) is not None
     x_col = single_predictor(design)
     x_range = None
     if x_col is not None:

@@ -10,14 +10,13 @@ page, never the end of the fit.
 from __future__ import annotations
 
 import math
-import re
 from dataclasses import asdict, dataclass
 
 import numpy as np
 from numpy.typing import NDArray
 
 from sitegen.errors import FitError
-from sitegen.formula import Design
+from sitegen.formula import Design, plain_column
 from sitegen.model import (
     Agreement,
     AltLine,
@@ -73,10 +72,7 @@ class Weighting:
 
 def plain_response(design: Design) -> bool:
     """Whether the response is a data column as it is (``y`` or ``Q('kit result')``, not ``np.log(y)``)."""
-    if design.response in design.variables:
-        return True
-    quoted = re.fullmatch(r"""Q\((['"])(.*)\1\)""", design.response)
-    return quoted is not None and quoted.group(2) in design.variables
+    return plain_column(design.response, design.variables) is not None
 
 
 def paired_columns(design: Design, line_x: str | None) -> tuple[FloatArray, FloatArray] | None:
