@@ -26,11 +26,14 @@ from sitegen.model import (
     ReadBackLevel,
     WeightingOption,
 )
+from sitegen.report.fmt import given, num
+from sitegen.report.fmt import level as fmt_level
 from sitegen.spec import DatasetSpec
 from sitegen.stats.agreement import difference_analysis
 from sitegen.stats.bias import bias_at
 from sitegen.stats.passing_bablok import BOOTSTRAP_MAX_POINTS, passing_bablok
 from sitegen.stats.readback import choose_weighting, mandel_test, read_back, weights_for
+from sitegen.stats.text import p_text
 
 FloatArray = NDArray[np.float64]
 
@@ -198,7 +201,7 @@ def comparison(
                 Message(
                     "warning",
                     "The differences change with the level (their slope on the pairs' means is "
-                    f"{agreement.trend_slope:.3g}, p = {agreement.trend_p_value:.2g}): one pair of limits of "
+                    f"{num(agreement.trend_slope, 3)}, {p_text(agreement.trend_p_value)}): one pair of limits of "
                     "agreement does not describe the whole range. Look at the difference chart"
                     + (
                         " in percent."
@@ -215,7 +218,7 @@ def comparison(
             bias = tuple(BiasAt(**asdict(b)) for b in found)
         except (FitError, ValueError, ArithmeticError) as exc:
             messages.append(Message("warning", f"the bias at the decision levels could not be computed: {exc}"))
-    text = conclusion(agreement, bias, lines, level) if wants_agreement else ""
+    text = conclusion(agreement, bias, lines, level, unit=difference_unit(design, spec)) if wants_agreement else ""
     return ComparisonResults(agreement, agreement_percent, bias, method if bias else "", reason if bias else "", text)
 
 
@@ -241,13 +244,40 @@ def comparison_bias(
     return tuple(BiasAt(**asdict(b)) for b in found), ""
 
 
-def _fmt(v: float) -> str:
-    return f"{v:.4g}".replace("-", "−")
+def difference_unit(design: Design, spec: DatasetSpec) -> str:
+    """The unit of the differences test − reference: the response's, else the reference's ("" if neither)."""
+    units = dict(spec.units)
+    y_col = plain_column(design.response, design.variables)
+    if y_col is not None and units.get(y_col):
+        return units[y_col]
+    x_col = next((v for v in design.variables if v != y_col), None)
+    return units.get(x_col, "") if x_col is not None else ""
 
 
-def conclusion(agreement: Agreement | None, bias: tuple[BiasAt, ...], lines: tuple[AltLine, ...], level: float) -> str:
-    """Plain sentences: what the comparison shows, deferring to the user's acceptance limits."""
-    pct = f"{100 * level:g} %"
+def _fmt(v: float, unit: str = "") -> str:
+    """A measured figure as the rest of the page rounds it (4 significant digits), with its unit."""
+    return num(v) + (f" {unit}" if unit else "")
+
+
+def _signed_percent(v: float) -> str:
+    text = num(v, 3)
+    return f"+{text}" if v > 0 else text
+
+
+def conclusion(
+    agreement: Agreement | None,
+    bias: tuple[BiasAt, ...],
+    lines: tuple[AltLine, ...],
+    level: float,
+    *,
+    unit: str = "",
+) -> str:
+    """Plain sentences: what the comparison shows, deferring to the user's acceptance limits.
+
+    Numbers follow the page's one rule (:mod:`sitegen.report.fmt`): measured figures to 4 significant
+    digits with the unit of the differences, percentages to 3; levels the user declared as written.
+    """
+    pct = fmt_level(level)
     parts: list[str] = []
     pb = next((ln for ln in lines if ln.method == "passing_bablok" and math.isfinite(ln.slope_ci_low)), None)
     if pb is not None:
@@ -263,25 +293,27 @@ def conclusion(agreement: Agreement | None, bias: tuple[BiasAt, ...], lines: tup
             if not slope_ok:
                 kinds.append(f"a proportional difference (slope {_fmt(pb.slope)}, interval excludes 1)")
             if not icpt_ok:
-                kinds.append(f"a constant difference (intercept {_fmt(pb.intercept)}, interval excludes 0)")
+                kinds.append(f"a constant difference (intercept {_fmt(pb.intercept, unit)}, interval excludes 0)")
             parts.append("The Passing–Bablok line shows " + " and ".join(kinds) + ".")
     if agreement is not None:
         parts.append(
-            f"On average the test method reads {_fmt(agreement.mean_difference)} "
+            f"On average the test method reads {_fmt(agreement.mean_difference, unit)} "
             f"({pct} interval {_fmt(agreement.mean_difference_ci_low)} to "
-            f"{_fmt(agreement.mean_difference_ci_high)}) from the reference; {pct} of single differences are "
-            f"expected between {_fmt(agreement.limit_low)} and {_fmt(agreement.limit_high)}."
+            f"{_fmt(agreement.mean_difference_ci_high, unit)}) from the reference; {pct} of single differences "
+            f"are expected between {_fmt(agreement.limit_low)} and {_fmt(agreement.limit_high, unit)}."
         )
     if bias:
         clear = [b for b in bias if b.ci_low <= 0.0 <= b.ci_high]
         shown = [b for b in bias if not (b.ci_low <= 0.0 <= b.ci_high) and math.isfinite(b.ci_low)]
+        at_unit = f" {unit}" if unit else ""
         if clear:
-            parts.append("At " + ", ".join(_fmt(b.at) for b in clear) + " the bias interval includes zero.")
+            levels = ", ".join(given(b.at) for b in clear)
+            parts.append(f"At {levels}{at_unit} the bias interval includes zero.")
         for b in shown:
-            pct = f" ({b.percent:+.3g} %)" if math.isfinite(b.percent) else ""
+            share = f" ({_signed_percent(b.percent)} %)" if math.isfinite(b.percent) else ""
             parts.append(
-                f"At {_fmt(b.at)} the bias is {_fmt(b.estimate)}{pct}, interval {_fmt(b.ci_low)} to "
-                f"{_fmt(b.ci_high)}: it excludes zero."
+                f"At {given(b.at)}{at_unit} the bias is {_fmt(b.estimate, unit)}{share}, {pct} interval "
+                f"{_fmt(b.ci_low)} to {_fmt(b.ci_high, unit)}: it excludes zero."
             )
     parts.append(
         "Whether the methods can be used interchangeably depends on the bias and spread you can accept at "
