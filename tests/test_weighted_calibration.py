@@ -46,7 +46,7 @@ def _fieller_roots(res: Any, y0: float, m: int, reading_var: Any, level: float =
 
     def gap(x: float) -> float:
         se_mean = float(res.get_prediction(np.array([[1.0, x]])).se_mean[0])
-        return (y0 - a - b * x) ** 2 - t**2 * (se_mean**2 + res.scale * reading_var(x) / m)
+        return float((y0 - a - b * x) ** 2 - t**2 * (se_mean**2 + res.scale * reading_var(x) / m))
 
     x0 = (y0 - a) / b
     assert gap(x0) < 0  # the estimate lies inside the set
