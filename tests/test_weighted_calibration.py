@@ -161,6 +161,9 @@ def test_weighted_detection_limits_against_statsmodels() -> None:
     assert lim.loq == pytest.approx(10 * sigma0 / res.params[1], rel=1e-9)
     assert "ICH Q2(R1)" in lim.convention
     assert "lowest standard" in lim.basis
+    assert ("below the lowest standard" in lim.basis) == (lim.lod < X.min())
+    far = weighted_detection_limits(slope=1.0, residual_sd=0.01, low_weight=1.0, low_x=5.0)
+    assert "confirm them with blanks" in far.basis  # 0.033 lies below the lowest standard, 5
 
 
 def _fit(site: Path, slug: str) -> dict[str, Any]:

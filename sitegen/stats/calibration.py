@@ -333,12 +333,19 @@ def weighted_detection_limits(*, slope: float, residual_sd: float, low_weight: f
     if low_weight <= 0.0 or residual_sd < 0.0:
         raise FitError("detection limits need a positive weight at the lowest standard")
     sigma0 = residual_sd / math.sqrt(low_weight)
+    lod = 3.3 * sigma0 / abs(slope)
+    below = (
+        "; the limits lie below the lowest standard, where no data check the scatter: confirm them with blanks "
+        "or low-level samples"
+        if lod < low_x
+        else ""
+    )
     return DetectionLimits(
-        lod=3.3 * sigma0 / abs(slope),
+        lod=lod,
         loq=10.0 * sigma0 / abs(slope),
         convention=_ICH_CONVENTION,
         basis=(
             f"σ = s/√w₀, the standard deviation of one reading at the lowest standard (x = {low_x:g}), from "
-            "the weighted line's scale s and the weight w₀ of a reading there"
+            f"the weighted line's scale s and the weight w₀ of a reading there{below}"
         ),
     )
