@@ -56,7 +56,8 @@ def test_an_input_record_keeps_a_hash_only_while_the_stat_is_unchanged() -> None
     assert record.known_csv_sha256(None) is None
     assert record.known_sidecar_sha256(None) is None
     # a garbled record is no record: every file is hashed again
-    for garbled in (None, [], "x", {"csv": [1, 2], "csv_sha256": sha}, {"csv": ["1", 2, 3, 4, 5]}):
+    garbled_records: list[object] = [None, [], "x", {"csv": [1, 2], "csv_sha256": sha}, {"csv": ["1", 2, 3, 4, 5]}]
+    for garbled in garbled_records:
         assert InputRecord.from_json(garbled).known_csv_sha256(stat) is None
 
 
