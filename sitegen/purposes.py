@@ -114,21 +114,23 @@ def recommended_line(lines: tuple[AltLine, ...], error_ratio: float, n: int) -> 
     """The line the bias is read from, and why (in words)."""
     pb = next((ln for ln in lines if ln.method == "passing_bablok"), None)
     pb_usable = pb is not None and pb.slope > 0.0 and math.isfinite(pb.slope_ci_low)
-    small = n <= BOOTSTRAP_MAX_POINTS
-    if pb is not None and pb_usable and pb.linear and small:
+    if pb is not None and pb_usable and pb.linear:
+        if n <= BOOTSTRAP_MAX_POINTS:
+            how = "percentile bootstrap intervals (1,000 resamples of the pairs, fixed seed)"
+        else:
+            how = (
+                f"rank-based intervals without resampling (above {BOOTSTRAP_MAX_POINTS} pairs the bootstrap costs "
+                "too much): the slope's interval of Passing and Bablok combined with the order-statistic interval "
+                "of the median that places the line, each at half the error rate (Bonferroni), so they are "
+                "conservative"
+            )
         return "passing_bablok", (
             "Passing–Bablok, because it allows measurement error in both methods, assumes no particular "
-            "error distribution and is not pulled by single outlying results; its bias intervals are "
-            "percentile bootstrap intervals (1,000 resamples of the pairs, fixed seed)."
+            f"error distribution and is not pulled by single outlying results; its bias intervals are {how}."
         )
     why_not = ""
     if pb is not None:
-        if not pb_usable:
-            why = f"{pb.note or 'no interval'}."
-        elif not pb.linear:
-            why = "its cusum test finds the relation not linear."
-        else:
-            why = f"its bootstrap bias interval is limited to {BOOTSTRAP_MAX_POINTS} pairs here."
+        why = f"{pb.note or 'no interval'}." if not pb_usable else "its cusum test finds the relation not linear."
         why_not = " Passing–Bablok was not used: " + why
     dem = next((ln for ln in lines if ln.method in _DEMING_METHODS), None)
     if dem is not None:

@@ -63,7 +63,7 @@ def test_comparison_and_calibration_tables_name_their_units(example_build: Built
     calibrated = _page(example_build.site, "calibration-nitrate-uv")
     readback = calibrated.split('id="h-readback"')[1].split("</thead>")[0]
     assert "Nominal (mg/L N)" in readback
-    assert "Read back (mean) (mg/L N)" in readback
+    assert "Mean read back (mg/L N)" in readback
     assert "Deviation (mg/L N)" in readback
     inverse = calibrated.split('id="h-cal"')[1].split("</section>")[0]
     assert "Response (AU)" in inverse
