@@ -224,7 +224,7 @@ def compute(
         messages.append(Message("note", reading_weight_note(spec)))
     robust_se = None
     if spec.robust:
-        cov = hc3_cov(Xw, fit.resid * sw, np.asarray(infl.leverage), fit.xtx_inv, xtx_root=fit.xtx_root)
+        cov = hc3_cov(Xw, fit.resid * sw, np.asarray(infl.leverage), fit.xtx_inv, xtx_root=fit.xtx_root, q=fit.q)
         robust_se = np.sqrt(np.clip(np.diag(cov), 0, None))
     claims = []
     if spec.claims:

@@ -18,9 +18,10 @@ from nist_reference import Reference, reference
 
 from sitegen import derive
 from sitegen.formula import build_design
+from sitegen.model import Diagnostic
 from sitegen.spec import DatasetSpec
 from sitegen.stats import ext
-from sitegen.stats.checks import vif
+from sitegen.stats.checks import Check, Precise, model_checks, vif
 from sitegen.stats.influence import influence
 from sitegen.stats.ols import OlsFit, fit_ols
 
@@ -35,6 +36,7 @@ DIAGNOSTICS = {
     "curvature": ("reset_f", "reset_p"),
     "lack_of_fit": ("lack_of_fit_f", "lack_of_fit_p"),
     "normality_jarque_bera": ("jarque_bera", "jarque_bera_p"),
+    "normality_shapiro": ("shapiro_w", "shapiro_p"),
 }
 OBSERVATION_COLUMNS = (
     "fitted",
@@ -69,7 +71,7 @@ def program_figures(name: str, kind: str) -> dict[str, Any]:
         if ext.needs_double_double(fit.condition):  # as sitegen.analyze does
             _ESCALATED.add(name)
             return program_figures(name, ext.DOUBLE_DOUBLE)
-        derived = derive.compute(design, fit, DatasetSpec(), None)
+        derived = derive.compute(design, fit, DatasetSpec(robust=True), None)
         infl = influence(fit.q, fit.resid, fit.df_resid)
         out: dict[str, Any] = {
             "coefficients": fit.beta,
@@ -85,7 +87,10 @@ def program_figures(name: str, kind: str) -> dict[str, Any]:
         }
         obs = dict(zip(derived.observations.columns, derived.observations.values, strict=True))
         out |= {c: np.asarray(obs[c], dtype=float) for c in OBSERVATION_COLUMNS}
-        for d in derived.diagnostics:
+        if derived.robust_se is not None:
+            out["hc3_std_errors"] = derived.robust_se
+        published: list[Check | Diagnostic] = [*derived.diagnostics, *_normality_tests(design, fit, infl)]
+        for d in published:
             if d.check in DIAGNOSTICS:
                 stat_key, p_key = DIAGNOSTICS[d.check]
                 out[stat_key], out[p_key] = d.statistic, d.p_value
@@ -94,6 +99,23 @@ def program_figures(name: str, kind: str) -> dict[str, Any]:
             collinearity = next(d for d in derived.diagnostics if d.check == "collinearity")
             out["largest_vif"] = collinearity.statistic
     return out
+
+
+def _normality_tests(design: Any, fit: OlsFit, infl: Any) -> tuple[Check, ...]:
+    """Both normality tests as the checks compute them, before the page shows them as one check
+    (Shapiro–Wilk's figures are also the merged check's; Jarque–Bera's only appear in its text)."""
+    checks = model_checks(
+        design.X,
+        design.y,
+        fit.resid,
+        fit.fitted,
+        terms=fit.terms,
+        has_intercept=fit.has_intercept,
+        infl=infl,
+        alpha=1 - fit.level,
+        precise=Precise(design.X_ext, fit.resid_ext, fit.y_ext - fit.resid_ext, fit.q, fit.xtx_inv, fit.condition),
+    )
+    return tuple(c for c in checks if c.check.startswith("normality_"))
 
 
 def fitted_for(name: str, kind: str) -> OlsFit:

@@ -18,7 +18,13 @@ practice unless named):
 - Durbin–Watson d, and P(D ≤ d) under independent normal errors from the
   eigenvalues of MAM (mpmath's Jacobi ``eigsy``) and Imhof's (1961) inversion
   integral by mpmath's tanh-sinh quadrature at ``DW_DIGITS`` digits;
-- Jarque–Bera from the biased moments (χ²₂ tail exp(−JB/2)).
+- Jarque–Bera from the biased moments (χ²₂ tail exp(−JB/2));
+- Shapiro–Wilk's W and p-value by Royston's algorithm AS R94 (Applied Statistics 44, 1995; the
+  polynomial coefficients as published there, the same ones scipy's ``swilk`` carries) carried out
+  in mpmath: the algorithm is itself an approximation to the exact null distribution, so what this
+  checks is that the program evaluates that published algorithm without losing digits on hard data;
+- HC3 standard errors (MacKinnon & White 1985): the diagonal of
+  (X'X)⁻¹ X' diag(eᵢ²/(1 − hᵢ)²) X (X'X)⁻¹ formed directly.
 """
 
 from __future__ import annotations
@@ -93,6 +99,70 @@ def _f_sf(f: Any, d1: int, d2: int) -> Any:
 
 def _chi2_sf(x: Any, k: int) -> Any:
     return mp.gammainc(mp.mpf(k) / 2, x / 2, mp.inf, regularized=True)
+
+
+def _hc3(X: list[list[Any]], e: list[Any], h: list[Any], G_inv: Any) -> list[Any]:
+    """HC3 standard errors: √diag((X'X)⁻¹ X'ΩX (X'X)⁻¹), Ω = diag(eᵢ²/(1 − hᵢ)²)."""
+    n, p = len(X), len(X[0])
+    meat = mp.matrix(p, p)
+    for j in range(p):
+        for k in range(j, p):
+            meat[j, k] = meat[k, j] = mp.fsum(X[i][j] * X[i][k] * (e[i] / (1 - h[i])) ** 2 for i in range(n))
+    cov = G_inv * meat * G_inv
+    return [mp.sqrt(cov[j, j]) for j in range(p)]
+
+
+# Royston (1995), AS R94: polynomial coefficients (lowest power first), as published.
+_SW_C1 = ("0.0", "0.221157", "-0.147981", "-2.071190", "4.434685", "-2.706056")
+_SW_C2 = ("0.0", "0.042981", "-0.293762", "-1.752461", "5.682633", "-3.582633")
+_SW_C3 = ("0.5440", "-0.39978", "0.025054", "-6.714e-4")
+_SW_C4 = ("1.3822", "-0.77857", "0.062767", "-0.0020322")
+_SW_C5 = ("-1.5861", "-0.31082", "-0.083751", "0.0038915")
+_SW_C6 = ("-0.4803", "-0.082676", "0.0030302")
+_SW_G = ("-2.273", "0.459")
+
+
+def _poly(coefs: tuple[str, ...], x: Any) -> Any:
+    return mp.fsum(mp.mpf(c) * x**k for k, c in enumerate(coefs))
+
+
+def shapiro_reference(values: list[Any]) -> tuple[Any, Any]:
+    """Shapiro–Wilk's (W, p) by AS R94 in mpmath at the current precision (3 ≤ n ≤ 5,000)."""
+    x = sorted(values)
+    n = len(x)
+    mean = mp.fsum(x) / n
+    ssq = mp.fsum((v - mean) ** 2 for v in x)
+    if n == 3:
+        a = [mp.sqrt(mp.mpf(1) / 2)]
+    else:
+        m = [mp.sqrt(2) * mp.erfinv(2 * ((i - mp.mpf(3) / 8) / (n + mp.mpf(1) / 4)) - 1) for i in range(1, n + 1)]
+        summ2 = mp.fsum(v * v for v in m)
+        ssumm2 = mp.sqrt(summ2)
+        rsn = 1 / mp.sqrt(n)
+        low = [-v for v in m[: n // 2]]  # positive
+        a = [mp.mpf(0)] * (n // 2)
+        a[0] = _poly(_SW_C1, rsn) + low[0] / ssumm2
+        if n > 5:
+            a[1] = low[1] / ssumm2 + _poly(_SW_C2, rsn)
+            fac = mp.sqrt((summ2 - 2 * low[0] ** 2 - 2 * low[1] ** 2) / (1 - 2 * a[0] ** 2 - 2 * a[1] ** 2))
+            a[2:] = [v / fac for v in low[2:]]
+        else:
+            fac = mp.sqrt((summ2 - 2 * low[0] ** 2) / (1 - 2 * a[0] ** 2))
+            a[1:] = [v / fac for v in low[1:]]
+    num = mp.fsum(a[i] * (x[n - 1 - i] - x[i]) for i in range(n // 2))
+    w = min(num * num / ssq, mp.mpf(1))
+    if n == 3:
+        return w, min(max(6 / mp.pi * (mp.asin(mp.sqrt(w)) - mp.pi / 3), 0), 1)
+    w1 = 1 - w
+    if n <= 11:
+        gamma = _poly(_SW_G, mp.mpf(n))
+        y = -mp.log(gamma - mp.log(w1))
+        mu, sd = _poly(_SW_C3, mp.mpf(n)), mp.exp(_poly(_SW_C4, mp.mpf(n)))
+    else:
+        ln = mp.log(n)
+        y = mp.log(w1)
+        mu, sd = _poly(_SW_C5, ln), mp.exp(_poly(_SW_C6, ln))
+    return w, mp.erfc((y - mu) / sd / mp.sqrt(2)) / 2
 
 
 def imhof_below_zero(mu: list[Any]) -> Any:
@@ -181,6 +251,7 @@ def reference(name: str) -> Reference:
             out.rows["pred_low"] = [float(f - m) for f, m in zip(fitted, half_pred, strict=True)]
             out.rows["pred_high"] = [float(f + m) for f, m in zip(fitted, half_pred, strict=True)]
             _residual_tests(out, X, y, e, fitted, raw, intercept=intercept, ssr=ssr)
+            out.rows["hc3_std_errors"] = [float(v) for v in _hc3(X, e, h, G_inv)]
         _collinearity(out, X, intercept=intercept)
     assert case.df_residual == df
     return out
@@ -241,6 +312,9 @@ def _residual_tests(
     jb = n / mp.mpf(6) * (skew**2 + (kurt - 3) ** 2 / 4)
     out.scalars["jarque_bera"] = float(jb)
     out.scalars["jarque_bera_p"] = float(mp.exp(-jb / 2))
+    w, w_p = shapiro_reference(e)
+    out.scalars["shapiro_w"] = float(w)
+    out.scalars["shapiro_p"] = float(w_p)
     d, prob = dw_reference(X, e)
     out.scalars["durbin_watson"] = float(d)
     out.scalars["durbin_watson_p"] = float(prob)
