@@ -20,9 +20,9 @@ import json
 import os
 import time
 from collections.abc import Callable, Sequence
-from dataclasses import astuple, dataclass, field
+from dataclasses import astuple, dataclass, field, replace
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING
 
 from sitegen import __version__
 from sitegen.confine import files_under, read_inside
@@ -32,12 +32,16 @@ from sitegen.errors import INTERNAL_ERROR_WORDS, ConfigError, OutsideFolderError
 from sitegen.jsontext import json_text
 from sitegen.publish import build_folder, check_output_folder, copy_new, swap_in
 from sitegen.records import (
+    NO_INPUTS,
+    NO_PREVIOUS,
+    BuildRecord,
+    DatasetRecord,
+    FileStat,
+    InputRecord,
     Measured,
     PreviousBuild,
     file_stat,
-    files_by_folder,
     fit_json_intact,
-    input_stat,
     manifest,
     measure,
     nothing_changed,
@@ -175,10 +179,10 @@ def run_build(
     shared = _shared_inputs(config, library_versions(LIBRARIES))
     site_key = _site_key(config, theme)
     with build_folder(out_dir) as work:
-        prev = read_previous(out_dir) if not options.refit else PreviousBuild(None, {}, "", {})
-        measured = {s.slug: measure(s, shared, prev.entries.get(s.slug, {}).get("stat")) for s in sources}
-        if nothing_changed(prev, sources, measured, site_key):
-            outcomes = _touch_build_json(out_dir, prev, measured)
+        prev = read_previous(out_dir) if not options.refit else NO_PREVIOUS
+        measured = {s.slug: measure(s, shared, _recorded_inputs(prev, s.slug)) for s in sources}
+        if prev.record is not None and nothing_changed(prev, sources, measured, site_key):
+            outcomes = _touch_build_json(out_dir, prev, prev.record, measured)
             return BuildSummary(out_dir, outcomes, 0, len(sources), time.perf_counter() - started, tuple(warnings))
         if theme.sandboxed:  # a user's templates: a syntax error stops the build before the spare is touched
             from sitegen.report.pages import check_theme  # noqa: PLC0415
@@ -260,33 +264,29 @@ def _stored_report(folder: Path, slug: str, csv_sha: str) -> FitReport | None:
     return report
 
 
-def _touch_build_json(out_dir: Path, prev: PreviousBuild, measured: dict[str, Measured]) -> tuple[Outcome, ...]:
-    """Nothing changed: record this build in build.json (atomically) and leave the rest."""
-    body = dict(prev.body)
-    body["built_at"] = _now()
-    body["datasets"] = [
-        dict(e, reused=True, stat=m.record if (m := measured.get(e.get("dataset", ""))) else {})
-        for e in body.get("datasets", [])
-    ]
+def _recorded_inputs(prev: PreviousBuild, slug: str) -> InputRecord:
+    entry = prev.entries.get(slug)
+    return entry.inputs if entry is not None else NO_INPUTS
+
+
+def _touch_build_json(
+    out_dir: Path, prev: PreviousBuild, then: BuildRecord, measured: dict[str, Measured]
+) -> tuple[Outcome, ...]:
+    """Nothing changed: record this build in build.json (atomically) and leave the rest (``then`` is the
+    previous build's record)."""
+    datasets = tuple(replace(e, reused=True, inputs=measured[e.dataset].inputs) for e in then.datasets)
+    record = replace(then, built_at=_now(), datasets=datasets)
     tmp = out_dir / f".build.json.{os.getpid()}.tmp"
-    tmp.write_text(retimed(prev, body) or json_text(body), encoding="utf-8")
+    tmp.write_text(retimed(prev, record) or json_text(record.as_json()), encoding="utf-8")
     tmp.replace(out_dir / "build.json")
     return tuple(
-        Outcome(
-            e["dataset"],
-            e.get("source", ""),
-            e.get("status", "ok"),
-            e.get("message", ""),
-            str((e.get("index") or {}).get("requirements", "none")),
-            tuple(str(w) for w in (e.get("index") or {}).get("sidecar_warnings", ())),
-        )
-        for e in body["datasets"]
+        Outcome(e.dataset, e.source, e.status, e.message, e.requirements, e.sidecar_warnings) for e in datasets
     )
 
 
-def _sizes(manifest: dict[str, Any]) -> dict[str, Any]:
-    """The sizes of a manifest's files (a build.json of an earlier version recorded sizes alone)."""
-    return {name: stat[0] if isinstance(stat, list) and stat else stat for name, stat in manifest.items()}
+def _sizes(files: dict[str, FileStat]) -> dict[str, int]:
+    """The sizes of a manifest's files."""
+    return {name: stat.size for name, stat in files.items()}
 
 
 class _Build:
@@ -311,50 +311,50 @@ class _Build:
         self.published = published  # the output folder
         self.config, self.site_key, self.run, self.progress = config, site_key, run, progress
         self.fit_shas: dict[str, str] = {}  # the known sha256 of each dataset's fit.json (checked or just written)
-        self.then_files = files_by_folder(prev.body)  # the previous manifest by dataset folder
+        # the previous manifest by dataset folder
+        self.then_files = prev.record.files_by_folder() if prev.record is not None else {}
         self.kept: set[str] = set()  # reused datasets whose folder in the spare was already right
         self.checked: set[str] = set()  # reused datasets whose published folder was checked file by file
         self.titles: dict[str, str] = {}  # expected titles of the neighbours of datasets being fitted
         self.transient: set[str] = set()  # datasets whose failure was transient (never kept: see _failure_kept)
         self.built_at = _now()
 
-    def _stored_light(self, entry: dict[str, Any], old: Path, slug: str, record: dict[str, Any]) -> FitReport | None:
+    def _stored_light(self, entry: DatasetRecord, old: Path, slug: str, record: DatasetRecord) -> FitReport | None:
         """The stored result, light: from build.json when its fit.json is unchanged, else parsed from fit.json.
 
         ``record`` is the build.json entry that recorded ``old/fit.json`` (its sha256 and stat).
         """
         from sitegen.report.files import report_from_index_entry  # noqa: PLC0415
 
-        index = entry.get("index")
-        if entry.get("fit_sha256"):
+        if entry.fit_sha256:
             if not fit_json_intact(old / "fit.json", record):
                 return None  # changed since the build that wrote it: fit again rather than trust it
-            if isinstance(index, dict) and index.get("status") != "error":
+            if entry.index.get("status") != "error":
                 try:
-                    report = report_from_index_entry(index, str(entry.get("input_sha256", "")))
-                    self.fit_shas[slug] = str(entry["fit_sha256"])
+                    report = report_from_index_entry(dict(entry.index), entry.input_sha256)
+                    self.fit_shas[slug] = entry.fit_sha256
                     return report
                 except (KeyError, TypeError, ValueError):
                     pass
         return _stored_report(old, slug, self.measured[slug].input_sha256)
 
-    def _spare_holds(self, slug: str, entry: dict[str, Any]) -> bool:
+    def _spare_holds(self, slug: str, entry: DatasetRecord) -> bool:
         """The spare's folder for ``slug`` holds the same result as the published one, whole."""
         mine = self.spare.entries.get(slug)
         return (
             mine is not None
-            and bool(entry.get("fit_sha256"))
-            and mine.get("fingerprint") == entry.get("fingerprint")
-            and mine.get("fit_sha256") == entry.get("fit_sha256")
+            and bool(entry.fit_sha256)
+            and mine.fingerprint == entry.fingerprint
+            and mine.fit_sha256 == entry.fit_sha256
             and self.spare.recorded.get(slug) == self.spare.folders.get(slug)
         )
 
     def _reuse(self, src: DatasetSource) -> tuple[FitReport, tuple[str, ...]] | None:
         entry = self.prev.entries.get(src.slug)
         fp = self.measured[src.slug].fingerprint
-        if self.prev.site is None or entry is None or entry.get("fingerprint") != fp or not fp:
+        if self.prev.site is None or entry is None or entry.fingerprint != fp or not fp:
             return None
-        if entry.get("status") == "error" and entry.get("failure_kept") is not True:
+        if not entry.failure_reusable:
             return None  # a failure is reused only when the input itself decided it
         new = self.work / "datasets" / src.slug
         if self._spare_holds(src.slug, entry):
@@ -470,13 +470,13 @@ class _Build:
         done: dict[str, tuple[FitReport, tuple[str, ...]]],
         refitted: set[str],
         paged: dict[str, tuple[Neighbours | None, tuple[str, ...]]],
-    ) -> tuple[list[dict[str, Any]], list[PageJob], dict[str, tuple[str, ...]]]:
+    ) -> tuple[list[DatasetRecord], list[PageJob], dict[str, tuple[str, ...]]]:
         """Which pages to keep, copy or render; their build.json entries; the names of pages already in place."""
         from sitegen.jobs import PageJob  # noqa: PLC0415
         from sitegen.report.dataset_view import Neighbour  # noqa: PLC0415
         from sitegen.report.files import index_entry, summary_row  # noqa: PLC0415
 
-        entries: list[dict[str, Any]] = []
+        entries: list[DatasetRecord] = []
         jobs: list[PageJob] = []
         in_place: dict[str, tuple[str, ...]] = {}
         for i, (src, report) in enumerate(zip(self.sources, reports, strict=True)):
@@ -487,17 +487,18 @@ class _Build:
             around = [[n.dataset, n.title] if n else None for n in (prev_r, next_r)]
             key = sha256_hex(json.dumps([fp, self.site_key, list(files), *around, report.status]).encode())
             target = self.work / "datasets" / src.slug / "index.html"
-            old_entry = self.prev.entries.get(src.slug, {})
+            old_entry = self.prev.entries.get(src.slug)
             old_page = self.prev.site / "datasets" / src.slug / "index.html" if self.prev.site else None
             written, written_files = paged.get(src.slug, (None, ()))
             if written is not None and (written.prev, written.next) == (prev_r, next_r):
                 in_place[src.slug] = written_files  # written by the worker that fitted it, with the right neighbours
-            elif src.slug in self.kept and self.spare.entries[src.slug].get("page_key") == key:
+            elif src.slug in self.kept and self.spare.entries[src.slug].page_key == key:
                 in_place[src.slug] = tuple(n for n in self.spare.folders[src.slug] if not is_data_file(n))
             elif (
                 src.slug in self.checked  # its published folder was found as recorded
                 and old_page is not None
-                and old_entry.get("page_key") == key
+                and old_entry is not None
+                and old_entry.page_key == key
                 and self._copy_page(old_page.parent, target.parent)
             ):
                 in_place[src.slug] = self._page_names(src.slug)
@@ -505,33 +506,31 @@ class _Build:
                 full = report if report.status == "error" else None  # else read from its fit.json
                 jobs.append(PageJob(ctx, full, files, prev_r, next_r, target))
             entries.append(
-                {
-                    "dataset": src.slug,
-                    "source": src.relpath,
-                    "input_sha256": self.measured[src.slug].input_sha256,
-                    "fingerprint": fp,
-                    "page_key": key,
-                    "reused": src.slug not in refitted,
-                    "status": report.status,
-                    "message": summary_row(report)["message"],
-                    "index": index_entry(report),
-                    "stat": self.measured[src.slug].record,
-                    "failure_kept": self._failure_kept(src, done[src.slug][0]),
-                }
+                DatasetRecord(
+                    dataset=src.slug,
+                    source=src.relpath,
+                    input_sha256=self.measured[src.slug].input_sha256,
+                    fingerprint=fp,
+                    page_key=key,
+                    reused=src.slug not in refitted,
+                    status=report.status,
+                    message=str(summary_row(report)["message"]),
+                    index=index_entry(report),
+                    inputs=self.measured[src.slug].inputs,
+                    failure_kept=self._failure_kept(src, done[src.slug][0]),
+                )
             )
         return entries, jobs, in_place
 
     def _failure_kept(self, src: DatasetSource, report: FitReport) -> bool:
         """The dataset failed because of its input, read as the fingerprint saw it: no input file changed
         while this build ran (a file away, garbled or too large for a moment is tried again next time)."""
-        if report.status != "error" or not _failure_from_input(report, self.measured[src.slug].input_sha256):
+        measured = self.measured[src.slug]
+        if report.status != "error" or not _failure_from_input(report, measured.input_sha256):
             return False
         if src.slug in self.transient:  # a read error or a lost cluster worker says nothing about the input
             return False
-        then = self.measured[src.slug]
-        csv_then, sidecar_then = then.csv_stat, then.sidecar_stat
-        sidecar_now = input_stat(src.sidecar_path) if src.sidecar_path is not None else None
-        return csv_then is not None and input_stat(src.csv_path) == csv_then and sidecar_now == sidecar_then
+        return measured.unchanged_since(src)
 
     def _page_names(self, slug: str) -> tuple[str, ...]:
         names = ["index.html"]
@@ -594,27 +593,27 @@ class _Build:
             self.titles[src.slug] = title
         return Neighbour(src.slug, self.titles[src.slug])
 
-    def _write_build_json(self, entries: list[dict[str, Any]]) -> None:
+    def _write_build_json(self, entries: list[DatasetRecord]) -> None:
         import platform  # noqa: PLC0415
 
-        for entry in entries:  # lets a rebuild trust a stored result without parsing it (and keep it in place)
-            stored = self.work / "datasets" / entry["dataset"] / "fit.json"
-            known = self.fit_shas.get(entry["dataset"])
-            entry["fit_sha256"] = known or file_sha256(stored)
-            entry["fit_stat"] = file_stat(stored)
-        body = {
-            "generator": "sitegen",
-            "sitegen_version": __version__,
-            "libraries": library_versions(LIBRARIES) | library_versions(RENDER_LIBRARIES),
-            "python": platform.python_version(),
-            "built_at": self.built_at,
-            "site_key": self.site_key,
-            "title": self.config.title,
-            "mail_budget_megabytes": self.config.mail_budget_megabytes,
-            "datasets": entries,
-            "files": manifest(self.work),  # written last: every other file of the site is in place
-        }
-        (self.work / "build.json").write_text(json_text(body), encoding="utf-8")
+        def with_fit_json(entry: DatasetRecord) -> DatasetRecord:
+            """lets a rebuild trust a stored result without parsing it (and keep it in place)"""
+            stored = self.work / "datasets" / entry.dataset / "fit.json"
+            sha = self.fit_shas.get(entry.dataset) or file_sha256(stored)
+            return replace(entry, fit_sha256=sha, fit_stat=file_stat(stored))
+
+        record = BuildRecord(
+            sitegen_version=__version__,
+            libraries=library_versions(LIBRARIES) | library_versions(RENDER_LIBRARIES),
+            python=platform.python_version(),
+            built_at=self.built_at,
+            site_key=self.site_key,
+            title=self.config.title,
+            mail_budget_megabytes=self.config.mail_budget_megabytes,
+            datasets=tuple(with_fit_json(e) for e in entries),
+            files=manifest(self.work),  # written last: every other file of the site is in place
+        )
+        (self.work / "build.json").write_text(json_text(record.as_json()), encoding="utf-8")
 
 
 def sidecar_warnings(report: FitReport) -> tuple[str, ...]:
@@ -623,6 +622,4 @@ def sidecar_warnings(report: FitReport) -> tuple[str, ...]:
 
 
 def _with_sha(report: FitReport, sha: str) -> FitReport:
-    from dataclasses import replace  # noqa: PLC0415
-
     return report if report.input_sha256 or not sha else replace(report, input_sha256=sha)

@@ -10,6 +10,7 @@ declared requirement is not met (1 still wins when a dataset failed).
 from __future__ import annotations
 
 import argparse
+import contextlib
 import os
 import sys
 from collections.abc import Callable, Sequence
@@ -266,7 +267,6 @@ def _watch(args: argparse.Namespace, out: _Printer) -> int:
 
 
 def _pack(args: argparse.Namespace, out: _Printer) -> int:
-    import json  # noqa: PLC0415
 
     from sitegen.publish import pack  # noqa: PLC0415
 
@@ -279,11 +279,10 @@ def _pack(args: argparse.Namespace, out: _Printer) -> int:
     budget = args.budget_mb
     if budget is None:
         budget = DEFAULT_MAIL_BUDGET_MB
-        try:
-            meta = json.loads((args.site_dir / "build.json").read_text(encoding="utf-8"))
-            budget = float(meta.get("mail_budget_megabytes", budget))
-        except (OSError, ValueError, TypeError):
-            pass
+        from sitegen.records import read_record  # noqa: PLC0415
+
+        with contextlib.suppress(OSError, ValueError):
+            budget = read_record(args.site_dir / "build.json")[0].mail_budget_megabytes
     out.info(f"Packed {args.site_dir} into {args.target}: {size / 1e6:.2f} MB")
     if size > budget * 1e6:
         out.warn(

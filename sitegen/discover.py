@@ -13,6 +13,7 @@ from __future__ import annotations
 
 import os
 import re
+import stat
 from collections.abc import Sequence
 from dataclasses import dataclass
 from fnmatch import fnmatchcase
@@ -108,21 +109,23 @@ def printable_path(rel: str) -> str:
     return rel
 
 
-def _isfile(path: str) -> bool:
-    # os.path rather than pathlib: this runs for every file of the data folder on every build,
-    # including the ones with nothing to do.
-    try:
-        return os.path.isfile(path)  # noqa: PTH113
-    except (OSError, ValueError):  # unreadable folder entry, e.g. no permission
-        return False
-
-
-def _readable(path: str, root: str) -> bool:
+def _readable(name: str, folder: int, path: str, root: str) -> bool:
     """A plain file to read, or a link that leads out of the data folder (listed, so that its dataset gets an
-    error page saying it is refused, whatever it leads to: a file, a device such as /dev/zero, nothing)."""
-    if _isfile(path):
-        return True
-    return os.path.islink(path) and not is_inside(path, root)  # noqa: PTH114
+    error page saying it is refused, whatever it leads to: a file, a device such as /dev/zero, nothing).
+
+    Looked at through its folder's descriptor, so that a file whose path is longer than the system allows is
+    still found (its dataset then fails alone, with a message saying so).
+    """
+    try:
+        if stat.S_ISREG(os.stat(name, dir_fd=folder).st_mode):
+            return True
+    except (OSError, ValueError):  # a link to nothing or out of reach, no permission, …
+        pass
+    try:
+        link = stat.S_ISLNK(os.stat(name, dir_fd=folder, follow_symlinks=False).st_mode)
+    except (OSError, ValueError):
+        return False
+    return link and not is_inside(path, root)
 
 
 def discover(data_dir: Path, ignore: Sequence[str] = ()) -> tuple[DatasetSource, ...]:
@@ -130,7 +133,9 @@ def discover(data_dir: Path, ignore: Sequence[str] = ()) -> tuple[DatasetSource,
     found: list[str] = []
     sidecars: set[str] = set()
     root = str(data_dir)
-    for dirpath, dirnames, filenames in os.walk(root, followlinks=False):
+    # os.fwalk rather than os.walk: every folder is opened relative to the one above it, so folders deeper than
+    # the longest path the system allows are listed too (and it is faster: no path is looked up twice).
+    for dirpath, dirnames, filenames, folder in os.fwalk(root, follow_symlinks=False):
         rel_dir = os.path.relpath(dirpath, root)
         prefix = "" if rel_dir == "." else Path(rel_dir).as_posix() + "/"
         dirnames[:] = sorted(d for d in dirnames if not _hidden(d) and not (ignore and ignored(prefix + d, ignore)))
@@ -140,11 +145,11 @@ def discover(data_dir: Path, ignore: Sequence[str] = ()) -> tuple[DatasetSource,
                 continue
             if ignore and ignored(prefix + name, ignore):
                 continue
-            if not _readable(os.path.join(dirpath, name), root):  # noqa: PTH118 - broken link, fifo, link loop, …
+            if not _readable(name, folder, os.path.join(dirpath, name), root):  # noqa: PTH118 - fifo, link loop, …
                 continue
             found.append(prefix + name)
             toml = name[: -len(".csv")] + ".toml"
-            if toml in names and _readable(os.path.join(dirpath, toml), root):  # noqa: PTH118
+            if toml in names and _readable(toml, folder, os.path.join(dirpath, toml), root):  # noqa: PTH118
                 sidecars.add(prefix + name)
     slugs = assign_slugs(found)
     sources = []

@@ -307,14 +307,13 @@ def folder_name(site: Path) -> str:
 
     Accents are folded (``Qualité`` → ``qualite``); every run of other characters becomes ``-``.
     """
-    import json  # noqa: PLC0415
     import unicodedata  # noqa: PLC0415
 
+    from sitegen.records import read_record  # noqa: PLC0415 - records reads the marker through this module
+
     try:
-        title = json.loads((site / "build.json").read_text(encoding="utf-8")).get("title")
-    except (OSError, ValueError, AttributeError):
-        title = None
-    if not isinstance(title, str):
+        title = read_record(site / "build.json")[0].title
+    except (OSError, ValueError):
         return "site"
     folded = unicodedata.normalize("NFKD", title).encode("ascii", "ignore").decode("ascii")
     slug = re.sub(r"[^a-z0-9]+", "-", folded.lower()).strip("-")[:80].strip("-")

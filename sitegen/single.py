@@ -70,10 +70,11 @@ def _read(site: Path, rel: str) -> str:
 
 
 def _dataset_slugs(site: Path) -> list[str]:
+    from sitegen.records import BuildRecord  # noqa: PLC0415
+
     try:
-        body = json.loads(_read(site, "build.json"))
-        return [str(e["dataset"]) for e in body["datasets"]]
-    except (OSError, ValueError, KeyError, TypeError) as exc:
+        return [e.dataset for e in BuildRecord.from_json(json.loads(_read(site, "build.json"))).datasets]
+    except (OSError, ValueError) as exc:
         raise PackError(f"{site} has no readable build.json", hint="build the site again") from exc
 
 

@@ -9,20 +9,20 @@ from __future__ import annotations
 
 import contextlib
 import os
+from collections.abc import Mapping
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
 
-from sitegen.records import files_by_folder, read_previous
+from sitegen.records import DatasetRecord, FileStat, read_previous
 
 
 @dataclass(frozen=True, slots=True)
 class Spare:
     """The build folder as the build before the previous one left it (see :mod:`sitegen.publish`)."""
 
-    entries: dict[str, dict[str, Any]]  # its build.json's datasets when it may be trusted, else empty
-    recorded: dict[str, dict[str, Any]]  # its build.json's file manifest by dataset folder
-    folders: dict[str, dict[str, list[int]]]  # what its dataset folders hold now: name -> [size, times, inode]
+    entries: Mapping[str, DatasetRecord]  # its build.json's datasets when it may be trusted, else empty
+    recorded: dict[str, dict[str, FileStat]]  # its build.json's file manifest by dataset folder
+    folders: dict[str, dict[str, FileStat]]  # what its dataset folders hold now, by file name
 
 
 def open_spare(work: Path, *, trusted: bool) -> Spare:
@@ -34,13 +34,14 @@ def open_spare(work: Path, *, trusted: bool) -> Spare:
     replaced by a new one, so whoever still reads a file of an earlier site keeps reading it whole,
     and nothing written here can change a file elsewhere (a ``cp -al`` backup, say).
     """
-    entries: dict[str, dict[str, Any]] = {}
-    recorded: dict[str, dict[str, Any]] = {}
+    entries: Mapping[str, DatasetRecord] = {}
+    recorded: dict[str, dict[str, FileStat]] = {}
     if trusted:
         spare = read_previous(work)
-        entries, recorded = spare.entries, files_by_folder(spare.body)
+        if spare.record is not None:
+            entries, recorded = spare.entries, spare.record.files_by_folder()
     remove(work / "build.json")
-    folders: dict[str, dict[str, list[int]]] = {}
+    folders: dict[str, dict[str, FileStat]] = {}
     with os.scandir(work) as top:
         for entry in top:
             if entry.name == "datasets" and entry.is_dir(follow_symlinks=False):
@@ -60,10 +61,10 @@ def open_spare(work: Path, *, trusted: bool) -> Spare:
 _KEEP_AT_TOP = (".sitegen", ".owner")  # the marker and the running build's owner file (publish.py)
 
 
-def _own_files(folder: str, *, nested: bool) -> dict[str, list[int]]:
+def _own_files(folder: str, *, nested: bool) -> dict[str, FileStat]:
     """Size, time and inode of the plain, singly linked files in ``folder``; removes anything else
     (sub-folders unless ``nested``)."""
-    out: dict[str, list[int]] = {}
+    out: dict[str, FileStat] = {}
     with os.scandir(folder) as entries:
         for entry in entries:
             if entry.is_dir(follow_symlinks=False):
@@ -76,7 +77,7 @@ def _own_files(folder: str, *, nested: bool) -> dict[str, list[int]]:
             if st is None or st.st_nlink > 1:
                 remove(Path(entry.path))
             else:
-                out[entry.name] = [st.st_size, st.st_mtime_ns, st.st_ino, st.st_ctime_ns]
+                out[entry.name] = FileStat(st.st_size, st.st_mtime_ns, st.st_ino, st.st_ctime_ns)
     return out
 
 

@@ -572,6 +572,7 @@ class Limits:
     max_columns: int = 200
     max_fit_seconds: float = 600.0  # processor time one dataset's fit may take (3x that by the clock)
     max_fit_megabytes: float = 6000.0  # memory one dataset's fit may take beyond what its worker holds
+    max_page_seconds: float = 60.0  # time (by the clock) one page of a user theme may take to render
 
 
 @dataclass(frozen=True, slots=True)
@@ -600,7 +601,7 @@ _SITE_KEYS = (
     "limits",
     "ignore",
 )
-_LIMIT_KEYS = ("max_megabytes", "max_rows", "max_columns", "max_fit_seconds", "max_fit_megabytes")
+_LIMIT_KEYS = ("max_megabytes", "max_rows", "max_columns", "max_fit_seconds", "max_fit_megabytes", "max_page_seconds")
 
 
 def _site_error(msg: str) -> SiteConfigError:
@@ -709,7 +710,7 @@ def _read_limits(table: object) -> Limits:
             if isinstance(v, bool) or not isinstance(v, int) or v < 1:
                 raise _site_error(f"[limits] key '{key}' must be a positive whole number; got {_show(v)}")
             out[key] = v
-    for key in ("max_megabytes", "max_fit_seconds", "max_fit_megabytes"):
+    for key in ("max_megabytes", "max_fit_seconds", "max_fit_megabytes", "max_page_seconds"):
         if key in table:
             try:
                 out[key] = _positive(table[key])

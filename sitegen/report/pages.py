@@ -2,10 +2,14 @@
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import re
-from collections.abc import Callable, Sequence
+import signal
+import threading
+import time
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass
 from functools import cache
 from pathlib import Path
@@ -147,10 +151,56 @@ _MAX_POWER_BITS = 4096
 _MAX_REPEAT = 1_000_000
 
 
+class _Overtime(Exception):  # noqa: N818 - not an error of the template's text: its rendering ran out of time
+    """A user template rendered past its time bound (raised from the clock's signal, or a sandboxed call)."""
+
+
+class _Deadline(threading.local):
+    at = float("inf")  # monotonic seconds by which the page being rendered in this thread must be done
+
+
+_DEADLINE = _Deadline()
+
+
+@contextlib.contextmanager
+def _time_bound(seconds: float | None) -> Iterator[None]:
+    """End the rendering of a page after ``seconds`` by the clock (None: no bound).
+
+    In the main thread a repeating timer signal interrupts any loop, however tight (a template's nested loops
+    call nothing the sandbox sees); in another thread the sandbox checks the deadline at every call it makes.
+    """
+    if seconds is None:
+        yield
+        return
+    _DEADLINE.at = time.monotonic() + seconds
+    timer = threading.current_thread() is threading.main_thread() and hasattr(signal, "setitimer")
+    before = None
+    if timer:
+
+        def alarm(_signum: int, _frame: object) -> None:
+            raise _Overtime
+
+        before = signal.signal(signal.SIGALRM, alarm)
+        signal.setitimer(signal.ITIMER_REAL, seconds, 0.1)  # and again every 0.1 s, should one be swallowed
+    try:
+        yield
+    finally:
+        _DEADLINE.at = float("inf")
+        if timer:
+            signal.setitimer(signal.ITIMER_REAL, 0)
+            signal.signal(signal.SIGALRM, before)
+
+
 class _Sandbox(SandboxedEnvironment):
-    """Jinja2's sandbox, with ``**`` and ``*`` bounded so that a template cannot build huge numbers or strings."""
+    """Jinja2's sandbox, with ``**`` and ``*`` bounded so that a template cannot build huge numbers or strings,
+    and every call checked against the page's time bound (:func:`_time_bound`)."""
 
     intercepted_binops = frozenset({"**", "*"})
+
+    def call(self, __context: jinja2.runtime.Context, __obj: Any, *args: Any, **kwargs: Any) -> Any:
+        if time.monotonic() > _DEADLINE.at:
+            raise _Overtime
+        return super().call(__context, __obj, *args, **kwargs)
 
     def call_binop(
         self,
@@ -264,19 +314,18 @@ def render_dataset(
     """The page of one dataset: ``dataset.html`` with its sections (report/sections.py) filled from the view."""
     chart_specs = charts.dataset_charts(r) if r.status != "error" else {}
     v = view(r, files, chart_specs, prev, nxt)
-    return _render(environment(ctx.theme), "dataset.html", **_common(ctx, "../../", "dataset"), v=v, r=r)
+    return _render(ctx, "dataset.html", **_common(ctx, "../../", "dataset"), v=v, r=r)
 
 
 def render_index(ctx: SiteContext, reports: Sequence[FitReport], tags: Sequence[dict[str, Any]]) -> str:
     """The comparison index of every dataset."""
-    env = environment(ctx.theme)
     sections: dict[str, list[FitReport]] = {}
     for r in reports:
         sections.setdefault(r.section, []).append(r)
     counts = {s: sum(1 for r in reports if r.status == s) for s in ("ok", "warn", "error")}
     levels = sorted({r.level for r in reports})
     return _render(
-        env,
+        ctx,
         "index.html",
         **_common(ctx, "", "index"),
         reports=reports,
@@ -291,7 +340,7 @@ def render_index(ctx: SiteContext, reports: Sequence[FitReport], tags: Sequence[
 
 def render_page(ctx: SiteContext, template: str, page: str, **values: Any) -> str:
     """Any other top-level page (e.g. the change report)."""
-    return _render(environment(ctx.theme), template, **_common(ctx, "", page), **values)
+    return _render(ctx, template, **_common(ctx, "", page), **values)
 
 
 def _with_policy(html: str) -> str:
@@ -315,10 +364,22 @@ def _template_line(exc: BaseException, env: jinja2.Environment) -> str:
     return found
 
 
-def _render(env: jinja2.Environment, name: str, **values: Any) -> str:
-    """Render a theme template; Jinja's errors (a user theme's typo) become a message naming file and line."""
+def _render(ctx: SiteContext, name: str, **values: Any) -> str:
+    """Render a theme template; Jinja's errors (a user theme's typo) become a message naming file and line, and
+    a user theme's page is held to ``[limits] max_page_seconds``."""
+    env = environment(ctx.theme)
+    seconds = ctx.config.limits.max_page_seconds if ctx.theme.sandboxed else None
     try:
-        return _with_policy(env.get_template(name).render(**values))
+        with _time_bound(seconds):
+            html = env.get_template(name).render(**values)
+        return _with_policy(html)
+    except _Overtime as exc:
+        where = _template_line(exc, env) or f"{name} (or a template it uses)"
+        raise SiteConfigError(
+            f"theme template {where} was stopped after {seconds:g} s, the time bound for rendering one page "
+            "([limits] max_page_seconds in site.toml); nothing was written",
+            hint="look for loops in the template that run far longer than the page needs",
+        ) from None
     except jinja2.TemplateSyntaxError as exc:
         raise _syntax_error(exc, name) from exc
     except jinja2.TemplateError as exc:
