@@ -18,7 +18,7 @@ import numpy as np
 from numpy.typing import NDArray
 
 from sitegen.errors import DatasetError, FitError
-from sitegen.formula import Design, design_for
+from sitegen.formula import Design, design_for, plain_column
 from sitegen.model import (
     AltLine,
     Calibration,
@@ -43,14 +43,21 @@ from sitegen.purposes import (
 )
 from sitegen.requirements import Evidence
 from sitegen.spec import DatasetSpec
-from sitegen.stats.calibration import detection_limits, inverse_predict
+from sitegen.stats.calibration import DetectionLimits as DetectionLimitsFound
+from sitegen.stats.calibration import (
+    InversePrediction,
+    ReadingVariance,
+    detection_limits,
+    inverse_predict,
+    inverse_predict_wls,
+    weighted_detection_limits,
+)
 from sitegen.stats.checks import Precise, model_checks
 from sitegen.stats.claims import check_claims
 from sitegen.stats.groups import compare_groups
 from sitegen.stats.influence import Influence, PointFlags, flag_points, influence
 from sitegen.stats.lines import alternative_lines, explain_lines
 from sitegen.stats.ols import OlsFit, bands, row_bands
-from sitegen.stats.readback import inverse_predict_weighted
 from sitegen.stats.robust import hc3_cov
 from sitegen.table import to_float
 
@@ -108,7 +115,12 @@ def _in_rhs(design: Design, var: str) -> bool:
 def straight_line(design: Design) -> str | None:
     """The predictor of a plain ``y ~ x`` model (intercept and one untransformed column)."""
     x = single_predictor(design)
-    if x is not None and design.has_intercept and len(design.terms) == 2 and design.terms[1] in (x, f"Q('{x}')"):
+    if (
+        x is not None
+        and design.has_intercept
+        and len(design.terms) == 2
+        and plain_column(design.terms[1], design.variables) == x
+    ):
         return x
     return None
 
@@ -162,13 +174,21 @@ def replicated_settings(design: Design) -> NDArray[np.bool_]:
     return np.asarray(counts[np.ravel(inverse)] > 1, dtype=bool)
 
 
+def designed_rows(design: Design, spec: DatasetSpec) -> NDArray[np.bool_]:
+    """Rows whose x are set values of the design: every row of a calibration (its standards, replicated or
+    not), and elsewhere the settings measured more than once. Their leverage alone never flags them."""
+    if spec.purpose == "calibration":
+        return np.ones(len(design.y), dtype=bool)
+    return replicated_settings(design)
+
+
 def compute(
     design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray | None, *, weighting: str | None = None
 ) -> Derived:
     """Derive every requested result; problems with optional extras become warnings."""
     messages: list[Message] = []
     infl = influence(fit.q, fit.resid, fit.df_resid, weights=weights)
-    flags = flag_points(infl, fit.n, len(fit.terms), designed=replicated_settings(design))
+    flags = flag_points(infl, fit.n, len(fit.terms), designed=designed_rows(design, spec))
     sw = np.ones(fit.n) if weights is None else np.sqrt(weights)
     Xw = design.X * sw[:, None]
     checks = model_checks(
@@ -218,10 +238,7 @@ def compute(
     line_x = straight_line(design)
     weighted = weights is not None
     lines, lines_text = _lines(design, fit, spec, line_x, messages, weighted=weighted)
-    if weighting in ("1/x", "1/x²", "1/y²") and spec.calibrate and line_x is not None and plain_response(design):
-        calibration_, limits = _weighted_calibration(design, fit, spec, weighting, messages)
-    else:
-        calibration_, limits = _calibration(design, fit, spec, line_x, messages, weighted=weighted)
+    calibration_, limits = _calibration(design, fit, spec, line_x, messages, weights=weights, weighting=weighting)
     predictions = _predictions(design, fit, spec, messages, weights)
     groups = _groups(design, fit, spec, line_x, messages, weights=weights)
     chart = _chart(design, fit, infl, flags, spec, weights)
@@ -297,6 +314,8 @@ def _reason_codes(flags: PointFlags) -> NDArray[np.intp]:
     code = np.zeros(len(flags.leverage_one), dtype=np.intp)
     for bit, mark in enumerate(marks):
         code |= np.asarray(mark, dtype=np.intp) << bit
+    if flags.marked is not None:  # a designed row that crossed a cut-off by its leverage alone: no reason
+        code[~np.asarray(flags.marked, dtype=bool)] = 0
     return code
 
 
@@ -410,15 +429,22 @@ def _lines(
 
 
 def _calibration(
-    design: Design, fit: OlsFit, spec: DatasetSpec, x_col: str | None, messages: list[Message], *, weighted: bool
+    design: Design,
+    fit: OlsFit,
+    spec: DatasetSpec,
+    x_col: str | None,
+    messages: list[Message],
+    *,
+    weights: FloatArray | None = None,
+    weighting: str | None = None,
 ) -> tuple[tuple[Calibration, ...], DetectionLimits | None]:
     if not spec.calibrate:
         return (), None
-    if x_col is None or weighted or not plain_response(design):
+    if x_col is None or not plain_response(design):
         messages.append(
             Message(
                 "warning",
-                "inverse prediction needs an unweighted straight-line model of an untransformed response, "
+                "inverse prediction needs a straight-line model of an untransformed response, "
                 "such as \"y ~ x\"; the 'calibrate' request was skipped",
             )
         )
@@ -426,20 +452,23 @@ def _calibration(
     x = design.X[:, 1]
     a, b = float(fit.beta[0]), float(fit.beta[1])
     try:
-        found = inverse_predict(
-            intercept=a,
-            slope=b,
-            residual_sd=fit.sigma,
-            n=fit.n,
-            x_mean=float(x.mean()),
-            sxx=float(((x - x.mean()) ** 2).sum()),
-            y_mean=a + b * float(x.mean()),
-            df_resid=fit.df_resid,
-            level=fit.level,
-            responses=spec.calibrate,
-            readings=spec.readings,
-        )
-        lim = detection_limits(slope=b, residual_sd=fit.sigma, intercept_se=float(fit.std_error[0]))
+        if weights is not None:
+            found, lim = _weighted_inverse(design, fit, spec, weights, weighting, messages)
+        else:
+            found = inverse_predict(
+                intercept=a,
+                slope=b,
+                residual_sd=fit.sigma,
+                n=fit.n,
+                x_mean=float(x.mean()),
+                sxx=float(((x - x.mean()) ** 2).sum()),
+                y_mean=a + b * float(x.mean()),
+                df_resid=fit.df_resid,
+                level=fit.level,
+                responses=spec.calibrate,
+                readings=spec.readings,
+            )
+            lim = detection_limits(slope=b, residual_sd=fit.sigma, intercept_se=float(fit.std_error[0]))
     except OverflowError:  # responses near 1e308: the interval's arithmetic leaves double precision
         messages.append(
             Message(
@@ -453,6 +482,7 @@ def _calibration(
         messages.append(Message("warning", f"inverse prediction could not be computed: {exc}"))
         return (), None
     lo, hi = float(x.min()), float(x.max())
+    method = "fieller" if weights is None else f"fieller, weighted {weighting or f'by column {spec.weights}'}"
     cal = tuple(
         Calibration(
             c.response,
@@ -461,7 +491,7 @@ def _calibration(
             c.std_error,
             c.ci_low,
             c.ci_high,
-            c.method,
+            method,
             c.bounded,
             extrapolated=math.isfinite(c.estimate) and not lo <= c.estimate <= hi,
         )
@@ -487,34 +517,60 @@ def _calibration(
     return cal, DetectionLimits(lim.lod, lim.loq, lim.convention, lim.basis)
 
 
-def _weighted_calibration(
-    design: Design, fit: OlsFit, spec: DatasetSpec, weighting: str, messages: list[Message]
-) -> tuple[tuple[Calibration, ...], DetectionLimits | None]:
-    """Inverse predictions through a line weighted 1/x, 1/x² or 1/y² (classical interval; no LOD/LOQ)."""
+#: The variance of a new reading under each weighting, as a quadratic in the x it is read at (units of σ²).
+_WEIGHTING_VARIANCE = {"1/x": (0.0, 1.0, 0.0), "1/x²": (0.0, 0.0, 1.0)}
+
+
+def _weighted_inverse(  # noqa: PLR0917 - the fit and what it was fitted with
+    design: Design,
+    fit: OlsFit,
+    spec: DatasetSpec,
+    weights: FloatArray,
+    weighting: str | None,
+    messages: list[Message],
+) -> tuple[tuple[InversePrediction, ...], DetectionLimitsFound]:
+    """Fieller's interval through a weighted line, and its detection limits (see stats/calibration.py).
+
+    A new reading's weight: under a weighting 1/x or 1/x² that of the x it is read at (inside the interval's
+    quadratic, not a plug-in), under 1/y² that of its own response (1/ȳ₀²); with a weights column, the
+    sidecar's ``reading_weight``.
+    """
     x = np.asarray(design.X[:, 1], dtype=np.float64)
-    y = np.asarray(design.y, dtype=np.float64)
-    try:
-        found = inverse_predict_weighted(
-            x, y, weighting=weighting, level=fit.level, responses=spec.calibrate, readings=spec.readings
-        )
-    except (FitError, ValueError, ArithmeticError) as exc:
-        messages.append(Message("warning", f"inverse prediction could not be computed: {exc}"))
-        return (), None
-    method = f"classical, weighted {weighting}"
-    cal = tuple(
-        Calibration(
-            c.response, c.readings, c.estimate, c.std_error, c.ci_low, c.ci_high, method, math.isfinite(c.std_error)
-        )
-        for c in found
+    a, b = float(fit.beta[0]), float(fit.beta[1])
+    s2 = fit.sigma**2
+    cov = s2 * np.asarray(fit.xtx_inv, dtype=np.float64)
+    if weighting in _WEIGHTING_VARIANCE:
+        c0, c1, c2 = _WEIGHTING_VARIANCE[weighting]
+        variances = [ReadingVariance(c0, c1, c2)] * len(spec.calibrate)
+        how = f"a reading's weight is the weighting {weighting} at the x it is read at"
+    elif weighting == "1/y²":
+        variances = [ReadingVariance(y0 * y0) for y0 in spec.calibrate]
+        how = "a reading's weight is 1/ȳ₀², from its own response (the weighting 1/y²)"
+    else:
+        variances = [ReadingVariance(1.0 / spec.reading_weight)] * len(spec.calibrate)
+        how = f"a reading's weight is reading_weight = {spec.reading_weight:g} (set it in the sidecar)"
+    found = inverse_predict_wls(
+        intercept=a,
+        slope=b,
+        cov=((float(cov[0, 0]), float(cov[0, 1])), (float(cov[1, 0]), float(cov[1, 1]))),
+        residual_var=s2,
+        df_resid=fit.df_resid,
+        level=fit.level,
+        responses=spec.calibrate,
+        variances=variances,
+        readings=spec.readings,
     )
+    low_x = float(x.min())
+    low_weight = float(np.mean(weights[x == low_x]))
+    lim = weighted_detection_limits(slope=b, residual_sd=fit.sigma, low_weight=low_weight, low_x=low_x)
     messages.append(
         Message(
             "note",
-            f"Samples are read back through the line weighted {weighting}, with the classical interval; "
-            "detection and quantitation limits are not given for a weighted line.",
+            f"Samples are read back through the weighted line with Fieller's interval ({how}); the detection "
+            "and quantitation limits use the scatter of one reading at the lowest standard.",
         )
     )
-    return cal, None
+    return found, lim
 
 
 def _column(values: list[Any]) -> NDArray[Any]:
@@ -850,7 +906,7 @@ def acceptance_evidence(
     if req is None:
         return Evidence()
     line_x = straight_line(design)
-    plain_response = design.response in design.variables
+    plain_response = plain_column(design.response, design.variables) is not None
     x_col = single_predictor(design)
     x_range = None
     if x_col is not None:

@@ -111,6 +111,23 @@ def quote_name(column: str) -> str:
     return "Q(" + repr(column) + ")"
 
 
+def plain_column(term: str, variables: tuple[str, ...]) -> str | None:
+    """The data column a term or response names as it is (``x``, ``Q('x')``, ``Q("lab result")``), else None.
+
+    The formula library keeps a quoted name as it was written, in either kind of quotes, so both are read.
+    """
+    if term in variables:
+        return term
+    quoted = re.fullmatch(r"""Q\(\s*((['"]).*\2)\s*\)""", term, flags=re.DOTALL)
+    if quoted is None:
+        return None
+    try:
+        name = ast.literal_eval(quoted.group(1))
+    except (ValueError, SyntaxError):
+        return None
+    return name if isinstance(name, str) and name in variables else None
+
+
 def _mostly_numeric(values: NDArray[Any]) -> bool:
     """Numeric, or text of which at least half the filled cells are numbers (so a stray word is reported)."""
     if values.dtype.kind in "fiub":

@@ -10,14 +10,13 @@ page, never the end of the fit.
 from __future__ import annotations
 
 import math
-import re
 from dataclasses import asdict, dataclass
 
 import numpy as np
 from numpy.typing import NDArray
 
 from sitegen.errors import FitError
-from sitegen.formula import Design
+from sitegen.formula import Design, plain_column
 from sitegen.model import (
     Agreement,
     AltLine,
@@ -27,11 +26,14 @@ from sitegen.model import (
     ReadBackLevel,
     WeightingOption,
 )
+from sitegen.report.fmt import given, num
+from sitegen.report.fmt import level as fmt_level
 from sitegen.spec import DatasetSpec
 from sitegen.stats.agreement import difference_analysis
 from sitegen.stats.bias import bias_at
 from sitegen.stats.passing_bablok import BOOTSTRAP_MAX_POINTS, passing_bablok
 from sitegen.stats.readback import choose_weighting, mandel_test, read_back, weights_for
+from sitegen.stats.text import p_text
 
 FloatArray = NDArray[np.float64]
 
@@ -73,10 +75,7 @@ class Weighting:
 
 def plain_response(design: Design) -> bool:
     """Whether the response is a data column as it is (``y`` or ``Q('kit result')``, not ``np.log(y)``)."""
-    if design.response in design.variables:
-        return True
-    quoted = re.fullmatch(r"""Q\((['"])(.*)\1\)""", design.response)
-    return quoted is not None and quoted.group(2) in design.variables
+    return plain_column(design.response, design.variables) is not None
 
 
 def paired_columns(design: Design, line_x: str | None) -> tuple[FloatArray, FloatArray] | None:
@@ -115,21 +114,23 @@ def recommended_line(lines: tuple[AltLine, ...], error_ratio: float, n: int) -> 
     """The line the bias is read from, and why (in words)."""
     pb = next((ln for ln in lines if ln.method == "passing_bablok"), None)
     pb_usable = pb is not None and pb.slope > 0.0 and math.isfinite(pb.slope_ci_low)
-    small = n <= BOOTSTRAP_MAX_POINTS
-    if pb is not None and pb_usable and pb.linear and small:
+    if pb is not None and pb_usable and pb.linear:
+        if n <= BOOTSTRAP_MAX_POINTS:
+            how = "percentile bootstrap intervals (1,000 resamples of the pairs, fixed seed)"
+        else:
+            how = (
+                f"rank-based intervals without resampling (above {BOOTSTRAP_MAX_POINTS} pairs the bootstrap costs "
+                "too much): the slope's interval of Passing and Bablok combined with the order-statistic interval "
+                "of the median that places the line, each at half the error rate (Bonferroni), so they are "
+                "conservative"
+            )
         return "passing_bablok", (
             "Passing–Bablok, because it allows measurement error in both methods, assumes no particular "
-            "error distribution and is not pulled by single outlying results; its bias intervals are "
-            "percentile bootstrap intervals (1,000 resamples of the pairs, fixed seed)."
+            f"error distribution and is not pulled by single outlying results; its bias intervals are {how}."
         )
     why_not = ""
     if pb is not None:
-        if not pb_usable:
-            why = f"{pb.note or 'no interval'}."
-        elif not pb.linear:
-            why = "its cusum test finds the relation not linear."
-        else:
-            why = f"its bootstrap bias interval is limited to {BOOTSTRAP_MAX_POINTS} pairs here."
+        why = f"{pb.note or 'no interval'}." if not pb_usable else "its cusum test finds the relation not linear."
         why_not = " Passing–Bablok was not used: " + why
     dem = next((ln for ln in lines if ln.method in _DEMING_METHODS), None)
     if dem is not None:
@@ -198,7 +199,7 @@ def comparison(
                 Message(
                     "warning",
                     "The differences change with the level (their slope on the pairs' means is "
-                    f"{agreement.trend_slope:.3g}, p = {agreement.trend_p_value:.2g}): one pair of limits of "
+                    f"{num(agreement.trend_slope, 3)}, {p_text(agreement.trend_p_value)}): one pair of limits of "
                     "agreement does not describe the whole range. Look at the difference chart"
                     + (
                         " in percent."
@@ -215,7 +216,7 @@ def comparison(
             bias = tuple(BiasAt(**asdict(b)) for b in found)
         except (FitError, ValueError, ArithmeticError) as exc:
             messages.append(Message("warning", f"the bias at the decision levels could not be computed: {exc}"))
-    text = conclusion(agreement, bias, lines, level) if wants_agreement else ""
+    text = conclusion(agreement, bias, lines, level, unit=difference_unit(design, spec)) if wants_agreement else ""
     return ComparisonResults(agreement, agreement_percent, bias, method if bias else "", reason if bias else "", text)
 
 
@@ -241,13 +242,40 @@ def comparison_bias(
     return tuple(BiasAt(**asdict(b)) for b in found), ""
 
 
-def _fmt(v: float) -> str:
-    return f"{v:.4g}".replace("-", "−")
+def difference_unit(design: Design, spec: DatasetSpec) -> str:
+    """The unit of the differences test − reference: the response's, else the reference's ("" if neither)."""
+    units = dict(spec.units)
+    y_col = plain_column(design.response, design.variables)
+    if y_col is not None and units.get(y_col):
+        return units[y_col]
+    x_col = next((v for v in design.variables if v != y_col), None)
+    return units.get(x_col, "") if x_col is not None else ""
 
 
-def conclusion(agreement: Agreement | None, bias: tuple[BiasAt, ...], lines: tuple[AltLine, ...], level: float) -> str:
-    """Plain sentences: what the comparison shows, deferring to the user's acceptance limits."""
-    pct = f"{100 * level:g} %"
+def _fmt(v: float, unit: str = "") -> str:
+    """A measured figure as the rest of the page rounds it (4 significant digits), with its unit."""
+    return num(v) + (f" {unit}" if unit else "")
+
+
+def _signed_percent(v: float) -> str:
+    text = num(v, 3)
+    return f"+{text}" if v > 0 else text
+
+
+def conclusion(
+    agreement: Agreement | None,
+    bias: tuple[BiasAt, ...],
+    lines: tuple[AltLine, ...],
+    level: float,
+    *,
+    unit: str = "",
+) -> str:
+    """Plain sentences: what the comparison shows, deferring to the user's acceptance limits.
+
+    Numbers follow the page's one rule (:mod:`sitegen.report.fmt`): measured figures to 4 significant
+    digits with the unit of the differences, percentages to 3; levels the user declared as written.
+    """
+    pct = fmt_level(level)
     parts: list[str] = []
     pb = next((ln for ln in lines if ln.method == "passing_bablok" and math.isfinite(ln.slope_ci_low)), None)
     if pb is not None:
@@ -263,25 +291,27 @@ def conclusion(agreement: Agreement | None, bias: tuple[BiasAt, ...], lines: tup
             if not slope_ok:
                 kinds.append(f"a proportional difference (slope {_fmt(pb.slope)}, interval excludes 1)")
             if not icpt_ok:
-                kinds.append(f"a constant difference (intercept {_fmt(pb.intercept)}, interval excludes 0)")
+                kinds.append(f"a constant difference (intercept {_fmt(pb.intercept, unit)}, interval excludes 0)")
             parts.append("The Passing–Bablok line shows " + " and ".join(kinds) + ".")
     if agreement is not None:
         parts.append(
-            f"On average the test method reads {_fmt(agreement.mean_difference)} "
+            f"On average the test method reads {_fmt(agreement.mean_difference, unit)} "
             f"({pct} interval {_fmt(agreement.mean_difference_ci_low)} to "
-            f"{_fmt(agreement.mean_difference_ci_high)}) from the reference; {pct} of single differences are "
-            f"expected between {_fmt(agreement.limit_low)} and {_fmt(agreement.limit_high)}."
+            f"{_fmt(agreement.mean_difference_ci_high, unit)}) from the reference; {pct} of single differences "
+            f"are expected between {_fmt(agreement.limit_low)} and {_fmt(agreement.limit_high, unit)}."
         )
     if bias:
         clear = [b for b in bias if b.ci_low <= 0.0 <= b.ci_high]
         shown = [b for b in bias if not (b.ci_low <= 0.0 <= b.ci_high) and math.isfinite(b.ci_low)]
+        at_unit = f" {unit}" if unit else ""
         if clear:
-            parts.append("At " + ", ".join(_fmt(b.at) for b in clear) + " the bias interval includes zero.")
+            levels = ", ".join(given(b.at) for b in clear)
+            parts.append(f"At {levels}{at_unit} the bias interval includes zero.")
         for b in shown:
-            pct = f" ({b.percent:+.3g} %)" if math.isfinite(b.percent) else ""
+            share = f" ({_signed_percent(b.percent)} %)" if math.isfinite(b.percent) else ""
             parts.append(
-                f"At {_fmt(b.at)} the bias is {_fmt(b.estimate)}{pct}, interval {_fmt(b.ci_low)} to "
-                f"{_fmt(b.ci_high)}: it excludes zero."
+                f"At {given(b.at)}{at_unit} the bias is {_fmt(b.estimate, unit)}{share}, {pct} interval "
+                f"{_fmt(b.ci_low)} to {_fmt(b.ci_high, unit)}: it excludes zero."
             )
     parts.append(
         "Whether the methods can be used interchangeably depends on the bias and spread you can accept at "

@@ -19,6 +19,7 @@ import numpy as np
 import pytest
 from conftest import ROOT
 from nist_data import ALL_NIST, load_nist
+from scipy import stats as scipy_stats
 
 from sitegen.analyze import DatasetResult, FitTask, analyze
 from sitegen.cli import main
@@ -134,14 +135,28 @@ def test_columns_the_writer_leaves_to_pandas() -> None:
     assert not bulkcsv.can_write((np.ones(2, dtype=np.longdouble),))
 
 
-def _expected_flags(obs_cols: dict[str, np.ndarray], p: int) -> list[str]:
-    """The reasons by the documented rules of thumb (common practice), worked out row by row."""
+def _designed(obs_cols: dict[str, np.ndarray], response: str) -> list[bool]:
+    """Rows at a predictor setting that occurs more than once (the model's columns besides the response)."""
+    names = list(obs_cols)
+    predictors = [c for c in names[1 : names.index("fitted")] if c not in (response, "weight")]
+    settings = [tuple(float(obs_cols[c][i]) for c in predictors) for i in range(len(obs_cols["fitted"]))]
+    return [settings.count(s) > 1 for s in settings]
+
+
+def _expected_flags(obs_cols: dict[str, np.ndarray], p: int, designed: list[bool]) -> list[str]:
+    """The reasons by the documented rules of thumb (common practice), worked out row by row. A row at a
+    designed setting is listed only with a large residual, leverage 1 or Cook's distance above the median of
+    F(p, n − p) (scipy's F quantile, an independent source); otherwise it has no reason at all."""
     n = len(obs_cols["leverage"])
+    strong = float(scipy_stats.f.ppf(0.5, p, n - p)) if n > p else math.inf
     out = []
-    for h, t, d, f in zip(
+    for h, t, d, f, fixed in zip(
         obs_cols["leverage"], obs_cols["studentized_residual"], obs_cols["cooks_distance"], obs_cols["dffits"],
-        strict=True,
+        designed, strict=True,
     ):  # fmt: skip
+        if fixed and not (abs(t) > 3 or h > 1 - 1e-10 or d > strong):
+            out.append("")
+            continue
         reasons = []
         if h > 1 - 1e-10:
             reasons.append("alone sets a coefficient (leverage 1)")
@@ -164,7 +179,7 @@ def test_flags_column_follows_the_rules_of_thumb(tmp_path: Path) -> None:
         assert obs is not None
         cols = dict(zip(obs.columns, obs.values, strict=True))
         p = len(result.report.coefficients)
-        expected = _expected_flags(cols, p)
+        expected = _expected_flags(cols, p, _designed(cols, result.report.response))
         assert cols["flags"].tolist() == expected, name
         seen |= set(expected)
     assert "alone sets a coefficient (leverage 1)" in seen  # Anscombe's fourth set: one x differs

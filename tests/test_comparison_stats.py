@@ -372,10 +372,11 @@ def test_passing_bablok_bias_interval_covers_the_true_bias() -> None:
     assert 0.8 <= float(np.mean(widths)) <= 1.8
 
 
-def test_passing_bablok_bias_refuses_above_the_bootstrap_limit() -> None:
+def test_passing_bablok_bootstrap_refuses_above_its_limit() -> None:
+    # above the limit the bias takes the rank-based interval instead (tests/test_passing_bablok_limits.py)
     x = np.linspace(1, 50, BOOTSTRAP_MAX_POINTS + 1)
     with pytest.raises(FitError, match="limited"):
-        bias_at(x, x * 1.01, [10.0], method="passing_bablok", level=0.95)
+        bootstrap_values(x, x * 1.01, np.array([10.0]), level=0.95)
 
 
 def _deming(x: Array, y: Array, lam: float) -> tuple[float, float]:

@@ -149,6 +149,45 @@ def test_designed_end_points_are_not_flagged_for_leverage_alone(tmp_path: Path) 
     assert any(f["row"] == len(single) and "leverage above 2p/n" in f["reasons"] for f in lone)
 
 
+def _obs_flags(site: Path, slug: str) -> list[str]:
+    with (site / "datasets" / slug / "observations.csv").open(encoding="utf-8", newline="") as f:
+        return [row["flags"] for row in csv.DictReader(f)]
+
+
+def test_unreplicated_calibration_end_points_are_not_flagged_for_leverage_alone(tmp_path: Path) -> None:
+    """A calibration's standards are set values even when each is measured once: leverage alone marks none
+    of them; leverage with a large residual does. statsmodels OLSInfluence gives the leverage and the
+    studentized residual the rule looks at (an independent computation)."""
+    single = [0.0, 0.5, 1.0, 1.5, 2.0, 2.5, 3.0, 10.0]
+    resp = [0.01 + 0.2 * v + 0.002 * (-1) ** i for i, v in enumerate(single)]
+    off = [*resp[:-1], 2.4]  # the top standard reads high: a large residual at a high-leverage point
+    data = tmp_path / "data"
+    for name, ys, purpose in (("cal", resp, "calibration"), ("bad", off, "calibration"), ("rel", resp, None)):
+        write_csv(data / f"{name}.csv", [("conc", "signal"), *zip(single, [f"{r:.4f}" for r in ys], strict=True)])
+        if purpose:
+            write_toml(data / f"{name}.toml", f'purpose = "{purpose}"\n')
+    site = tmp_path / "site"
+    assert _build(data, site) == 0
+    X = sm.add_constant(np.array(single))
+    infl = sm.OLS(np.round(np.array(resp), 4), X).fit().get_influence()
+    assert infl.hat_matrix_diag[-1] > 2 * 2 / len(single)  # the top standard passes 2p/n (statsmodels)
+    assert _fit(site, "cal")["flagged"] == []
+    assert set(_obs_flags(site, "cal")) == {""}  # the download lists no reason the page does not flag
+    # a relation with the same numbers: x are not declared set values, so the far point is marked
+    rel = _fit(site, "rel")["flagged"]
+    assert [f["row"] for f in rel] == [len(single)]
+    assert "leverage above 2p/n" in rel[0]["reasons"]
+    # leverage combined with a large residual still marks the end point
+    bad_infl = sm.OLS(np.round(np.array(off), 4), X).fit().get_influence()
+    assert abs(bad_infl.resid_studentized_external[-1]) > 3  # statsmodels: past the residual cut-off
+    bad = _fit(site, "bad")["flagged"]
+    assert [f["row"] for f in bad] == [len(single)]
+    assert "|studentized residual| above 3" in bad[0]["reasons"]
+    assert bad[0]["studentized_residual"] == pytest.approx(bad_infl.resid_studentized_external[-1], rel=1e-9)
+    assert _obs_flags(site, "bad")[-1].startswith("leverage above 2p/n; |studentized residual| above 3")
+    assert "every standard of a calibration" in _page(site, "bad")
+
+
 def test_normality_is_one_check_and_inapplicable_checks_say_so(tmp_path: Path) -> None:
     data = tmp_path / "data"
     write_csv(data / "a.csv", "x,y\n1,2.1\n2,3.9\n3,6.2\n4,7.8\n5,10.1\n6,11.8\n7,14.2\n")

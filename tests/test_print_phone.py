@@ -7,6 +7,7 @@ left and right, so the printable width is the paper's less 24 mm at CSS's 96 px 
 
 from __future__ import annotations
 
+import json
 import shutil
 import subprocess
 import sys
@@ -146,5 +147,38 @@ def test_phone_width_keeps_every_column_readable(browser: Any, site: Path) -> No
             assert w_q > 0
         SHOTS.mkdir(parents=True, exist_ok=True)
         page.screenshot(path=str(SHOTS / "phone-index.png"))
+    finally:
+        ctx.close()
+
+
+def test_phone_width_sorts_with_a_list(browser: Any, site: Path) -> None:
+    """The stacked cards hide the column headings and their sort buttons, so narrow screens sort by a list
+    of the same columns; on a wide screen the list is not shown (the headings sort)."""
+    rows = json.loads((site / "summary.json").read_text(encoding="utf-8"))
+    ctx = browser.new_context(viewport={"width": 390, "height": 844})
+    try:
+        page = ctx.new_page()
+        page.goto((site / "index.html").as_uri())
+        sort = page.locator('select[data-sort-for="datasets"]')
+        assert sort.is_visible()
+        heading_width = "() => document.querySelector('#datasets thead').getBoundingClientRect().width"
+        assert page.evaluate(heading_width) <= 1  # the headings are clipped away (kept for screen readers)
+        sort.select_option(label="Rows, high to low")
+        got = page.evaluate(
+            "() => [...document.querySelectorAll('#datasets tbody tr:not(.group-row)')]"
+            ".map(r => Number(r.children[2].getAttribute('data-value')))"
+        )
+        assert got == sorted((int(r["n"]) for r in rows), reverse=True)
+        assert page.evaluate("() => document.getElementById('datasets-sort-status').textContent") == (
+            "Sorted by Rows, descending."
+        )
+        sort.select_option(label="Dataset, A to Z")
+        titles = page.evaluate(
+            "() => [...document.querySelectorAll('#datasets tbody tr:not(.group-row) th a')].map(a => a.textContent)"
+        )
+        assert titles == sorted(titles, key=str.lower)
+        page.set_viewport_size({"width": 1400, "height": 900})
+        assert not sort.is_visible()
+        assert page.evaluate(heading_width) > 300
     finally:
         ctx.close()

@@ -265,5 +265,5 @@ def test_weighted_calibration_reads_samples_back_through_its_own_line(tmp_path: 
     se = np.sqrt(float(res.get_prediction(np.array([[1.0, x0]])).se_mean[0]) ** 2 + res.scale * x0**2) / abs(b)
     assert cal["estimate"] == pytest.approx(x0, rel=1e-9)
     assert cal["std_error"] == pytest.approx(se, rel=1e-8)
-    assert cal["method"] == "classical, weighted 1/x²"
-    assert fit["limits"] is None
+    assert cal["method"] == "fieller, weighted 1/x²"
+    assert fit["limits"] is not None  # weighted detection limits (tests/test_weighted_calibration.py)

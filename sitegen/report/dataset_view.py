@@ -7,10 +7,12 @@ offer) is decided here, not in a template.
 
 from __future__ import annotations
 
+import re
 from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from typing import Any
 
+from sitegen.formula import plain_column
 from sitegen.model import FitReport, Message, check_warning
 from sitegen.report import fmt
 from sitegen.report.charts import axis_label, influence_limit
@@ -73,6 +75,9 @@ class DatasetView:
     downloads: tuple[Download, ...]
     prev: Neighbour | None
     next: Neighbour | None
+    x_unit: str = ""  # the unit of the one predictor (nominal or reference value), or ""
+    y_unit: str = ""  # the unit of the response (also quoted as Q("...")), or ""
+    coefficient_units: tuple[str, ...] = ()  # each coefficient's unit, in the table's order ("" unknown)
 
 
 def sentence(r: FitReport) -> str:
@@ -178,6 +183,36 @@ def _fit_sentence(r: FitReport) -> str:
     return f"Across {fmt.integer(r.n)} rows fitted with {r.model}, {fit_part}."
 
 
+def _unit_of(column: str | None, units: Mapping[str, str], variables: tuple[str, ...]) -> str:
+    """The unit of a column named plainly or quoted (``Q("lab result")``), or ""."""
+    if not column:
+        return ""
+    name = plain_column(column, variables)
+    return units.get(name, "") if name is not None else ""
+
+
+def coefficient_units(r: FitReport) -> tuple[str, ...]:
+    """Each coefficient's unit from the sidecar's units: the intercept in the response's unit, the slope of a
+    plain column (or of its square, ``I(x ** 2)``) in the response's unit per the column's; "" otherwise."""
+    units = dict(r.units)
+    names = tuple(units)
+    y_unit = _unit_of(r.response, units, names)
+    out = []
+    for c in r.coefficients:
+        if c.term == "Intercept":
+            out.append(y_unit)
+            continue
+        power = re.fullmatch(r"I\((.+?)\s*\*\*\s*2\)", c.term)
+        x_unit = _unit_of(power.group(1) if power else c.term, units, names)
+        if not (x_unit and y_unit):
+            out.append("")
+        elif power:
+            out.append(f"{y_unit} per ({x_unit})²")
+        else:
+            out.append(f"{y_unit} per {x_unit}")
+    return tuple(out)
+
+
 def downloads(r: FitReport, files: Sequence[str]) -> tuple[Download, ...]:
     """The dataset's files worth offering, described, in the order of the table of output files."""
     out: list[Download] = []
@@ -257,6 +292,9 @@ def view(
         x_label=x_label,
         fit_caption=fit_caption,
         resid_unit=dict(r.units).get(r.chart.y, "") if r.chart else "",
+        x_unit=_unit_of(r.chart.x if r.chart else None, dict(r.units), tuple(dict(r.units))),
+        y_unit=_unit_of(r.response, dict(r.units), tuple(dict(r.units))),
+        coefficient_units=coefficient_units(r) if not failed else (),
         pull_limit=influence_limit(r) if not failed else None,
         variation=tuple(parts(r)) if not failed else (),
         cutoffs=dict(r.cutoffs),

@@ -11,11 +11,14 @@ The interval depends on the line (each is the interval that line's own method gi
                     mean that statsmodels' ``get_prediction(...).conf_int()`` gives.
 ``passing_bablok``  percentile bootstrap of a + (b − 1)·X over 1,000 resamples of the
                     pairs from a fixed seed (the method has no closed-form interval for its
-                    value at a level; CLSI EP09 uses the bootstrap here, from memory).
-                    Limited to :data:`~sitegen.stats.passing_bablok.BOOTSTRAP_MAX_POINTS`
-                    pairs (FitError above). The paper's own rank-based construction, applied
-                    to x − X, only carries the slope's uncertainty and so shrinks to nothing
-                    at the centre of the data: it is not used.
+                    value at a level; CLSI EP09 uses the bootstrap here, from memory), up to
+                    :data:`~sitegen.stats.passing_bablok.BOOTSTRAP_MAX_POINTS` pairs. Above,
+                    :func:`~sitegen.stats.passing_bablok.rank_value_interval`: the slope's
+                    rank-based interval combined (Bonferroni) with the order-statistic
+                    interval of the median that sets the line's value at X — no resampling,
+                    conservative. The paper's own intercept construction, applied to x − X,
+                    only carries the slope's uncertainty and so shrinks to nothing at the
+                    centre of the data: it is not used.
 ``deming`` etc.     delete-one jackknife standard error of a + (b − 1)·X, centred on
                     the estimate, t on n − 1 df (as :mod:`sitegen.stats.lines` does for
                     the slope and intercept).
@@ -36,7 +39,7 @@ from numpy.typing import NDArray
 from sitegen.errors import FitError
 from sitegen.stats.distributions import t_ppf
 from sitegen.stats.lines import LINE_METHODS, alternative_lines, leave_one_out
-from sitegen.stats.passing_bablok import bootstrap_values, passing_bablok
+from sitegen.stats.passing_bablok import BOOTSTRAP_MAX_POINTS, bootstrap_values, passing_bablok, rank_value_interval
 
 __all__ = ["BIAS_METHODS", "Bias", "bias_at"]
 
@@ -116,7 +119,10 @@ def _ols(x: FloatArray, y: FloatArray, levels: Sequence[float], level: float) ->
 def _passing_bablok(x: FloatArray, y: FloatArray, levels: Sequence[float], level: float) -> tuple[Bias, ...]:
     pb = passing_bablok(x, y, level=level)
     at = np.asarray(levels, dtype=np.float64)
-    lows, highs = bootstrap_values(x, y, at, level=level)
+    if x.size > BOOTSTRAP_MAX_POINTS:
+        lows, highs = rank_value_interval(x, y, at, level=level)
+    else:
+        lows, highs = bootstrap_values(x, y, at, level=level)
     return tuple(
         _make(
             float(v),

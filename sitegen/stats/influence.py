@@ -126,16 +126,19 @@ class PointFlags:
     cooks_cutoff: float
     dffits_cutoff: float
     rows: tuple[int, ...]
+    marked: BoolArray | None = None  # the rows in ``rows``, as a mark per row (None: every crossing marks)
 
 
 def flag_points(infl: Influence, n: int, p: int, designed: NDArray[np.bool_] | None = None) -> PointFlags:
     """Mark rows by the usual rules of thumb (all common practice).
 
-    ``designed`` marks rows at a setting of the design that was measured more than once (a calibration's
-    standards, its end points included): their leverage is the design's choice, so leverage above 2p/n does
-    not mark them, nor do Cook's distance above 4/n and |DFFITS| above 2√(p/n), which grow with leverage
-    alone; they are marked by a large residual, leverage 1, or Cook's distance above the median of
-    F(p, n − p) (the stricter limit of the model check on influence).
+    ``designed`` marks rows whose x are set values of the design (a calibration's standards, replicated or
+    not, its end points included; a setting measured more than once): their leverage is the design's
+    choice, so leverage above 2p/n does not mark them, nor do Cook's distance above 4/n and |DFFITS| above
+    2√(p/n), which grow with leverage alone. They are marked only when leverage combines with a large
+    residual (|studentized residual| above 3) or a large influence (Cook's distance above the median of
+    F(p, n − p), the stricter limit of the model check on influence), or at leverage 1. An unmarked row
+    carries no reason at all (``marked``), so downloads do not list a leverage the page does not flag.
 
     - leverage above 2p/n (twice the average leverage p/n);
     - leverage ≈ 1 (above ``LEVERAGE_ONE``): the point alone sets a coefficient;
@@ -172,4 +175,5 @@ def flag_points(infl: Influence, n: int, p: int, designed: NDArray[np.bool_] | N
         cooks_cutoff=cooks_cut,
         dffits_cutoff=dffits_cut,
         rows=tuple(rows.tolist()),
+        marked=marked,
     )

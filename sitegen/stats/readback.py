@@ -40,17 +40,15 @@ from sitegen.errors import FitError
 from sitegen.model import LinearityCheck as LinearityTest
 from sitegen.model import ReadBackLevel as ReadBack
 from sitegen.model import WeightingOption
-from sitegen.stats.distributions import f_ppf, f_sf, t_ppf
+from sitegen.stats.distributions import f_ppf, f_sf
 from sitegen.stats.solver import ops, residual_ss
 
 __all__ = [
     "LinearityTest",
     "ReadBack",
-    "WeightedReading",
     "WeightingChoice",
     "WeightingOption",
     "choose_weighting",
-    "inverse_predict_weighted",
     "mandel_test",
     "read_back",
     "weights_for",
@@ -231,61 +229,3 @@ def mandel_test(x: FloatArray, y: FloatArray, weights: FloatArray | None = None)
             "quadratic calibration function."
         )
     return LinearityTest(n, ssr1, ssr2, stat, df, crit, p, MANDEL_LEVEL, linear, text)
-
-
-@dataclass(frozen=True, slots=True)
-class WeightedReading:
-    """A response read back through a weighted line, with the classical interval."""
-
-    response: float
-    readings: int
-    estimate: float
-    std_error: float
-    ci_low: float
-    ci_high: float
-
-
-def inverse_predict_weighted(
-    x: FloatArray,
-    y: FloatArray,
-    *,
-    weighting: str,
-    level: float,
-    responses: tuple[float, ...],
-    readings: int = 1,
-) -> tuple[WeightedReading, ...]:
-    """Read responses back through the line weighted by ``weighting`` (1/x, 1/x² or 1/y²).
-
-    x̂₀ = (ȳ₀ − a)/b, and by the delta method var(x̂₀) ≈ (var(ȳ₀) + var(a + b·x̂₀))/b², with
-    var(ȳ₀) = s²/(m·w₀), w₀ the weighting's value at the sample (1/x̂₀, 1/x̂₀² or 1/ȳ₀²), s² the
-    weighted residual variance, and var(a + b·x̂₀) = s²·(1/Σw + (x̂₀ − x̄_w)²/S_xx,w). This is the
-    weighted form given by Miller & Miller (*Statistics and Chemometrics for Analytical Chemistry*;
-    from memory). The interval is x̂₀ ± t·SE on n − 2 degrees of freedom (classical, not Fieller).
-    """
-    w = weights_for(weighting, x, y)
-    if w is None or readings < 1:
-        raise ValueError("inverse_predict_weighted needs a weighting other than 'none' and readings ≥ 1")
-    n = x.size
-    if n < 3:
-        raise FitError(f"reading a calibration line backwards needs at least 3 points, got {n}")
-    a, b = _line(x, y, w)
-    if b == 0.0:
-        raise FitError("the calibration line is flat (slope 0), so a response cannot be turned back into x")
-    sw = float(w.sum())
-    xw = float(w @ x) / sw
-    sxx = float(w @ ((x - xw) ** 2))
-    resid = y - (a + b * x)
-    s2 = float(w @ (resid * resid)) / (n - 2)
-    t = t_ppf(0.5 + level / 2.0, n - 2)
-    out = []
-    for y0 in responses:
-        x0 = (y0 - a) / b
-        w0 = {"1/x": 1.0 / x0 if x0 != 0 else math.nan, "1/x²": 1.0 / (x0 * x0) if x0 != 0 else math.nan}.get(
-            weighting, 1.0 / (y0 * y0) if y0 != 0 else math.nan
-        )
-        if not (math.isfinite(w0) and w0 > 0.0):
-            se = math.nan
-        else:
-            se = math.sqrt(s2 / (readings * w0) + s2 * (1.0 / sw + (x0 - xw) ** 2 / sxx)) / abs(b)
-        out.append(WeightedReading(float(y0), readings, x0, se, x0 - t * se, x0 + t * se))
-    return tuple(out)

@@ -229,6 +229,34 @@
         var th = button.closest("th");
         button.addEventListener("click", function () { sortTable(table, th, button.getAttribute("data-type")); });
       });
+      narrowSort(table);
+    });
+  }
+
+  /* Narrow screens stack the rows as cards and hide the headings: a list sorts by the same columns. */
+  function narrowSort(table) {
+    var select = document.querySelector('select[data-sort-for="' + table.id + '"]');
+    if (!select) { return; }
+    var buttons = table.querySelectorAll("thead th button");
+    Array.prototype.forEach.call(buttons, function (button, i) {
+      var name = button.textContent.replace(/[↕↑↓]/g, "").trim();
+      var words = button.getAttribute("data-type") === "number" ? [", low to high", ", high to low"] : [", A to Z", ", Z to A"];
+      ["ascending", "descending"].forEach(function (way, k) {
+        var o = document.createElement("option");
+        o.value = i + " " + way;
+        o.textContent = name + words[k];
+        select.appendChild(o);
+      });
+    });
+    select.addEventListener("change", function () {
+      if (!select.value) { return; }
+      var parts = select.value.split(" ");
+      var button = buttons[Number(parts[0])];
+      if (!button) { return; }
+      var th = button.closest("th");
+      /* sortTable turns an ascending column descending and anything else ascending */
+      th.setAttribute("aria-sort", parts[1] === "ascending" ? "none" : "ascending");
+      sortTable(table, th, button.getAttribute("data-type"));
     });
   }
 
