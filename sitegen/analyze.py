@@ -283,6 +283,8 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         diagnostics=pieces.diagnostics,
         flagged=pieces.flagged,
         flagged_total=pieces.flagged_total,
+        group_flagged=pieces.group_flagged,
+        group_flagged_total=pieces.group_flagged_total,
         cutoffs=pieces.cutoffs,
         lines=pieces.lines,
         lines_text=pieces.lines_text,

@@ -57,8 +57,9 @@ from sitegen.stats.claims import check_claims
 from sitegen.stats.groups import compare_groups
 from sitegen.stats.influence import Influence, PointFlags, flag_points, influence
 from sitegen.stats.lines import alternative_lines, explain_lines
-from sitegen.stats.ols import OlsFit, bands, row_bands
+from sitegen.stats.ols import OlsFit, bands, fit_ols, row_bands
 from sitegen.stats.robust import hc3_cov
+from sitegen.stats.solver import LD
 from sitegen.table import to_float
 
 FloatArray = NDArray[np.float64]
@@ -97,6 +98,8 @@ class Derived:
     observations: Observations
     comparison: ComparisonResults
     calibration_parts: CalibrationResults
+    group_flagged: tuple[FlaggedPoint, ...] = ()
+    group_flagged_total: int = 0
 
 
 def single_predictor(design: Design) -> str | None:
@@ -241,6 +244,10 @@ def compute(
     calibration_, limits = _calibration(design, fit, spec, line_x, messages, weights=weights, weighting=weighting)
     predictions = _predictions(design, fit, spec, messages, weights)
     groups = _groups(design, fit, spec, line_x, messages, weights=weights)
+    group_flagged: tuple[FlaggedPoint, ...] = ()
+    group_flagged_total = 0
+    if groups is not None and groups.p_value is not None and groups.p_value < 1 - fit.level:
+        group_flagged, group_flagged_total = _group_flagged(design, spec, fit.level, weights)
     chart = _chart(design, fit, infl, flags, spec, weights)
     compared = comparison(design, spec, line_x, lines, level=fit.level, messages=messages, weighted=weighted)
     calibrated = CalibrationResults()
@@ -279,6 +286,8 @@ def compute(
         observations=observations,
         comparison=compared,
         calibration_parts=calibrated,
+        group_flagged=group_flagged,
+        group_flagged_total=group_flagged_total,
     )
 
 
@@ -715,6 +724,28 @@ def _groups(
     except DatasetError as exc:
         messages.append(Message("warning", f"group comparison skipped: {exc}"))
         return None
+
+
+def _group_flagged(
+    design: Design, spec: DatasetSpec, level: float, weights: FloatArray | None
+) -> tuple[tuple[FlaggedPoint, ...], int]:
+    """Rows flagged against each group's own line: the separate-lines model (a level and a slope per group,
+    fitted together so that the groups share one residual variance), by the same rules as the pooled line."""
+    assert spec.group is not None
+    labels = np.array([str(v) for v in design.data[spec.group].tolist()], dtype=str)
+    names = sorted(set(labels.tolist()))
+    x = np.asarray(design.X[:, 1], dtype=np.float64)
+    dummies = np.column_stack([(labels == g).astype(float) for g in names])
+    full = np.column_stack([dummies, dummies * x[:, None]])
+    terms = tuple(f"{kind} {g}" for kind in ("level", "slope") for g in names)
+    try:
+        sep = fit_ols(full.astype(LD), np.asarray(design.y).astype(LD), terms, has_intercept=True, level=level,
+                      weights=weights)  # fmt: skip
+    except DatasetError:
+        return (), 0
+    infl = influence(sep.q, sep.resid, sep.df_resid, weights=weights)
+    flags = flag_points(infl, sep.n, len(terms), designed=designed_rows(design, spec))
+    return _flagged(design, infl, flags), len(flags.rows)
 
 
 #: Width of the bins of the residual-shape chart, in standardized-residual units.

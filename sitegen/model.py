@@ -345,6 +345,9 @@ class FitReport:
     diagnostics: tuple[Diagnostic, ...] = ()
     flagged: tuple[FlaggedPoint, ...] = ()  # at most the 500 most influential flagged rows
     flagged_total: int = 0
+    # per-group slopes differ: the rows flagged against each group's own line (the recommended model)
+    group_flagged: tuple[FlaggedPoint, ...] = ()
+    group_flagged_total: int = 0
     cutoffs: tuple[tuple[str, float], ...] = ()
     lines: tuple[AltLine, ...] = ()
     lines_text: str = ""

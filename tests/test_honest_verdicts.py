@@ -188,6 +188,47 @@ def test_unreplicated_calibration_end_points_are_not_flagged_for_leverage_alone(
     assert "every standard of a calibration" in _page(site, "bad")
 
 
+def test_differing_group_slopes_flag_rows_against_each_groups_own_line(tmp_path: Path) -> None:
+    """statsmodels OLSInfluence on the separate-lines design (a level and a slope per group) gives the
+    leverage, studentized residual, Cook's distance and DFFITS the per-group flags are judged on."""
+    rows = _grouped_rows((2.0, 3.0))
+    rows[5] = (rows[5][0], rows[5][1], f"{float(str(rows[5][2])) + 2.5:.3f}")  # one north reading far off
+    data = tmp_path / "data"
+    write_csv(data / "grouped.csv", rows)
+    write_toml(data / "grouped.toml", 'model = "y ~ x"\ngroup = "site"\n')
+    site = tmp_path / "site"
+    assert _build(data, site) == 0
+    fit = _fit(site, "grouped")
+    assert fit["pooled_contrast"] is True
+    g = np.array([r[0] for r in rows[1:]])
+    x = np.array([float(str(r[1])) for r in rows[1:]])
+    y = np.array([float(str(r[2])) for r in rows[1:]])
+    dummies = np.column_stack([(g == name).astype(float) for name in ("north", "south")])
+    design = np.column_stack([dummies, dummies * x[:, None]])
+    infl = sm.OLS(y, design).fit().get_influence()
+    h, t = infl.hat_matrix_diag, infl.resid_studentized_external
+    d, f = infl.cooks_distance[0], infl.dffits[0]
+    n, p = len(y), 4
+    expected = [
+        i + 1 for i in range(n) if h[i] > 2 * p / n or abs(t[i]) > 3 or d[i] > 4 / n or abs(f[i]) > 2 * np.sqrt(p / n)
+    ]
+    got = fit["group_flagged"]
+    assert [r["row"] for r in got] == expected
+    assert 5 in expected  # the reading moved off its group's line
+    assert fit["group_flagged_total"] == len(expected)
+    for r in got:
+        i = r["row"] - 1
+        assert r["leverage"] == pytest.approx(h[i], rel=1e-9)
+        assert r["studentized_residual"] == pytest.approx(t[i], rel=1e-9)
+        assert r["cooks_distance"] == pytest.approx(d[i], rel=1e-9)
+        assert r["dffits"] == pytest.approx(f[i], rel=1e-9)
+    page = _page(site, "grouped")
+    assert "Against each site&#39;s own line (the recommended model)" in page or (
+        "Against each site's own line (the recommended model)" in page
+    )
+    assert "Against the pooled line (a contrast only)" in page
+
+
 def test_normality_is_one_check_and_inapplicable_checks_say_so(tmp_path: Path) -> None:
     data = tmp_path / "data"
     write_csv(data / "a.csv", "x,y\n1,2.1\n2,3.9\n3,6.2\n4,7.8\n5,10.1\n6,11.8\n7,14.2\n")

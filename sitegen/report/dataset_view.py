@@ -127,7 +127,7 @@ def _groups_sentence(r: FitReport) -> str:
         f"The slope of {r.response} on {x} differs between the groups of {g.column} "
         f"({fmt.p_phrase(g.p_value)}), so each group has its own line — slopes {each}. "
         f"The pooled line through all {fmt.integer(r.n)} rows is shown only as a contrast, not as the recommended "
-        "line; the checks and flagged rows below are computed on it."
+        "line; the checks below are computed on it, and rows are flagged against each group's own line first."
     )
 
 
