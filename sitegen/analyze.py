@@ -162,12 +162,12 @@ def _leave_out(
 def _spec_messages(spec: DatasetSpec | None, sidecar_name: str) -> list[Message]:
     if spec is None:
         return []
-    from sitegen.spec import MAX_UNKNOWN_SHOWN  # noqa: PLC0415
+    from sitegen.spec import MAX_UNKNOWN_SHOWN, unknown_key  # noqa: PLC0415
 
     out = []
     for key, hint in spec.unknown_keys[:MAX_UNKNOWN_SHOWN]:
-        tip = f"; did you mean '{hint}'?" if hint else "; see the README for the keys a sidecar may hold"
-        out.append(Message("warning", f"{sidecar_name}: unknown sidecar key '{key}' was ignored{tip}"))
+        text = unknown_key(sidecar_name, key, hint, what="sidecar key", ending=" was ignored")
+        out.append(Message("warning", text if hint else f"{text}; see the README for the keys a sidecar may hold"))
     more = len(spec.unknown_keys) - MAX_UNKNOWN_SHOWN
     if more > 0:
         out.append(Message("warning", f"{sidecar_name}: {more:,} more unknown sidecar keys were ignored"))

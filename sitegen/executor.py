@@ -105,6 +105,17 @@ class _Worker:
 
 
 @dataclass(slots=True)
+class _Run(Generic[T, R]):
+    """One call of :meth:`WorkerExecutor.run`: its work, the items not yet started, and the workers busy with it."""
+
+    fn: Callable[[T], R]
+    items: list[T]
+    bounded: Bounded[T, R] | None
+    queue: deque[tuple[int, T]]
+    busy: dict[Connection, _Busy]
+
+
+@dataclass(slots=True)
 class _Busy:
     worker: _Worker
     index: int
@@ -138,19 +149,12 @@ class WorkerExecutor:
         if bounded is None and (self.jobs == 1 or (len(items) == 1 and not self._workers and self.inline_single)):
             return InlineExecutor().run(fn, items)
         self._grow(min(self.jobs, len(items)))
-        queue = deque(enumerate(items))
-        busy: dict[Connection, _Busy] = {}
-        self._feed(fn, items, queue, busy, bounded)  # start at once: the caller may do other work meanwhile
-        return self._results(fn, items, queue, busy, bounded)
+        work = _Run(fn, items, bounded, deque(enumerate(items)), {})
+        self._feed(work)  # start at once: the caller may do other work meanwhile
+        return self._results(work)
 
-    def _feed(
-        self,
-        fn: Callable[[T], R],
-        items: list[T],
-        queue: deque[tuple[int, T]],
-        busy: dict[Connection, _Busy],
-        bounded: Bounded[T, R] | None,
-    ) -> None:
+    def _feed(self, work: _Run[T, R]) -> None:
+        fn, queue, busy, bounded = work.fn, work.queue, work.busy, work.bounded
         taken = {b.worker.conn for b in busy.values()}
         for at in range(len(self._workers)):
             if not queue:
@@ -166,17 +170,11 @@ class WorkerExecutor:
                 self._workers[at].conn.send(message)
             deadline = time.monotonic() + _clock_bound(bounded.seconds) if bounded else float("inf")
             busy[self._workers[at].conn] = _Busy(self._workers[at], i, deadline)
-        del items
 
-    def _results(
-        self,
-        fn: Callable[[T], R],
-        items: list[T],
-        queue: deque[tuple[int, T]],
-        busy: dict[Connection, _Busy],
-        bounded: Bounded[T, R] | None,
-    ) -> Iterator[tuple[int, R]]:
+    def _results(self, work: _Run[T, R]) -> Iterator[tuple[int, R]]:
         from multiprocessing.connection import wait  # noqa: PLC0415
+
+        items, busy, bounded = work.items, work.busy, work.bounded
 
         while busy:
             soonest = min(b.deadline for b in busy.values())
@@ -214,7 +212,7 @@ class WorkerExecutor:
                     yield index, value
             # The next items start once the caller has taken these results: with one worker, items run in
             # order, one after the other's result was handled (as they would in this process).
-            self._feed(fn, items, queue, busy, bounded)
+            self._feed(work)
 
     def _grow(self, target: int) -> None:
         while len(self._workers) < target:
@@ -365,16 +363,12 @@ def _die_with_parent(parent: int) -> None:
     """Worker start-up: end this worker if the build that started it is killed (Linux ``PR_SET_PDEATHSIG``)."""
     if not sys.platform.startswith("linux"):
         return
-    import ctypes  # noqa: PLC0415
-    import signal  # noqa: PLC0415
+    from sitegen.clib import c_function  # noqa: PLC0415
 
-    try:
-        # The running program's own symbols include the C library's (ctypes.util.find_library would cost
-        # every worker ~10 ms of imports and a look at the linker cache).
-        prctl = ctypes.CDLL(None, use_errno=True).prctl
-        prctl(1, signal.SIGKILL, 0, 0, 0)  # PR_SET_PDEATHSIG = 1
-    except (OSError, AttributeError):
+    prctl = c_function("prctl")
+    if prctl is None:
         return
+    prctl(1, signal.SIGKILL, 0, 0, 0)  # PR_SET_PDEATHSIG = 1
     if os.getppid() != parent:  # the parent died before the signal was set up
         os._exit(1)
 

@@ -490,10 +490,9 @@ _DECIMAL_COMMA = re.compile(r"^[-+]?\d{1,3}(\.\d{3})*,\d+$|^[-+]?\d+,\d+$")
 _NUMBERISH = re.compile(r"^\s*$")
 
 
-def numeric_columns(table: Table, columns: list[str], name: str) -> tuple[Table, list[str]]:
+def numeric_columns(table: Table, columns: list[str], name: str) -> Table:
     """Coerce ``columns`` to float; non-numeric text is an error naming row and column."""
     out: dict[str, NDArray[np.float64]] = {}
-    notes: list[str] = []
     for col in columns:
         values = table[col]
         numbers, bad = to_float(values)
@@ -520,7 +519,7 @@ def numeric_columns(table: Table, columns: list[str], name: str) -> tuple[Table,
                 hint=hint,
             )
         out[col] = numbers
-    return from_columns(out, table.rows), notes
+    return from_columns(out, table.rows)
 
 
 def _missing(values: NDArray[Any]) -> NDArray[np.bool_]:
@@ -544,7 +543,7 @@ def build_design(formula: str, frame: Table | Any, name: str, extra: tuple[str, 
         _, _, intercept = _factor_codes(formula)
     except FormulaError as exc:
         raise FormulaError(f"{name}: {exc.message}", hint=exc.hint) from exc
-    numeric, _ = numeric_columns(table, list(used), name)
+    numeric = numeric_columns(table, list(used), name)
     for col in extra:
         if col not in columns:
             raise FormulaError(

@@ -247,16 +247,10 @@ def _read_owner(work: Path) -> int | None:
 
 def _exchange(a: Path, b: Path) -> bool:
     """Atomically exchange two paths with renameat2; False when the system cannot."""
-    import ctypes  # noqa: PLC0415 - only a swap needs it
-    import ctypes.util  # noqa: PLC0415
+    from sitegen.clib import c_function  # noqa: PLC0415
 
-    libc_name = ctypes.util.find_library("c")
-    if not libc_name:
-        return False
-    try:
-        libc = ctypes.CDLL(libc_name, use_errno=True)
-        renameat2 = libc.renameat2
-    except (OSError, AttributeError):
+    renameat2 = c_function("renameat2")
+    if renameat2 is None:
         return False
     at_fdcwd, rename_exchange = -100, 2
     res = renameat2(at_fdcwd, os.fsencode(a), at_fdcwd, os.fsencode(b), rename_exchange)

@@ -145,10 +145,6 @@ def recommended_line(lines: tuple[AltLine, ...], error_ratio: float, n: int) -> 
     )
 
 
-def _agreement(a: object) -> Agreement:
-    return Agreement(**asdict(a))  # type: ignore[call-overload]
-
-
 def comparison(
     design: Design,
     spec: DatasetSpec,
@@ -193,9 +189,9 @@ def comparison(
     agreement = agreement_percent = None
     if wants_agreement:
         try:
-            agreement = _agreement(difference_analysis(y, x, level=level))
+            agreement = difference_analysis(y, x, level=level)
             if spec.percent_differences:
-                agreement_percent = _agreement(difference_analysis(y, x, level=level, scale="percent"))
+                agreement_percent = difference_analysis(y, x, level=level, scale="percent")
         except (FitError, ArithmeticError) as exc:
             messages.append(Message("warning", f"the difference analysis could not be computed: {exc}"))
         if agreement is not None and agreement.trend_flag:
@@ -342,8 +338,7 @@ def choose_weights(design: Design, spec: DatasetSpec, line_x: str | None) -> Wei
     if spec.weighting != "choose":
         return Weighting(spec.weighting, weights_for(spec.weighting, x, y))
     choice = choose_weighting(x, y)
-    options = tuple(WeightingOption(**asdict(o)) for o in choice.options)
-    return Weighting(choice.chosen, weights_for(choice.chosen, x, y), options, choice.reason)
+    return Weighting(choice.chosen, weights_for(choice.chosen, x, y), choice.options, choice.reason)
 
 
 def calibration(
@@ -372,13 +367,13 @@ def calibration(
     x, y = pair
     back: tuple[ReadBackLevel, ...] = ()
     try:
-        back = tuple(ReadBackLevel(**asdict(r)) for r in read_back(x, y, intercept=beta[0], slope=beta[1]))
+        back = read_back(x, y, intercept=beta[0], slope=beta[1])
     except FitError as exc:
         messages.append(Message("warning", f"the standards could not be read back: {exc}"))
     linearity = None
     try:
         t = mandel_test(x, y, weights)
-        linearity = LinearityCheck(**asdict(t))
+        linearity = t
         if not t.linear:
             messages.append(Message("warning", t.text))
     except FitError as exc:

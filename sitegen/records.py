@@ -54,13 +54,6 @@ class InputStat(NamedTuple):
     device: int
 
 
-def _ints(value: Any, count: int) -> list[int] | None:
-    """``value`` when it is a JSON list of ``count`` whole numbers, else None."""
-    if isinstance(value, list) and len(value) == count and all(type(v) is int for v in value):
-        return value
-    return None
-
-
 def _texts(body: dict[str, Any], *keys: str) -> dict[str, str]:
     """The values of ``keys`` in ``body``, each a string; raises ValueError for a key missing or not text."""
     found = {k: body.get(k) for k in keys}
@@ -70,14 +63,16 @@ def _texts(body: dict[str, Any], *keys: str) -> dict[str, str]:
     return texts
 
 
+# A stat is read back as the list build.json holds, its length checked; its items are not (a site has thousands
+# of them, and a stat whose items are not the numbers measured simply never equals a measured one).
+
+
 def _file_stat_json(value: Any) -> FileStat | None:
-    ints = _ints(value, 4)
-    return None if ints is None else FileStat(*ints)
+    return FileStat._make(value) if type(value) is list and len(value) == 4 else None
 
 
 def _input_stat_json(value: Any) -> InputStat | None:
-    ints = _ints(value, 5)
-    return None if ints is None else InputStat(*ints)
+    return InputStat._make(value) if type(value) is list and len(value) == 5 else None
 
 
 def file_stat(path: Path) -> FileStat | None:
@@ -334,12 +329,10 @@ class BuildRecord:
         files, datasets, libraries = body.get("files"), body.get("datasets"), body.get("libraries")
         if not isinstance(files, dict) or not isinstance(datasets, list) or not isinstance(libraries, dict):
             raise ValueError("a build record lacks its datasets or files")
-        manifest: dict[str, FileStat] = {}
-        for name, value in files.items():
-            stat = _file_stat_json(value)
-            if stat is None:
-                raise ValueError("a build record's file manifest is garbled")
-            manifest[name] = stat
+        make = FileStat._make
+        manifest = {name: make(v) for name, v in files.items() if type(v) is list and len(v) == 4}
+        if len(manifest) != len(files):
+            raise ValueError("a build record's file manifest is garbled")
         text = _texts(body, "sitegen_version", "python", "built_at", "site_key", "title")
         budget = body.get("mail_budget_megabytes")
         if not isinstance(budget, int | float) or isinstance(budget, bool):

@@ -254,29 +254,21 @@ def judge(report: FitReport, spec: RequirementSpec | None, ev: Evidence) -> tupl
             if report.weights:
                 text = text[:-1] + " (R² of the weighted fit)."
             out.append(Requirement("min_r_squared", met, r2, spec.min_r_squared, text, LABELS["min_r_squared"]))
-    if spec.slope_within is not None:
-        out.append(_window("slope_within", slope, spec.slope_within, what=term, lvl=lvl, unit="", why_missing=no_slope))
-    if spec.intercept_within is not None:
-        out.append(
-            _window(
-                "intercept_within", intercept, spec.intercept_within,
-                what="the intercept", lvl=lvl, unit=y_unit, why_missing=no_intercept,
-            )
-        )  # fmt: skip
-    if spec.slope_interval_includes is not None:
-        out.append(
-            _includes(
-                "slope_interval_includes", slope, spec.slope_interval_includes,
-                what=term, lvl=lvl, unit="", why_missing=no_slope,
-            )
-        )  # fmt: skip
-    if spec.intercept_interval_includes is not None:
-        out.append(
-            _includes(
-                "intercept_interval_includes", intercept, spec.intercept_interval_includes,
-                what="the intercept", lvl=lvl, unit=y_unit, why_missing=no_intercept,
-            )
-        )  # fmt: skip
+    # The criteria on the slope and the intercept, in the order the page lists them: (key, bounds declared, the
+    # coefficient, its name in the text, its unit, why it may be missing).
+    the_slope, the_intercept = (slope, term, "", no_slope), (intercept, "the intercept", y_unit, no_intercept)
+    for key, window, (coefficient, what, unit, why_missing) in (
+        ("slope_within", spec.slope_within, the_slope),
+        ("intercept_within", spec.intercept_within, the_intercept),
+    ):
+        if window is not None:
+            out.append(_window(key, coefficient, window, what=what, lvl=lvl, unit=unit, why_missing=why_missing))
+    for key, target, (coefficient, what, unit, why_missing) in (
+        ("slope_interval_includes", spec.slope_interval_includes, the_slope),
+        ("intercept_interval_includes", spec.intercept_interval_includes, the_intercept),
+    ):
+        if target is not None:
+            out.append(_includes(key, coefficient, target, what=what, lvl=lvl, unit=unit, why_missing=why_missing))
     if spec.max_residual_sd is not None:
         out.append(_residual_sd(report, spec.max_residual_sd, y_unit))
     out += _read_back(spec, ev, x_unit)

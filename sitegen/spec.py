@@ -362,12 +362,8 @@ def _requirements(v: object) -> RequirementSpec:
     for key, value in v.items():
         check = _REQUIREMENT_KEYS.get(key)
         if check is None:
-            hint = _closest(str(key), REQUIREMENT_KEYS)
-            raise _RequirementError(
-                f"[requirements] has unknown criterion '{key}'"
-                + (f"; did you mean '{hint}'?" if hint else "")
-                + f" The criteria are {', '.join(REQUIREMENT_KEYS)}."
-            )
+            text = unknown_key("[requirements]", str(key), _closest(str(key), REQUIREMENT_KEYS), what="criterion")
+            raise _RequirementError(f"{text} (the criteria are {', '.join(REQUIREMENT_KEYS)})")
         try:
             values[key] = check(value)
         except _BadValueError as exc:
@@ -413,6 +409,13 @@ _KEYS: Mapping[str, Callable[[object], Any]] = {
 }
 SIDECAR_KEYS = tuple(sorted(_KEYS))
 assert set(_KEYS) == {f.name for f in fields(DatasetSpec)} - {"unknown_keys"}
+
+
+def unknown_key(where: str, key: str, hint: str | None, *, what: str = "key", ending: str = "") -> str:
+    """The one wording for a key sitegen does not know: ``WHERE: unknown WHAT 'KEY'ENDING; did you mean 'HINT'?``
+    (a key longer than 60 characters is cut)."""
+    shown = key if len(key) <= 60 else key[:57] + "..."
+    return f"{where}: unknown {what} '{shown}'{ending}" + (f"; did you mean '{hint}'?" if hint else "")
 
 
 def _closest(word: str, choices: tuple[str, ...] | list[str]) -> str | None:
@@ -614,9 +617,7 @@ def _unknown_site_keys(table: Mapping[str, object]) -> list[str]:
     strange = [key for key in table if key not in _SITE_KEYS]
     for key in strange[:MAX_UNKNOWN_SHOWN]:
         hint = (_closest(key, _SITE_KEYS) or _closest(key, SIDECAR_KEYS)) if len(key) <= 60 else None
-        tip = f"; did you mean '{hint}'?" if hint else ""
-        shown = key if len(key) <= 60 else key[:57] + "..."
-        warnings.append(f"site.toml: unknown key '{shown}' is ignored{tip}")
+        warnings.append(unknown_key("site.toml", key, hint, ending=" is ignored"))
     if len(strange) > MAX_UNKNOWN_SHOWN:
         warnings.append(f"site.toml: {len(strange) - MAX_UNKNOWN_SHOWN:,} more unknown keys are ignored")
     return warnings
@@ -662,8 +663,7 @@ def read_site_config(path: Path, root: Path | None = None) -> tuple[SiteConfig, 
     except SidecarError as exc:
         raise SiteConfigError(exc.message) from None
     warnings += [
-        f"site.toml [defaults]: unknown key '{k}' is ignored" + (f"; did you mean '{h}'?" if h else "")
-        for k, h in unknown[:MAX_UNKNOWN_SHOWN]
+        unknown_key("site.toml [defaults]", k, h, ending=" is ignored") for k, h in unknown[:MAX_UNKNOWN_SHOWN]
     ]
     if len(unknown) > MAX_UNKNOWN_SHOWN:
         warnings.append(f"site.toml [defaults]: {len(unknown) - MAX_UNKNOWN_SHOWN:,} more unknown keys are ignored")
@@ -701,8 +701,7 @@ def _read_limits(table: object) -> Limits:
         raise _site_error("[limits] must be a table")
     for key in table:
         if key not in _LIMIT_KEYS:
-            hint = _closest(key, _LIMIT_KEYS)
-            raise _site_error(f"[limits] has unknown key '{key}'" + (f"; did you mean '{hint}'?" if hint else ""))
+            raise _site_error(unknown_key("[limits]", key, _closest(key, _LIMIT_KEYS)))
     out: dict[str, Any] = {}
     for key in ("max_rows", "max_columns"):
         if key in table:

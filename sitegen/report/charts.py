@@ -164,23 +164,29 @@ def _sticks(alt: Any, x: Any, field: str, title: str) -> Any:
     return stick, y
 
 
+def _shaded(alt: Any, source: str, opacity: float, tooltip: list[Any]) -> Any:
+    """A band across the chart from ``low`` to ``high`` of the named data source, shaded."""
+    return (
+        alt.Chart(alt.Data(name=source))
+        .mark_rect(opacity=opacity)
+        .encode(y=alt.Y("low:Q"), y2="high:Q", tooltip=tooltip)
+    )
+
+
 RESIDUAL_TIPS = [("row", ""), ("x", "x"), ("fitted", "fitted"), ("residual", "residual")]
 
 
 def _across(alt: Any, along: str) -> Any:
     """Residuals in the response's units against x (or the fitted value), inside a band of ±2 s."""
     x = alt.X(f"{along}:Q", title=X_TITLE, scale=alt.Scale(zero=False, nice=False))
-    band = (
-        alt.Chart(alt.Data(name="scatter"))
-        .mark_rect(opacity=0.12)
-        .encode(
-            y=alt.Y("low:Q"),
-            y2="high:Q",
-            tooltip=[
-                alt.Tooltip("low:Q", title="−2 × scatter about the line", format=",.4~g"),
-                alt.Tooltip("high:Q", title="+2 × scatter about the line", format=",.4~g"),
-            ],
-        )
+    band = _shaded(
+        alt,
+        "scatter",
+        0.12,
+        [
+            alt.Tooltip("low:Q", title="−2 × scatter about the line", format=",.4~g"),
+            alt.Tooltip("high:Q", title="+2 × scatter about the line", format=",.4~g"),
+        ],
     )
     stick, y = _sticks(alt, x, "residual", Y_TITLE)
     pts = _point_mark(_points(alt)).encode(
@@ -366,18 +372,15 @@ def _differences(alt: Any) -> Any:
     and the limits of agreement as rules and their confidence intervals as shaded bands."""
     x = alt.X("mean:Q", title=X_TITLE, scale=alt.Scale(zero=False))
     y = alt.Y("diff:Q", title=Y_TITLE, scale=alt.Scale(zero=False))
-    bands = (
-        alt.Chart(alt.Data(name="rule_bands"))
-        .mark_rect(opacity=0.14)
-        .encode(
-            y=alt.Y("low:Q"),
-            y2="high:Q",
-            tooltip=[
-                alt.Tooltip("label:N", title="Interval of"),
-                alt.Tooltip("low:Q", title="low", format=",.4~g"),
-                alt.Tooltip("high:Q", title="high", format=",.4~g"),
-            ],
-        )
+    bands = _shaded(
+        alt,
+        "rule_bands",
+        0.14,
+        [
+            alt.Tooltip("label:N", title="Interval of"),
+            alt.Tooltip("low:Q", title="low", format=",.4~g"),
+            alt.Tooltip("high:Q", title="high", format=",.4~g"),
+        ],
     )
     zero = alt.Chart(alt.Data(name="zero")).mark_rule(strokeDash=[2, 3], opacity=0.6).encode(y="y:Q")
     rules = (

@@ -1,4 +1,5 @@
-"""The one place numbers are rounded for reading. Downloads keep full precision.
+"""Numbers rounded for reading on the pages, by the one rule of :mod:`sitegen.stats.text`. Downloads keep full
+precision.
 
 One rule for significant digits on every page, in sentences, cards, tables and intervals alike: measured
 quantities (estimates, intervals, fitted values, scatter, limits, bias) have 4 significant digits, trailing
@@ -10,7 +11,8 @@ from __future__ import annotations
 
 import math
 
-_SUPERSCRIPT = str.maketrans("-0123456789", "⁻⁰¹²³⁴⁵⁶⁷⁸⁹")
+from sitegen.stats.text import p_digits, p_text, significant
+
 MISSING = "—"
 
 
@@ -30,16 +32,7 @@ def num(x: object, digits: int = 4) -> str:
         return MISSING
     if isinstance(x, int):
         return f"{x:,}".replace("-", "−")
-    if v == 0:
-        return "0"
-    mag = math.floor(math.log10(abs(v)))
-    if -4 <= mag < 7:
-        decimals = max(digits - 1 - mag, 0)
-        text = f"{v:,.{decimals}f}"  # trailing zeros are significant digits: kept (one rule everywhere)
-    else:
-        mantissa, exponent = f"{v:.{digits - 1}e}".split("e")
-        text = f"{mantissa} × 10{str(int(exponent)).translate(_SUPERSCRIPT)}"
-    return text.replace("-", "−")
+    return significant(v, digits)
 
 
 def integer(x: object) -> str:
@@ -51,21 +44,13 @@ def integer(x: object) -> str:
 def pvalue(p: object) -> str:
     """A p-value as readers expect it: three significant digits (0.0496, 0.430), or "< 0.0001"."""
     v = _finite(p)
-    if v is None:
-        return MISSING
-    if v < 1e-4:
-        return "< 0.0001"
-    if v >= 1:
-        return "1"
-    decimals = 2 - math.floor(math.log10(v))
-    text = f"{v:.{decimals}f}"
-    return "1" if float(text) >= 1 else text
+    return MISSING if v is None else p_digits(v)
 
 
 def p_phrase(p: object) -> str:
     """ "p = 0.0496" or "p < 0.0001", for use in a sentence."""
-    text = pvalue(p)
-    return f"p {text}" if text.startswith("<") else f"p = {text}"
+    v = _finite(p)
+    return f"p = {MISSING}" if v is None else p_text(v)
 
 
 def percent(x: object, digits: int = 1) -> str:

@@ -47,66 +47,41 @@ CHART_IMAGES = {
     "chart-differences-percent.svg": "differences between the methods in percent of their mean",
 }
 
+
+def _site(name: str, writer: str, kind: Kind) -> OutputFile:
+    """A file of the site's top level (none is offered as a dataset's download)."""
+    return OutputFile(name, writer, "", "site", kind)
+
+
+def _table(name: str, description: str, pattern: str = "") -> OutputFile:
+    """A download of each dataset folder, written with the others by ``files.dataset_files``."""
+    return OutputFile(name, "files.dataset_files", description, "dataset", "data", pattern)
+
+
 OUTPUT_FILES: tuple[OutputFile, ...] = (
     # --- the site's top level
-    OutputFile("index.html", "pages.render_index", "", "site", "page"),
-    OutputFile("summary.csv", "files.summary_files", "", "site", "data"),
-    OutputFile("summary.json", "files.summary_files", "", "site", "data"),
-    OutputFile("summary.xlsx", "files.summary_files", "", "site", "data"),
-    OutputFile("history.json", "history.write", "", "site", "data"),
-    OutputFile("changes.json", "history.write", "", "site", "data"),
-    OutputFile("changes.html", "history.write", "", "site", "page"),
-    OutputFile("build.json", "build._Build._write_build_json", "", "site", "data"),
+    _site("index.html", "pages.render_index", "page"),
+    _site("summary.csv", "files.summary_files", "data"),
+    _site("summary.json", "files.summary_files", "data"),
+    _site("summary.xlsx", "files.summary_files", "data"),
+    _site("history.json", "history.write", "data"),
+    _site("changes.json", "history.write", "data"),
+    _site("changes.html", "history.write", "page"),
+    _site("build.json", "build._Build._write_build_json", "data"),
     # --- each dataset's folder, downloads in the order the page lists them
-    OutputFile("fit.json", "files.dataset_files", "every number on this page, at full precision", "dataset", "data"),
-    OutputFile(
-        "coefficients.csv",
-        "files.dataset_files",
-        "estimates with standard errors, tests and intervals",
-        "dataset",
-        "data",
-    ),
-    OutputFile(
-        "observations.csv",
-        "files.dataset_files",
-        "every row: data, fitted value, intervals and influence measures",
-        "dataset",
-        "data",
-    ),
-    OutputFile("anova.csv", "files.dataset_files", "the analysis of variance table", "dataset", "data"),
-    OutputFile("lines.csv", "files.dataset_files", "the other lines with their intervals", "dataset", "data"),
-    OutputFile("calibration.csv", "files.dataset_files", "inverse predictions with their intervals", "dataset", "data"),
-    OutputFile("predictions.csv", "files.dataset_files", "predicted values with their intervals", "dataset", "data"),
-    OutputFile(
-        "agreement.csv",
-        "files.dataset_files",
-        "the difference analysis: mean difference, limits of agreement and their intervals",
-        "dataset",
-        "data",
-    ),
-    OutputFile(
-        "bias.csv", "files.dataset_files", "the bias at each decision level with its interval", "dataset", "data"
-    ),
-    OutputFile(
-        "readback.csv",
-        "files.dataset_files",
-        "every calibration standard read back from the line",
-        "dataset",
-        "data",
-    ),
-    OutputFile(
-        "weighting.csv",
-        "files.dataset_files",
-        "the weightings compared and how well each reads the standards back",
-        "dataset",
-        "data",
-    ),
-    OutputFile(
-        "tables.xlsx", "files.dataset_files", "the tables above in one workbook, a sheet each", "dataset", "data"
-    ),
-    OutputFile(
-        "source-", "files.dataset_files", "the data file exactly as delivered", "dataset", "data", pattern=".csv"
-    ),
+    _table("fit.json", "every number on this page, at full precision"),
+    _table("coefficients.csv", "estimates with standard errors, tests and intervals"),
+    _table("observations.csv", "every row: data, fitted value, intervals and influence measures"),
+    _table("anova.csv", "the analysis of variance table"),
+    _table("lines.csv", "the other lines with their intervals"),
+    _table("calibration.csv", "inverse predictions with their intervals"),
+    _table("predictions.csv", "predicted values with their intervals"),
+    _table("agreement.csv", "the difference analysis: mean difference, limits of agreement and their intervals"),
+    _table("bias.csv", "the bias at each decision level with its interval"),
+    _table("readback.csv", "every calibration standard read back from the line"),
+    _table("weighting.csv", "the weightings compared and how well each reads the standards back"),
+    _table("tables.xlsx", "the tables above in one workbook, a sheet each"),
+    _table("source-", "the data file exactly as delivered", ".csv"),
     OutputFile("index.html", "jobs.write_page", "", "dataset", "page"),
     OutputFile(
         "chart-",

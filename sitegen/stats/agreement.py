@@ -27,45 +27,19 @@ pair whose mean is zero raise :class:`FitError`; a bad level raises ``ValueError
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 from typing import Literal
 
 import numpy as np
 from numpy.typing import NDArray
 
 from sitegen.errors import FitError
+from sitegen.model import Agreement
 from sitegen.stats.distributions import norm_ppf, t_ppf, t_sf
 
 __all__ = ["Agreement", "difference_analysis"]
 
 Scale = Literal["absolute", "percent"]
 LIMIT_SE_TEXT = "limits' intervals use SE ≈ √(3s²/n) (Bland & Altman 1986, 1999), t on n−1 df"
-
-
-@dataclass(frozen=True, slots=True)
-class Agreement:
-    """The difference analysis of one set of paired results."""
-
-    scale: Scale
-    n: int
-    mean_difference: float
-    mean_difference_ci_low: float
-    mean_difference_ci_high: float
-    sd_difference: float
-    limit_low: float
-    limit_high: float
-    limit_low_ci_low: float
-    limit_low_ci_high: float
-    limit_high_ci_low: float
-    limit_high_ci_high: float
-    limit_se: float
-    multiplier: float  # z of the limits (1.96 at 95 %)
-    trend_slope: float  # differences regressed on the pairs' means
-    trend_slope_ci_low: float
-    trend_slope_ci_high: float
-    trend_p_value: float
-    trend_flag: bool  # the slope differs from zero at the confidence level
-    method: str = LIMIT_SE_TEXT
 
 
 def differences(test: NDArray[np.float64], reference: NDArray[np.float64], scale: Scale) -> NDArray[np.float64]:
@@ -130,6 +104,7 @@ def difference_analysis(
         trend_slope_ci_high=slope_high,
         trend_p_value=p,
         trend_flag=bool(math.isfinite(p) and p < 1.0 - level),
+        method=LIMIT_SE_TEXT,
     )
 
 

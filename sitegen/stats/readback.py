@@ -37,6 +37,9 @@ import numpy as np
 from numpy.typing import NDArray
 
 from sitegen.errors import FitError
+from sitegen.model import LinearityCheck as LinearityTest
+from sitegen.model import ReadBackLevel as ReadBack
+from sitegen.model import WeightingOption
 from sitegen.stats.distributions import f_ppf, f_sf
 from sitegen.stats.solver import ops, residual_ss
 
@@ -57,53 +60,12 @@ WEIGHTINGS = ("none", "1/x", "1/x²", "1/y²")
 
 
 @dataclass(frozen=True, slots=True)
-class ReadBack:
-    """One standard level read back from the line."""
-
-    nominal: float
-    replicates: int
-    found: float  # mean of the replicates' read-back values
-    percent: float  # 100·(found − nominal)/nominal; NaN at a nominal value of 0
-    deviation: float  # found − nominal
-    found_each: tuple[float, ...]
-    percent_each: tuple[float, ...]
-
-
-@dataclass(frozen=True, slots=True)
-class WeightingOption:
-    """One candidate weighting and how well its line reads the standards back."""
-
-    weighting: str
-    slope: float
-    intercept: float
-    sum_abs_percent: float
-    max_abs_percent: float
-    chosen: bool
-
-
-@dataclass(frozen=True, slots=True)
 class WeightingChoice:
     """The candidates compared and the one chosen, with the reason in words."""
 
     options: tuple[WeightingOption, ...]
     chosen: str
     reason: str
-
-
-@dataclass(frozen=True, slots=True)
-class LinearityTest:
-    """Mandel's fitting test of the straight line against a quadratic."""
-
-    n: int
-    ssr_line: float
-    ssr_quadratic: float
-    statistic: float  # PG
-    df_den: int
-    critical: float
-    p_value: float
-    probability: float
-    linear: bool
-    text: str
 
 
 def weights_for(weighting: str, x: FloatArray, y: FloatArray) -> FloatArray | None:
