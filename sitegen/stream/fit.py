@@ -361,6 +361,7 @@ class _Setup:
     reading_weight: float
     t_cut: float
     cooks_cut: float
+    sha256: str  # of the file as the first pass read it
 
 
 def _skeleton(model: Model, first: _First) -> Design:
@@ -504,7 +505,8 @@ def _second_pass(src: Source, setup: _Setup, out: frozenset[int], sink: BinaryIO
         acc.density = np.zeros((derive.DENSITY_BINS, derive.DENSITY_BINS))
     scale_row = _as_row(o, o.of(solved.scale))
     rms = math.sqrt(setup.summary.ssr / setup.n) if setup.summary.ssr > 0 else 1.0
-    for raw in chunks(src, Pass()):
+    seen = Pass()
+    for raw in chunks(src, seen):
         cd = chunk_design(model, _leave_out(raw, out), setup.name)
         m = len(cd.rows)
         if m == 0:
@@ -531,6 +533,11 @@ def _second_pass(src: Source, setup: _Setup, out: frozenset[int], sink: BinaryIO
         _keep_chart_rows(acc, setup, rows)
         _count_bins(acc, setup, cd, rows)
         _check_sums(acc, setup, cd, r, resid, z, infl, rms)
+    if seen.sha256 != setup.sha256:
+        raise DataFileError(
+            f"{setup.name} changed while it was being read (between the two passes over it)",
+            hint="build again once the file is complete",
+        )
     return acc
 
 
@@ -1038,6 +1045,7 @@ def fit_in_chunks(  # noqa: PLR0917 - one dataset's inputs
         reading_weight=spec.reading_weight,
         t_cut=t_cut,
         cooks_cut=dist.f_ppf(0.5, p, n - p),
+        sha256=first.sha256,
     )
     written: tuple[str, ...] = ()
     if folder is not None:
