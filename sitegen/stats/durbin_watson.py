@@ -115,7 +115,7 @@ def residual_eigenvalues(q: FloatArray) -> FloatArray:
     inner.flat[1 :: m + 1] -= 1.0
     inner.flat[m :: m + 1] -= 1.0
     with _one_blas_thread():
-        values = np.linalg.eigvalsh(inner)  # ascending
+        values: FloatArray = np.linalg.eigvalsh(inner).astype(np.float64, copy=False)  # ascending
     if nu > m:  # p = 0: no direction of the design to remove, one eigenvalue of A is the zero of the constant
         return np.concatenate([np.zeros(nu - m), values])
     return values[m - nu :]
