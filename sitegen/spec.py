@@ -577,7 +577,7 @@ def read_sidecar(path: Path | None, defaults: Mapping[str, Any], display: str, r
 
 
 #: Files from this size on are read and fitted in chunks by default (measured: see README, "Files larger than memory").
-STREAM_ABOVE_MEGABYTES = 256.0
+STREAM_ABOVE_MEGABYTES = 200.0
 #: Rows per chunk of the chunked reader.
 STREAM_CHUNK_ROWS = 250_000
 

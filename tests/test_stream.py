@@ -219,3 +219,49 @@ def test_keys_a_chunked_fit_does_not_offer_are_named(tmp_path: Path) -> None:
     assert "'lines'" in text
     assert "'robust'" in text
     assert _fit(tmp_path / "site", "plain")["chunked"] is None  # the site's threshold: read whole
+
+
+def test_chunked_checks_meet_an_extended_precision_reference(tmp_path: Path) -> None:
+    # Reference: Breusch–Pagan (Koenker's n·R² of e² on [1, x]) and RESET (squared and cubed centred fitted
+    # values) by their textbook formulas in mpmath at 40 digits, independent of sitegen's solver. Both are
+    # small differences of large sums; the chunked path adds up the explained part directly.
+    mp = pytest.importorskip("mpmath")
+    mp.mp.dps = 40
+    data = tmp_path / "data"
+    data.mkdir()
+    _write_line(data / "line.csv", 8_000, seed=3)
+    (data / "line.toml").write_text('model = "y ~ x"\nstream_above_megabytes = 0\n', encoding="utf-8")
+    (data / "site.toml").write_text("[limits]\nstream_chunk_rows = 700\n", encoding="utf-8")
+    assert _build(data, tmp_path / "site") in (0, 1)
+    checks = {d["check"]: d for d in _fit(tmp_path / "site", "line")["diagnostics"]}
+    frame = pd.read_csv(data / "line.csv")
+    x = [mp.mpf(float(v)) for v in frame["x"]]
+    y = [mp.mpf(float(v)) for v in frame["y"]]
+    n = len(x)
+    one = [mp.mpf(1)] * n
+
+    def residuals(cols: list[list[Any]], target: list[Any]) -> list[Any]:
+        k = len(cols)
+        gram = mp.matrix(k, k)
+        rhs = mp.matrix(k, 1)
+        for i in range(k):
+            for j in range(k):
+                gram[i, j] = mp.fsum(u * v for u, v in zip(cols[i], cols[j], strict=True))
+            rhs[i] = mp.fsum(u * v for u, v in zip(cols[i], target, strict=True))
+        beta = mp.lu_solve(gram, rhs)
+        return [t - mp.fsum(beta[j] * cols[j][i] for j in range(k)) for i, t in enumerate(target)]
+
+    e = residuals([one, x], y)
+    ssr = mp.fsum(v * v for v in e)
+    u = [v * v for v in e]
+    mean_u = mp.fsum(u) / n
+    ru = residuals([one, x], u)
+    lm = n * (1 - mp.fsum(v * v for v in ru) / mp.fsum((v - mean_u) ** 2 for v in u))
+    fitted = [a - b for a, b in zip(y, e, strict=True)]
+    mean_f = mp.fsum(fitted) / n
+    z = [v - mean_f for v in fitted]
+    rest = mp.fsum(v * v for v in residuals([one, x, [v**2 for v in z], [v**3 for v in z]], y))
+    f_reset = ((ssr - rest) / 2) / (rest / (n - 4))
+    for check, ref in (("constant_variance", lm), ("curvature", f_reset)):
+        got = checks[check]["statistic"]
+        assert abs(got - ref) <= 1e-13 * abs(ref), (check, got, mp.nstr(ref, 17))
