@@ -1013,10 +1013,11 @@ def fit_in_chunks(  # noqa: PLR0917 - one dataset's inputs
     summary = _summary(model, solved, o, n, spec.level, solved.beta_s, solved.ssr)
     skeleton = _skeleton(model, first)
     x_col = derive.single_predictor(skeleton)
-    sample: frozenset[int] = frozenset(range(n))
     if n > MAX_CHART_POINTS:
         rng = np.random.default_rng(20240611)  # the whole-file path's sample (derive._chart_sample)
         sample = frozenset(int(v) for v in rng.choice(n, size=SAMPLE_POINTS, replace=False).tolist())
+    else:
+        sample = frozenset(range(n))
     density_range = None
     if x_col is not None:
         sx = first.data[x_col]
