@@ -901,7 +901,7 @@ def _observations(
     b = row_bands(fit, weights, reading_weight)
     cols: dict[str, NDArray[np.generic]] = {"row": design.rows}
     for v in design.variables:
-        cols[v] = design.data[v].astype(float)
+        cols[v] = design.data[v].astype(float, copy=False)  # written out, never changed
     if design.response not in cols:
         cols[design.response] = design.y
     if weights is not None:

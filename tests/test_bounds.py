@@ -12,6 +12,7 @@ from __future__ import annotations
 import io
 import os
 import time
+from dataclasses import fields
 from pathlib import Path
 
 import numpy as np
@@ -19,6 +20,7 @@ import pytest
 from test_corpus import build_case, expect, run
 
 from sitegen.cli import main
+from sitegen.spec import Limits
 from sitegen.executor import JOBS_PER_CORE, Bounded, Overrun, WorkerExecutor, default_jobs, make_executor
 
 
@@ -49,7 +51,32 @@ def test_a_fit_past_its_memory_bound_gets_an_error_page_and_the_others_build(tmp
         (data / "site.toml").write_text("[limits]\nmax_fit_megabytes = 100\n", encoding="utf-8")
 
     result, site, rows = build_case(tmp_path, prepare)
-    expect(result, site, rows, "large", "error", ("large.csv", "more than 100 MB", "[limits] max_fit_megabytes"))
+    size = (tmp_path / "data" / "large.csv").stat().st_size / 1e6
+    says = (
+        "large.csv",
+        f"a {size:,.1f} MB file",
+        "ran out of memory",
+        "more than 100 MB",
+        "[limits] max_fit_megabytes",
+    )
+    expect(result, site, rows, "large", "error", says)
+    assert "internal error" not in rows["large"]["message"]
+    if "stream_above_megabytes" in {f.name for f in fields(Limits)}:  # the chunked reader is named as the way out
+        assert "stream_above_megabytes" in rows["large"]["message"]
+
+
+def test_a_very_high_size_limit_reserves_nothing_up_front(tmp_path: Path) -> None:
+    """Reading asks for the file's size, never for the size limit: with a terabyte allowed per file and a
+    fit bound of 1,000 MB, a small file still builds (it used to fail when the limit was reserved up front)."""
+
+    def prepare(data: Path) -> None:
+        _large(data, 2_000)
+        (data / "site.toml").write_text(
+            "[limits]\nmax_megabytes = 1000000\nmax_fit_megabytes = 1000\n", encoding="utf-8"
+        )
+
+    result, site, rows = build_case(tmp_path, prepare)
+    expect(result, site, rows, "large", "ok", ())
 
 
 def test_a_failure_past_a_bound_is_kept_until_the_bound_changes(tmp_path: Path) -> None:
