@@ -88,7 +88,7 @@ def fit_overrun(job: FitJob, overrun: Overrun) -> FitDone:
         text = (
             f"fitting {name}{_size_of(job)} ran out of memory: it needed more than {limits.max_fit_megabytes:g} MB, "
             "the memory bound for one dataset ([limits] max_fit_megabytes in site.toml); the other datasets were "
-            f"built. {_memory_advice()}"
+            f"built. {_memory_advice(limits)}"
         )
     elif overrun == "lost":
         text = (
@@ -101,7 +101,7 @@ def fit_overrun(job: FitJob, overrun: Overrun) -> FitDone:
             f"fitting {name}{_size_of(job)} stopped: the process fitting it ended unexpectedly (the system may "
             "have run out of memory); the other datasets were built. Build again; if it happens again, lower "
             "[limits] max_fit_megabytes in site.toml below the memory this machine has free, so that the bound "
-            f"stops such a fit with this message instead, or leave the file out. {_memory_advice()}"
+            f"stops such a fit with this message instead, or leave the file out. {_memory_advice(limits)}"
         )
     shutil.rmtree(job.folder, ignore_errors=True)  # whatever the stopped fit had written
     return _finish(job, DatasetResult(error_report(job.source, text), None, transient=overrun == "lost"))
@@ -116,20 +116,15 @@ def _size_of(job: FitJob) -> str:
     return f" (a {size / 1e6:,.1f} MB file)" if size >= 100_000 else f" (a {size / 1e3:,.1f} kB file)"
 
 
-def _memory_advice() -> str:
+def _memory_advice(limits: Limits) -> str:
     """What to do about a dataset too large for its memory bound."""
-    from dataclasses import fields  # noqa: PLC0415
-
-    rule = (
-        f"A two-column fit in memory takes about {FIT_BASE_MEGABYTES:g} MB plus {FIT_BYTES_PER_ROW:g} bytes per row "
-        "(more with more model columns)"
+    return (
+        f"A two-column fit in memory takes about {FIT_BASE_MEGABYTES:g} MB plus {FIT_BYTES_PER_ROW:g} bytes per "
+        "row (more with more model columns). Have such a file read and fitted in chunks, with bounded memory: "
+        f"files above [limits] stream_above_megabytes (now {limits.stream_above_megabytes:g} MB) are; set it "
+        "below this file's size in site.toml (or stream_above_megabytes in its sidecar), or raise "
+        "max_fit_megabytes"
     )
-    if "stream_above_megabytes" in {f.name for f in fields(Limits)}:  # the chunked reader, where it exists
-        return (
-            f"{rule}: have such a file read and fitted in chunks, with bounded memory, by setting "
-            "[limits] stream_above_megabytes in site.toml below its size, or raise max_fit_megabytes"
-        )
-    return f"{rule}: raise max_fit_megabytes, or split the file"
 
 
 #: The measured memory of a fit in memory (two-column ``y ~ x``, bench/large.py): the README's rule.
