@@ -192,8 +192,6 @@ def compute(
     messages: list[Message] = []
     infl = influence(fit.q, fit.resid, fit.df_resid, weights=weights)
     flags = flag_points(infl, fit.n, len(fit.terms), designed=designed_rows(design, spec))
-    sw = np.ones(fit.n) if weights is None else np.sqrt(weights)
-    Xw = design.X * sw[:, None]
     checks = model_checks(
         design.X,
         design.y,
@@ -227,6 +225,8 @@ def compute(
         messages.append(Message("note", reading_weight_note(spec)))
     robust_se = None
     if spec.robust:
+        sw = np.ones(fit.n) if weights is None else np.sqrt(weights)
+        Xw = design.X * sw[:, None]
         cov = hc3_cov(Xw, fit.resid * sw, np.asarray(infl.leverage), fit.xtx_inv, xtx_root=fit.xtx_root, q=fit.q)
         robust_se = np.sqrt(np.clip(np.diag(cov), 0, None))
     claims = []
@@ -901,7 +901,7 @@ def _observations(
     b = row_bands(fit, weights, reading_weight)
     cols: dict[str, NDArray[np.generic]] = {"row": design.rows}
     for v in design.variables:
-        cols[v] = design.data[v].astype(float)
+        cols[v] = design.data[v].astype(float, copy=False)  # written out, never changed
     if design.response not in cols:
         cols[design.response] = design.y
     if weights is not None:

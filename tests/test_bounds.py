@@ -49,7 +49,32 @@ def test_a_fit_past_its_memory_bound_gets_an_error_page_and_the_others_build(tmp
         (data / "site.toml").write_text("[limits]\nmax_fit_megabytes = 100\n", encoding="utf-8")
 
     result, site, rows = build_case(tmp_path, prepare)
-    expect(result, site, rows, "large", "error", ("large.csv", "more than 100 MB", "[limits] max_fit_megabytes"))
+    size = (tmp_path / "data" / "large.csv").stat().st_size / 1e6
+    says = (
+        "large.csv",
+        f"a {size:,.1f} MB file",
+        "ran out of memory",
+        "more than 100 MB",
+        "[limits] max_fit_megabytes",
+    )
+    expect(result, site, rows, "large", "error", says)
+    assert "internal error" not in rows["large"]["message"]
+    assert "read and fitted in chunks" in rows["large"]["message"]
+    assert "[limits] stream_above_megabytes (now 200 MB)" in rows["large"]["message"]
+
+
+def test_a_very_high_size_limit_reserves_nothing_up_front(tmp_path: Path) -> None:
+    """Reading asks for the file's size, never for the size limit: with a terabyte allowed per file and a
+    fit bound of 1,000 MB, a small file still builds (it used to fail when the limit was reserved up front)."""
+
+    def prepare(data: Path) -> None:
+        _large(data, 2_000)
+        (data / "site.toml").write_text(
+            "[limits]\nmax_megabytes = 1000000\nmax_fit_megabytes = 1000\n", encoding="utf-8"
+        )
+
+    result, site, rows = build_case(tmp_path, prepare)
+    expect(result, site, rows, "large", "ok", ())
 
 
 def test_a_failure_past_a_bound_is_kept_until_the_bound_changes(tmp_path: Path) -> None:
