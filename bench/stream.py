@@ -1,12 +1,13 @@
 """Benchmark: files read and fitted in chunks (sitegen/stream), time and peak memory, and agreement with the
 whole-file fit.
 
-For each size a ``y ~ x`` CSV is made on the fly in a temporary folder (never stored; 100 M rows take about
-3.7 GB of disk, checked before it is written) and built with ``[limits] stream_above_megabytes = 0`` (every
-file read in chunks) and limits raised to fit the file. Prints, per size, the seconds by the clock, the peak
-memory of the build (its largest process, ``ru_maxrss``), and with ``--compare`` also the whole-file build's
-and the fewest significant digits on which the two agree over every number of ``fit.json`` and every cell of
-``observations.csv`` (per-row cells relative to the largest magnitude in their column).
+For each size a ``y ~ x`` CSV is made on the fly in a temporary folder and deleted afterwards (100 M rows take
+about 3.7 GB of disk and their observations.csv some 23 GB; the free space is checked first) and built with
+``[limits] stream_above_megabytes = 0`` (every file read in chunks) and limits raised to fit the file. Prints,
+per size, the seconds by the clock, the peak memory of the build (its largest process, ``ru_maxrss``), and
+with ``--compare`` also the whole-file build's and the fewest significant digits on which the two agree over
+every number of ``fit.json`` and every cell of ``observations.csv`` (per-row cells relative to the largest
+magnitude in their column).
 
 Usage: ``python bench/stream.py [--rows 1000000 10000000 100000000] [--compare] [--chunk-rows 250000]``.
 Goal (issue 18): 100 M rows within 2 GB peak memory; agreement ≥ 12 digits at 1 M rows.
@@ -32,6 +33,7 @@ _PEAK = (
     "print('%BENCH%',resource.getrusage(resource.RUSAGE_CHILDREN).ru_maxrss,r.returncode)"
 )
 _BYTES_PER_ROW = 37  # of the CSV written here
+_OBSERVATION_BYTES_PER_ROW = 230  # of observations.csv (14 columns of full-precision numbers)
 
 
 def make_csv(path: Path, rows: int, seed: int = 18) -> None:
@@ -135,7 +137,7 @@ def main() -> None:
     for rows in args.rows:
         tmp = Path(tempfile.mkdtemp(prefix="sitegen-stream-bench-"))
         try:
-            need = rows * _BYTES_PER_ROW * 3  # the CSV and two observations files
+            need = rows * (_BYTES_PER_ROW + _OBSERVATION_BYTES_PER_ROW * (2 if args.compare else 1))
             free = shutil.disk_usage(tmp).free
             if need > free:
                 print(f"{rows:>12,} skipped: needs about {need / 1e9:.1f} GB of disk, {free / 1e9:.1f} GB free")
