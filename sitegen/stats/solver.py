@@ -125,6 +125,7 @@ def _householder(o: Ops, A: Ext) -> tuple[Ext, list[Ext]]:
     """
     _, p = A.shape
     reflectors: list[Ext] = []
+    diagonal: dict[int, Any] = {}
     for k in range(p):
         v = A[k:, k].copy()
         alpha = o.sqrt(o.dot(v, v))
@@ -136,10 +137,17 @@ def _householder(o: Ops, A: Ext) -> tuple[Ext, list[Ext]]:
         w = o.dot(v, A[k:, k:]) * 2
         for j in range(k, p):
             A[k:, j] -= v * w[j - k]
-        reflectors.append(v)
+        if o.dd:  # a DD's slice is a copy: keep the reflector itself
+            reflectors.append(v)
+        else:  # as LAPACK does, the reflector takes the place of the column it emptied (R's diagonal aside)
+            diagonal[k] = A[k, k].copy()
+            A[k:, k] = v
+            reflectors.append(A[k:, k])
     R = A[:p, :p].copy()
     below = np.tril(np.ones((p, p), dtype=bool), -1)
     R[below] = 0
+    for k, value in diagonal.items():
+        R[k, k] = value
     return R, reflectors
 
 
