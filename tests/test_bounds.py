@@ -81,7 +81,7 @@ def test_a_failure_past_a_bound_is_kept_until_the_bound_changes(tmp_path: Path) 
     """A rebuild does not spend the bound again on the same input; raising the bound fits it again."""
     data = tmp_path / "data"
     data.mkdir()
-    _large(data, 100_000)
+    _large(data, 300_000)  # far above 20 MB to fit (100,000 rows now fit in about that)
     (data / "site.toml").write_text("[limits]\nmax_fit_megabytes = 20\n", encoding="utf-8")
     site = tmp_path / "site"
     assert run(data, site).code == 1
