@@ -292,7 +292,6 @@ def _serve(conn: Connection, parent: int) -> None:
     """A worker's life: run (function, item, bounds) messages until told to stop."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl+C is the build's to handle; it ends the workers
     _die_with_parent(parent)
-    _return_freed_memory()
     with contextlib.suppress(ImportError, OSError, ValueError):
         import resource  # noqa: PLC0415
 
@@ -372,26 +371,6 @@ def _die_with_parent(parent: int) -> None:
     prctl(1, signal.SIGKILL, 0, 0, 0)  # PR_SET_PDEATHSIG = 1
     if os.getppid() != parent:  # the parent died before the signal was set up
         os._exit(1)
-
-
-#: Allocations from this size up get pages of their own from the kernel (glibc's ``M_MMAP_THRESHOLD``).
-MMAP_FROM_BYTES = 1 << 20
-
-
-def _return_freed_memory() -> None:
-    """Worker start-up: make a large array's memory go back to the system as soon as it is freed.
-
-    glibc raises its threshold for such allocations whenever one is freed, after which arrays of a large
-    fit's size (8–32 MB at a million rows) are carved out of the heap and stay counted against the worker when
-    freed; fixing the threshold keeps the peak to what is alive (1 M rows: about 36 MB less).
-    """
-    if not sys.platform.startswith("linux"):
-        return
-    from sitegen.clib import c_function  # noqa: PLC0415
-
-    mallopt = c_function("mallopt")
-    if mallopt is not None:
-        mallopt(-3, MMAP_FROM_BYTES)  # M_MMAP_THRESHOLD = -3 (malloc.h)
 
 
 def default_jobs() -> int:

@@ -128,8 +128,8 @@ def _memory_advice(limits: Limits) -> str:
 
 
 #: The measured memory of a fit in memory (two-column ``y ~ x``, bench/large.py): the README's rule.
-FIT_BASE_MEGABYTES = 125
-FIT_BYTES_PER_ROW = 520
+FIT_BASE_MEGABYTES = 120
+FIT_BYTES_PER_ROW = 430
 
 
 def _finish(job: FitJob, result: DatasetResult) -> FitDone:

@@ -14,8 +14,11 @@ from typing import Any
 import numpy as np
 import pytest
 
+from sitegen.derive import replicated_settings
+from sitegen.formula import build_design
 from sitegen.stats import ext, solver
 from sitegen.stats.solver import Ops
+from sitegen.table import from_columns
 
 
 def _block_householder(o: Ops, A: Any) -> tuple[Any, list[Any]]:
@@ -82,3 +85,21 @@ def test_column_updates_equal_the_block_formulation_bit_for_bit(kind: str) -> No
         assert _same(solver._apply_q(o, refl_new, eye), _block_apply_q(o, refl_old, eye))
         z = o.of(np.linspace(-1, 1, X.shape[0]))
         assert _same(solver._apply_q(o, refl_new, z), solver._apply_q(o, refl_old, z))
+
+
+def test_replicated_settings_of_one_predictor_group_as_rows_do() -> None:
+    """One predictor's repeated settings are found by sorting its values; the row-wise grouping numpy does for
+    several columns (``np.unique(axis=0)``) is the reference, with repeats, a signed zero and a lone value."""
+    rng = np.random.default_rng(3)
+    x = np.concatenate([rng.choice([0.5, 1.0, 2.0, 4.0], 200), [-0.0, 0.0, 7.25, 1e-300, 3.0, 3.0]])
+    y = 2 * x + rng.normal(0, 0.1, len(x))
+    design = build_design("y ~ x", from_columns({"x": x, "y": y}), "r.csv")
+    _, inverse, counts = np.unique(design.X[:, [1]], axis=0, return_inverse=True, return_counts=True)
+    expected = counts[np.ravel(inverse)] > 1
+    got = replicated_settings(design)
+    assert np.array_equal(got, expected)
+    assert got[-6]  # -0.0 and 0.0 are the same setting
+    assert got[-5]
+    assert not got[-4]  # 7.25 and 1e-300 are alone
+    assert not got[-3]
+    assert got[-1]

@@ -125,6 +125,7 @@ def _householder(o: Ops, A: Ext) -> tuple[Ext, list[Ext]]:
     """
     _, p = A.shape
     reflectors: list[Ext] = []
+    diagonal: dict[int, Any] = {}
     for k in range(p):
         v = A[k:, k].copy()
         alpha = o.sqrt(o.dot(v, v))
@@ -135,18 +136,27 @@ def _householder(o: Ops, A: Ext) -> tuple[Ext, list[Ext]]:
         v = v / o.sqrt(o.dot(v, v))
         w = o.dot(v, A[k:, k:]) * 2
         for j in range(k, p):
-            A[k:, j] = A[k:, j] - v * w[j - k]
-        reflectors.append(v)
+            A[k:, j] -= v * w[j - k]
+        if o.dd:  # a DD's slice is a copy: keep the reflector itself
+            reflectors.append(v)
+        else:  # as LAPACK does, the reflector takes the place of the column it emptied (R's diagonal aside)
+            diagonal[k] = A[k, k].copy()
+            A[k:, k] = v
+            reflectors.append(A[k:, k])
     R = A[:p, :p].copy()
     below = np.tril(np.ones((p, p), dtype=bool), -1)
     R[below] = 0
+    for k, value in diagonal.items():
+        R[k, k] = value
     return R, reflectors
 
 
-def _apply_qt(o: Ops, reflectors: list[Ext], y: Ext) -> Ext:
-    y = y.copy()
+def _apply_qt(o: Ops, reflectors: list[Ext], y: Ext, *, in_place: bool = False) -> Ext:
+    """Q' y for a vector (``in_place``: overwriting ``y``, which the caller no longer needs)."""
+    if not in_place:
+        y = y.copy()
     for k, v in enumerate(reflectors):
-        y[k:] = y[k:] - v * (o.dot(v, y[k:]) * 2)
+        y[k:] -= v * (o.dot(v, y[k:]) * 2)
     return y
 
 
@@ -157,11 +167,11 @@ def _apply_q(o: Ops, reflectors: list[Ext], z: Ext, *, in_place: bool = False) -
     for k in range(len(reflectors) - 1, -1, -1):
         v = reflectors[k]
         if z.ndim == 1:
-            z[k:] = z[k:] - v * (o.dot(v, z[k:]) * 2)
+            z[k:] -= v * (o.dot(v, z[k:]) * 2)
         else:
             w = o.dot(v, z[k:]) * 2
             for j in range(z.shape[1]):
-                z[k:, j] = z[k:, j] - v * w[j]
+                z[k:, j] -= v * w[j]
     return z
 
 
@@ -197,10 +207,13 @@ def _refine_augmented(  # noqa: PLR0917 - the factorisation's pieces
         f = y - r - o.dot(Xs, b)
         g = -o.dot(Xs.T, r)
         h = _forward_substitute_transposed(o, R, g)
-        d = _apply_qt(o, refl, f)
+        d = _apply_qt(o, refl, f, in_place=True)
+        del f
         db = _back_substitute(o, R, d[:p] - h)
         top = o.concat([h, d[p:]])
-        r = r + _apply_q(o, refl, top)
+        del d
+        r = r + _apply_q(o, refl, top, in_place=True)
+        del top
         b = b + db
         # settled: the last correction is below the arithmetic's own rounding of b
         if float(np.max(np.abs(o.f(db)))) <= o.eps * float(np.max(np.abs(o.f(b)))):
