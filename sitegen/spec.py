@@ -531,6 +531,8 @@ def validate_keys(table: Mapping[str, object], where: str) -> tuple[dict[str, An
         if check is None:
             shown = key if len(key) <= 60 else key[:57] + "..."
             hint = _closest(key, SIDECAR_KEYS) if len(key) <= 60 else None
+            if key == "limits":  # site.toml's table; the one limit a sidecar may set stands at its top level
+                hint = "stream_above_megabytes"
             if hint == "requirements":  # a misspelt [requirements] would drop every criterion without a word
                 raise SidecarError(
                     f"{where}: unknown key '{shown}' looks like a misspelt 'requirements'; its acceptance "

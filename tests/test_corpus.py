@@ -310,6 +310,13 @@ CASES = (
         ("latin1_sidecar.toml is not UTF-8", "save it as UTF-8"),
     ),
     Case("unknown_sidecar_key", "typo", "warn", ("unknown sidecar key 'titel'", "did you mean 'title'?")),
+    # site.toml's [limits] table written in a sidecar: the one limit a sidecar may set is named
+    Case(
+        "limits_table_in_sidecar",
+        "big-log",
+        "warn",
+        ("unknown sidecar key 'limits'", "did you mean 'stream_above_megabytes'?"),
+    ),
     Case(
         "wrong_value_type",
         "wrong-type",
