@@ -10,26 +10,21 @@ opened in Debian's Chromium. The expected orders are computed here from each dat
 from __future__ import annotations
 
 import json
-from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 import pytest
+from conftest import BROWSER_MARKS
 from nist_data import load_nist
 
 from sitegen.cli import main
 from sitegen.report.pages import INDEX_WINDOW
 
-CHROMIUM = Path("/usr/bin/chromium")
 FOLDERS = {"alpha": 120, "beta": 90, "gamma": 20}  # the window of 200 ends inside beta; gamma is all beyond it
 COUNT = sum(FOLDERS.values())
 
-pytestmark = [
-    pytest.mark.browser,
-    pytest.mark.skipif(not CHROMIUM.is_file(), reason="Debian's Chromium is not at /usr/bin/chromium"),
-]
-sync_api = pytest.importorskip("playwright.sync_api", reason="Playwright for Python is not installed")
+pytestmark = BROWSER_MARKS
 
 
 @pytest.fixture(scope="module")
@@ -63,18 +58,8 @@ def slopes(site: Path) -> dict[str, float]:
     return out
 
 
-@pytest.fixture(scope="module")
-def chromium() -> Iterator[Any]:
-    with sync_api.sync_playwright() as p:
-        browser = p.chromium.launch(executable_path=str(CHROMIUM), headless=True)
-        try:
-            yield browser
-        finally:
-            browser.close()
-
-
-def _open(chromium: Any, site: Path, width: int = 1280, scripts: bool = True) -> Any:
-    ctx = chromium.new_context(viewport={"width": width, "height": 900}, java_script_enabled=scripts)
+def _open(browser: Any, site: Path, width: int = 1280, scripts: bool = True) -> Any:
+    ctx = browser.new_context(viewport={"width": width, "height": 900}, java_script_enabled=scripts)
     page = ctx.new_page()
     page.goto((site / "index.html").as_uri())
     return page
@@ -96,9 +81,9 @@ def _page_order() -> list[str]:
     return [f"Norris part {i}" for i in range(COUNT)]  # folders and files in name order, as the page lists them
 
 
-def test_the_page_lays_out_only_the_first_rows_and_offers_the_rest(chromium: Any, site: Path) -> None:
+def test_the_page_lays_out_only_the_first_rows_and_offers_the_rest(browser: Any, site: Path) -> None:
     assert INDEX_WINDOW == 200 < COUNT
-    page = _open(chromium, site)
+    page = _open(browser, site)
     try:
         assert _titles(page) == _page_order()[:INDEX_WINDOW]
         assert page.evaluate("document.querySelectorAll('#datasets tbody tr:not(.group-row)').length") == INDEX_WINDOW
@@ -116,9 +101,9 @@ def test_the_page_lays_out_only_the_first_rows_and_offers_the_rest(chromium: Any
 
 
 def test_sorting_and_filtering_reach_rows_beyond_the_first_200(
-    chromium: Any, site: Path, slopes: dict[str, float]
+    browser: Any, site: Path, slopes: dict[str, float]
 ) -> None:
-    page = _open(chromium, site)
+    page = _open(browser, site)
     try:
         ranked = sorted(slopes, key=lambda t: (slopes[t], _page_order().index(t)))
         beyond = set(_page_order()[INDEX_WINDOW:])
@@ -141,8 +126,8 @@ def test_sorting_and_filtering_reach_rows_beyond_the_first_200(
         page.context.close()
 
 
-def test_rows_from_beyond_the_window_are_cards_on_a_phone(chromium: Any, site: Path) -> None:
-    page = _open(chromium, site, width=390)
+def test_rows_from_beyond_the_window_are_cards_on_a_phone(browser: Any, site: Path) -> None:
+    page = _open(browser, site, width=390)
     try:
         page.fill("form.filters input[name=q]", "norris part 229")
         label = page.evaluate(
@@ -156,8 +141,8 @@ def test_rows_from_beyond_the_window_are_cards_on_a_phone(chromium: Any, site: P
         page.context.close()
 
 
-def test_without_scripts_every_row_is_shown_in_two_tables(chromium: Any, site: Path) -> None:
-    page = _open(chromium, site, scripts=False)
+def test_without_scripts_every_row_is_shown_in_two_tables(browser: Any, site: Path) -> None:
+    page = _open(browser, site, scripts=False)
     try:
         assert _titles(page) == _page_order()[:INDEX_WINDOW]
         assert _titles(page, "#datasets-rest") == _page_order()[INDEX_WINDOW:]
