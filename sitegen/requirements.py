@@ -218,11 +218,11 @@ def _bias_limit(rule: BiasLimit, at: float) -> float:
 def _limit_words(rule: BiasLimit, at: float, y_unit: str) -> str:
     if rule.limit is not None and rule.limit_percent is not None:
         return (
-            f"{num(_bias_limit(rule, at))}{y_unit} (the larger of {given(rule.limit)}{y_unit} and "
+            f"{given(_bias_limit(rule, at))}{y_unit} (the larger of {given(rule.limit)}{y_unit} and "
             f"{given(rule.limit_percent)} % of the level)"
         )
     if rule.limit_percent is not None:
-        return f"{num(_bias_limit(rule, at))}{y_unit} ({given(rule.limit_percent)} % of the level)"
+        return f"{given(_bias_limit(rule, at))}{y_unit} ({given(rule.limit_percent)} % of the level)"
     return f"{given(rule.limit)}{y_unit}"
 
 

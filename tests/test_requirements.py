@@ -262,6 +262,8 @@ def test_bias_at_levels_matches_statsmodels_prediction(tmp_path: Path) -> None:
         assert q["met"] is bool(abs(bias) <= allowed)
         verdicts.append(q["met"])
     assert "outside the data" in str(got["max_bias@10.0"]["text"])
+    # The allowed bias is made of declared numbers, so it reads as written (0.5, not 0.5000).
+    assert "±0.5 mg/L (the larger of 0.1 mg/L and 5 % of the level)" in str(got["max_bias@10.0"]["text"])
     assert code == (0 if all(verdicts) else 3)
 
 

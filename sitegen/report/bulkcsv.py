@@ -33,6 +33,15 @@ if TYPE_CHECKING:
 CHUNK_ROWS = 65_536  # rows formatted at a time: about 17 MB of text for 14 columns
 _POSITIONAL_LOW = 1e-4  # repr writes magnitudes in [1e-4, 1e16) without an exponent
 _POSITIONAL_HIGH = 1e16
+# Powers of ten as Python parses them (correctly rounded): numpy's array power is not (numpy 2.4 gives
+# 10.0 ** -5 as 9.999999999999999e-06), and this writer places a value by comparing it with them.
+_POW10_LOW = -400
+_POW10 = np.array([float(f"1e{k}") for k in range(_POW10_LOW, 401)])
+
+
+def _pow10(k: np.ndarray[Any, Any] | int) -> np.ndarray[Any, Any]:
+    """10^k, correctly rounded, for integer ``k`` (0 below 1e-400, inf above 1e400)."""
+    return np.asarray(_POW10[np.clip(np.asarray(k, dtype=np.int64) - _POW10_LOW, 0, _POW10.size - 1)])
 
 
 def can_write(values: Sequence[np.ndarray[Any, Any]]) -> bool:
@@ -66,7 +75,7 @@ def _arrow_positional() -> tuple[int, int]:
     import pyarrow.compute as pc  # noqa: PLC0415
 
     exps = list(range(-30, 31))
-    texts = pc.cast(pa.array([10.0**k for k in exps]), pa.string()).to_pylist()
+    texts = pc.cast(pa.array(_pow10(np.array(exps))), pa.string()).to_pylist()
     plain = [k for k, t in zip(exps, texts, strict=True) if "e" not in t]
     return min(plain), max(plain) + 1
 
@@ -87,7 +96,7 @@ def _floats(arr: np.ndarray[Any, Any]) -> pa.Array:
     with np.errstate(invalid="ignore"):
         mag = np.abs(values)
         nonzero = finite & (mag != 0)
-        arrow_plain = ~nonzero | ((mag >= 10.0**low) & (mag < 10.0**high))
+        arrow_plain = ~nonzero | ((mag >= _pow10(low)) & (mag < _pow10(high)))
         repr_plain = ~nonzero | ((mag >= _POSITIONAL_LOW) & (mag < _POSITIONAL_HIGH))
         integral = values == np.trunc(values)
     # both without an exponent: repr writes integral values with ".0", pyarrow without
@@ -103,8 +112,8 @@ def _floats(arr: np.ndarray[Any, Any]) -> pa.Array:
         if bool((mag[to_exp] >= 1).any()) or low < -9:
             raise ValueError("pyarrow writes floats in a form this writer does not know")  # not with 14–26
         exponent = np.floor(np.log10(mag[to_exp])).astype(np.int64)  # corrected against powers of ten:
-        exponent += (mag[to_exp] >= 10.0 ** (exponent + 1)).astype(np.int64)
-        exponent -= (mag[to_exp] < 10.0**exponent).astype(np.int64)
+        exponent += (mag[to_exp] >= _pow10(exponent + 1)).astype(np.int64)
+        exponent -= (mag[to_exp] < _pow10(exponent)).astype(np.int64)
         picked = pc.take(text, pa.array(np.flatnonzero(to_exp)))
         text = pc.replace_with_mask(text, pa.array(to_exp), _small_to_exponent(picked, exponent))
     # pyarrow with, repr without an exponent (from 1e10 on): repr itself
