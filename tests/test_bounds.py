@@ -34,12 +34,12 @@ def _large(data: Path, rows: int = 400_000) -> None:
 def test_a_fit_past_its_time_bound_gets_an_error_page_and_the_others_build(tmp_path: Path) -> None:
     def prepare(data: Path) -> None:
         _large(data)
-        (data / "site.toml").write_text("[limits]\nmax_fit_seconds = 2\n", encoding="utf-8")
+        (data / "site.toml").write_text("[limits]\nmax_fit_seconds = 0.5\n", encoding="utf-8")
 
     started = time.monotonic()
     result, site, rows = build_case(tmp_path, prepare)
     assert time.monotonic() - started < 60  # the fit alone would take several seconds of processor time
-    expect(result, site, rows, "large", "error", ("large.csv", "stopped after 2 s", "[limits] max_fit_seconds"))
+    expect(result, site, rows, "large", "error", ("large.csv", "stopped after 0.5 s", "[limits] max_fit_seconds"))
     assert not (site / "datasets" / "large" / "observations.csv").exists()  # nothing half-written is left
 
 
@@ -71,7 +71,7 @@ def test_watch_does_not_wedge_on_a_slow_dataset(tmp_path: Path) -> None:
     data = tmp_path / "data"
     data.mkdir()
     _large(data)
-    (data / "site.toml").write_text("[limits]\nmax_fit_seconds = 2\n", encoding="utf-8")
+    (data / "site.toml").write_text("[limits]\nmax_fit_seconds = 0.5\n", encoding="utf-8")
     stream = io.StringIO()
     started = time.monotonic()
     code = main(["watch", str(data), "-o", str(tmp_path / "site"), "--max-builds", "0"], stream=stream)
