@@ -42,6 +42,7 @@ class FitTask:
     source: DatasetSource
     defaults: tuple[tuple[str, Any], ...]
     limits: Limits
+    folder: Path | None = None  # the dataset's output folder: a file read in chunks writes observations.csv there
 
 
 @dataclass(frozen=True, slots=True)
@@ -52,6 +53,7 @@ class DatasetResult:
     observations: Observations | None
     debug_trace: str | None = None
     transient: bool = False  # the CSV or sidecar could not be read (an OSError): tried again, never kept
+    written: tuple[str, ...] = ()  # files already written into the dataset's folder (a fit made in chunks)
 
 
 def error_report(src: DatasetSource, text: str = "") -> FitReport:
@@ -79,22 +81,71 @@ def analyze(task: FitTask) -> DatasetResult:
         return _analyze(task)
 
 
+def _read_error(src: DatasetSource, base: FitReport, exc: OSError) -> DatasetResult:
+    import errno  # noqa: PLC0415
+
+    why = {
+        errno.ENAMETOOLONG: "its path is too long for the file system; move it to a folder with a shorter path",
+        errno.EACCES: "there is no permission to read it; ask for read access or move it",
+        errno.ELOOP: "it is a symbolic link that loops; remove or correct the link",
+    }.get(exc.errno or 0, "it may have been moved or deleted during the build")
+    msg = f"{src.relpath} cannot be read: {exc.strerror or exc} ({why})"
+    return DatasetResult(replace(base, messages=(Message("error", msg),)), None, transient=True)
+
+
+def _in_chunks(task: FitTask, base: FitReport) -> DatasetResult | None:
+    """The dataset fitted in chunks when its file is at least ``stream_above_megabytes`` (the site's, or its
+    sidecar's); None when it is to be read whole (or its sidecar cannot be read: the whole-file path says why)."""
+    from sitegen.stream.reader import file_size  # noqa: PLC0415
+
+    src = task.source
+    sidecar_name = src.relpath[: -len(".csv")] + ".toml"
+    try:
+        size = file_size(src.csv_path, src.root, src.relpath)
+    except (OSError, DatasetError):
+        return None  # the whole-file path reports it in its words
+    spec = None
+    try:
+        spec = read_sidecar(src.sidecar_path, dict(task.defaults), sidecar_name, src.root)
+    except DatasetError:
+        return None
+    threshold = task.limits.stream_above_megabytes
+    if spec.stream_above_megabytes is not None:
+        threshold = spec.stream_above_megabytes  # the sidecar's, for its dataset
+    if size < threshold * 1e6:
+        return None
+    try:
+        base = replace(
+            base,
+            title=spec.title or base.title,
+            description=spec.description,
+            tags=spec.tags,
+            level=spec.level,
+            units=spec.units,
+            responsible=_responsible(spec),
+        )
+        from sitegen.stream.fit import fit_in_chunks  # noqa: PLC0415
+
+        done = fit_in_chunks(base, spec, task.limits, src.csv_path, src.root, task.folder, threshold)
+        return DatasetResult(done.report, None, written=done.written)
+    except OSError as exc:
+        return _read_error(src, base, exc)
+    except DatasetError as exc:
+        messages = [*_spec_messages(spec, sidecar_name), Message("error", str(exc))]
+        return DatasetResult(replace(base, messages=tuple(messages)), None)
+
+
 def _analyze(task: FitTask) -> DatasetResult:
     src = task.source
     title = Path(src.relpath).stem
     base = error_report(src)
+    chunked = _in_chunks(task, base)
+    if chunked is not None:
+        return chunked
     try:
         raw = read_source(src.csv_path, task.limits, src.relpath, src.root)  # refuses a file over the size limit unread
     except OSError as exc:
-        import errno  # noqa: PLC0415
-
-        why = {
-            errno.ENAMETOOLONG: "its path is too long for the file system; move it to a folder with a shorter path",
-            errno.EACCES: "there is no permission to read it; ask for read access or move it",
-            errno.ELOOP: "it is a symbolic link that loops; remove or correct the link",
-        }.get(exc.errno or 0, "it may have been moved or deleted during the build")
-        msg = f"{src.relpath} cannot be read: {exc.strerror or exc} ({why})"
-        return DatasetResult(replace(base, messages=(Message("error", msg),)), None, transient=True)
+        return _read_error(src, base, exc)
     except DatasetError as exc:
         return DatasetResult(replace(base, messages=(Message("error", str(exc)),)), None)
     base = replace(base, input_sha256=sha256_hex(raw))

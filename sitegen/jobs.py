@@ -65,7 +65,7 @@ def fit_job(job: FitJob) -> FitDone:
     """Worker: fit one dataset and write its downloads."""
     from sitegen.analyze import FitTask, analyze  # noqa: PLC0415
 
-    result = analyze(FitTask(job.source, job.defaults, job.limits))
+    result = analyze(FitTask(job.source, job.defaults, job.limits, job.folder))
     return _finish(job, result)
 
 
@@ -127,6 +127,7 @@ def _finish(job: FitJob, result: DatasetResult) -> FitDone:
     max_bytes = int(job.limits.max_megabytes * 1e6)
     report, obs = result.report, result.observations
     files = tuple(dataset_files(job.folder, report, obs, job.source, job.offer_source, max_bytes=max_bytes))
+    files = tuple(sorted({*files, *result.written}))
     # Chart images run a JavaScript engine that reserves far more address space than a fit's memory bound
     # allows: such pages are written in the build's page round, outside the bound.
     page = job.page if job.page is not None and not job.page.ctx.config.static_images else None

@@ -30,14 +30,16 @@ What the reader does with awkward files (documented for users in the README):
 from __future__ import annotations
 
 import codecs
+import contextlib
 import csv
 import io
 import os
 import re
 import warnings
+from collections.abc import Iterator
 from dataclasses import dataclass
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
@@ -284,6 +286,53 @@ def _is_number(text: str) -> bool:
 def read_table(raw: bytes, spec: DatasetSpec, limits: Limits, name: str) -> LoadedTable:
     """Parse CSV bytes into a :class:`LoadedTable` or raise a :class:`DataFileError`."""
     _check_size(len(raw), limits, name)
+    raw, layout = read_layout(raw, spec, limits, name)
+    notes = list(layout.notes)
+    how = _Layout(layout.delimiter, layout.decimal, layout.encoding, layout.skip)
+    table = _body(
+        raw, list(layout.header), how, trailing_blank=layout.trailing_blank, notes=notes, name=name, limits=limits
+    )
+    if len(table.names) > limits.max_columns:
+        raise DataLimitError(
+            f"{name} has {len(table.names):,} columns, over the limit of {limits.max_columns:,}",
+            hint="raise [limits] max_columns in site.toml if tables this wide are expected",
+        )
+    if len(table) == 0:
+        raise DataFileError(f"{name} has a header but no data rows", hint="add data rows below the header")
+    if len(table) > limits.max_rows:
+        raise DataLimitError(
+            f"{name} has more than {limits.max_rows:,} data rows, the limit",
+            hint="raise [limits] max_rows in site.toml if tables this long are expected",
+        )
+    return LoadedTable(
+        table=table,
+        delimiter=layout.delimiter,
+        decimal=layout.decimal,
+        encoding=layout.wide or layout.encoding,
+        notes=tuple(notes),
+    )
+
+
+@dataclass(frozen=True, slots=True)
+class FileLayout:
+    """How a CSV file is written, decided from its start: what both the whole-file and the chunked reader use."""
+
+    delimiter: str
+    decimal: str
+    encoding: str  # the codec the text is read with
+    skip: int  # lines before the header (a ``sep=`` line)
+    header: tuple[str, ...]  # the header's fields as written
+    trailing_blank: int  # unnamed columns that end the header
+    notes: tuple[str, ...]
+    wide: str | None  # UTF-16/UTF-32 the file was converted from, if it was
+
+
+def read_layout(raw: bytes, spec: DatasetSpec, limits: Limits, name: str) -> tuple[bytes, FileLayout]:
+    """Check a file's bytes (or, for the chunked reader, its first bytes) and decide how it is written.
+
+    Returns the bytes to parse (converted to UTF-8 when the file was UTF-16/32, blank lines at the end dropped)
+    and the layout; raises :class:`DataFileError` for everything that cannot be a CSV table.
+    """
     if not raw.strip():
         raise DataFileError(
             f"{name} is empty" if not raw else f"{name} holds only blank lines",
@@ -332,21 +381,8 @@ def read_table(raw: bytes, spec: DatasetSpec, limits: Limits, name: str) -> Load
             hint=f"remove key 'delimiter' or set it to {_show_char(found)}",
         )
     trailing_blank = _check_header(header, name, limits, decimal)
-    how = _Layout(delimiter, decimal, encoding, skip)
-    table = _body(raw, header, how, trailing_blank=trailing_blank, notes=notes, name=name, limits=limits)
-    if len(table.names) > limits.max_columns:
-        raise DataLimitError(
-            f"{name} has {len(table.names):,} columns, over the limit of {limits.max_columns:,}",
-            hint="raise [limits] max_columns in site.toml if tables this wide are expected",
-        )
-    if len(table) == 0:
-        raise DataFileError(f"{name} has a header but no data rows", hint="add data rows below the header")
-    if len(table) > limits.max_rows:
-        raise DataLimitError(
-            f"{name} has more than {limits.max_rows:,} data rows, the limit",
-            hint="raise [limits] max_rows in site.toml if tables this long are expected",
-        )
-    return LoadedTable(table=table, delimiter=delimiter, decimal=decimal, encoding=wide or encoding, notes=tuple(notes))
+    layout = FileLayout(delimiter, decimal, encoding, skip, tuple(header), trailing_blank, tuple(notes), wide)
+    return raw, layout
 
 
 @dataclass(frozen=True, slots=True)
@@ -495,9 +531,29 @@ def _drop_unnamed(frame: pd.DataFrame, header: list[str], trailing: int, name: s
     return frame.iloc[:, :first], trailing
 
 
-def _parse(
-    raw: bytes, delimiter: str, decimal: str, encoding: str, name: str, *, skip: int, max_rows: int
-) -> pd.DataFrame:
+def pandas_options(delimiter: str, decimal: str, encoding: str, *, skip: int) -> dict[str, Any]:
+    """The options of pandas' C reader for a file of this layout (the whole-file and the chunked reader)."""
+    return {
+        "sep": delimiter,
+        "decimal": decimal,
+        # With a decimal comma, a point can only group thousands (1.234,5).
+        "thousands": "." if decimal == "," and delimiter != "." else None,
+        "encoding": encoding,
+        "encoding_errors": "replace",
+        "skip_blank_lines": False,
+        "skipinitialspace": True,
+        "skiprows": skip,
+        "index_col": False,
+        "engine": "c",
+    }
+
+
+@contextlib.contextmanager
+def pandas_errors(name: str, delimiter: str, skip: int) -> Iterator[None]:
+    """Translate the exceptions of pandas' reader inside the block into :class:`DataFileError` (chained).
+
+    Inside the block pandas' warning about a line with more fields than the header is an error.
+    """
     comma_hint = (
         "; a number written with a decimal comma in a comma-separated file counts as two fields — "
         'quote such numbers, or separate fields with ";" and set delimiter = ";" and decimal = "," '
@@ -511,22 +567,7 @@ def _parse(
         with warnings.catch_warnings():
             # pandas warns (and drops values) when the first data line has more fields than the header.
             warnings.simplefilter("error", pd.errors.ParserWarning)
-            frame = pd.read_csv(
-                io.BytesIO(raw),
-                sep=delimiter,
-                decimal=decimal,
-                # With a decimal comma, a point can only group thousands (1.234,5).
-                thousands="." if decimal == "," and delimiter != "." else None,
-                encoding=encoding,
-                encoding_errors="replace",
-                skip_blank_lines=False,
-                skipinitialspace=True,
-                skiprows=skip,
-                index_col=False,
-                nrows=max_rows + 1,
-                engine="c",
-                low_memory=False,
-            )
+            yield
     except pd.errors.EmptyDataError as exc:
         raise DataFileError(f"{name} has no columns", hint="export the data again with a header row") from exc
     except pd.errors.ParserWarning as exc:
@@ -546,6 +587,20 @@ def _parse(
         raise DataFileError(f"{name} cannot be parsed as a table: {detail}", hint=hint) from exc
     except (UnicodeError, ValueError, OverflowError) as exc:
         raise DataFileError(f"{name} cannot be read: {exc}") from exc
+
+
+def _parse(
+    raw: bytes, delimiter: str, decimal: str, encoding: str, name: str, *, skip: int, max_rows: int
+) -> pd.DataFrame:
+    import pandas as pd  # noqa: PLC0415 - only files that are not plain need it
+
+    with pandas_errors(name, delimiter, skip):
+        frame: pd.DataFrame = pd.read_csv(
+            io.BytesIO(raw),
+            **pandas_options(delimiter, decimal, encoding, skip=skip),
+            nrows=max_rows + 1,
+            low_memory=False,
+        )
     frame.columns = [str(c).strip() for c in frame.columns]
     return frame
 

@@ -72,6 +72,9 @@ class Diagnostic:
     text: str
     advice: str = ""
     rows: tuple[int, ...] = ()  # CSV rows concerned
+    #: how it was computed when the file was read in chunks: "streamed" (every row, one pass), "all rows"
+    #: (few enough rows to hold), "not computed" (it needs every row at once); "" when the file was read whole
+    basis: str = ""
 
 
 def check_warning(d: Diagnostic) -> Message:
@@ -310,6 +313,17 @@ class ChartData:
 
 
 @dataclass(frozen=True, slots=True)
+class Chunked:
+    """How a file too large to hold was read and fitted: in chunks of rows, in two passes (sitegen/stream)."""
+
+    megabytes: float  # the file's size
+    threshold_megabytes: float  # stream_above_megabytes that chose the chunked reading
+    chunk_rows: int
+    chunks: int
+    passes: int
+
+
+@dataclass(frozen=True, slots=True)
 class FitReport:
     """Everything known about one dataset after fitting: the contract's ``fit.json``."""
 
@@ -378,6 +392,7 @@ class FitReport:
     responsible: tuple[tuple[str, str], ...] = ()  # analyst, reviewer, method reference as declared
     pooled_contrast: bool = False  # per-group slopes differ: the pooled line is shown only as a contrast
     residual_sd_y: float | None = None  # weighted fits: the scatter of the plain residuals, in y units
+    chunked: Chunked | None = None  # the file was read and fitted in chunks (how), else None
 
     def first_message(self, *levels: Level) -> Message | None:
         """The first message of the first of ``levels`` that has one (e.g. the first error, else warning)."""

@@ -98,6 +98,8 @@ class DatasetSpec:
     analyst: str | None = None
     reviewer: str | None = None
     method_reference: str | None = None
+    # read and fit in chunks when the file has at least this many megabytes (None: site.toml's [limits])
+    stream_above_megabytes: float | None = None
     unknown_keys: tuple[tuple[str, str | None], ...] = field(default=(), compare=False)
 
 
@@ -138,6 +140,13 @@ def _positive(v: object) -> float:
     x = _number(v)
     if x <= 0:
         raise _BadValueError("a positive number")
+    return x
+
+
+def _not_negative(v: object) -> float:
+    x = _number(v)
+    if x < 0 or not math.isfinite(x):
+        raise _BadValueError("a number of megabytes, 0 or more (0: always read in chunks)")
     return x
 
 
@@ -406,6 +415,7 @@ _KEYS: Mapping[str, Callable[[object], Any]] = {
     "analyst": _opt_string,
     "reviewer": _opt_string,
     "method_reference": _opt_string,
+    "stream_above_megabytes": _not_negative,
 }
 SIDECAR_KEYS = tuple(sorted(_KEYS))
 assert set(_KEYS) == {f.name for f in fields(DatasetSpec)} - {"unknown_keys"}
@@ -572,6 +582,12 @@ def read_sidecar(path: Path | None, defaults: Mapping[str, Any], display: str, r
     return DatasetSpec(**values, unknown_keys=tuple(unknown))
 
 
+#: Files from this size on are read and fitted in chunks by default (measured: see README, "Files larger than memory").
+STREAM_ABOVE_MEGABYTES = 200.0
+#: Rows per chunk of the chunked reader.
+STREAM_CHUNK_ROWS = 250_000
+
+
 @dataclass(frozen=True, slots=True)
 class Limits:
     """Resource bounds for one CSV file."""
@@ -582,6 +598,9 @@ class Limits:
     max_fit_seconds: float = 600.0  # processor time one dataset's fit may take (3x that by the clock)
     max_fit_megabytes: float = 6000.0  # memory one dataset's fit may take beyond what its worker holds
     max_page_seconds: float = 60.0  # time (by the clock) one page of a user theme may take to render
+    #: a CSV file of at least this many megabytes is read and fitted in chunks (sitegen/stream); 0: always
+    stream_above_megabytes: float = STREAM_ABOVE_MEGABYTES
+    stream_chunk_rows: int = STREAM_CHUNK_ROWS  # rows read and fitted at a time when reading in chunks
 
 
 @dataclass(frozen=True, slots=True)
@@ -610,7 +629,16 @@ _SITE_KEYS = (
     "limits",
     "ignore",
 )
-_LIMIT_KEYS = ("max_megabytes", "max_rows", "max_columns", "max_fit_seconds", "max_fit_megabytes", "max_page_seconds")
+_LIMIT_KEYS = (
+    "max_megabytes",
+    "max_rows",
+    "max_columns",
+    "max_fit_seconds",
+    "max_fit_megabytes",
+    "max_page_seconds",
+    "stream_above_megabytes",
+    "stream_chunk_rows",
+)
 
 
 def _site_error(msg: str) -> SiteConfigError:
@@ -709,7 +737,14 @@ def _read_limits(table: object) -> Limits:
         if key not in _LIMIT_KEYS:
             raise _site_error(unknown_key("[limits]", key, _closest(key, _LIMIT_KEYS)))
     out: dict[str, Any] = {}
-    for key in ("max_rows", "max_columns"):
+    if "stream_above_megabytes" in table:
+        try:
+            out["stream_above_megabytes"] = _not_negative(table["stream_above_megabytes"])
+        except _BadValueError as exc:
+            raise _site_error(
+                f"[limits] key 'stream_above_megabytes' must be {exc}; got {_show(table['stream_above_megabytes'])}"
+            ) from None
+    for key in ("max_rows", "max_columns", "stream_chunk_rows"):
         if key in table:
             v = table[key]
             if isinstance(v, bool) or not isinstance(v, int) or v < 1:

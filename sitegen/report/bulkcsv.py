@@ -21,7 +21,7 @@ from __future__ import annotations
 import functools
 from collections.abc import Callable, Sequence
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, BinaryIO
 
 import numpy as np
 
@@ -187,19 +187,31 @@ def _header(columns: Sequence[str]) -> bytes:
 
 def write_csv(columns: Sequence[str], values: Sequence[np.ndarray[Any, Any]], path: Path) -> None:
     """Write the table to ``path`` chunk by chunk; the columns must pass :func:`can_write`."""
-    import pyarrow as pa  # noqa: PLC0415
-    import pyarrow.compute as pc  # noqa: PLC0415
-
     n = len(values[0]) if values else 0
     with path.open("wb") as fh:
         fh.write(_header(columns))
         for start in range(0, n, CHUNK_ROWS):
-            cells = [_column(arr[start : start + CHUNK_ROWS]) for arr in values]
-            if len(cells) == 1:  # the csv module writes a lone empty cell as ""
-                cells[0] = pc.if_else(pc.equal(cells[0], ""), '""', cells[0])
-            lines = pc.binary_join_element_wise(*cells, ",") if len(cells) > 1 else cells[0]
-            lines = pc.binary_join_element_wise(lines, pa.scalar(""), "\n")
-            fh.write(_text_bytes(lines))
+            write_rows(fh, [arr[start : start + CHUNK_ROWS] for arr in values])
+
+
+def write_header(fh: BinaryIO, columns: Sequence[str]) -> None:
+    """The header line of a table written by :func:`write_rows` (rows may then come a chunk at a time)."""
+    fh.write(_header(columns))
+
+
+def write_rows(fh: BinaryIO, values: Sequence[np.ndarray[Any, Any]]) -> None:
+    """Append rows (columns of equal length, passing :func:`can_write`) to a table being written."""
+    import pyarrow as pa  # noqa: PLC0415
+    import pyarrow.compute as pc  # noqa: PLC0415
+
+    n = len(values[0]) if values else 0
+    for start in range(0, n, CHUNK_ROWS):
+        cells = [_column(arr[start : start + CHUNK_ROWS]) for arr in values]
+        if len(cells) == 1:  # the csv module writes a lone empty cell as ""
+            cells[0] = pc.if_else(pc.equal(cells[0], ""), '""', cells[0])
+        lines = pc.binary_join_element_wise(*cells, ",") if len(cells) > 1 else cells[0]
+        lines = pc.binary_join_element_wise(lines, pa.scalar(""), "\n")
+        fh.write(_text_bytes(lines))
 
 
 def _text_bytes(lines: pa.Array) -> memoryview:

@@ -77,13 +77,19 @@ def influence(q: FloatArray, resid: FloatArray, df_resid: int, *, weights: Float
     e = whitened_residuals(resid, weights)
     if q.ndim != 2 or e.ndim != 1 or q.shape[0] != e.shape[0]:
         raise ValueError(f"q has shape {q.shape} but resid has shape {e.shape}")
-    n, p = q.shape
+    p = q.shape[1]
     h = np.einsum("ij,ij->i", q, q)
+    return influence_rows(h, e, float(e @ e), df_resid, p)
+
+
+def influence_rows(h: FloatArray, e: FloatArray, ssr: float, df_resid: int, p: int) -> Influence:
+    """The measures of some rows from their leverages ``h`` and (weighted) residuals ``e``, given the fit's
+    residual sum of squares ``ssr`` over all rows (so rows may come a chunk at a time)."""
+    n = len(h)
     nan = np.full(n, np.nan)
     with np.errstate(all="ignore"):
         defined = h <= LEVERAGE_ONE
         one_minus_h = np.where(defined, 1.0 - h, np.nan)
-        ssr = float(e @ e)
         s2 = ssr / df_resid if df_resid >= 1 else math.nan
         if s2 > 0 and math.isfinite(s2):
             standardized = e / np.sqrt(s2 * one_minus_h)

@@ -119,15 +119,59 @@ def fit_ols(
         tss = float(o.f(o.dot(w * dev, dev)))
     else:
         tss = float(o.f(o.dot(w * y, y)))
+    return with_inference(
+        OlsFit(
+            terms=terms,
+            beta=beta,
+            std_error=beta,
+            t_stat=beta,
+            p_value=beta,
+            ci_low=beta,
+            ci_high=beta,
+            xtx_inv=sol.xtx_inv,
+            xtx_root=sol.xtx_root,
+            n=n,
+            df_model=df_model,
+            df_resid=df_resid,
+            ssr=ssr,
+            tss=tss,
+            r_squared=0.0,
+            adj_r_squared=0.0,
+            sigma=0.0,
+            f_stat=0.0,
+            f_p_value=0.0,
+            fitted=fitted,
+            resid=resid,
+            leverage=sol.leverage,
+            q=sol.q,
+            effects=sol.effects,
+            condition=sol.condition,
+            level=level,
+            t_crit=0.0,
+            has_intercept=has_intercept,
+            beta_ext=sol.beta_ext,
+            root_ext=sol.root_ext,
+            resid_ext=resid_ext,
+            y_ext=y,
+        )
+    )
+
+
+def with_inference(fit: OlsFit) -> OlsFit:
+    """The fit with its classical inference (standard errors, t, p, intervals, R², F) computed from its
+    coefficients, (X'X)⁻¹, sums of squares and degrees of freedom (also for a fit made in chunks)."""
+    from dataclasses import replace  # noqa: PLC0415
+
+    beta, ssr, tss, df_resid, df_model = fit.beta, fit.ssr, fit.tss, fit.df_resid, fit.df_model
     sigma2 = ssr / df_resid
     sigma = float(np.sqrt(sigma2))
-    se = np.sqrt(np.clip(np.diag(sol.xtx_inv) * sigma2, 0, None))
+    se = np.sqrt(np.clip(np.diag(fit.xtx_inv) * sigma2, 0, None))
     with np.errstate(divide="ignore", invalid="ignore"):
         t_stat = np.where(se > 0, beta / se, np.where(beta == 0, np.nan, np.copysign(np.inf, beta)))
     p_value = 2 * dist.t_sf(np.abs(t_stat), df_resid)
-    t_crit = dist.t_ppf(0.5 + level / 2, df_resid)
+    t_crit = dist.t_ppf(0.5 + fit.level / 2, df_resid)
     r2 = 1 - _nan_div(ssr, tss) if tss > 0 else float("nan")
-    dof_total = n - 1 if has_intercept else n
+    dof_total = fit.n - 1 if fit.has_intercept else fit.n
     adj = 1 - (1 - r2) * dof_total / df_resid if tss > 0 else float("nan")
     if df_model > 0 and ssr > 0:
         f_stat = ((tss - ssr) / df_model) / sigma2
@@ -136,39 +180,19 @@ def fit_ols(
         f_stat, f_p = float("inf"), 0.0
     else:
         f_stat, f_p = float("nan"), float("nan")
-    return OlsFit(
-        terms=terms,
-        beta=beta,
+    return replace(
+        fit,
         std_error=se,
         t_stat=t_stat,
         p_value=p_value,
         ci_low=beta - t_crit * se,
         ci_high=beta + t_crit * se,
-        xtx_inv=sol.xtx_inv,
-        xtx_root=sol.xtx_root,
-        n=n,
-        df_model=df_model,
-        df_resid=df_resid,
-        ssr=ssr,
-        tss=tss,
         r_squared=r2,
         adj_r_squared=adj,
         sigma=sigma,
         f_stat=float(f_stat),
         f_p_value=f_p,
-        fitted=fitted,
-        resid=resid,
-        leverage=sol.leverage,
-        q=sol.q,
-        effects=sol.effects,
-        condition=sol.condition,
-        level=level,
         t_crit=t_crit,
-        has_intercept=has_intercept,
-        beta_ext=sol.beta_ext,
-        root_ext=sol.root_ext,
-        resid_ext=resid_ext,
-        y_ext=y,
     )
 
 
