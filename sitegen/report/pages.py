@@ -399,8 +399,11 @@ def _render(ctx: SiteContext, name: str, **values: Any) -> str:
     env = environment(ctx.theme)
     seconds = ctx.config.limits.max_page_seconds if ctx.theme.sandboxed else None
     try:
+        # Loaded (and compiled) before the bound starts: the bound is for rendering, and a page that stopped while
+        # its templates were compiling, on a busy machine, would not name the template line that runs too long.
+        template = env.get_template(name)
         with _time_bound(seconds):
-            html = env.get_template(name).render(**values)
+            html = template.render(**values)
         return _with_policy(html)
     except _Overtime as exc:
         where = _template_line(exc, env) or f"{name} (or a template it uses)"
