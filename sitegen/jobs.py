@@ -86,9 +86,9 @@ def fit_overrun(job: FitJob, overrun: Overrun) -> FitDone:
         )
     elif overrun == "memory":
         text = (
-            f"fitting {name} was stopped when it needed more than {limits.max_fit_megabytes:g} MB, the memory "
-            "bound for one dataset ([limits] max_fit_megabytes in site.toml); the other datasets were built. "
-            "Check the model formula and the file's size, or raise the bound if this much is expected"
+            f"fitting {name}{_size_of(job)} ran out of memory: it needed more than {limits.max_fit_megabytes:g} MB, "
+            "the memory bound for one dataset ([limits] max_fit_megabytes in site.toml); the other datasets were "
+            f"built. {_memory_advice(limits)}"
         )
     elif overrun == "lost":
         text = (
@@ -98,12 +98,38 @@ def fit_overrun(job: FitJob, overrun: Overrun) -> FitDone:
         )
     else:
         text = (
-            f"fitting {name} stopped: the process fitting it ended unexpectedly (the system may have run out of "
-            "memory); the other datasets were built. Build again; if it happens again, lower [limits] "
-            "max_fit_megabytes in site.toml or leave the file out"
+            f"fitting {name}{_size_of(job)} stopped: the process fitting it ended unexpectedly (the system may "
+            "have run out of memory); the other datasets were built. Build again; if it happens again, lower "
+            "[limits] max_fit_megabytes in site.toml below the memory this machine has free, so that the bound "
+            f"stops such a fit with this message instead, or leave the file out. {_memory_advice(limits)}"
         )
     shutil.rmtree(job.folder, ignore_errors=True)  # whatever the stopped fit had written
     return _finish(job, DatasetResult(error_report(job.source, text), None, transient=overrun == "lost"))
+
+
+def _size_of(job: FitJob) -> str:
+    """`` (a 19.6 MB file)``, the size of the dataset's file as it is now, or nothing if it cannot be seen."""
+    try:
+        size = job.source.csv_path.stat().st_size
+    except OSError:
+        return ""
+    return f" (a {size / 1e6:,.1f} MB file)" if size >= 100_000 else f" (a {size / 1e3:,.1f} kB file)"
+
+
+def _memory_advice(limits: Limits) -> str:
+    """What to do about a dataset too large for its memory bound."""
+    return (
+        f"A two-column fit in memory takes about {FIT_BASE_MEGABYTES:g} MB plus {FIT_BYTES_PER_ROW:g} bytes per "
+        "row (more with more model columns). Have such a file read and fitted in chunks, with bounded memory: "
+        f"files above [limits] stream_above_megabytes (now {limits.stream_above_megabytes:g} MB) are; set it "
+        "below this file's size in site.toml (or stream_above_megabytes in its sidecar), or raise "
+        "max_fit_megabytes"
+    )
+
+
+#: The measured memory of a fit in memory (two-column ``y ~ x``, bench/large.py): the README's rule.
+FIT_BASE_MEGABYTES = 120
+FIT_BYTES_PER_ROW = 430
 
 
 def _finish(job: FitJob, result: DatasetResult) -> FitDone:

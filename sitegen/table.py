@@ -45,7 +45,11 @@ class Table:
         return self.columns[self.names.index(name)]
 
     def take(self, keep: NDArray[Any]) -> Table:
-        """The rows selected by a boolean mask or an index array."""
+        """The rows selected by a boolean mask or an index array (this table itself when a mask keeps every row:
+        the columns are never written to, so they are shared rather than copied)."""
+        mask = np.asarray(keep)
+        if mask.dtype == np.bool_ and mask.shape == (len(self),) and bool(mask.all()):
+            return self
         return Table(self.names, tuple(c[keep] for c in self.columns), self.rows[keep])
 
     def assign(self, name: str, values: NDArray[Any]) -> Table:
@@ -118,7 +122,7 @@ def parse_number(text: str) -> float | None:
 def to_float(values: NDArray[Any]) -> tuple[NDArray[np.float64], NDArray[np.bool_]]:
     """(numbers, cells that hold text other than a number); empty and missing cells are NaN, not bad."""
     if values.dtype.kind in "fiub":
-        return values.astype(np.float64), np.zeros(values.shape, dtype=bool)
+        return values.astype(np.float64, copy=False), np.zeros(values.shape, dtype=bool)  # read, never written
     out = np.full(values.shape, np.nan)
     bad = np.zeros(values.shape, dtype=bool)
     for i, cell in enumerate(values.tolist()):

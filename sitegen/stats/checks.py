@@ -61,7 +61,7 @@ from sitegen.stats import distributions as dist
 from sitegen.stats import durbin_watson, ext
 from sitegen.stats.influence import LEVERAGE_ONE, Influence
 from sitegen.stats.shapiro import shapiro_wilk
-from sitegen.stats.solver import Ext, kind_of, ops, residual_ss, solve
+from sitegen.stats.solver import Ext, Ops, kind_of, ops, residual_ss, solve
 from sitegen.stats.text import minus, p_text
 
 FloatArray = NDArray[np.float64]
@@ -262,11 +262,20 @@ def _prepare(
     n, p = X.shape
     if len(terms) != p or not y.shape == e.shape == f.shape == (n,):
         raise ValueError(f"shapes do not match: X {X.shape}, {len(terms)} terms, y {y.shape}")
-    s = np.ones(n) if weights is None else np.sqrt(np.asarray(weights, dtype=np.float64))
     pre = precise if precise is not None else precise_inputs(X, y, e, f, terms=terms, weights=weights)
     o = ops()
-    s_ext = o.of(s) if weights is None else o.sqrt(o.of(np.asarray(weights, dtype=np.float64)))
-    ew_ext = pre.resid_ext * s_ext
+    if weights is None:
+        # Unweighted, √w is one in every row: read-only ones that take no memory per row, and the weighted
+        # residuals and response are the plain ones (a product by one is exact).
+        s: FloatArray = np.broadcast_to(np.float64(1.0), (n,))
+        s_ext = o.of(np.ones(n)) if o.dd else np.broadcast_to(np.longdouble(1.0), (n,))
+        ew_ext = pre.resid_ext * s_ext if o.dd else pre.resid_ext
+        yw = y
+    else:
+        s = np.sqrt(np.asarray(weights, dtype=np.float64))
+        s_ext = o.sqrt(o.of(np.asarray(weights, dtype=np.float64)))
+        ew_ext = pre.resid_ext * s_ext
+        yw = y * s
     q = pre.q
     icol = None
     if has_intercept and n > 0:
@@ -279,10 +288,10 @@ def _prepare(
         why = f"With {n} rows for {p} coefficients nothing is left over to judge the residuals."
     elif not math.isfinite(ssr):
         why = "Some residuals are not finite numbers, so they cannot be judged."
-    elif math.sqrt(ssr) <= _ZERO * float(np.linalg.norm(y * s)):
+    elif math.sqrt(ssr) <= _ZERO * float(np.linalg.norm(yw)):
         why = "The model passes through every point, so there is no scatter to examine."
     r = np.zeros((p, p))  # not used: the condition number comes from the solver
-    return _Data(X, s, y * s, ew, f, q, r, icol, tuple(terms), n, p, n - p, ssr, why, pre, s_ext, ew_ext)
+    return _Data(X, s, yw, ew, f, q, r, icol, tuple(terms), n, p, n - p, ssr, why, pre, s_ext, ew_ext)
 
 
 def _independent_columns(Z: FloatArray) -> NDArray[np.bool_]:
@@ -301,7 +310,7 @@ def _constant_variance(d: _Data) -> _Outcome:
         return "All residuals have the same size, so their scatter cannot change."
     cols = [o.of(np.ones(d.n)), *(d.ext.X_ext[:, j] for j in pred)]
     try:
-        lm, p = _breusch_pagan(d.ew_ext, cols)
+        lm, p = _breusch_pagan(d.ew_ext, list(cols))
     except FitError:
         # exactly dependent predictors (possible without an intercept): keep the independent ones
         Z = np.column_stack([np.ones(d.n), d.X[:, pred]])
@@ -327,13 +336,20 @@ def _breusch_pagan(e: Ext, cols: list[Ext]) -> tuple[float, float]:
     o = ops()
     u = e * e
     n = len(u)
-    Z = o.columns(cols)
-    ssr = residual_ss(Z, u, tuple(f"z{j}" for j in range(len(cols))))
+    k = len(cols)
+    ssr = residual_ss(_stacked(o, cols), u, tuple(f"z{j}" for j in range(k)))
     dev = u - o.dot(u, o.of(np.ones(n))) / n
     tss = float(o.f(o.dot(dev, dev)))
     r2 = 1 - ssr / tss if tss > 0 else 0.0
     lm = n * r2
-    return lm, dist.chi2_sf(lm, len(cols) - 1)
+    return lm, dist.chi2_sf(lm, k - 1)
+
+
+def _stacked(o: Ops, cols: list[Ext]) -> Ext:
+    """The columns as one matrix, emptying ``cols`` as they are copied in (each is freed once placed)."""
+    out = o.columns(cols)
+    cols.clear()
+    return out
 
 
 def dw_moments(q: FloatArray, df_resid: int) -> tuple[float, float]:
@@ -415,11 +431,13 @@ def _curvature(d: _Data) -> _Outcome:
         return "The fitted values are all equal, so there is no bend to look for."
     ze = ze / scale  # powers of the centred, scaled fitted values span the same space with the design
     new = [d.s_ext * ze * ze, d.s_ext * ze * ze * ze]
+    del ze, z
     # How many of the two new columns are new to the design (a rank decision, so float64 will do).
     A = np.column_stack([o.f(c) for c in new])
     W = A - d.q @ (d.q.T @ A)
     W -= d.q @ (d.q.T @ W)  # second pass for accuracy
     W /= np.linalg.norm(A, axis=0)
+    del A
     sv = np.linalg.svd(W, compute_uv=False)
     k = int(np.sum(sv > _RANK_TOL))
     if k == 0 or d.df - k < 1:
@@ -427,11 +445,14 @@ def _curvature(d: _Data) -> _Outcome:
         return f"The curvature test needs more data than this fit has ({why})."
     if k == 1:  # keep the power that adds more
         new = [new[int(np.argmax(np.linalg.norm(W, axis=0)))]]
-    Xw = d.ext.X_ext * d.s_ext[:, None]
-    aug = o.columns([*(Xw[:, j] for j in range(d.p)), *new])
+    del W
     yw = (d.ext.fitted_ext + d.ext.resid_ext) * d.s_ext
+    # The augmented design is handed over without a name here, so that the solver can free it once scaled
+    # (column j times s equals column j of X·diag(s), element by element).
+    cols = [*(d.ext.X_ext[:, j] * d.s_ext for j in range(d.p)), *new]
+    del new
     try:
-        rest = residual_ss(aug, yw, (*d.terms, *("z²", "z³")[:k]))
+        rest = residual_ss(_stacked(o, cols), yw, (*d.terms, *("z²", "z³")[:k]))
     except FitError:
         return "The curvature test needs more data than this fit has (too few distinct fitted values)."
     extra = max(d.ssr - rest, 0.0)
