@@ -265,3 +265,19 @@ def test_chunked_checks_meet_an_extended_precision_reference(tmp_path: Path) -> 
     for check, ref in (("constant_variance", lm), ("curvature", f_reset)):
         got = checks[check]["statistic"]
         assert abs(got - ref) <= 1e-13 * abs(ref), (check, got, mp.nstr(ref, 17))
+
+
+def test_the_threshold_keys_are_checked(tmp_path: Path, run_cli: Any) -> None:
+    data = tmp_path / "data"
+    data.mkdir()
+    _write_line(data / "a.csv", 50)
+    (data / "site.toml").write_text("[limits]\nstream_above_megabytes = -1\n", encoding="utf-8")
+    result = run_cli("build", data, "-o", tmp_path / "site", "-q")
+    assert result.code != 0
+    assert "[limits] key 'stream_above_megabytes' must be a number of megabytes, 0 or more" in result.output
+    (data / "site.toml").unlink()
+    (data / "a.toml").write_text('model = "y ~ x"\nstream_above_megabytes = "big"\n', encoding="utf-8")
+    assert run_cli("build", data, "-o", tmp_path / "site", "-q").code == 1
+    fit = _fit(tmp_path / "site", "a")
+    assert fit["status"] == "error"
+    assert "key 'stream_above_megabytes' must be a finite number" in fit["messages"][-1]["text"]

@@ -1013,10 +1013,11 @@ def fit_in_chunks(  # noqa: PLR0917 - one dataset's inputs
     summary = _summary(model, solved, o, n, spec.level, solved.beta_s, solved.ssr)
     skeleton = _skeleton(model, first)
     x_col = derive.single_predictor(skeleton)
-    sample: frozenset[int] = frozenset(range(n))
     if n > MAX_CHART_POINTS:
         rng = np.random.default_rng(20240611)  # the whole-file path's sample (derive._chart_sample)
         sample = frozenset(int(v) for v in rng.choice(n, size=SAMPLE_POINTS, replace=False).tolist())
+    else:
+        sample = frozenset(range(n))
     density_range = None
     if x_col is not None:
         sx = first.data[x_col]
@@ -1119,15 +1120,7 @@ def _report(  # noqa: PLR0917 - the pieces of one report
         messages.append(
             Message("warning", f"{first.dropped_total} row(s) left out ({'; '.join(reasons)}): rows {rows}{more}.")
         )
-    mb = first.size / 1e6
-    messages.append(
-        Message(
-            "note",
-            f"Read and fitted in chunks of {limits.stream_chunk_rows:,} rows ({first.chunks:,} chunks, two passes), "
-            f"because the file ({mb:,.1f} MB) is at least stream_above_megabytes ({threshold:g} MB). Lack of fit "
-            "is not computed and no row counts as a designed setting; each model check says how it was computed.",
-        )
-    )
+    mb = first.size / 1e6  # how the file was read is the report's `chunked`, which the page states
     diagnostics = tuple(
         replace(d, basis="all rows" if "Shapiro–Wilk decides" in d.text else "streamed")
         if d.check == "normality"
