@@ -21,7 +21,7 @@ from sitegen import derive
 from sitegen.derive import Observations
 from sitegen.digest import sha256_hex
 from sitegen.discover import DatasetSource
-from sitegen.errors import INTERNAL_ERROR_WORDS, DatasetError, FitError, FormulaError
+from sitegen.errors import INTERNAL_ERROR_WORDS, DatasetError, FitError, FormulaError, SidecarUnreadableError
 from sitegen.formula import Design, assumed_formula, build_design
 from sitegen.load import LoadedTable, read_source, read_table
 from sitegen.model import AnovaLine, Coefficient, FitReport, Message, Status
@@ -52,7 +52,7 @@ class DatasetResult:
     report: FitReport
     observations: Observations | None
     debug_trace: str | None = None
-    transient: bool = False  # the CSV could not be read (an OSError): tried again, never kept as the input's state
+    transient: bool = False  # the CSV or sidecar could not be read (an OSError): tried again, never kept
     written: tuple[str, ...] = ()  # files already written into the dataset's folder (a fit made in chunks)
 
 
@@ -167,7 +167,9 @@ def _analyze(task: FitTask) -> DatasetResult:
         return _fit(base, spec, table)
     except DatasetError as exc:
         messages = [*_spec_messages(spec, sidecar_name), Message("error", str(exc))]
-        return DatasetResult(replace(base, messages=tuple(messages)), None)
+        # a sidecar the system could not read, like a CSV, is tried again and never kept as the input's state
+        transient = isinstance(exc, SidecarUnreadableError)
+        return DatasetResult(replace(base, messages=tuple(messages)), None, transient=transient)
     except MemoryError:
         raise
     except Exception as exc:

@@ -103,7 +103,7 @@ class BuildSummary:
     reused: int
     seconds: float
     warnings: tuple[str, ...] = ()
-    debug_traces: tuple[tuple[str, str], ...] = field(default=())
+    debug_traces: tuple[DebugTrace, ...] = field(default=())
 
     @property
     def errors(self) -> int:
@@ -117,6 +117,43 @@ class BuildSummary:
     def unmet(self) -> int:
         """Datasets with at least one declared requirement not met."""
         return sum(1 for o in self.outcomes if o.requirements == "unmet")
+
+
+@dataclass(frozen=True, slots=True)
+class DebugTrace:
+    """A dataset's traceback kept for ``--debug``: the input file it came from and the trace's text."""
+
+    source: str
+    trace: str
+
+
+@dataclass(frozen=True, slots=True)
+class _Ready:
+    """A dataset's result in this build, fitted or reused, and the data files its folder holds."""
+
+    report: FitReport
+    data_files: tuple[str, ...]
+
+
+@dataclass(frozen=True, slots=True)
+class _WorkerPage:
+    """A page the worker that fitted a dataset wrote: the neighbours it linked to and the files it wrote."""
+
+    neighbours: Neighbours | None
+    files: tuple[str, ...]
+
+
+NO_WORKER_PAGE = _WorkerPage(None, ())
+
+
+@dataclass(frozen=True, slots=True)
+class _Executed:
+    """What one full build did, for :class:`BuildSummary`."""
+
+    outcomes: tuple[Outcome, ...]
+    fitted: int  # datasets fitted in this build (the others were reused)
+    warnings: list[str]
+    debug_traces: tuple[DebugTrace, ...]
 
 
 def _now() -> str:
@@ -226,12 +263,12 @@ def run_build(
         swap_in(work, out_dir)
     return BuildSummary(
         out_dir=out_dir,
-        outcomes=summary[0],
-        fitted=summary[1],
-        reused=len(sources) - summary[1],
+        outcomes=summary.outcomes,
+        fitted=summary.fitted,
+        reused=len(sources) - summary.fitted,
         seconds=time.perf_counter() - started,
-        warnings=tuple(warnings + summary[2]),
-        debug_traces=summary[3],
+        warnings=tuple(warnings + summary.warnings),
+        debug_traces=summary.debug_traces,
     )
 
 
@@ -349,7 +386,7 @@ class _Build:
             and self.spare.recorded.get(slug) == self.spare.folders.get(slug)
         )
 
-    def _reuse(self, src: DatasetSource) -> tuple[FitReport, tuple[str, ...]] | None:
+    def _reuse(self, src: DatasetSource) -> _Ready | None:
         entry = self.prev.entries.get(src.slug)
         fp = self.measured[src.slug].fingerprint
         if self.prev.site is None or entry is None or entry.fingerprint != fp or not fp:
@@ -361,7 +398,7 @@ class _Build:
             report = self._stored_light(entry, new, src.slug, self.spare.entries[src.slug])
             if report is not None:
                 self.kept.add(src.slug)
-                return report, tuple(n for n in sorted(self.spare.folders[src.slug]) if is_data_file(n))
+                return _Ready(report, tuple(n for n in sorted(self.spare.folders[src.slug]) if is_data_file(n)))
         old = self.prev.site / "datasets" / src.slug
         report = self._stored_light(entry, old, src.slug, entry)
         if report is None:
@@ -378,16 +415,16 @@ class _Build:
         files = [name for name in here if "/" not in name and is_data_file(name)]  # sorted
         for name in files:
             copy_new(old / name, new / name)
-        return report, tuple(files)
+        return _Ready(report, tuple(files))
 
-    def execute(self, theme: Theme) -> tuple[tuple[Outcome, ...], int, list[str], tuple[tuple[str, str], ...]]:
+    def execute(self, theme: Theme) -> _Executed:
         from sitegen.jobs import FitJob, Neighbours, fit_bounds, fit_job, page_job  # noqa: PLC0415
         from sitegen.report import assets, history, pages  # noqa: PLC0415
         from sitegen.report.files import report_from_index_entry, summary_files, summary_row  # noqa: PLC0415
         from sitegen.report.tags import tag_blocks  # noqa: PLC0415
 
-        done: dict[str, tuple[FitReport, tuple[str, ...]]] = {}
-        traces: list[tuple[str, str]] = []
+        done: dict[str, _Ready] = {}
+        traces: list[DebugTrace] = []
         jobs: list[FitJob] = []
         ctx = pages.SiteContext(self.config, theme)
         for i, src in enumerate(self.sources):
@@ -406,7 +443,7 @@ class _Build:
         count = len(done)
         if self.progress:
             self.progress(count, total, "")
-        paged: dict[str, tuple[Neighbours | None, tuple[str, ...]]] = {}
+        paged: dict[str, _WorkerPage] = {}
         round_jobs = jobs
         for tries_left in range(TRANSIENT_TRIES - 1, -1, -1):
             again: list[FitJob] = []  # a read error or a lost cluster worker: tried again (TRANSIENT_TRIES)
@@ -419,12 +456,12 @@ class _Build:
                 if res.transient:
                     self.transient.add(slug)
                 report = res.report or report_from_index_entry(res.entry or {}, self.measured[slug].input_sha256)
-                done[slug] = (report, res.files)
-                paged[slug] = (res.paged, res.page_files)
+                done[slug] = _Ready(report, res.files)
+                paged[slug] = _WorkerPage(res.paged, res.page_files)
                 if res.fit_sha256:
                     self.fit_shas[slug] = res.fit_sha256
                 if res.debug_trace:
-                    traces.append((job.source.relpath, res.debug_trace))
+                    traces.append(DebugTrace(job.source.relpath, res.debug_trace))
                 count += 1
                 if self.progress:
                     self.progress(count, total, job.source.relpath)
@@ -432,7 +469,7 @@ class _Build:
                 break
             round_jobs = again
         refitted = {j.source.slug for j in jobs}
-        reports = [_with_sha(done[s.slug][0], self.measured[s.slug].input_sha256) for s in self.sources]
+        reports = [_with_sha(done[s.slug].report, self.measured[s.slug].input_sha256) for s in self.sources]
         entries, page_jobs, page_files = self._plan_pages(ctx, reports, done, refitted, paged)
         pending = self.run.run(page_job, page_jobs)  # the pool renders pages while this process does the rest
         index = pages.render_index(ctx, reports, tag_blocks(reports))
@@ -448,7 +485,7 @@ class _Build:
         }
         for i, names in pending:
             page_files[page_jobs[i].target.parent.name] = names
-        self._tidy({slug: {*files, *page_files[slug]} for slug, (_, files) in done.items()}, site_assets)
+        self._tidy({slug: {*ready.data_files, *page_files[slug]} for slug, ready in done.items()}, site_assets)
         self._write_build_json(entries)
         outcomes = tuple(
             Outcome(
@@ -461,15 +498,15 @@ class _Build:
             )
             for r in reports
         )
-        return outcomes, len(jobs), hist_warnings, tuple(traces)
+        return _Executed(outcomes, len(jobs), hist_warnings, tuple(traces))
 
     def _plan_pages(
         self,
         ctx: SiteContext,
         reports: Sequence[FitReport],
-        done: dict[str, tuple[FitReport, tuple[str, ...]]],
+        done: dict[str, _Ready],
         refitted: set[str],
-        paged: dict[str, tuple[Neighbours | None, tuple[str, ...]]],
+        paged: dict[str, _WorkerPage],
     ) -> tuple[list[DatasetRecord], list[PageJob], dict[str, tuple[str, ...]]]:
         """Which pages to keep, copy or render; their build.json entries; the names of pages already in place."""
         from sitegen.jobs import PageJob  # noqa: PLC0415
@@ -480,7 +517,7 @@ class _Build:
         jobs: list[PageJob] = []
         in_place: dict[str, tuple[str, ...]] = {}
         for i, (src, report) in enumerate(zip(self.sources, reports, strict=True)):
-            files = done[src.slug][1]
+            files = done[src.slug].data_files
             prev_r = Neighbour(reports[i - 1].dataset, reports[i - 1].title) if i > 0 else None
             next_r = Neighbour(reports[i + 1].dataset, reports[i + 1].title) if i + 1 < len(reports) else None
             fp = self.measured[src.slug].fingerprint
@@ -489,9 +526,12 @@ class _Build:
             target = self.work / "datasets" / src.slug / "index.html"
             old_entry = self.prev.entries.get(src.slug)
             old_page = self.prev.site / "datasets" / src.slug / "index.html" if self.prev.site else None
-            written, written_files = paged.get(src.slug, (None, ()))
-            if written is not None and (written.prev, written.next) == (prev_r, next_r):
-                in_place[src.slug] = written_files  # written by the worker that fitted it, with the right neighbours
+            written = paged.get(src.slug, NO_WORKER_PAGE)
+            if written.neighbours is not None and (written.neighbours.prev, written.neighbours.next) == (
+                prev_r,
+                next_r,
+            ):
+                in_place[src.slug] = written.files  # written by the worker that fitted it, with the right neighbours
             elif src.slug in self.kept and self.spare.entries[src.slug].page_key == key:
                 in_place[src.slug] = tuple(n for n in self.spare.folders[src.slug] if not is_data_file(n))
             elif (
@@ -517,7 +557,7 @@ class _Build:
                     message=str(summary_row(report)["message"]),
                     index=index_entry(report),
                     inputs=self.measured[src.slug].inputs,
-                    failure_kept=self._failure_kept(src, done[src.slug][0]),
+                    failure_kept=self._failure_kept(src, done[src.slug].report),
                 )
             )
         return entries, jobs, in_place

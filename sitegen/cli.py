@@ -215,8 +215,8 @@ def _build(args: argparse.Namespace, out: _Printer) -> int:
         elif o.requirements == "unmet":
             out.warn(f"{o.source}: a declared requirement is not met; see its page")
     if args.debug:
-        for name, trace in summary.debug_traces:
-            print(f"--- traceback for {printable(name)} ---\n{trace}", file=out.stream)
+        for kept in summary.debug_traces:
+            print(f"--- traceback for {printable(kept.source)} ---\n{kept.trace}", file=out.stream)
     n = len(summary.outcomes)
     out.info(
         f"Built {summary.out_dir}/index.html: {n} dataset{'s' if n != 1 else ''} — {summary.fitted} fitted, "

@@ -74,6 +74,11 @@ class SidecarError(DatasetError):
     """A dataset's TOML sidecar cannot be read or holds invalid settings."""
 
 
+class SidecarUnreadableError(SidecarError):
+    """A dataset's sidecar could not be read at all (the system refused or lost it): that says nothing about
+    its settings, so the build tries the dataset again and never keeps the failure as the dataset's state."""
+
+
 class DataFileError(DatasetError):
     """A dataset's CSV file cannot be read as a table of numbers."""
 

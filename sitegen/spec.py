@@ -16,7 +16,7 @@ from pathlib import Path
 from typing import Any
 
 from sitegen.confine import read_inside
-from sitegen.errors import OutsideFolderError, SidecarError, SiteConfigError
+from sitegen.errors import OutsideFolderError, SidecarError, SidecarUnreadableError, SiteConfigError
 
 LINE_CHOICES = ("reverse", "orthogonal", "deming", "geometric_mean", "passing_bablok")
 PURPOSES = ("relation", "comparison", "calibration")
@@ -456,6 +456,10 @@ _MAX_ENTRIES = 1_000
 MAX_UNKNOWN_SHOWN = 10
 
 
+class _ReadFailedError(ValueError):
+    """The file could not be read at all (an ``OSError``), as opposed to read and found wrong."""
+
+
 def _read_toml(path: Path, root: Path | None = None) -> dict[str, Any]:
     """Parse a TOML file (refused unread when it leads outside ``root``); raises ``ValueError`` with a readable
     message."""
@@ -464,7 +468,7 @@ def _read_toml(path: Path, root: Path | None = None) -> dict[str, Any]:
     except OutsideFolderError as exc:
         raise ValueError(exc.message) from None
     except OSError as exc:
-        raise ValueError(f"cannot be read: {exc.strerror or exc}") from exc
+        raise _ReadFailedError(f"cannot be read: {exc.strerror or exc}") from exc
     if len(raw) > MAX_TOML_BYTES:
         raise ValueError(
             f"is larger than {MAX_TOML_BYTES // 1_000_000} MB, far more than any settings need; "
@@ -566,6 +570,8 @@ def read_sidecar(path: Path | None, defaults: Mapping[str, Any], display: str, r
     if path is not None:
         try:
             table = _read_toml(path, root)
+        except _ReadFailedError as exc:
+            raise SidecarUnreadableError(f"{display} {exc}", hint=_toml_hint(exc)) from exc
         except ValueError as exc:
             raise SidecarError(f"{display} {exc}", hint=_toml_hint(exc)) from exc
         clean, unknown = validate_keys(table, display)

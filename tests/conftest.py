@@ -17,11 +17,13 @@ from __future__ import annotations
 
 import contextlib
 import io
+import json
 import os
 import shutil
 from collections.abc import Callable, Iterator, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
+from typing import Any
 
 import pytest
 
@@ -132,6 +134,48 @@ def example_build(tmp_path_factory: pytest.TempPathFactory) -> Built:
     result = cli("build", data, "-o", site)
     assert result.code == 0, result.output
     return Built(data, site, result)
+
+
+#: Debian's Chromium: the browser tests drive it through Playwright and never download one.
+CHROMIUM = Path("/usr/bin/chromium")
+#: The marks of a browser test module (``pytestmark = BROWSER_MARKS``): its tests are skipped without Chromium.
+BROWSER_MARKS = [
+    pytest.mark.browser,
+    pytest.mark.skipif(
+        not CHROMIUM.is_file(),
+        reason="Debian's Chromium is not at /usr/bin/chromium (run scripts/ensure-browser.sh); "
+        "these tests never download a browser",
+    ),
+]
+
+
+@pytest.fixture(scope="module")
+def browser() -> Iterator[Any]:
+    """Headless Chromium for one test module (the module marks itself ``browser`` and skips without it)."""
+    sync_api = pytest.importorskip("playwright.sync_api", reason="Playwright for Python is not installed")
+    with sync_api.sync_playwright() as p:
+        b = p.chromium.launch(executable_path=str(CHROMIUM), headless=True)
+        try:
+            yield b
+        finally:
+            b.close()
+
+
+def build_exit_code(data: Path, site: Path) -> int:
+    """Build ``data`` into ``site`` through the command line, one dataset at a time; the exit code."""
+    return cli("build", data, "-o", site, "-j", "1").code
+
+
+def fit_json(site: Path, slug: str) -> dict[str, Any]:
+    """A built dataset's fit.json, parsed."""
+    body = json.loads((site / "datasets" / slug / "fit.json").read_text(encoding="utf-8"))
+    assert isinstance(body, dict)
+    return body
+
+
+def dataset_page(site: Path, slug: str) -> str:
+    """A built dataset's page."""
+    return (site / "datasets" / slug / "index.html").read_text(encoding="utf-8")
 
 
 def write_csv(path: Path, text: str | Sequence[Sequence[object]]) -> Path:

@@ -25,23 +25,13 @@ from urllib.parse import unquote, urlparse
 
 import numpy as np
 import pytest
+from conftest import BROWSER_MARKS
 
-CHROMIUM = Path("/usr/bin/chromium")
 ROOT = Path(__file__).resolve().parents[1]
 SHOTS = ROOT / "test-artifacts" / "screenshots"
 THEME_TOML = ROOT / "themes" / "default" / "theme.toml"
 
-pytestmark = [
-    pytest.mark.browser,
-    pytest.mark.skipif(
-        not CHROMIUM.is_file(),
-        reason="Debian's Chromium is not at /usr/bin/chromium (run scripts/ensure-browser.sh); "
-        "these tests never download a browser",
-    ),
-]
-sync_api = pytest.importorskip(
-    "playwright.sync_api", reason="Playwright for Python is not installed (pip install -e '.[test]')"
-)
+pytestmark = BROWSER_MARKS
 
 CHART_WAIT_MS = 20_000
 VIEWPORT = {"width": 1280, "height": 900}
@@ -74,16 +64,6 @@ def site(tmp_path_factory: pytest.TempPathFactory) -> Path:
     lines = changed.read_text("utf-8").splitlines(keepends=True)
     changed.write_text("".join(lines[:-1]), "utf-8")  # one standard fewer
     return _build(data, out)
-
-
-@pytest.fixture(scope="module")
-def browser() -> Iterator[Any]:
-    with sync_api.sync_playwright() as p:
-        b = p.chromium.launch(executable_path=str(CHROMIUM), headless=True)
-        try:
-            yield b
-        finally:
-            b.close()
 
 
 @pytest.fixture(scope="module")

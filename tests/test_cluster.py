@@ -30,7 +30,7 @@ from pathlib import Path
 from typing import Any
 
 import pytest
-from conftest import LINE_CSV, cli, copy_example, write_csv
+from conftest import LINE_CSV, cli, copy_example, write_csv, write_toml
 from test_bounds import _large
 
 from sitegen.build import TRANSIENT_TRIES, BuildOptions, run_build
@@ -39,11 +39,12 @@ from sitegen.build import TRANSIENT_TRIES, BuildOptions, run_build
 
 
 class _Unreadable:
-    """Runs items in this process; the fit of ``slug`` is given a CSV path that does not exist for its first
-    ``times`` tries (as a worker that cannot read the file sees it); the file itself is never touched."""
+    """Runs items in this process; the fit of ``slug`` is given a path (its CSV's, or with ``which`` its
+    sidecar's) that does not exist for its first ``times`` tries (as a worker that cannot read the file sees
+    it); the file itself is never touched."""
 
-    def __init__(self, slug: str, times: int) -> None:
-        self.slug, self.times, self.tries = slug, times, 0
+    def __init__(self, slug: str, times: int, which: str = "csv_path") -> None:
+        self.slug, self.times, self.tries, self.which = slug, times, 0, which
 
     def run(self, fn: Callable[[Any], Any], items: list[Any], bounded: Any = None) -> Any:
         def one(item: Any) -> Any:
@@ -52,7 +53,8 @@ class _Unreadable:
                 return fn(item)
             self.tries += 1
             if self.tries <= self.times:
-                item = replace(item, source=replace(src, csv_path=src.csv_path.with_name("not-here.csv")))
+                gone = getattr(src, self.which).with_name("not-here")
+                item = replace(item, source=replace(src, **{self.which: gone}))
             return fn(item)
 
         return ((i, one(item)) for i, item in enumerate(items))
@@ -84,9 +86,11 @@ def test_a_read_error_is_tried_again_in_the_same_build(tmp_path: Path) -> None:
     assert {o.dataset: o.status for o in summary.outcomes}["beta"] == "ok"
 
 
-def test_a_read_error_that_persists_fails_the_dataset_but_is_never_kept(tmp_path: Path) -> None:
+@pytest.mark.parametrize("which", ["csv_path", "sidecar_path"])
+def test_a_read_error_that_persists_fails_the_dataset_but_is_never_kept(tmp_path: Path, which: str) -> None:
     data, site = _line_folder(tmp_path)
-    seam = _Unreadable("beta", times=TRANSIENT_TRIES)
+    write_toml(data / "beta.toml", {"title": "Beta"})
+    seam = _Unreadable("beta", times=TRANSIENT_TRIES, which=which)
     summary = run_build(BuildOptions(data, site, jobs=1), executor=seam)
     assert seam.tries == TRANSIENT_TRIES
     outcome = {o.dataset: o for o in summary.outcomes}["beta"]

@@ -11,30 +11,14 @@ Independent sources beside each check:
 from __future__ import annotations
 
 import csv
-import json
 import shutil
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 import pytest
 import statsmodels.api as sm
-from conftest import cli, write_csv, write_toml
+from conftest import build_exit_code, dataset_page, fit_json, write_csv, write_toml
 from nist_data import load_nist
-
-
-def _build(data: Path, site: Path) -> int:
-    return cli("build", data, "-o", site, "-j", "1").code
-
-
-def _fit(site: Path, slug: str) -> dict[str, Any]:
-    body = json.loads((site / "datasets" / slug / "fit.json").read_text(encoding="utf-8"))
-    assert isinstance(body, dict)
-    return body
-
-
-def _page(site: Path, slug: str) -> str:
-    return (site / "datasets" / slug / "index.html").read_text(encoding="utf-8")
 
 
 def _headline(page: str) -> str:
@@ -57,17 +41,17 @@ def test_differing_group_slopes_lead_the_page_and_the_pooled_line_is_only_a_cont
     write_csv(data / "other.csv", _grouped_rows((2.0, 2.0)))
     write_toml(data / "other.toml", 'model = "y ~ x"\ngroup = "site"\ntags = ["probe"]\n')
     site = tmp_path / "site"
-    assert _build(data, site) == 0
-    fit = _fit(site, "grouped")
+    assert build_exit_code(data, site) == 0
+    fit = fit_json(site, "grouped")
     assert fit["pooled_contrast"] is True
     assert fit["status"] == "warn"
     assert "pooled line is not the recommended one" in fit["messages"][0]["text"]
-    head = _headline(_page(site, "grouped"))
+    head = _headline(dataset_page(site, "grouped"))
     assert head.startswith("The slope of y on x differs between the groups of site")
     assert "north:" in head
     assert "south:" in head
     assert "only as a contrast" in head
-    page = _page(site, "grouped")
+    page = dataset_page(site, "grouped")
     assert "These checks are of the pooled line" in page
     assert "Flagged against the pooled line" in page
     index = (site / "index.html").read_text(encoding="utf-8")
@@ -78,8 +62,8 @@ def test_differing_group_slopes_lead_the_page_and_the_pooled_line_is_only_a_cont
     block = index.split('id="tag-probe"')[1].split("</div>\n  {% endfor")[0]
     assert "Left out: grouped" in block
     # the dataset whose groups share a slope is unaffected
-    assert _fit(site, "other")["pooled_contrast"] is False
-    assert not _headline(_page(site, "other")).startswith("The slope of")
+    assert fit_json(site, "other")["pooled_contrast"] is False
+    assert not _headline(dataset_page(site, "other")).startswith("The slope of")
 
 
 def test_weighted_fit_states_the_scatter_in_y_units(tmp_path: Path) -> None:
@@ -92,14 +76,14 @@ def test_weighted_fit_states_the_scatter_in_y_units(tmp_path: Path) -> None:
     write_csv(data / "wls.csv", [("x", "y", "w"), *zip(x.round(3), y.round(4), w.round(4), strict=True)])
     write_toml(data / "wls.toml", 'model = "y ~ x"\nweights = "w"\nunits = { y = "mV", x = "mg/L" }\n')
     site = tmp_path / "site"
-    assert _build(data, site) == 0
+    assert build_exit_code(data, site) == 0
     table = np.loadtxt(data / "wls.csv", delimiter=",", skiprows=1)
     res = sm.WLS(table[:, 1], sm.add_constant(table[:, 0]), weights=table[:, 2]).fit()
     plain_sd = float(np.sqrt(np.sum(res.resid**2) / res.df_resid))
-    fit = _fit(site, "wls")
+    fit = fit_json(site, "wls")
     assert fit["residual_sd_y"] == pytest.approx(plain_sd, rel=1e-9)
     assert fit["residual_std_error"] == pytest.approx(float(np.sqrt(res.scale)), rel=1e-9)
-    page = _page(site, "wls")
+    page = dataset_page(site, "wls")
     head = _headline(page)
     assert "weighted least squares" in head
     assert "mV (the standard deviation of the plain residuals" in head
@@ -118,13 +102,13 @@ def test_lack_of_fit_needs_enough_repeated_settings(tmp_path: Path) -> None:
     shutil.copyfile(load_nist("Pontius").csv_path, data / "pontius.csv")
     write_toml(data / "pontius.toml", 'model = "y ~ x"\n')
     site = tmp_path / "site"
-    assert _build(data, site) == 0
-    thin = {d["check"]: d for d in _fit(site, "thin")["diagnostics"]}["lack_of_fit"]
+    assert build_exit_code(data, site) == 0
+    thin = {d["check"]: d for d in fit_json(site, "thin")["diagnostics"]}["lack_of_fit"]
     assert thin["statistic"] is None
     assert thin["flag"] is False
     assert "Too few repeated measurements to judge: 1 setting measured more than once" in thin["text"]
-    assert "not applicable" in _page(site, "thin")
-    pontius = {d["check"]: d for d in _fit(site, "pontius")["diagnostics"]}["lack_of_fit"]
+    assert "not applicable" in dataset_page(site, "thin")
+    pontius = {d["check"]: d for d in fit_json(site, "pontius")["diagnostics"]}["lack_of_fit"]
     assert pontius["statistic"] == pytest.approx(214.7464, rel=1e-5)
 
 
@@ -138,14 +122,14 @@ def test_designed_end_points_are_not_flagged_for_leverage_alone(tmp_path: Path) 
         data / "lone.csv", [("conc", "signal"), *((v, f"{0.01 + 0.2 * v:.4f}") for v in single[:-1]), (10.0, "2.012")]
     )
     site = tmp_path / "site"
-    assert _build(data, site) == 0
+    assert build_exit_code(data, site) == 0
     lev = sm.OLS(np.array(resp), sm.add_constant(np.array(levels))).fit().get_influence().hat_matrix_diag
     assert all(h > 2 * 2 / len(levels) for h in lev[-2:])  # statsmodels: the top standards do pass 2p/n
-    flagged = _fit(site, "cal")["flagged"]
+    flagged = fit_json(site, "cal")["flagged"]
     assert all(f["reasons"] != ["leverage above 2p/n"] for f in flagged)
     assert not any(f["row"] in (9, 10) for f in flagged)
     # an unreplicated far point is still marked
-    lone = _fit(site, "lone")["flagged"]
+    lone = fit_json(site, "lone")["flagged"]
     assert any(f["row"] == len(single) and "leverage above 2p/n" in f["reasons"] for f in lone)
 
 
@@ -167,25 +151,25 @@ def test_unreplicated_calibration_end_points_are_not_flagged_for_leverage_alone(
         if purpose:
             write_toml(data / f"{name}.toml", f'purpose = "{purpose}"\n')
     site = tmp_path / "site"
-    assert _build(data, site) == 0
+    assert build_exit_code(data, site) == 0
     X = sm.add_constant(np.array(single))
     infl = sm.OLS(np.round(np.array(resp), 4), X).fit().get_influence()
     assert infl.hat_matrix_diag[-1] > 2 * 2 / len(single)  # the top standard passes 2p/n (statsmodels)
-    assert _fit(site, "cal")["flagged"] == []
+    assert fit_json(site, "cal")["flagged"] == []
     assert set(_obs_flags(site, "cal")) == {""}  # the download lists no reason the page does not flag
     # a relation with the same numbers: x are not declared set values, so the far point is marked
-    rel = _fit(site, "rel")["flagged"]
+    rel = fit_json(site, "rel")["flagged"]
     assert [f["row"] for f in rel] == [len(single)]
     assert "leverage above 2p/n" in rel[0]["reasons"]
     # leverage combined with a large residual still marks the end point
     bad_infl = sm.OLS(np.round(np.array(off), 4), X).fit().get_influence()
     assert abs(bad_infl.resid_studentized_external[-1]) > 3  # statsmodels: past the residual cut-off
-    bad = _fit(site, "bad")["flagged"]
+    bad = fit_json(site, "bad")["flagged"]
     assert [f["row"] for f in bad] == [len(single)]
     assert "|studentized residual| above 3" in bad[0]["reasons"]
     assert bad[0]["studentized_residual"] == pytest.approx(bad_infl.resid_studentized_external[-1], rel=1e-9)
     assert _obs_flags(site, "bad")[-1].startswith("leverage above 2p/n; |studentized residual| above 3")
-    assert "every standard of a calibration" in _page(site, "bad")
+    assert "every standard of a calibration" in dataset_page(site, "bad")
 
 
 def test_differing_group_slopes_flag_rows_against_each_groups_own_line(tmp_path: Path) -> None:
@@ -197,8 +181,8 @@ def test_differing_group_slopes_flag_rows_against_each_groups_own_line(tmp_path:
     write_csv(data / "grouped.csv", rows)
     write_toml(data / "grouped.toml", 'model = "y ~ x"\ngroup = "site"\n')
     site = tmp_path / "site"
-    assert _build(data, site) == 0
-    fit = _fit(site, "grouped")
+    assert build_exit_code(data, site) == 0
+    fit = fit_json(site, "grouped")
     assert fit["pooled_contrast"] is True
     g = np.array([r[0] for r in rows[1:]])
     x = np.array([float(str(r[1])) for r in rows[1:]])
@@ -222,7 +206,7 @@ def test_differing_group_slopes_flag_rows_against_each_groups_own_line(tmp_path:
         assert r["studentized_residual"] == pytest.approx(t[i], rel=1e-9)
         assert r["cooks_distance"] == pytest.approx(d[i], rel=1e-9)
         assert r["dffits"] == pytest.approx(f[i], rel=1e-9)
-    page = _page(site, "grouped")
+    page = dataset_page(site, "grouped")
     assert "Against each site&#39;s own line (the recommended model)" in page or (
         "Against each site's own line (the recommended model)" in page
     )
@@ -233,14 +217,14 @@ def test_normality_is_one_check_and_inapplicable_checks_say_so(tmp_path: Path) -
     data = tmp_path / "data"
     write_csv(data / "a.csv", "x,y\n1,2.1\n2,3.9\n3,6.2\n4,7.8\n5,10.1\n6,11.8\n7,14.2\n")
     site = tmp_path / "site"
-    assert _build(data, site) == 0
-    checks = {d["check"]: d for d in _fit(site, "a")["diagnostics"]}
+    assert build_exit_code(data, site) == 0
+    checks = {d["check"]: d for d in fit_json(site, "a")["diagnostics"]}
     assert "normality" in checks
     assert "normality_shapiro" not in checks
     assert "normality_jarque_bera" not in checks
     assert "Shapiro–Wilk decides" in checks["normality"]["text"]
     assert "For reference only, not a second verdict: Jarque–Bera" in checks["normality"]["text"]
-    page = _page(site, "a")
+    page = dataset_page(site, "a")
     collinear = page.split("Overlapping predictors")[1].split("</h3>")[0]
     assert "not applicable" in collinear
     assert "no concern" not in collinear
@@ -253,7 +237,7 @@ def test_one_dataset_tags_get_no_chart_and_intervals_state_their_level(tmp_path:
     write_csv(data / "b.csv", "x,y\n1,2.0\n2,4.2\n3,6.1\n4,7.7\n5,10.3\n6,12.0\n")
     write_toml(data / "b.toml", 'tags = ["pair"]\nlevel = 0.9\n')
     site = tmp_path / "site"
-    assert _build(data, site) == 0
+    assert build_exit_code(data, site) == 0
     index = (site / "index.html").read_text(encoding="utf-8")
     alone = index.split('id="tag-alone"')[1].split('class="tag-block"')[0]
     assert "vl-spec" not in alone

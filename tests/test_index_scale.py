@@ -15,19 +15,15 @@ from pathlib import Path
 from typing import Any
 
 import pytest
+from conftest import BROWSER_MARKS
 from test_tag_summary import COUNT, _folder
 
 from sitegen.cli import main
 from sitegen.report.tags import EXTREMES
 
-CHROMIUM = Path("/usr/bin/chromium")
 WINDOW = 20
 
-pytestmark = [
-    pytest.mark.browser,
-    pytest.mark.skipif(not CHROMIUM.is_file(), reason="Debian's Chromium is not at /usr/bin/chromium"),
-]
-sync_api = pytest.importorskip("playwright.sync_api", reason="Playwright for Python is not installed")
+pytestmark = BROWSER_MARKS
 
 
 @pytest.fixture(scope="module")
@@ -53,19 +49,17 @@ def slopes(site: Path) -> dict[str, float]:
 
 
 @pytest.fixture
-def page(site: Path) -> Iterator[Any]:
-    with sync_api.sync_playwright() as p:
-        browser = p.chromium.launch(executable_path=str(CHROMIUM), headless=True)
-        try:
-            tab = browser.new_page(viewport={"width": 1280, "height": 900})
-            tab.goto((site / "index.html").as_uri())
-            tab.wait_for_function(
-                "() => [...document.querySelectorAll('.vis')].every(v => v.classList.contains('drawn'))",
-                timeout=20_000,
-            )
-            yield tab
-        finally:
-            browser.close()
+def page(site: Path, browser: Any) -> Iterator[Any]:
+    tab = browser.new_page(viewport={"width": 1280, "height": 900})
+    try:
+        tab.goto((site / "index.html").as_uri())
+        tab.wait_for_function(
+            "() => [...document.querySelectorAll('.vis')].every(v => v.classList.contains('drawn'))",
+            timeout=20_000,
+        )
+        yield tab
+    finally:
+        tab.close()
 
 
 def _titles(page: Any) -> list[str]:

@@ -12,14 +12,12 @@ Independent sources beside each check:
 
 from __future__ import annotations
 
-import json
 import math
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 import pytest
-from conftest import cli, write_csv, write_toml
+from conftest import cli, fit_json, write_csv, write_toml
 from scipy import stats
 
 from sitegen.stats.bias import bias_at
@@ -89,12 +87,6 @@ def test_bias_above_the_bootstrap_limit_comes_from_the_rank_interval() -> None:
         assert b.ci_low <= b.estimate <= b.ci_high
 
 
-def _fit(site: Path, slug: str) -> dict[str, Any]:
-    body = json.loads((site / "datasets" / slug / "fit.json").read_text(encoding="utf-8"))
-    assert isinstance(body, dict)
-    return body
-
-
 def test_a_large_comparison_gets_its_passing_bablok_bias_and_says_how(tmp_path: Path) -> None:
     rng = np.random.default_rng(3)
     x, y = _pairs(rng, 400)
@@ -103,7 +95,7 @@ def test_a_large_comparison_gets_its_passing_bablok_bias_and_says_how(tmp_path: 
     write_toml(data / "big.toml", {"purpose": "comparison", "model": "kit ~ lab", "decision_levels": [1.0, 4.0]})
     site = tmp_path / "site"
     assert cli("build", data, "-o", site, "-j", "1").code == 0
-    fit = _fit(site, "big")
+    fit = fit_json(site, "big")
     assert [b["line"] for b in fit["bias"]] == ["passing_bablok", "passing_bablok"]
     xs, ys = np.round(x, 4), np.round(y, 4)
     low, high = rank_value_interval(xs, ys, np.array([1.0, 4.0]), level=0.95)

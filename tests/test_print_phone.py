@@ -11,21 +11,16 @@ import json
 import shutil
 import subprocess
 import sys
-from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
 import pytest
+from conftest import BROWSER_MARKS
 
-CHROMIUM = Path("/usr/bin/chromium")
 ROOT = Path(__file__).resolve().parents[1]
 SHOTS = ROOT / "test-artifacts" / "screenshots"
 
-pytestmark = [
-    pytest.mark.browser,
-    pytest.mark.skipif(not CHROMIUM.is_file(), reason="Debian's Chromium is not at /usr/bin/chromium"),
-]
-sync_api = pytest.importorskip("playwright.sync_api", reason="Playwright for Python is not installed")
+pytestmark = BROWSER_MARKS
 
 MM = 96 / 25.4  # CSS px per millimetre
 PAPER = {"A4": 210.0, "Letter": 215.9}  # widths in mm
@@ -68,16 +63,6 @@ def site(tmp_path_factory: pytest.TempPathFactory) -> Path:
     )  # fmt: skip
     assert done.returncode == 0, done.stderr
     return out.resolve()
-
-
-@pytest.fixture(scope="module")
-def browser() -> Iterator[Any]:
-    with sync_api.sync_playwright() as p:
-        b = p.chromium.launch(executable_path=str(CHROMIUM), headless=True)
-        try:
-            yield b
-        finally:
-            b.close()
 
 
 def _drawn(page: Any) -> None:

@@ -5,25 +5,14 @@ from __future__ import annotations
 
 import json
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 import pytest
 import statsmodels.api as sm
-from conftest import cli, write_csv, write_toml
+from conftest import build_exit_code, cli, fit_json, write_csv, write_toml
 from openpyxl import load_workbook
 
 CSV = "x,y\n1,2.1\n2,3.9\n3,6.2\n4,7.8\n5,10.1\n6,11.8\n7,30.0\n8,16.1\n"
-
-
-def _build(data: Path, site: Path) -> int:
-    return cli("build", data, "-o", site, "-j", "1").code
-
-
-def _fit(site: Path, slug: str) -> dict[str, Any]:
-    body = json.loads((site / "datasets" / slug / "fit.json").read_text(encoding="utf-8"))
-    assert isinstance(body, dict)
-    return body
 
 
 def test_rows_left_out_with_reasons_leave_the_csv_alone(tmp_path: Path) -> None:
@@ -37,9 +26,9 @@ def test_rows_left_out_with_reasons_leave_the_csv_alone(tmp_path: Path) -> None:
         'analyst = "R. Okafor"\nreviewer = "J. Lindqvist"\nmethod_reference = "SOP W-12 rev 3"\n',
     )
     site = tmp_path / "site"
-    assert _build(data, site) == 0
+    assert build_exit_code(data, site) == 0
     assert (data / "a.csv").read_bytes() == before
-    fit = _fit(site, "a")
+    fit = fit_json(site, "a")
     assert fit["excluded_rows"] == [[7, "cuvette cracked"]]
     assert fit["n"] == 7
     assert fit["n_rows"] == 8
@@ -94,12 +83,12 @@ def test_every_page_shows_build_time_and_input_hash(tmp_path: Path) -> None:
     data = tmp_path / "data"
     write_csv(data / "a.csv", CSV)
     site = tmp_path / "site"
-    assert _build(data, site) == 0
+    assert build_exit_code(data, site) == 0
     built = json.loads((site / "build.json").read_text(encoding="utf-8"))["built_at"]
     script = (site / "assets" / "built.js").read_text(encoding="utf-8")
     assert json.dumps(built) in script
     page = (site / "datasets" / "a" / "index.html").read_text(encoding="utf-8")
-    sha = _fit(site, "a")["input_sha256"]
+    sha = fit_json(site, "a")["input_sha256"]
     assert f">{sha[:12]}</code>" in page
     assert "data-built-at" in page
     assert 'src="../../assets/built.js"' in page
@@ -114,12 +103,12 @@ def test_change_report_puts_worsened_verdicts_first(tmp_path: Path) -> None:
     write_toml(data / "b.toml", "[requirements]\nmin_r_squared = 0.99999\n")
     write_csv(data / "c.csv", "x,y\n1,2.0\n2,4.0\n3,6.1\n4,8.0\n5,10.0\n6,12.1\n")
     site = tmp_path / "site"
-    assert _build(data, site) == 0
+    assert build_exit_code(data, site) == 0
     # a: requirement now unmet; b: now met; c: data changed, verdicts the same
     write_toml(data / "a.toml", "[requirements]\nmin_r_squared = 0.99999\n")
     write_toml(data / "b.toml", "[requirements]\nmin_r_squared = 0.99\n")
     write_csv(data / "c.csv", "x,y\n1,2.0\n2,4.1\n3,6.1\n4,8.0\n5,10.0\n6,12.1\n")
-    assert _build(data, site) == 0
+    assert build_exit_code(data, site) == 0
     change = json.loads((site / "changes.json").read_text(encoding="utf-8"))
     verdicts = change["verdicts"]
     found = {v["dataset"]: (v["requirements_before"], v["requirements"], v["worse"]) for v in verdicts}

@@ -11,22 +11,15 @@ from __future__ import annotations
 
 import json
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 import pytest
 import statsmodels.api as sm
-from conftest import cli, write_csv, write_toml
+from conftest import cli, fit_json, write_csv, write_toml
 
 X = np.array([0.2 + 0.25 * i for i in range(20)])
 NOISE = np.array([0.03, -0.05, 0.02, 0.06, -0.04, 0.01, -0.02, 0.05, -0.06, 0.03] * 2)
 Y = np.round(1.03 * X + 0.02 + NOISE, 3)
-
-
-def _fit(site: Path, slug: str) -> dict[str, Any]:
-    body = json.loads((site / "datasets" / slug / "fit.json").read_text(encoding="utf-8"))
-    assert isinstance(body, dict)
-    return body
 
 
 @pytest.mark.parametrize("quote", ['"', "'"])
@@ -44,7 +37,7 @@ def test_quoted_column_names_get_the_bias_and_the_comparison(tmp_path: Path, quo
     write_toml(data / "compared.toml", sidecar + 'purpose = "comparison"\n')
     site = tmp_path / "site"
     assert cli("build", data, "-o", site, "-j", "1").code == 0
-    rel = _fit(site, "relation")
+    rel = fit_json(site, "relation")
     texts = " ".join(m["text"] for m in rel["messages"])
     assert "comparison parts were skipped" not in texts
     # least squares (no comparison purpose): statsmodels' interval of the fitted mean, minus the level
@@ -59,7 +52,7 @@ def test_quoted_column_names_get_the_bias_and_the_comparison(tmp_path: Path, quo
     assert [q["met"] for q in rel["requirements"]] == [True, True]
     assert all("cannot be judged" not in q["text"] for q in rel["requirements"])
     # a comparison: agreement, the Passing–Bablok line and its bias, judged by the requirement
-    cmp = _fit(site, "compared")
+    cmp = fit_json(site, "compared")
     assert cmp["agreement"]["n"] == len(X)
     assert cmp["agreement"]["mean_difference"] == pytest.approx(float(np.mean(Y - X)), rel=1e-12)
     assert [ln["method"] for ln in cmp["lines"]] == ["passing_bablok"]
@@ -78,7 +71,7 @@ def test_quoted_column_names_are_read_back_as_a_calibration(tmp_path: Path) -> N
     write_toml(data / "cal.toml", 'model = "Q(\\"peak area\\") ~ Q(\\"nominal conc\\")"\npurpose = "calibration"\n')
     site = tmp_path / "site"
     assert cli("build", data, "-o", site, "-j", "1").code == 0
-    fit = _fit(site, "cal")
+    fit = fit_json(site, "cal")
     assert [b["nominal"] for b in fit["back_calculated"]] == levels
     a, b = (c["estimate"] for c in fit["coefficients"])
     for row, v, y in zip(fit["back_calculated"], levels, area, strict=True):

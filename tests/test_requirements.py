@@ -20,7 +20,7 @@ import numpy as np
 import pytest
 import scipy.stats
 import statsmodels.api as sm
-from conftest import cli, write_csv, write_toml
+from conftest import cli, fit_json, write_csv, write_toml
 from nist_data import load_nist
 
 TEXTBOOK = Path(__file__).resolve().parent / "data" / "textbook"
@@ -31,14 +31,8 @@ def _build(data: Path, site: Path, *extra: str) -> tuple[int, str]:
     return result.code, result.output
 
 
-def _fit(site: Path, slug: str) -> dict[str, object]:
-    body = json.loads((site / "datasets" / slug / "fit.json").read_text(encoding="utf-8"))
-    assert isinstance(body, dict)
-    return body
-
-
 def _requirements(site: Path, slug: str) -> dict[str, dict[str, Any]]:
-    reqs = _fit(site, slug)["requirements"]
+    reqs = fit_json(site, slug)["requirements"]
     assert isinstance(reqs, list)
     return {str(q["name"]) + (f"@{q['at']}" if q.get("at") is not None else ""): q for q in reqs}
 
@@ -305,7 +299,7 @@ def test_unmet_requirement_everywhere_and_enforce_exits_3(tmp_path: Path) -> Non
     assert {k: v["requirements"] for k, v in summary.items()} == {"good": "met", "other": "unmet", "plain": "none"}
     body = json.loads((site / "summary.json").read_text(encoding="utf-8"))
     assert {r["dataset"]: r["requirements"] for r in body} == {"good": "met", "other": "unmet", "plain": "none"}
-    assert _fit(site, "plain").get("requirements") == []
+    assert fit_json(site, "plain").get("requirements") == []
     page = (site / "datasets" / "other" / "index.html").read_text(encoding="utf-8")
     assert 'id="requirements"' in page
     assert "not met" in page
@@ -377,7 +371,7 @@ def test_comparison_bias_comes_from_the_recommended_line(tmp_path: Path) -> None
     )
     site = tmp_path / "site"
     _build(data, site)
-    fit = _fit(site, "kit")
+    fit = fit_json(site, "kit")
     listed = fit["bias"]
     assert isinstance(listed, list)
     bias = {b["at"]: b for b in listed}

@@ -10,12 +10,11 @@ import json
 import shutil
 import warnings
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 import pandas as pd
 import pytest
-from conftest import cli
+from conftest import cli, fit_json
 
 from sitegen.report import fmt
 
@@ -33,10 +32,6 @@ def _build(tmp_path: Path, files: dict[str, str], *extra: str) -> Path:
     return out
 
 
-def _fit(site: Path, slug: str) -> Any:
-    return json.loads((site / "datasets" / slug / "fit.json").read_text(encoding="utf-8"))
-
-
 def test_group_comparison_uses_the_weights(tmp_path: Path) -> None:
     """With weights, the equal-slopes test is the weighted nested-model F test (statsmodels WLS + anova_lm)."""
     import statsmodels.formula.api as smf
@@ -44,7 +39,7 @@ def test_group_comparison_uses_the_weights(tmp_path: Path) -> None:
 
     text = (DATA / "weighted_groups.csv").read_text(encoding="utf-8")
     site = _build(tmp_path, {"wg.csv": text, "wg.toml": 'model = "y ~ x"\nweights = "w"\ngroup = "g"\n'})
-    got = _fit(site, "wg")["groups"]
+    got = fit_json(site, "wg")["groups"]
     df = pd.read_csv(DATA / "weighted_groups.csv")
     reduced = smf.wls("y ~ C(g) + x", df, weights=df["w"]).fit()
     full = smf.wls("y ~ C(g) * x", df, weights=df["w"]).fit()
@@ -60,7 +55,7 @@ def test_group_comparison_uses_the_weights(tmp_path: Path) -> None:
 def test_alternative_lines_are_not_drawn_for_a_weighted_fit(tmp_path: Path) -> None:
     text = (DATA / "weighted_groups.csv").read_text(encoding="utf-8")
     site = _build(tmp_path, {"w.csv": text, "w.toml": 'model = "y ~ x"\nweights = "w"\nlines = ["deming"]\n'})
-    fit = _fit(site, "w")
+    fit = fit_json(site, "w")
     assert fit["lines"] == []
     assert any("do not take weights" in m["text"] for m in fit["messages"])
 
@@ -70,7 +65,7 @@ def test_calibration_is_refused_for_a_transformed_response(tmp_path: Path) -> No
     site = _build(
         tmp_path, {"logy.csv": "x,y\n" + rows + "\n", "logy.toml": 'model = "np.log(y) ~ x"\ncalibrate = [2.0]\n'}
     )
-    fit = _fit(site, "logy")
+    fit = fit_json(site, "logy")
     assert fit["calibration"] == []
     assert fit["limits"] is None
     assert any("untransformed response" in m["text"] for m in fit["messages"])
@@ -100,7 +95,7 @@ def test_the_summary_sentence_only_reads_a_slope_as_a_rate_for_a_straight_line(t
     assert "rises by" not in quad_text
     assert "falls by" not in quad_text
     assert "fitted with y ~ x + I(x**2)" in quad_text
-    fit = _fit(site, "flat")
+    fit = fit_json(site, "flat")
     slope = next(c for c in fit["coefficients"] if c["term"] == "x")
     assert slope["ci_low"] < 0 < slope["ci_high"]  # the data do not establish a direction
     assert "do not establish whether y rises or falls" in _sentence(site, "flat")
@@ -146,7 +141,7 @@ def test_predictions_outside_the_model_are_left_out_with_a_warning(tmp_path: Pat
     with warnings.catch_warnings():
         warnings.simplefilter("error")
         site = _build(tmp_path, files)
-    fit = _fit(site, "ll")
+    fit = fit_json(site, "ll")
     assert [dict(map(tuple, q["at"]))["x"] for q in fit["predictions"]] == [2.0]
     assert sum("outside the model's reach" in m["text"] for m in fit["messages"]) == 2
 
@@ -178,7 +173,7 @@ def test_anscombe_quartet_is_told_apart_by_the_verdicts(tmp_path: Path) -> None:
         part = df[[f"x{k}", f"y{k}"]].rename(columns={f"x{k}": "x", f"y{k}": "y"})
         files[f"set{k}.csv"] = part.to_csv(index=False)
     site = _build(tmp_path, files)
-    fits = {k: _fit(site, f"set{k}") for k in (1, 2, 3, 4)}
+    fits = {k: fit_json(site, f"set{k}") for k in (1, 2, 3, 4)}
     for fit in fits.values():  # the same line for all four (published: 3.00 + 0.500 x, R² 0.67)
         coef = {c["term"]: c["estimate"] for c in fit["coefficients"]}
         assert coef["Intercept"] == pytest.approx(3.00, abs=0.005)

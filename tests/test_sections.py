@@ -10,7 +10,7 @@ import json
 import re
 from pathlib import Path
 
-from conftest import ROOT, Built, cli, write_csv
+from conftest import ROOT, Built, cli, dataset_page, write_csv
 from markupsafe import escape
 
 from sitegen.model import check_warning, from_json
@@ -55,17 +55,13 @@ def test_section_templates_neither_parse_messages_nor_open_chart_specs() -> None
         assert not re.search(r"v\.charts\.\w+\.|v\.charts\.get\([^)]*\)\.|v\.charts\[", text), path.name
 
 
-def _page(site: Path, slug: str) -> str:
-    return (site / "datasets" / slug / "index.html").read_text("utf-8")
-
-
 def test_a_flagged_check_is_stated_once_with_the_check(example_build: Built) -> None:
     """The check's warning is in fit.json's messages; the page states it with the check, not again as a note."""
     slug = "calibration-ammonium-fluorescence"
     report = from_json((example_build.site / "datasets" / slug / "fit.json").read_text("utf-8"))
     flagged = [d for d in report.diagnostics if d.flag]
     assert flagged
-    html = _page(example_build.site, slug)
+    html = dataset_page(example_build.site, slug)
     for d in flagged:
         assert check_warning(d) in report.messages
         verdicts = html.split('<ul class="verdicts">')[1].split("</ul>")[0]
@@ -88,7 +84,7 @@ def test_the_large_dataset_note_counts_what_the_chart_draws(tmp_path: Path) -> N
     report = from_json((site / "datasets" / "big" / "fit.json").read_text("utf-8"))
     assert report.chart is not None
     assert report.chart.sampled
-    html = _page(site, "big")
+    html = dataset_page(site, "big")
     specs = [
         json.loads(s) for s in re.findall(r'<script type="application/json" class="vl-spec"[^>]*>(.*?)</script>', html)
     ]

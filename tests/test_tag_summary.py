@@ -83,3 +83,26 @@ def test_a_small_tag_is_drawn_whole(tmp_path: Path) -> None:
     (block,) = tag_blocks(reports)
     assert block["summary"] is None
     assert "tag-summary" not in (site / "index.html").read_text("utf-8")
+
+
+def test_datasets_with_the_same_title_get_a_forest_row_each(tmp_path: Path) -> None:
+    """Two datasets titled alike in one tag: two rows in the comparison, each labelled with its file."""
+    data = tmp_path / "data"
+    data.mkdir()
+    case = load_nist("Norris")
+    header, *lines = case.csv_path.read_text("ascii").splitlines()
+    for i, name in enumerate(("first", "second", "third")):
+        (data / f"{name}.csv").write_text("\n".join([header, *lines[i * 12 : i * 12 + 20]]) + "\n", "ascii")
+        title = "Norris third" if name == "third" else "Norris twin"
+        (data / f"{name}.toml").write_text(f'title = "{title}"\nmodel = "y ~ x"\ntags = ["twins"]\n')
+    site = tmp_path / "site"
+    assert main(["build", str(data), "-o", str(site), "-q"]) == 0
+    page = (site / "index.html").read_text("utf-8")
+    specs = re.findall(
+        r'<script type="application/json" class="vl-spec" data-target="vis-forest-twins">(.*?)</script>', page, re.S
+    )
+    (spec,) = [json.loads(s) for s in specs]
+    headings = [row["heading"] for row in spec["datasets"]["rows"]]
+    assert sorted(headings) == ["Norris third", "Norris twin (first.csv)", "Norris twin (second.csv)"]
+    assert len({row["dataset"] for row in spec["datasets"]["rows"]}) == 3
+    assert html.escape("Norris twin (second.csv)") in page  # the table under the chart says the same

@@ -9,22 +9,9 @@ percentages 3; levels the user declared as written), checked here by counting di
 
 from __future__ import annotations
 
-import json
 import re
-from pathlib import Path
-from typing import Any
 
-from conftest import Built
-
-
-def _fit(site: Path, slug: str) -> dict[str, Any]:
-    body = json.loads((site / "datasets" / slug / "fit.json").read_text(encoding="utf-8"))
-    assert isinstance(body, dict)
-    return body
-
-
-def _page(site: Path, slug: str) -> str:
-    return (site / "datasets" / slug / "index.html").read_text(encoding="utf-8")
+from conftest import Built, dataset_page, fit_json
 
 
 def _significant(text: str) -> int:
@@ -33,7 +20,7 @@ def _significant(text: str) -> int:
 
 
 def test_comparison_conclusion_has_units_and_the_page_digit_rule(example_build: Built) -> None:
-    fit = _fit(example_build.site, "field-ammonium-analyser-vs-lab")
+    fit = fit_json(example_build.site, "field-ammonium-analyser-vs-lab")
     text = fit["comparison_text"]
     agreement = fit["agreement"]
     # the mean difference and its interval carry the unit (sidecar: units = { analyser = "mg/L N", ... })
@@ -53,14 +40,14 @@ def test_comparison_conclusion_has_units_and_the_page_digit_rule(example_build: 
 
 
 def test_comparison_and_calibration_tables_name_their_units(example_build: Built) -> None:
-    compared = _page(example_build.site, "field-ammonium-analyser-vs-lab")
+    compared = dataset_page(example_build.site, "field-ammonium-analyser-vs-lab")
     bias = compared.split('id="h-bias"')[1].split("</thead>")[0]
     assert "Level (mg/L N)" in bias
     assert "Bias (mg/L N)" in bias
     assert "95% interval (mg/L N)" in bias
     agreement = compared.split('id="h-agreement"')[1].split("</thead>")[0]
     assert "Estimate (mg/L N)" in agreement
-    calibrated = _page(example_build.site, "calibration-nitrate-uv")
+    calibrated = dataset_page(example_build.site, "calibration-nitrate-uv")
     readback = calibrated.split('id="h-readback"')[1].split("</thead>")[0]
     assert "Nominal (mg/L N)" in readback
     assert "Mean read back (mg/L N)" in readback
@@ -74,14 +61,14 @@ def test_comparison_and_calibration_tables_name_their_units(example_build: Built
     rows = re.findall(r"<code>([^<]+)</code></th><td class=\"text\">([^<]+)</td>", estimates)
     assert rows == [("Intercept", "AU"), ("nitrate", "AU per mg/L N")]
     # the deviation of a read-back standard follows the 4-digit rule like the value read back
-    fit = _fit(example_build.site, "calibration-nitrate-uv")
+    fit = fit_json(example_build.site, "calibration-nitrate-uv")
     devs = re.findall(r"<td>(−?[\d.]+)</td><td>(?:−?[\d.]+ %|—)</td>", calibrated.split('id="h-readback"')[1])
     assert len(devs) == len(fit["back_calculated"])
     assert all(_significant(d) == 4 for d in devs), devs
 
 
 def test_quadratic_coefficients_get_their_units(example_build: Built) -> None:
-    page = _page(example_build.site, "calibration-phosphate-molybdenum-blue")
+    page = dataset_page(example_build.site, "calibration-phosphate-molybdenum-blue")
     estimates = page.split('id="h-est"')[1].split("</table>")[0]
     rows = re.findall(r"<code>([^<]+)</code></th><td class=\"text\">([^<]+)</td>", estimates)
     assert rows == [

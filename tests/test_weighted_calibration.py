@@ -12,7 +12,6 @@ Independent sources beside each check:
 
 from __future__ import annotations
 
-import json
 import math
 from pathlib import Path
 from typing import Any
@@ -20,7 +19,7 @@ from typing import Any
 import numpy as np
 import pytest
 import statsmodels.api as sm
-from conftest import cli, write_csv, write_toml
+from conftest import cli, fit_json, write_csv, write_toml
 from scipy import optimize, stats
 
 from sitegen.stats.calibration import (
@@ -166,12 +165,6 @@ def test_weighted_detection_limits_against_statsmodels() -> None:
     assert "confirm them with blanks" in far.basis  # 0.033 lies below the lowest standard, 5
 
 
-def _fit(site: Path, slug: str) -> dict[str, Any]:
-    body = json.loads((site / "datasets" / slug / "fit.json").read_text(encoding="utf-8"))
-    assert isinstance(body, dict)
-    return body
-
-
 def test_weighted_calibrations_read_samples_back_with_fieller_and_give_limits(tmp_path: Path) -> None:
     data = tmp_path / "data"
     rows = [("conc", "area"), *zip(X.tolist(), Y.tolist(), strict=True)]
@@ -186,7 +179,7 @@ def test_weighted_calibrations_read_samples_back_with_fieller_and_give_limits(tm
     site = tmp_path / "site"
     assert cli("build", data, "-o", site, "-j", "1").code == 0
     res = _wls(1 / X**2)
-    chosen = _fit(site, "chosen")
+    chosen = fit_json(site, "chosen")
     for cal, y0 in zip(chosen["calibration"], (3.0, 12.0), strict=True):
         assert cal["method"] == "fieller, weighted 1/x²"
         assert (cal["ci_low"], cal["ci_high"]) == pytest.approx(_fieller_roots(res, y0, 1, lambda x: x * x), rel=1e-8)
@@ -200,6 +193,6 @@ def test_weighted_calibrations_read_samples_back_with_fieller_and_give_limits(tm
     )
     assert "lowest standard" in page
     # a weights column: the new reading's weight is the sidecar's reading_weight (0.04), the mean of 3 readings
-    (cal,) = _fit(site, "column")["calibration"]
+    (cal,) = fit_json(site, "column")["calibration"]
     assert cal["method"] == "fieller, weighted by column w"
     assert (cal["ci_low"], cal["ci_high"]) == pytest.approx(_fieller_roots(res, 3.0, 3, lambda x: 1 / 0.04), rel=1e-8)

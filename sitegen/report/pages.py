@@ -317,6 +317,30 @@ def render_dataset(
     return _render(ctx, "dataset.html", **_common(ctx, "../../", "dataset"), v=v, r=r)
 
 
+#: The index table's first rows, laid out at load; the others travel inside a ``<noscript>`` after the table:
+#: shown as a second table without JavaScript, one text node with it, which site.js parses into detached rows at start
+#: (about a tenth of a second for 5,000). Laying out 5,000 rows took seconds (bench/index_browser.py).
+INDEX_WINDOW = 200
+
+
+def _split_rows(
+    sections: list[tuple[str, list[FitReport]]], size: int
+) -> tuple[list[dict[str, Any]], list[dict[str, Any]]]:
+    """The folder groups of the first ``size`` rows in page order, and the groups of the rows after them
+    (a folder cut by the window is in both, its second part marked as continued)."""
+    window: list[dict[str, Any]] = []
+    rest: list[dict[str, Any]] = []
+    left = size
+    for name, members in sections:
+        head, tail = members[:left], members[left:]
+        left -= len(head)
+        if head:
+            window.append({"name": name, "reports": head, "continued": False})
+        if tail:
+            rest.append({"name": name, "reports": tail, "continued": bool(head)})
+    return window, rest
+
+
 def render_index(ctx: SiteContext, reports: Sequence[FitReport], tags: Sequence[dict[str, Any]]) -> str:
     """The comparison index of every dataset."""
     sections: dict[str, list[FitReport]] = {}
@@ -324,12 +348,17 @@ def render_index(ctx: SiteContext, reports: Sequence[FitReport], tags: Sequence[
         sections.setdefault(r.section, []).append(r)
     counts = {s: sum(1 for r in reports if r.status == s) for s in ("ok", "warn", "error")}
     levels = sorted({r.level for r in reports})
+    ordered = sorted(sections.items())
+    window, rest = _split_rows(ordered, INDEX_WINDOW)
     return _render(
         ctx,
         "index.html",
         **_common(ctx, "", "index"),
         reports=reports,
-        sections=[{"name": k, "reports": v} for k, v in sorted(sections.items())],
+        sections=[{"name": k, "reports": v} for k, v in ordered],
+        window_sections=window,
+        rest_sections=rest,
+        window_size=INDEX_WINDOW,
         counts=counts,
         tags=tags,
         first_problem=_first_problem,
@@ -370,8 +399,11 @@ def _render(ctx: SiteContext, name: str, **values: Any) -> str:
     env = environment(ctx.theme)
     seconds = ctx.config.limits.max_page_seconds if ctx.theme.sandboxed else None
     try:
+        # Loaded (and compiled) before the bound starts: the bound is for rendering, and a page that stopped while
+        # its templates were compiling, on a busy machine, would not name the template line that runs too long.
+        template = env.get_template(name)
         with _time_bound(seconds):
-            html = env.get_template(name).render(**values)
+            html = template.render(**values)
         return _with_policy(html)
     except _Overtime as exc:
         where = _template_line(exc, env) or f"{name} (or a template it uses)"

@@ -21,13 +21,15 @@ def tag_blocks(reports: Sequence[FitReport]) -> list[dict[str, Any]]:
     for tag, members in sorted(by_tag.items()):
         rows: list[dict[str, Any]] = []
         left_out = [r.title for r in members if r.pooled_contrast]
+        label = _labels(members)
         for r in members:
             usable = r.compare_term and r.status != "error" and not r.pooled_contrast
             c = r.coefficient(r.compare_term) if usable and r.compare_term else None
             if c is not None:
                 rows.append(
                     {
-                        "label": r.title,
+                        "dataset": r.dataset,
+                        "label": label[r.dataset],
                         "estimate": c.estimate,
                         "low": c.ci_low,
                         "high": c.ci_high,
@@ -83,6 +85,16 @@ def tag_blocks(reports: Sequence[FitReport]) -> list[dict[str, Any]]:
             {"name": tag, "reports": members, "forest": forest, "caption": caption, "test": test, "summary": summary}
         )
     return blocks
+
+
+def _labels(members: Sequence[FitReport]) -> dict[str, str]:
+    """Each dataset's label in a tag's comparison, by its slug: its title, followed by its file where another
+    dataset of the tag has the same title (the chart draws one row per label, so two datasets must never share
+    one)."""
+    seen: dict[str, int] = {}
+    for r in members:
+        seen[r.title] = seen.get(r.title, 0) + 1
+    return {r.dataset: f"{r.title} ({r.source})" if seen[r.title] > 1 else r.title for r in members}
 
 
 #: A tag with more estimates than this is summarised rather than drawn row by row (a forest of 5,000 rows is

@@ -177,7 +177,7 @@
      A table of more than WINDOW rows (or its data-window) shows the first WINDOW that match, with buttons for
      more: a browser lays out every row it shows, and 5,000 rows took seconds to lay out after each sort (rows
      not shown are kept out of the page, so they cost nothing). Smaller tables keep every row in the page, hiding
-     the others. */
+     the others. The index is written with only its first rows in the table (see restRows). */
 
   var WINDOW = 200;
   var tables = {};  /* table id -> { table, items, sorted, window, limit, attached, more } */
@@ -200,18 +200,48 @@
     return rows;
   }
 
+  /* The rows after the first ones travel in a <noscript> after the table (a second table when scripts are off;
+     one text node when they are on, so that the browser neither builds nor lays them out at load). They are
+     parsed here into rows kept out of the page, each with its folder's group in the table as its home. */
+  function restRows(table) {
+    var holder = document.querySelector('noscript[data-rows-for="' + table.id + '"]');
+    if (!holder) { return []; }
+    var parsed = document.createElement("template");
+    parsed.innerHTML = holder.textContent;
+    var rows = [];
+    Array.prototype.forEach.call(parsed.content.querySelectorAll("tbody[data-home]"), function (b) {
+      var home = document.getElementById(b.getAttribute("data-home"));
+      var own = b.querySelectorAll("tr:not(.group-row)");
+      Array.prototype.forEach.call(own, function (r) { b.removeChild(r); rows.push({ row: r, home: null }); });
+      if (!home || home.parentNode !== table) {
+        home = document.importNode(b, true);
+        home.id = b.getAttribute("data-home");
+        home.removeAttribute("data-home");
+        table.appendChild(home);
+      }
+      rows.slice(rows.length - own.length).forEach(function (it) { it.home = home; });
+    });
+    labelRows(table, rows.map(function (it) { return it.row; }));
+    return rows;
+  }
+
   function stateOf(table) {
     var state = tables[table.id];
     if (state) { return state; }
-    var items = dataRows(table).map(function (r, i) {
-      return { row: r, home: r.parentNode, order: i, ok: true, keys: {},
+    var shown = dataRows(table).map(function (r) { return { row: r, home: r.parentNode }; });
+    var items = shown.concat(restRows(table)).map(function (place, i) {
+      var r = place.row;
+      return { row: r, home: place.home, order: i, ok: true, keys: {},
                search: r.getAttribute("data-search") || "", status: r.getAttribute("data-status"),
                req: r.getAttribute("data-requirements"), folder: r.getAttribute("data-folder"),
                tags: (r.getAttribute("data-tags") || "").split("|") };
     });
     var size = parseInt(table.getAttribute("data-window") || "", 10);
     size = size > 0 ? size : WINDOW;
-    state = { table: table, items: items, sorted: null, window: size, limit: size, attached: items.slice(), more: null };
+    /* a small table keeps every row in the page; one with rows still out of it is never small */
+    state = { table: table, items: items, sorted: null, window: size, limit: size,
+              small: items.length <= size && shown.length === items.length,
+              attached: items.slice(0, shown.length), more: null };
     tables[table.id] = state;
     return state;
   }
@@ -221,7 +251,7 @@
   function render(state) {
     var table = state.table;
     var list = state.sorted || state.items;
-    var small = state.items.length <= state.window;
+    var small = state.small;
     var shown = [];
     var matched = 0;
     list.forEach(function (it) {
@@ -255,7 +285,7 @@
   function offerMore(state, matched, drawn) {
     var box = state.more;
     if (!box) {
-      if (state.items.length <= state.window) { return; }
+      if (state.small) { return; }
       box = document.createElement("p");
       box.className = "more-rows";
       box.id = state.table.id + "-more";
@@ -384,22 +414,26 @@
      Each cell is labelled with its column heading (data-label); the style sheet stacks the cells under
      40rem, so that no column, the status included, hides behind a horizontal scroll. */
 
+  function labelRows(table, rows) {
+    var heads = table.tHead ? table.tHead.rows[table.tHead.rows.length - 1].cells : [];
+    if (!heads.length) { return false; }
+    var names = Array.prototype.map.call(heads, function (th) { return th.textContent.replace(/[↕↑↓]/g, "").trim(); });
+    rows.forEach(function (row) {
+      if (row.classList.contains("group-row")) { return; }
+      var col = 0;
+      Array.prototype.forEach.call(row.cells, function (cell) {
+        if (!cell.hasAttribute("data-label") && names[col]) { cell.setAttribute("data-label", names[col]); }
+        col += cell.colSpan || 1;
+      });
+    });
+    return true;
+  }
+
   function labelCells() {
     document.querySelectorAll("table.numbers").forEach(function (table) {
-      var heads = table.tHead ? table.tHead.rows[table.tHead.rows.length - 1].cells : [];
-      if (!heads.length) { return; }
-      var names = Array.prototype.map.call(heads, function (th) { return th.textContent.replace(/[↕↑↓]/g, "").trim(); });
-      Array.prototype.forEach.call(table.tBodies, function (body) {
-        Array.prototype.forEach.call(body.rows, function (row) {
-          if (row.classList.contains("group-row")) { return; }
-          var col = 0;
-          Array.prototype.forEach.call(row.cells, function (cell) {
-            if (!cell.hasAttribute("data-label") && names[col]) { cell.setAttribute("data-label", names[col]); }
-            col += cell.colSpan || 1;
-          });
-        });
-      });
-      table.classList.add("stackable");
+      var rows = [];
+      Array.prototype.forEach.call(table.tBodies, function (body) { rows = rows.concat(Array.prototype.slice.call(body.rows)); });
+      if (labelRows(table, rows)) { table.classList.add("stackable"); }
     });
   }
 
