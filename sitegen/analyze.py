@@ -189,27 +189,19 @@ def _responsible(spec: DatasetSpec) -> tuple[tuple[str, str], ...]:
 
 def _leave_out(
     spec: DatasetSpec, table: LoadedTable, sidecar: str
-) -> tuple[LoadedTable, list[Message], tuple[tuple[int, str], ...]]:
-    """The table without the rows the sidecar leaves out (the CSV file itself is never changed)."""
+) -> tuple[LoadedTable, list[int], tuple[tuple[int, str], ...]]:
+    """The table without the rows the sidecar leaves out (the CSV file itself is never changed), the rows
+    leave_out names that the CSV does not have, and the rows left out with their reasons."""
     if not spec.leave_out:
         return table, [], ()
     wanted = dict(spec.leave_out)
     present = set(table.table.rows.tolist())
     missing = sorted(r for r in wanted if r not in present)
-    messages = []
-    if missing:
-        messages.append(
-            Message(
-                "warning",
-                f"{sidecar}: leave_out names row(s) {', '.join(map(str, missing))}, which the CSV does not have "
-                f"(it has data rows 1 to {len(table.table)}); nothing was left out for them",
-            )
-        )
     keep = np.array([r not in wanted for r in table.table.rows.tolist()], dtype=bool)
     if not bool(keep.any()):
         raise FitError(f"{sidecar}: leave_out removes every row; there is nothing left to fit")
     excluded = tuple((r, why) for r, why in spec.leave_out if r in present)
-    return replace(table, table=table.table.take(keep)), messages, excluded
+    return replace(table, table=table.table.take(keep)), missing, excluded
 
 
 def _spec_messages(spec: DatasetSpec | None, sidecar_name: str) -> list[Message]:
@@ -244,7 +236,8 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
     name = base.source
     sidecar = base.source[: -len(".csv")] + ".toml"
     n_read = len(table.table)
-    table, left_out_messages, excluded = _leave_out(spec, table, sidecar)
+    whole = table
+    table, missing, excluded = _leave_out(spec, table, sidecar)
     formula, assumed = _model_formula(spec, table, name)
     extra = tuple(c for c in (spec.weights, spec.group) if c)
     design = build_design(formula, table.table, name, extra)
@@ -265,32 +258,18 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
     )
     if ext.needs_double_double(fit.condition):  # badly conditioned: design and fit again in double-double
         with ext.forced(ext.DOUBLE_DOUBLE):
-            return _fit(base, spec, table)
-    messages = _spec_messages(spec, base.source[: -len(".csv")] + ".toml")
-    if assumed:
-        messages.append(
-            Message(
-                "note",
-                f"There is no sidecar model, so the line {formula} (second column against the first) was assumed.",
-            )
-        )
-    messages += [Message("warning" if "not UTF-8" in n else "note", n) for n in table.notes]
-    messages += left_out_messages
-    if excluded:
-        messages.append(
-            Message(
-                "note",
-                f"{len(excluded)} row(s) left out as the sidecar asks, each with its reason (listed on the page): "
-                f"rows {', '.join(str(r) for r, _ in excluded)}.",
-            )
-        )
-    if design.dropped:
-        rows = ", ".join(str(r) for r, _ in design.dropped[:20])
-        more = f" and {len(design.dropped) - 20} more" if len(design.dropped) > 20 else ""
-        reasons = sorted({why for _, why in design.dropped})
-        messages.append(
-            Message("warning", f"{len(design.dropped)} row(s) left out ({'; '.join(reasons)}): rows {rows}{more}.")
-        )
+            return _fit(base, spec, whole)  # the table as read: leave_out is applied again there
+    messages = _spec_messages(spec, sidecar)
+    messages += derive.input_messages(
+        sidecar=sidecar,
+        assumed=formula if assumed else None,
+        notes=table.notes,
+        rows_read=n_read,
+        missing=missing,
+        excluded=excluded,
+        dropped=design.dropped,
+        dropped_total=len(design.dropped),
+    )
     pieces = derive.compute(design, fit, spec, weights, weighting=weighting.name if weighting else None)
     messages += pieces.messages
     groups = pieces.groups

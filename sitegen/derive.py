@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import math
 import re
+from collections.abc import Sequence
 from dataclasses import dataclass
 from typing import Any
 
@@ -126,6 +127,52 @@ def straight_line(design: Design) -> str | None:
     ):
         return x
     return None
+
+
+def input_messages(
+    *,
+    sidecar: str,
+    assumed: str | None,
+    notes: Sequence[str],
+    rows_read: int,
+    missing: Sequence[int],
+    excluded: Sequence[tuple[int, str]],
+    dropped: Sequence[tuple[int, str]],
+    dropped_total: int,
+) -> list[Message]:
+    """The messages about the input that every fit states alike, whether the file was read whole or in chunks:
+    an assumed model, the reader's notes, leave_out rows that are not there and those left out, rows dropped."""
+    out: list[Message] = []
+    if assumed is not None:
+        out.append(
+            Message(
+                "note",
+                f"There is no sidecar model, so the line {assumed} (second column against the first) was assumed.",
+            )
+        )
+    out += [Message("warning" if "not UTF-8" in n else "note", n) for n in notes]
+    if missing:
+        out.append(
+            Message(
+                "warning",
+                f"{sidecar}: leave_out names row(s) {', '.join(map(str, missing))}, which the CSV does not have "
+                f"(it has data rows 1 to {rows_read}); nothing was left out for them",
+            )
+        )
+    if excluded:
+        out.append(
+            Message(
+                "note",
+                f"{len(excluded)} row(s) left out as the sidecar asks, each with its reason (listed on the page): "
+                f"rows {', '.join(str(r) for r, _ in excluded)}.",
+            )
+        )
+    if dropped_total:
+        rows = ", ".join(str(r) for r, _ in dropped[:20])
+        more = f" and {dropped_total - 20} more" if dropped_total > 20 else ""
+        reasons = sorted({why for _, why in dropped})
+        out.append(Message("warning", f"{dropped_total} row(s) left out ({'; '.join(reasons)}): rows {rows}{more}."))
+    return out
 
 
 def one_normality_check(diagnostics: tuple[Diagnostic, ...]) -> tuple[Diagnostic, ...]:

@@ -118,3 +118,23 @@ def test_change_report_puts_worsened_verdicts_first(tmp_path: Path) -> None:
     assert worse == sorted(worse, reverse=True)  # every worsening before every improvement
     html = (site / "changes.html").read_text(encoding="utf-8")
     assert html.index("Verdicts that changed") < html.index("Fitted again")
+
+
+def test_leave_out_holds_when_the_fit_is_made_again_in_double_double(tmp_path: Path) -> None:
+    """A badly conditioned cubic (scaled condition above 1e6) is fitted again in double-double; the rows left out
+    are those of the file as read, so none is reported missing and the excluded row is listed."""
+    data = tmp_path / "data"
+    xs = [300 + 0.5 * i for i in range(21)]
+    rows = "".join(f"{x},{1 + 0.2 * x + 0.01 * x**2 + 0.001 * x**3 + (-1) ** i * 0.01}\n" for i, x in enumerate(xs))
+    write_csv(data / "a.csv", "x,y\n" + rows)
+    write_toml(
+        data / "a.toml",
+        'model = "y ~ x + I(x**2) + I(x**3)"\nleave_out = [{ row = 3, reason = "bubble in the cell" }]\n',
+    )
+    site = tmp_path / "site"
+    build_exit_code(data, site)
+    fit = fit_json(site, "a")
+    assert fit["excluded_rows"] == [[3, "bubble in the cell"]]
+    assert fit["n"] == 20
+    assert fit["n_rows"] == 21
+    assert not any("leave_out names" in m["text"] for m in fit["messages"])

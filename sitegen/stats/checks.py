@@ -93,8 +93,9 @@ WORDING: dict[str, tuple[str, str, str, str]] = {
         "Bell-shaped residuals (Shapiro–Wilk)",
         "The residuals depart from a bell-shaped (normal) distribution",
         "The residuals are consistent with a bell-shaped (normal) distribution",
-        "Look at the Q–Q plot: skewed or heavy-tailed residuals make intervals and p-values less "
-        "reliable, especially with few rows, and may point to outlying rows or a need to transform y.",
+        "Look at the chart of the residuals' shape against a bell: skewed or heavy-tailed residuals make "
+        "intervals and p-values less reliable, especially with few rows, and may point to outlying rows or a "
+        "need to transform y.",
     ),
     "curvature": (
         "Straightness",

@@ -1086,40 +1086,17 @@ def _report(  # noqa: PLR0917 - the pieces of one report
     name = base.source
     sidecar = name[: -len(".csv")] + ".toml"
     messages = _spec_messages(spec, sidecar)
-    if first.assumed:
-        messages.append(
-            Message(
-                "note",
-                f"There is no sidecar model, so the line {first.formula} (second column against the first) "
-                "was assumed.",
-            )
-        )
-    messages += [Message("warning" if "not UTF-8" in t else "note", t) for t in first.notes]
     excluded = tuple((r, why) for r, why in spec.leave_out if 1 <= r <= first.rows_read)
-    missing = sorted(r for r, _ in spec.leave_out if not 1 <= r <= first.rows_read)
-    if missing:
-        messages.append(
-            Message(
-                "warning",
-                f"{sidecar}: leave_out names row(s) {', '.join(map(str, missing))}, which the CSV does not have "
-                f"(it has data rows 1 to {first.rows_read}); nothing was left out for them",
-            )
-        )
-    if excluded:
-        messages.append(
-            Message(
-                "note",
-                f"{len(excluded)} row(s) left out as the sidecar asks, each with its reason (listed on the page): "
-                f"rows {', '.join(str(r) for r, _ in excluded)}.",
-            )
-        )
-    if first.dropped_total:
-        rows = ", ".join(str(r) for r, _ in first.dropped[:20])
-        more = f" and {first.dropped_total - 20} more" if first.dropped_total > 20 else ""
-        reasons = sorted({why for _, why in first.dropped})
-        messages.append(
-            Message("warning", f"{first.dropped_total} row(s) left out ({'; '.join(reasons)}): rows {rows}{more}.")
-        )
+    messages += derive.input_messages(
+        sidecar=sidecar,
+        assumed=first.formula if first.assumed else None,
+        notes=first.notes,
+        rows_read=first.rows_read,
+        missing=sorted(r for r, _ in spec.leave_out if not 1 <= r <= first.rows_read),
+        excluded=excluded,
+        dropped=first.dropped,
+        dropped_total=first.dropped_total,
+    )
     mb = first.size / 1e6  # how the file was read is the report's `chunked`, which the page states
     diagnostics = tuple(
         replace(d, basis="all rows" if "Shapiro–Wilk decides" in d.text else "streamed")
