@@ -129,6 +129,20 @@ def straight_line(design: Design) -> str | None:
     return None
 
 
+def judged_claims(fit: OlsFit, spec: DatasetSpec, messages: list[Message]) -> list[ClaimTest]:
+    """The sidecar's declared claims tested on ``fit``; an unreadable claim, and every claim the data
+    contradict, adds a warning to ``messages`` (whether the file was read whole or in chunks)."""
+    claims: list[ClaimTest] = []
+    for found in check_claims(fit, list(spec.claims)) if spec.claims else []:
+        if isinstance(found, DatasetError):
+            messages.append(Message("warning", str(found)))
+        else:
+            claims.append(found)
+            if found.rejected:
+                messages.append(Message("warning", f"Declared claim '{found.claim}': {found.conclusion}"))
+    return claims
+
+
 def input_messages(
     *,
     sidecar: str,
@@ -279,15 +293,7 @@ def compute(
         Xw = design.X * sw[:, None]
         cov = hc3_cov(Xw, fit.resid * sw, np.asarray(infl.leverage), fit.xtx_inv, xtx_root=fit.xtx_root, q=fit.q)
         robust_se = np.sqrt(np.clip(np.diag(cov), 0, None))
-    claims = []
-    if spec.claims:
-        for found in check_claims(fit, list(spec.claims)):
-            if isinstance(found, DatasetError):
-                messages.append(Message("warning", str(found)))
-            else:
-                claims.append(found)
-                if found.rejected:
-                    messages.append(Message("warning", f"Declared claim '{found.claim}': {found.conclusion}"))
+    claims = judged_claims(fit, spec, messages)
     line_x = straight_line(design)
     weighted = weights is not None
     lines, lines_text = _lines(design, fit, spec, line_x, messages, weighted=weighted)

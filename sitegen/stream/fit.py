@@ -45,7 +45,6 @@ from sitegen.model import (
     Diagnostic,
     FitReport,
     FlaggedPoint,
-    Message,
     Status,
     check_warning,
 )
@@ -55,7 +54,6 @@ from sitegen.stats import ext
 from sitegen.stats.checks import CONDITION_LIMIT as COLLINEAR_CONDITION
 from sitegen.stats.checks import RESIDUAL_LIMIT, SHAPIRO_MAX_ROWS, VIF_LIMIT, WORDING
 from sitegen.stats.checks import _num as num
-from sitegen.stats.claims import check_claims
 from sitegen.stats.durbin_watson import EXACT_MAX_ROWS, exact_cdf
 from sitegen.stats.influence import LEVERAGE_ONE, Influence, PointFlags, influence_rows
 from sitegen.stats.ols import EXACT_FIT_RTOL, OlsFit, anova_table, bands, row_bands, with_inference
@@ -1107,15 +1105,7 @@ def _report(  # noqa: PLR0917 - the pieces of one report
     for d in diagnostics:
         if d.flag:
             messages.append(check_warning(d))
-    claims = []
-    if spec.claims:
-        for found in check_claims(fit, list(spec.claims)):
-            if isinstance(found, Exception):
-                messages.append(Message("warning", str(found)))
-            else:
-                claims.append(found)
-                if found.rejected:
-                    messages.append(Message("warning", f"Declared claim '{found.claim}': {found.conclusion}"))
+    claims = derive.judged_claims(fit, spec, messages)
     predictions = derive._predictions(skeleton, fit, spec, messages, None)
     status: Status = "warn" if any(m.level in ("warning", "error") for m in messages) else "ok"
     if any(d.flag for d in diagnostics):
