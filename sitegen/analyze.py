@@ -290,7 +290,7 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
     if any(d.flag for d in pieces.diagnostics):
         status = "warn"
     report = replace(
-        base,
+        with_fit(base, fit, pieces.robust_se),
         status=status,
         model=formula,
         model_assumed=assumed,
@@ -298,20 +298,9 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         terms=design.terms,
         variables=design.variables,
         weights=spec.weights,
-        n=fit.n,
         n_rows=n_read,
         excluded_rows=excluded,
         dropped_rows=design.dropped,
-        df_model=fit.df_model,
-        df_resid=fit.df_resid,
-        r_squared=fit.r_squared,
-        adj_r_squared=fit.adj_r_squared,
-        residual_std_error=fit.sigma,
-        f_stat=fit.f_stat,
-        f_p_value=fit.f_p_value,
-        condition_number=fit.condition,
-        coefficients=_coefficients(fit, pieces.robust_se),
-        anova=tuple(AnovaLine(a.source, a.df, a.sum_sq, a.mean_sq, a.f_stat, a.p_value) for a in anova_table(fit)),
         messages=tuple(messages),
         diagnostics=pieces.diagnostics,
         flagged=pieces.flagged,
@@ -371,6 +360,25 @@ def _weights(design: Design, spec: DatasetSpec) -> NDArray[np.float64] | None:
         row = int(design.rows[np.flatnonzero(bad)[0]])
         raise FitError(f"weights column {spec.weights!r} must hold positive numbers; row {row} does not")
     return w
+
+
+def with_fit(report: FitReport, fit: OlsFit, robust_se: NDArray[np.float64] | None) -> FitReport:
+    """``report`` with the fit's own figures: counts, R², the F test, condition, coefficients and ANOVA
+    (the same for a file read whole or in chunks)."""
+    return replace(
+        report,
+        n=fit.n,
+        df_model=fit.df_model,
+        df_resid=fit.df_resid,
+        r_squared=fit.r_squared,
+        adj_r_squared=fit.adj_r_squared,
+        residual_std_error=fit.sigma,
+        f_stat=fit.f_stat,
+        f_p_value=fit.f_p_value,
+        condition_number=fit.condition,
+        coefficients=_coefficients(fit, robust_se),
+        anova=tuple(AnovaLine(a.source, a.df, a.sum_sq, a.mean_sq, a.f_stat, a.p_value) for a in anova_table(fit)),
+    )
 
 
 def _coefficients(fit: OlsFit, robust_se: NDArray[np.float64] | None) -> tuple[Coefficient, ...]:

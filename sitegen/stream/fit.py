@@ -39,7 +39,6 @@ from sitegen.derive import MAX_CHART_POINTS, MAX_FLAGGED_LISTED, SAMPLE_POINTS
 from sitegen.errors import DataFileError, FitError, FormulaError
 from sitegen.formula import Design, assumed_formula, design_for
 from sitegen.model import (
-    AnovaLine,
     ChartData,
     Chunked,
     Diagnostic,
@@ -56,7 +55,7 @@ from sitegen.stats.checks import RESIDUAL_LIMIT, SHAPIRO_MAX_ROWS, VIF_LIMIT, WO
 from sitegen.stats.checks import _num as num
 from sitegen.stats.durbin_watson import EXACT_MAX_ROWS, exact_cdf
 from sitegen.stats.influence import LEVERAGE_ONE, Influence, PointFlags, influence_rows
-from sitegen.stats.ols import EXACT_FIT_RTOL, OlsFit, anova_table, bands, row_bands, with_inference
+from sitegen.stats.ols import EXACT_FIT_RTOL, OlsFit, bands, row_bands, with_inference
 from sitegen.stats.shapiro import shapiro_wilk
 from sitegen.stats.solver import Ext, Ops, _check_rank, ops
 from sitegen.stats.soundness import RESCALE, _column_problem, figures_problem
@@ -1079,7 +1078,7 @@ def _report(  # noqa: PLR0917 - the pieces of one report
     limits: Limits,
     threshold: float,
 ) -> FitReport:
-    from sitegen.analyze import _coefficients, _spec_messages  # noqa: PLC0415
+    from sitegen.analyze import _spec_messages, with_fit  # noqa: PLC0415
 
     name = base.source
     sidecar = name[: -len(".csv")] + ".toml"
@@ -1112,27 +1111,16 @@ def _report(  # noqa: PLR0917 - the pieces of one report
         status = "warn"
     flagged = tuple(FlaggedPoint(*pay) for _, pay in second.listed.items())
     report = replace(
-        base,
+        with_fit(base, fit, None),
         status=status,
         model=first.formula,
         model_assumed=first.assumed,
         response=model.plan.y_name,
         terms=model.terms,
         variables=model.used,
-        n=fit.n,
         n_rows=first.rows_read,
         excluded_rows=excluded,
         dropped_rows=tuple(first.dropped),
-        df_model=fit.df_model,
-        df_resid=fit.df_resid,
-        r_squared=fit.r_squared,
-        adj_r_squared=fit.adj_r_squared,
-        residual_std_error=fit.sigma,
-        f_stat=fit.f_stat,
-        f_p_value=fit.f_p_value,
-        condition_number=fit.condition,
-        coefficients=_coefficients(fit, None),
-        anova=tuple(AnovaLine(a.source, a.df, a.sum_sq, a.mean_sq, a.f_stat, a.p_value) for a in anova_table(fit)),
         messages=tuple(messages),
         diagnostics=diagnostics,
         flagged=flagged,
