@@ -31,8 +31,6 @@ from dataclasses import dataclass
 from types import TracebackType
 from typing import TYPE_CHECKING, Any, Generic, Literal, Protocol, Self, TypeVar
 
-from sitegen.clib import give_back_large_blocks
-
 if TYPE_CHECKING:
     from multiprocessing.connection import Connection
     from multiprocessing.process import BaseProcess
@@ -298,7 +296,6 @@ def _serve(conn: Connection, parent: int) -> None:
         import resource  # noqa: PLC0415
 
         resource.setrlimit(resource.RLIMIT_CORE, (0, resource.getrlimit(resource.RLIMIT_CORE)[1]))  # no core files
-    give_back_large_blocks()  # a large fit's freed arrays go back to the system, not to this worker's heap
     while True:
         try:
             message = conn.recv()
