@@ -292,12 +292,8 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
                 f"and is shown only as a contrast; use each {groups.column}'s own line.",
             ),
         )
-    status: Status = "warn" if any(m.level in ("warning", "error") for m in messages) else "ok"
-    if any(d.flag for d in pieces.diagnostics):
-        status = "warn"
     report = replace(
         with_fit(base, fit, pieces.robust_se),
-        status=status,
         model=formula,
         model_assumed=assumed,
         response=design.response,
@@ -322,7 +318,6 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         claims=pieces.claims,
         groups=pieces.groups,
         pooled_contrast=pooled_contrast,
-        compare_term=spec.compare or next((t for t in design.terms if t != "Intercept"), None),
         chart=pieces.chart,
         reading=(("delimiter", table.delimiter), ("decimal", table.decimal), ("encoding", table.encoding)),
         purpose=spec.purpose,
@@ -339,15 +334,7 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         linearity=pieces.calibration_parts.linearity,
         working_range=pieces.calibration_parts.working_range,
     )
-    coefficients = [(c.term, c.estimate, c.std_error, c.ci_low, c.ci_high) for c in report.coefficients]
-    problem = figures_problem(report.r_squared, report.residual_std_error, coefficients)
-    if problem:
-        raise FitError(f"{name}: the figures of this fit cannot be trusted: {problem}", hint=RESCALE)
-    if report.compare_term and report.coefficient(report.compare_term) is None:
-        raise FormulaError(
-            f"{base.source[: -len('.csv')]}.toml: compare = {spec.compare!r} is not a term of the model",
-            hint=f"choose one of {', '.join(design.terms)}",
-        )
+    report = settled(report, spec)
     if weights is not None and fit.df_resid > 0:
         report = replace(report, residual_sd_y=float(np.sqrt(np.sum(fit.resid**2) / fit.df_resid)))
     if spec.requirements is not None:
@@ -366,6 +353,26 @@ def _weights(design: Design, spec: DatasetSpec) -> NDArray[np.float64] | None:
         row = int(design.rows[np.flatnonzero(bad)[0]])
         raise FitError(f"weights column {spec.weights!r} must hold positive numbers; row {row} does not")
     return w
+
+
+def settled(report: FitReport, spec: DatasetSpec) -> FitReport:
+    """The last step of a report, for a file read whole or in chunks: its status from its messages and checks
+    and the term its comparison reads; raises :class:`FitError` when its figures cannot be trusted and
+    :class:`FormulaError` when ``compare`` names no term of the model."""
+    warned = any(m.level in ("warning", "error") for m in report.messages) or any(d.flag for d in report.diagnostics)
+    status: Status = "warn" if warned else "ok"
+    compare_term = spec.compare or next((t for t in report.terms if t != "Intercept"), None)
+    report = replace(report, status=status, compare_term=compare_term)
+    coefficients = [(c.term, c.estimate, c.std_error, c.ci_low, c.ci_high) for c in report.coefficients]
+    problem = figures_problem(report.r_squared, report.residual_std_error, coefficients)
+    if problem:
+        raise FitError(f"{report.source}: the figures of this fit cannot be trusted: {problem}", hint=RESCALE)
+    if compare_term and report.coefficient(compare_term) is None:
+        raise FormulaError(
+            f"{report.source[: -len('.csv')]}.toml: compare = {spec.compare!r} is not a term of the model",
+            hint=f"choose one of {', '.join(report.terms)}",
+        )
+    return report
 
 
 def with_fit(report: FitReport, fit: OlsFit, robust_se: NDArray[np.float64] | None) -> FitReport:

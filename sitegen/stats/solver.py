@@ -116,6 +116,17 @@ class Solution:
     root_ext: Ext  # W in extended precision
 
 
+def householder_vector(o: Ops, column: Ext) -> Ext | None:
+    """The unit vector v whose reflection I − 2vv' empties ``column`` below its first entry, computed in a copy
+    (None: the column is zero, and nothing is reflected)."""
+    v = column.copy()
+    alpha = o.sqrt(o.dot(v, v))
+    if float(o.f(alpha)) == 0:
+        return None
+    v[0] = v[0] + (alpha if float(o.f(v[0])) >= 0 else -alpha)
+    return v / o.sqrt(o.dot(v, v))
+
+
 def _householder(o: Ops, A: Ext) -> tuple[Ext, list[Ext]]:
     """In-place Householder QR; returns R (p×p) and the reflectors.
 
@@ -127,13 +138,10 @@ def _householder(o: Ops, A: Ext) -> tuple[Ext, list[Ext]]:
     reflectors: list[Ext] = []
     diagonal: dict[int, Any] = {}
     for k in range(p):
-        v = A[k:, k].copy()
-        alpha = o.sqrt(o.dot(v, v))
-        if float(o.f(alpha)) == 0:
-            reflectors.append(o.zeros(v.shape))
+        v = householder_vector(o, A[k:, k])
+        if v is None:
+            reflectors.append(o.zeros(A[k:, k].shape))
             continue
-        v[0] = v[0] + (alpha if float(o.f(v[0])) >= 0 else -alpha)
-        v = v / o.sqrt(o.dot(v, v))
         w = o.dot(v, A[k:, k:]) * 2
         for j in range(k, p):
             A[k:, j] -= v * w[j - k]
