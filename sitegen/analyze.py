@@ -93,9 +93,10 @@ def _read_error(src: DatasetSource, base: FitReport, exc: OSError) -> DatasetRes
     return DatasetResult(replace(base, messages=(Message("error", msg),)), None, transient=True)
 
 
-def _in_chunks(task: FitTask, base: FitReport) -> DatasetResult | None:
+def _in_chunks(task: FitTask, base: FitReport) -> DatasetResult | DatasetSpec | None:
     """The dataset fitted in chunks when its file is at least ``stream_above_megabytes`` (the site's, or its
-    sidecar's); None when it is to be read whole (or its sidecar cannot be read: the whole-file path says why)."""
+    sidecar's); else the sidecar as read here, for the whole-file path to use (read once), or None (the file's
+    size or the sidecar could not be read: the whole-file path says why)."""
     from sitegen.stream.reader import file_size  # noqa: PLC0415
 
     src = task.source
@@ -113,7 +114,7 @@ def _in_chunks(task: FitTask, base: FitReport) -> DatasetResult | None:
     if spec.stream_above_megabytes is not None:
         threshold = spec.stream_above_megabytes  # the sidecar's, for its dataset
     if size < threshold * 1e6:
-        return None
+        return spec
     try:
         base = replace(
             base,
@@ -140,7 +141,7 @@ def _analyze(task: FitTask) -> DatasetResult:
     title = Path(src.relpath).stem
     base = error_report(src)
     chunked = _in_chunks(task, base)
-    if chunked is not None:
+    if isinstance(chunked, DatasetResult):
         return chunked
     try:
         raw = read_source(src.csv_path, task.limits, src.relpath, src.root)  # refuses a file over the size limit unread
@@ -152,7 +153,12 @@ def _analyze(task: FitTask) -> DatasetResult:
     spec: DatasetSpec | None = None
     sidecar_name = src.relpath[: -len(".csv")] + ".toml"
     try:
-        spec = read_sidecar(src.sidecar_path, dict(task.defaults), sidecar_name, src.root)
+        # the sidecar as read to choose the reading (once), or read here to say why it could not be
+        spec = (
+            chunked
+            if chunked is not None
+            else read_sidecar(src.sidecar_path, dict(task.defaults), sidecar_name, src.root)
+        )
         base = replace(
             base,
             title=spec.title or title,

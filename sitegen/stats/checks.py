@@ -162,6 +162,7 @@ class _Data:
     ext: Precise
     s_ext: Ext  # √weights, extended
     ew_ext: Ext  # residuals, weighted scale, extended
+    weighted: bool
 
 
 @dataclass(frozen=True, slots=True)
@@ -292,7 +293,9 @@ def _prepare(
     elif math.sqrt(ssr) <= _ZERO * float(np.linalg.norm(yw)):
         why = "The model passes through every point, so there is no scatter to examine."
     r = np.zeros((p, p))  # not used: the condition number comes from the solver
-    return _Data(X, s, yw, ew, f, q, r, icol, tuple(terms), n, p, n - p, ssr, why, pre, s_ext, ew_ext)
+    return _Data(
+        X, s, yw, ew, f, q, r, icol, tuple(terms), n, p, n - p, ssr, why, pre, s_ext, ew_ext, weights is not None
+    )
 
 
 def _independent_columns(Z: FloatArray) -> NDArray[np.bool_]:
@@ -411,7 +414,8 @@ def _independence(d: _Data) -> _Outcome:
     if d.n <= durbin_watson.EXACT_MAX_ROWS:
         # One-sided, as the classical test: small d means neighbours agree (positive autocorrelation),
         # the pattern of drift and carry-over. Rows in arbitrary order often alternate by chance.
-        p = durbin_watson.exact_cdf(dw, d.q)
+        # An intercept without weights puts the constant itself in the design's span (the cheaper route).
+        p = durbin_watson.exact_cdf(dw, d.q, constant_in_span=d.icol is not None and not d.weighted)
     else:
         p = dw_beta_p(dw, *dw_moments(d.q, d.df))
     return dw_outcome(dw, lag1, p, approximate=d.n > durbin_watson.EXACT_MAX_ROWS)
