@@ -19,6 +19,7 @@ well-conditioned straight lines such designs are in practice.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from typing import Any
 
@@ -211,6 +212,7 @@ def _refine_augmented(  # noqa: PLR0917 - the factorisation's pieces
     """
     p = R.shape[0]
     r = y - o.dot(Xs, b)
+    last = math.inf
     for _ in range(steps):
         f = y - r - o.dot(Xs, b)
         g = -o.dot(Xs.T, r)
@@ -220,12 +222,21 @@ def _refine_augmented(  # noqa: PLR0917 - the factorisation's pieces
         db = _back_substitute(o, R, d[:p] - h)
         top = o.concat([h, d[p:]])
         del d
-        r = r + _apply_q(o, refl, top, in_place=True)
+        dr = _apply_q(o, refl, top, in_place=True)
         del top
+        r = r + dr
         b = b + db
-        # settled: the last correction is below the arithmetic's own rounding of b
-        if float(np.max(np.abs(o.f(db)))) <= o.eps * float(np.max(np.abs(o.f(b)))):
+        # Settled: the last correction of b is below the arithmetic's own rounding of b; or it is not half the one
+        # before (b has reached the rounding noise of the computed residuals, where further steps only move it
+        # within that noise: LAPACK's rule for iterative refinement, common practice) while the residuals'
+        # correction is below their own rounding.
+        size = float(np.max(np.abs(o.f(db))))
+        if size <= o.eps * float(np.max(np.abs(o.f(b)))):
             break
+        if size > last / 2 and float(np.max(np.abs(o.f(dr)))) <= o.eps * float(np.max(np.abs(o.f(r)))):
+            break
+        del dr
+        last = size
     return b, r
 
 
