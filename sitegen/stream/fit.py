@@ -702,7 +702,8 @@ def _checks(acc: _Second, setup: _Setup, ssr: float) -> tuple[Diagnostic, ...]: 
         dw = acc.dw_num / ssr
         lag1 = acc.lag1 / ssr
         if n <= EXACT_MAX_ROWS:
-            pv = exact_cdf(dw, np.vstack(acc.q_all))
+            # no weights here: an intercept puts the constant in the span, as on the whole-file path
+            pv = exact_cdf(dw, np.vstack(acc.q_all), constant_in_span=model.has_intercept)
             basis = held
         else:
             basis = streamed
