@@ -98,7 +98,7 @@ def refuse_unsupported(spec: DatasetSpec, name: str) -> None:
         keys = ", ".join(f"'{k}'" for k, _ in asked)
         raise FitError(
             f"{name} is read in chunks (it is at least stream_above_megabytes in size), and a chunked fit "
-            f"offers no {', '.join(w for _, w in asked)} (key(s) {keys})",
+            f"does not offer {', '.join(w for _, w in asked)} (key(s) {keys})",
             hint="remove those keys from the sidecar, or raise [limits] stream_above_megabytes (or the sidecar's "
             "stream_above_megabytes) above the file's size so that it is read whole",
         )
