@@ -1,9 +1,10 @@
 """No-op rebuilds of the example project (``sitegen build example_project -o SITE`` once more with nothing
 changed) by the working tree and, for comparison, by earlier revisions, interleaved, to tell a cost from noise.
 
-Usage: ``python bench/noop.py [REV ...] [--runs N]``. Each REV (e.g. the commit before a change) is checked out
+Usage: ``python bench/noop.py [REV ...] [--runs N] [--datasets N]``. Each REV (e.g. the commit before a change) is checked out
 into a temporary worktree and run with this environment's libraries (``PYTHONPATH`` first); each version builds
-its own copy of its own ``example_project`` twice (a site, then a rebuild with nothing to do) and is then timed
+its own copy of its own ``example_project`` (or, with ``--datasets N``, of a generated folder of N datasets of
+30 rows, bench/datasets.py) twice (a site, then a rebuild with nothing to do) and is then timed
 over N more rebuilds, the versions taking turns so that a change in the machine's load falls on all alike.
 Prints, per version, the wall time (best, mean of the fastest fifth, median) and the processor time of the
 whole process (user + system; best and fastest fifth), which the machine's load disturbs less.
@@ -26,7 +27,11 @@ import tempfile
 import time
 from pathlib import Path
 
-ROOT = Path(__file__).resolve().parent.parent
+HERE = Path(__file__).resolve().parent
+ROOT = HERE.parent
+sys.path.insert(0, str(HERE))
+
+from datasets import make_folder  # type: ignore[import-not-found]  # noqa: E402
 
 
 def _once(code: Path, data: Path, site: Path) -> tuple[float, float]:
@@ -57,6 +62,9 @@ def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("revs", nargs="*", help="earlier revisions to compare with the working tree")
     parser.add_argument("--runs", type=int, default=30, help="timed rebuilds per version (default 30)")
+    parser.add_argument(
+        "--datasets", type=int, default=0, help="a generated folder of N datasets instead of the example"
+    )
     args = parser.parse_args()
     with tempfile.TemporaryDirectory(prefix="sitegen-noop-") as tmp:
         work = Path(tmp)
@@ -73,7 +81,10 @@ def main() -> None:
                 compileall.compile_dir(tree / "sitegen", quiet=1)
                 place = work / f"v{i}"
                 data, site = place / "data", place / "site"
-                shutil.copytree(tree / "example_project", data)
+                if args.datasets:
+                    make_folder(data, count=args.datasets, rows=30)
+                else:
+                    shutil.copytree(tree / "example_project", data)
                 for _ in range(2):  # the site, then its first rebuild: the state every timed run starts from
                     _once(tree, data, site)
                 setups[name] = (tree, data, site)
@@ -84,7 +95,8 @@ def main() -> None:
                     wall, cpu = _once(tree, data, site)
                     walls[name].append(wall)
                     cpus[name].append(cpu)
-            print(f"no-op rebuild of example_project, {args.runs} interleaved runs each")
+            what = f"a folder of {args.datasets} datasets" if args.datasets else "example_project"
+            print(f"no-op rebuild of {what}, {args.runs} interleaved runs each")
             for name in versions:
                 wb, wf, wm = _summary(walls[name])
                 cb, cf, _ = _summary(cpus[name])
