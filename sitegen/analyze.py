@@ -108,9 +108,10 @@ def reads_in_chunks(size: int, spec: DatasetSpec, limits: Limits) -> bool:
     return chosen or size >= WHOLE_WITH_KEYS_BELOW_MEGABYTES * 1e6 or not unsupported(spec)
 
 
-def _in_chunks(task: FitTask, base: FitReport) -> DatasetResult | None:
+def _in_chunks(task: FitTask, base: FitReport) -> DatasetResult | DatasetSpec | None:
     """The dataset fitted in chunks when its file is at least ``stream_above_megabytes`` (the site's, or its
-    sidecar's); None when it is to be read whole (or its sidecar cannot be read: the whole-file path says why)."""
+    sidecar's); else the sidecar as read here, for the whole-file path to use (read once), or None (the file's
+    size or the sidecar could not be read: the whole-file path says why)."""
     from sitegen.stream.reader import file_size  # noqa: PLC0415
 
     src = task.source
@@ -125,10 +126,10 @@ def _in_chunks(task: FitTask, base: FitReport) -> DatasetResult | None:
     except DatasetError:
         return None
     if not reads_in_chunks(size, spec, task.limits):
-        return None
+        return spec
     threshold = task.limits.stream_above_megabytes
     if spec.stream_above_megabytes is not None:
-        threshold = spec.stream_above_megabytes
+        threshold = spec.stream_above_megabytes  # the sidecar's, for its dataset
     try:
         base = replace(
             base,
@@ -155,7 +156,7 @@ def _analyze(task: FitTask) -> DatasetResult:
     title = Path(src.relpath).stem
     base = error_report(src)
     chunked = _in_chunks(task, base)
-    if chunked is not None:
+    if isinstance(chunked, DatasetResult):
         return chunked
     try:
         raw = read_source(src.csv_path, task.limits, src.relpath, src.root)  # refuses a file over the size limit unread
@@ -167,7 +168,12 @@ def _analyze(task: FitTask) -> DatasetResult:
     spec: DatasetSpec | None = None
     sidecar_name = src.relpath[: -len(".csv")] + ".toml"
     try:
-        spec = read_sidecar(src.sidecar_path, dict(task.defaults), sidecar_name, src.root)
+        # the sidecar as read to choose the reading (once), or read here to say why it could not be
+        spec = (
+            chunked
+            if chunked is not None
+            else read_sidecar(src.sidecar_path, dict(task.defaults), sidecar_name, src.root)
+        )
         base = replace(
             base,
             title=spec.title or title,
@@ -301,12 +307,8 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
                 f"and is shown only as a contrast; use each {groups.column}'s own line.",
             ),
         )
-    status: Status = "warn" if any(m.level in ("warning", "error") for m in messages) else "ok"
-    if any(d.flag for d in pieces.diagnostics):
-        status = "warn"
     report = replace(
         with_fit(base, fit, pieces.robust_se),
-        status=status,
         model=formula,
         model_assumed=assumed,
         response=design.response,
@@ -331,7 +333,6 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         claims=pieces.claims,
         groups=pieces.groups,
         pooled_contrast=pooled_contrast,
-        compare_term=spec.compare or next((t for t in design.terms if t != "Intercept"), None),
         chart=pieces.chart,
         reading=(("delimiter", table.delimiter), ("decimal", table.decimal), ("encoding", table.encoding)),
         purpose=spec.purpose,
@@ -348,15 +349,7 @@ def _fit(base: FitReport, spec: DatasetSpec, table: LoadedTable) -> DatasetResul
         linearity=pieces.calibration_parts.linearity,
         working_range=pieces.calibration_parts.working_range,
     )
-    coefficients = [(c.term, c.estimate, c.std_error, c.ci_low, c.ci_high) for c in report.coefficients]
-    problem = figures_problem(report.r_squared, report.residual_std_error, coefficients)
-    if problem:
-        raise FitError(f"{name}: the figures of this fit cannot be trusted: {problem}", hint=RESCALE)
-    if report.compare_term and report.coefficient(report.compare_term) is None:
-        raise FormulaError(
-            f"{base.source[: -len('.csv')]}.toml: compare = {spec.compare!r} is not a term of the model",
-            hint=f"choose one of {', '.join(design.terms)}",
-        )
+    report = settled(report, spec)
     if weights is not None and fit.df_resid > 0:
         report = replace(report, residual_sd_y=float(np.sqrt(np.sum(fit.resid**2) / fit.df_resid)))
     if spec.requirements is not None:
@@ -375,6 +368,26 @@ def _weights(design: Design, spec: DatasetSpec) -> NDArray[np.float64] | None:
         row = int(design.rows[np.flatnonzero(bad)[0]])
         raise FitError(f"weights column {spec.weights!r} must hold positive numbers; row {row} does not")
     return w
+
+
+def settled(report: FitReport, spec: DatasetSpec) -> FitReport:
+    """The last step of a report, for a file read whole or in chunks: its status from its messages and checks
+    and the term its comparison reads; raises :class:`FitError` when its figures cannot be trusted and
+    :class:`FormulaError` when ``compare`` names no term of the model."""
+    warned = any(m.level in ("warning", "error") for m in report.messages) or any(d.flag for d in report.diagnostics)
+    status: Status = "warn" if warned else "ok"
+    compare_term = spec.compare or next((t for t in report.terms if t != "Intercept"), None)
+    report = replace(report, status=status, compare_term=compare_term)
+    coefficients = [(c.term, c.estimate, c.std_error, c.ci_low, c.ci_high) for c in report.coefficients]
+    problem = figures_problem(report.r_squared, report.residual_std_error, coefficients)
+    if problem:
+        raise FitError(f"{report.source}: the figures of this fit cannot be trusted: {problem}", hint=RESCALE)
+    if compare_term and report.coefficient(compare_term) is None:
+        raise FormulaError(
+            f"{report.source[: -len('.csv')]}.toml: compare = {spec.compare!r} is not a term of the model",
+            hint=f"choose one of {', '.join(report.terms)}",
+        )
+    return report
 
 
 def with_fit(report: FitReport, fit: OlsFit, robust_se: NDArray[np.float64] | None) -> FitReport:

@@ -9,8 +9,9 @@ Work runs through the executor seam twice: fitting each dataset and writing its
 tables, then rendering the pages whose inputs changed. When nothing at all
 changed, only ``build.json`` is rewritten (atomically).
 
-Heavy libraries are imported inside the functions that need them, so that a
-rebuild with nothing to do stays fast.
+Heavy libraries, and our own modules that only a build with work to do needs
+(the spare, the table of output files, the executor), are imported inside the
+functions that need them, so that a rebuild with nothing to do stays fast.
 """
 
 from __future__ import annotations
@@ -48,9 +49,7 @@ from sitegen.records import (
     read_previous,
     retimed,
 )
-from sitegen.report.outputs import is_data_file, site_names
 from sitegen.report.theme import Theme, default_theme_dir, load_theme
-from sitegen.spare import Spare, open_spare, remove
 from sitegen.spec import SiteConfig, read_site_config
 from sitegen.versions import library_versions
 
@@ -60,6 +59,7 @@ if TYPE_CHECKING:
     from sitegen.model import FitReport
     from sitegen.report.dataset_view import Neighbour
     from sitegen.report.pages import SiteContext
+    from sitegen.spare import Spare
 
 LIBRARIES = ("numpy", "scipy", "pandas", "patsy", "statsmodels")
 RENDER_LIBRARIES = ("altair", "jinja2", "markdown-it-py", "vl-convert-python")
@@ -215,12 +215,13 @@ def run_build(
     sources = discover(data_dir, config.ignore)
     shared = _shared_inputs(config, library_versions(LIBRARIES))
     site_key = _site_key(config, theme)
-    with build_folder(out_dir) as work:
+    with build_folder(out_dir) as folder:
         prev = read_previous(out_dir) if not options.refit else NO_PREVIOUS
         measured = {s.slug: measure(s, shared, _recorded_inputs(prev, s.slug)) for s in sources}
         if prev.record is not None and nothing_changed(prev, sources, measured, site_key):
             outcomes = _touch_build_json(out_dir, prev, prev.record, measured)
             return BuildSummary(out_dir, outcomes, 0, len(sources), time.perf_counter() - started, tuple(warnings))
+        work = folder.open()  # there is work to do: the build folder (the spare, when there is one)
         if theme.sandboxed:  # a user's templates: a syntax error stops the build before the spare is touched
             from sitegen.report.pages import check_theme  # noqa: PLC0415
 
@@ -230,6 +231,8 @@ def run_build(
             from sitegen.cluster import connect  # noqa: PLC0415
 
             cluster = connect(options.cluster, data_dir, out_dir, sources, theme)
+        from sitegen.spare import open_spare  # noqa: PLC0415 - as below: only when there is work
+
         try:
             spare = open_spare(work, trusted=prev.site is not None)
         except BaseException:
@@ -387,6 +390,8 @@ class _Build:
         )
 
     def _reuse(self, src: DatasetSource) -> _Ready | None:
+        from sitegen.report.outputs import is_data_file  # noqa: PLC0415
+
         entry = self.prev.entries.get(src.slug)
         fp = self.measured[src.slug].fingerprint
         if self.prev.site is None or entry is None or entry.fingerprint != fp or not fp:
@@ -512,6 +517,7 @@ class _Build:
         from sitegen.jobs import PageJob  # noqa: PLC0415
         from sitegen.report.dataset_view import Neighbour  # noqa: PLC0415
         from sitegen.report.files import index_entry, summary_row  # noqa: PLC0415
+        from sitegen.report.outputs import is_data_file  # noqa: PLC0415
 
         entries: list[DatasetRecord] = []
         jobs: list[PageJob] = []
@@ -573,6 +579,8 @@ class _Build:
         return measured.unchanged_since(src)
 
     def _page_names(self, slug: str) -> tuple[str, ...]:
+        from sitegen.report.outputs import is_data_file  # noqa: PLC0415
+
         names = ["index.html"]
         if self.config.static_images:  # the page's chart images come with it
             names += [n for n in self.then_files.get(slug, {}) if n != "index.html" and not is_data_file(n)]
@@ -591,6 +599,8 @@ class _Build:
         """Remove from the build folder what the spare held and this site does not: datasets that are
         gone, files a dataset no longer has, site files of other versions."""
         from sitegen.publish import MARKER  # noqa: PLC0415
+        from sitegen.report.outputs import site_names  # noqa: PLC0415
+        from sitegen.spare import remove  # noqa: PLC0415
 
         folders = self.work / "datasets"
         for slug, names in self.spare.folders.items():
@@ -601,7 +611,7 @@ class _Build:
             for name in names:
                 if name not in keep:
                     remove(folders / slug / name)
-        top = {"datasets", "assets", ".owner", MARKER, *site_names()}
+        top = {"datasets", "assets", MARKER, *site_names()}
         with os.scandir(self.work) as entries:
             for entry in entries:
                 if entry.name not in top:

@@ -30,8 +30,31 @@ def _real(path: Path | str) -> str:
 
 def is_inside(path: Path | str, root: Path | str) -> bool:
     """Whether ``path``, after following every link, is ``root`` or lies below it."""
+    if _plain_below(path, root):
+        return True
     real, top = _real(path), _real(root)
     return real == top or real.startswith(top.rstrip(os.sep) + os.sep)
+
+
+def _plain_below(path: Path | str, root: Path | str) -> bool:
+    """``path`` is ``root`` followed by names none of which is a symbolic link (nor ``.`` or ``..``): then it
+    lies below ``root`` wherever ``root`` itself leads. One ``lstat`` a name below ``root``, where resolving both
+    paths (``os.path.realpath``, written in Python) took a rebuild with nothing to do 20 ms for 1,000 datasets.
+    False when that cannot be shown so (a link, a name that is gone, a path not written below ``root``): then
+    the paths are resolved."""
+    where, top = os.fspath(path), os.fspath(root).rstrip(os.sep)
+    if not top or not where.startswith(top + os.sep):
+        return False
+    for name in where[len(top) + 1 :].split(os.sep):  # noqa: PTH206 - strings: pathlib costs more than the lstat
+        if name in {"", ".", ".."}:
+            return False
+        top = top + os.sep + name
+        try:
+            if stat.S_ISLNK(os.lstat(top).st_mode):
+                return False
+        except OSError:
+            return False
+    return True
 
 
 def outside_reason(path: Path, root: Path, where: str = "data folder") -> str | None:
@@ -39,7 +62,7 @@ def outside_reason(path: Path, root: Path, where: str = "data folder") -> str | 
     if not is_inside(path, root):
         return OUTSIDE.format(where=where)
     try:
-        st = Path(path).stat()  # follows links: they now lead inside
+        st = os.stat(path)  # noqa: PTH116 - follows links: they now lead inside (no Path object made)
     except OSError:
         return None  # gone or unreadable: the reader reports that in its own words
     if not stat.S_ISREG(st.st_mode):

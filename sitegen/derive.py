@@ -824,12 +824,24 @@ def spread_bins(std: FloatArray) -> tuple[tuple[float, float, float, float], ...
     """
     vals = np.asarray(std, dtype=float)
     vals = vals[np.isfinite(vals)]
-    m = vals.size
-    if m == 0:
+    if vals.size == 0:
         return ()
-    top = min(max(SPREAD_REACH, math.ceil(float(np.max(np.abs(vals))) / SPREAD_BIN) * SPREAD_BIN), SPREAD_REACH_MAX)
-    edges = np.arange(-top, top + SPREAD_BIN / 2, SPREAD_BIN)
+    edges = spread_edges(float(np.max(np.abs(vals))))
+    top = float(edges[-1])
     counts, _ = np.histogram(np.clip(vals, -top, top), bins=edges)
+    return spread_rows(edges, counts, vals.size)
+
+
+def spread_edges(largest: float) -> FloatArray:
+    """The residual-shape chart's bin edges for standardized residuals up to ``largest`` in size: SPREAD_BIN
+    wide, reaching at least SPREAD_REACH and at most SPREAD_REACH_MAX either side of zero."""
+    top = min(max(SPREAD_REACH, math.ceil(largest / SPREAD_BIN) * SPREAD_BIN), SPREAD_REACH_MAX)
+    return np.arange(-top, top + SPREAD_BIN / 2, SPREAD_BIN)
+
+
+def spread_rows(edges: FloatArray, counts: FloatArray, m: int) -> tuple[tuple[float, float, float, float], ...]:
+    """The rows of :func:`spread_bins` from the bins' counts of ``m`` values (for a file read whole or in
+    chunks): each bin's expected count under a bell shape, the outer bins taking the whole tail."""
     out = []
     last = len(edges) - 2
     for i in range(len(edges) - 1):
@@ -895,53 +907,77 @@ def _chart(  # noqa: PLR0917 - the fit and what was derived from it
     groups: tuple[str, ...] = ()
     if spec.group and x_col is not None:
         groups = tuple(str(v) for v in design.data[spec.group][idx].tolist())
-    band_cols: tuple[str, ...] = ()
-    band: tuple[tuple[float | None, ...], ...] = ()
+    band: ChartTable = ((), ())
     if x_col is not None and x_all is not None:
-        xs = x_all
-        grid = np.linspace(float(xs.min()), float(xs.max()), BAND_STEPS)
-        try:
-            Xg = design_for(design, {x_col: grid})
-        except DatasetError:
-            Xg = None
-        if Xg is not None and Xg.shape[1] == len(fit.terms):
-            b = bands(fit, Xg, _new_weights(spec, weights, len(Xg)))
-            band_cols = ("x", "fit", "mean_low", "mean_high", "pred_low", "pred_high")
-            band = tuple(
-                zip(
-                    *(_clean(v) for v in (grid, b.fit, b.mean_low, b.mean_high, b.pred_low, b.pred_high)),
-                    strict=True,
-                )
-            )
-    density_cols: tuple[str, ...] = ()
-    density: tuple[tuple[float | None, ...], ...] = ()
+        reading_weight = None if weights is None else float(spec.reading_weight)
+        band = band_table(design, x_col, (float(x_all.min()), float(x_all.max())), fit, reading_weight)
+    density: ChartTable = ((), ())
     if sampled and x_all is not None:
-        density_cols, density = _density(x_all, design.y)
-    return ChartData(
-        x=x_col,
-        y=design.response,
-        point_columns=names,
-        points=points,
-        band_columns=band_cols,
-        band=band,
-        sampled=sampled,
-        n_total=fit.n,
-        density_columns=density_cols,
-        density=density,
-        point_groups=groups,
-        spread_columns=("low", "high", "count", "expected"),
-        spread=spread_bins(std),
-    )
+        counts, xe, ye = np.histogram2d(x_all, design.y, bins=DENSITY_BINS)
+        density = density_table(counts, xe, ye)
+    return chart_data(x_col, design.response, (names, points), band, density, spread_bins(std), fit.n, groups)
 
 
-def _density(x: FloatArray, y: FloatArray) -> tuple[tuple[str, ...], tuple[tuple[float | None, ...], ...]]:
-    counts, xe, ye = np.histogram2d(x, y, bins=DENSITY_BINS)
+#: A chart table: its column names and its rows.
+ChartTable = tuple[tuple[str, ...], tuple[tuple[float | None, ...], ...]]
+
+
+def band_table(
+    design: Design, x_col: str, span: tuple[float, float], fit: OlsFit, reading_weight: float | None
+) -> ChartTable:
+    """The chart's fitted line and its intervals on a grid of BAND_STEPS values of ``x_col`` across ``span``
+    (empty when the model cannot be evaluated there); ``reading_weight``: the weight of a new reading in a
+    weighted fit (None: unweighted). For a file read whole or in chunks."""
+    grid = np.linspace(span[0], span[1], BAND_STEPS)
+    try:
+        Xg = design_for(design, {x_col: grid})
+    except DatasetError:
+        return (), ()
+    if Xg.shape[1] != len(fit.terms):
+        return (), ()
+    b = bands(fit, Xg, None if reading_weight is None else np.full(len(Xg), reading_weight))
+    columns = ("x", "fit", "mean_low", "mean_high", "pred_low", "pred_high")
+    rows = zip(*(_clean(v) for v in (grid, b.fit, b.mean_low, b.mean_high, b.pred_low, b.pred_high)), strict=True)
+    return columns, tuple(rows)
+
+
+def density_table(counts: FloatArray, xe: FloatArray, ye: FloatArray) -> ChartTable:
+    """The chart's density of points: the cells of the grid ``xe`` × ``ye`` that hold any, with their counts."""
     ii, jj = np.nonzero(counts)
     rows = tuple(
         (float(xe[i]), float(xe[i + 1]), float(ye[j]), float(ye[j + 1]), float(counts[i, j]))
         for i, j in zip(ii, jj, strict=True)
     )
     return ("x0", "x1", "y0", "y1", "count"), rows
+
+
+def chart_data(  # noqa: PLR0917 - the chart's tables
+    x_col: str | None,
+    y_name: str,
+    points: ChartTable,
+    band: ChartTable,
+    density: ChartTable,
+    spread: tuple[tuple[float, float, float, float], ...],
+    n_total: int,
+    groups: tuple[str, ...] = (),
+) -> ChartData:
+    """The chart's numbers from its tables (for a file read whole or in chunks); the points are a sample when
+    there are more than MAX_CHART_POINTS rows."""
+    return ChartData(
+        x=x_col,
+        y=y_name,
+        point_columns=points[0],
+        points=points[1],
+        band_columns=band[0],
+        band=band[1],
+        sampled=n_total > MAX_CHART_POINTS,
+        n_total=n_total,
+        density_columns=density[0],
+        density=density[1],
+        point_groups=groups,
+        spread_columns=("low", "high", "count", "expected"),
+        spread=spread,
+    )
 
 
 def _observations(

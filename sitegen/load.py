@@ -36,7 +36,7 @@ import io
 import os
 import re
 import warnings
-from collections.abc import Iterator
+from collections.abc import Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -402,7 +402,7 @@ def _body(
         if plain is not None:
             return plain
     frame = _parse(raw, how.delimiter, how.decimal, how.encoding, name, skip=how.skip, max_rows=limits.max_rows)
-    frame, dropped = _drop_unnamed(frame, header, trailing_blank, name)
+    frame, dropped = drop_unnamed(frame, header, trailing_blank, name)
     if dropped:
         notes.append(f"{name}: {dropped} unnamed empty column(s) at the end of each line were ignored")
     table = from_frame(frame)
@@ -514,8 +514,11 @@ def _check_header(header: list[str], name: str, limits: Limits, decimal: str) ->
     return trailing
 
 
-def _drop_unnamed(frame: pd.DataFrame, header: list[str], trailing: int, name: str) -> tuple[pd.DataFrame, int]:
-    """Drop unnamed columns at the end of the header when they hold no values."""
+def drop_unnamed(
+    frame: pd.DataFrame, header: Sequence[str], trailing: int, name: str, first_row: int = 1
+) -> tuple[pd.DataFrame, int]:
+    """Drop unnamed columns at the end of the header when they hold no values (a file read whole or in chunks;
+    ``first_row`` is the data row number of the frame's first row); returns the frame and how many were dropped."""
     if not trailing or len(frame.columns) != len(header):
         return frame, 0
     first = len(header) - trailing
@@ -525,7 +528,7 @@ def _drop_unnamed(frame: pd.DataFrame, header: list[str], trailing: int, name: s
         if bool(filled.any()):
             raise DataFileError(
                 f"{name}: column {first + offset + 1} has no name in the header but holds a value "
-                f"(data row {int(filled.argmax()) + 1})",
+                f"(data row {first_row + int(filled.argmax())})",
                 hint="give every column a name in the header line",
             )
     return frame.iloc[:, :first], trailing

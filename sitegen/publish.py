@@ -31,7 +31,6 @@ from sitegen.errors import BuildLockedError, OutputFolderError, OutsideFolderErr
 
 MARKER = ".sitegen"
 MARKER_TEXT = "This folder was made by sitegen. Each build replaces it whole; do not keep other files here.\n"
-_OWNER = ".owner"
 
 
 def _resolved(path: Path, what: str) -> Path:
@@ -190,13 +189,33 @@ def _acquire(lock: Path) -> int:
     raise BuildLockedError(f"cannot take the build lock {lock.name}", hint="try again")
 
 
-@contextlib.contextmanager
-def build_folder(out_dir: Path) -> Iterator[Path]:
-    """Lock the output folder and open the build folder beside it; release the lock however the build ends.
+class BuildFolder:
+    """The build folder of a build that holds the lock (:func:`build_folder`): made only when :meth:`open` is
+    called, so that a build with nothing to do makes, writes and removes nothing beside the site but its lock."""
 
-    The lock is an ``flock`` on a small file beside the output folder, so the kernel
-    releases it if the build is killed. The build folder is kept (see the module's
-    docstring); anything at its path that is not a plain folder is removed first.
+    def __init__(self, path: Path) -> None:
+        self.path = path
+        self.opened = False
+
+    def open(self) -> Path:
+        """The build folder, made (or kept: the spare) on the first call; anything at its path that is not a
+        plain folder is removed first."""
+        if not self.opened:
+            work = self.path
+            if work.is_symlink() or (work.exists() and not work.is_dir()):
+                work.unlink()
+            work.mkdir(exist_ok=True)
+            self.opened = True
+        return self.path
+
+
+@contextlib.contextmanager
+def build_folder(out_dir: Path) -> Iterator[BuildFolder]:
+    """Lock the output folder and name the build folder beside it; release the lock however the build ends.
+
+    The lock is an ``flock`` on a small file beside the output folder, so the kernel releases it if the build
+    is killed; the file holds the process id of its owner, which a build refused meanwhile names. The build
+    folder is kept (see the module's docstring) and made only when the build opens it.
     """
     work = build_dir_for(out_dir)
     lock = lock_path_for(out_dir)
@@ -207,19 +226,18 @@ def build_folder(out_dir: Path) -> Iterator[Path]:
         raise output_error(exc, out_dir) from exc
     global _held  # noqa: PLW0603 - the fork hook needs it
     if fd < 0:
-        owner = _read_owner(work)
+        owner = _read_owner(lock)
         who = f" (process {owner})" if owner else ""
         raise BuildLockedError(
             f"another sitegen build{who} is writing {out_dir}",
             hint="wait for it to finish, or stop it; the published site is not affected",
         )
     _held = fd
+    folder = BuildFolder(work)
     try:
-        if work.is_symlink() or (work.exists() and not work.is_dir()):
-            work.unlink()
-        work.mkdir(exist_ok=True)
-        write_new(work / _OWNER, str(os.getpid()))  # a new file: never written through a link left there
-        yield work
+        os.ftruncate(fd, 0)  # a lock file left by a killed build may hold its id
+        os.pwrite(fd, str(os.getpid()).encode(), 0)
+        yield folder
     except OSError as exc:
         import errno  # noqa: PLC0415
 
@@ -229,20 +247,26 @@ def build_folder(out_dir: Path) -> Iterator[Path]:
             shutil.rmtree(work, ignore_errors=True)
         raise output_error(exc, out_dir) from exc
     finally:
-        with contextlib.suppress(OSError):
-            (work / _OWNER).unlink(missing_ok=True)
-        with contextlib.suppress(OSError):
-            work.rmdir()  # only when empty: a build with nothing to do keeps no folder
+        if folder.opened:
+            with contextlib.suppress(OSError):
+                work.rmdir()  # only when empty: a build that made a folder and wrote nothing keeps none
         lock.unlink(missing_ok=True)  # still ours: unlinked before the lock is released
         _held = -1
         os.close(fd)
 
 
-def _read_owner(work: Path) -> int | None:
+def _read_owner(lock: Path) -> int | None:
+    """The process id in a lock file held by another build (None: not written yet, or not ours)."""
     try:
-        return int((work / _OWNER).read_text(encoding="utf-8").strip())
+        fd = os.open(lock, os.O_RDONLY | os.O_NOFOLLOW | os.O_NONBLOCK | os.O_CLOEXEC)
+    except OSError:
+        return None
+    try:
+        return int(os.read(fd, 32).decode("ascii").strip())
     except (OSError, ValueError):
         return None
+    finally:
+        os.close(fd)
 
 
 def _exchange(a: Path, b: Path) -> bool:
@@ -260,7 +284,6 @@ def _exchange(a: Path, b: Path) -> bool:
 def swap_in(site: Path, out_dir: Path) -> None:
     """Replace ``out_dir`` by the finished ``site`` folder in one step; ``site`` ends up holding the old one
     (or, on a first build, no longer exists)."""
-    (site / _OWNER).unlink(missing_ok=True)
     if not marker_intact(site):
         write_new(site / MARKER, MARKER_TEXT)
     out = out_dir.resolve()

@@ -58,7 +58,7 @@ def open_spare(work: Path, *, trusted: bool) -> Spare:
     return Spare(entries, recorded, folders)
 
 
-_KEEP_AT_TOP = (".sitegen", ".owner")  # the marker and the running build's owner file (publish.py)
+_KEEP_AT_TOP = (".sitegen",)  # the marker (publish.py)
 
 
 def _own_files(folder: str, *, nested: bool) -> dict[str, FileStat]:

@@ -688,12 +688,7 @@ def read_site_config(path: Path, root: Path | None = None) -> tuple[SiteConfig, 
                 raise _site_error(f"key '{key}' must be true or false; got {_show(table[key])}")
             values[key] = table[key]
     if "mail_budget_megabytes" in table:
-        try:
-            values["mail_budget_megabytes"] = _positive(table["mail_budget_megabytes"])
-        except _BadValueError as exc:
-            raise _site_error(
-                f"key 'mail_budget_megabytes' must be {exc}; got {_show(table['mail_budget_megabytes'])}"
-            ) from None
+        values["mail_budget_megabytes"] = _site_value(table, "mail_budget_megabytes", _positive)
     defaults = table.get("defaults", {})
     if not isinstance(defaults, dict):
         raise _site_error("[defaults] must be a table of sidecar keys")
@@ -743,12 +738,7 @@ def _read_limits(table: object) -> Limits:
             raise _site_error(unknown_key("[limits]", key, _closest(key, _LIMIT_KEYS)))
     out: dict[str, Any] = {}
     if "stream_above_megabytes" in table:
-        try:
-            out["stream_above_megabytes"] = _not_negative(table["stream_above_megabytes"])
-        except _BadValueError as exc:
-            raise _site_error(
-                f"[limits] key 'stream_above_megabytes' must be {exc}; got {_show(table['stream_above_megabytes'])}"
-            ) from None
+        out["stream_above_megabytes"] = _site_value(table, "stream_above_megabytes", _not_negative, "[limits] key")
     for key in ("max_rows", "max_columns", "stream_chunk_rows"):
         if key in table:
             v = table[key]
@@ -757,8 +747,13 @@ def _read_limits(table: object) -> Limits:
             out[key] = v
     for key in ("max_megabytes", "max_fit_seconds", "max_fit_megabytes", "max_page_seconds"):
         if key in table:
-            try:
-                out[key] = _positive(table[key])
-            except _BadValueError as exc:
-                raise _site_error(f"[limits] key '{key}' must be {exc}; got {_show(table[key])}") from None
+            out[key] = _site_value(table, key, _positive, "[limits] key")
     return Limits(**out)
+
+
+def _site_value(table: dict[str, Any], key: str, check: Callable[[object], float], what: str = "key") -> float:
+    """site.toml's ``table[key]`` as ``check`` reads it; a value it refuses is a :class:`SiteConfigError`."""
+    try:
+        return check(table[key])
+    except _BadValueError as exc:
+        raise _site_error(f"{what} '{key}' must be {exc}; got {_show(table[key])}") from None

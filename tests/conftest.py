@@ -173,6 +173,15 @@ def fit_json(site: Path, slug: str) -> dict[str, Any]:
     return body
 
 
+def slopes_by_title(site: Path) -> dict[str, float]:
+    """Title → the estimate of term ``x``, from each built dataset's fit.json."""
+    out = {}
+    for path in sorted((site / "datasets").glob("*/fit.json")):
+        fit = json.loads(path.read_text("utf-8"))
+        out[fit["title"]] = next(c["estimate"] for c in fit["coefficients"] if c["term"] == "x")
+    return out
+
+
 def dataset_page(site: Path, slug: str) -> str:
     """A built dataset's page."""
     return (site / "datasets" / slug / "index.html").read_text(encoding="utf-8")

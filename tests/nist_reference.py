@@ -188,18 +188,23 @@ def dw_reference(X: list[list[Any]], e: list[Any]) -> tuple[Any, Any]:
         _, G_inv = _solve(X, [mp.mpf(0)] * n)
         Xm = mp.matrix(X)
         H = Xm * G_inv * Xm.T
-        M = mp.eye(n) - H
-        A = mp.matrix(n, n)
-        for i in range(n):
-            A[i, i] = 2 if 0 < i < n - 1 else 1
-            if i + 1 < n:
-                A[i, i + 1] = A[i + 1, i] = -1
-        B = M * A * M
-        B = (B + B.T) / 2
-        values = sorted(mp.eigsy(B, eigvals_only=True))
-        lam = values[p:]
+        lam = dw_weights(mp.eye(n) - H, p)
         prob = imhof_below_zero([v - d for v in lam])
     return d, prob
+
+
+def dw_weights(M: Any, p: int) -> list[Any]:
+    """The eigenvalues of M A M on the residual space, at mpmath's working precision: A = D'D (D the first
+    differences), M = I − H for a design of ``p`` columns; P(d ≤ c) = P(Σ (λ − c) χ²₁ ≤ 0) over them
+    (Durbin and Watson, 1950)."""
+    n = M.rows
+    A = mp.matrix(n, n)
+    for i in range(n):
+        A[i, i] = 2 if 0 < i < n - 1 else 1
+        if i + 1 < n:
+            A[i, i + 1] = A[i + 1, i] = -1
+    B = M * A * M
+    return sorted(mp.eigsy((B + B.T) / 2, eigvals_only=True))[p:]
 
 
 @cache

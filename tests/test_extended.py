@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
-from nist_reference import imhof_below_zero
+from nist_reference import dw_weights, imhof_below_zero
 
 from sitegen.stats import durbin_watson, ext
 from sitegen.stats.checks import model_checks
@@ -110,6 +110,110 @@ def test_durbin_watson_exact_p_agrees_with_monte_carlo() -> None:
         p = durbin_watson.exact_cdf(d, q)
         share = float(np.mean(d_sim <= d))
         assert abs(p - share) <= 4 * math.sqrt(share * (1 - share) / len(d_sim)) + 1e-6
+
+
+def test_cosine_transform_is_scipys_orthonormal_dct() -> None:
+    # scipy.fft.dct (type II, norm="ortho") is the independent computation of the basis change.
+    from scipy import fft
+
+    x = np.random.default_rng(3).normal(size=(37, 2))
+    got = durbin_watson._cosine_transform(x)
+    np.testing.assert_allclose(got, fft.dct(x, type=2, norm="ortho", axis=0), rtol=0, atol=1e-14)
+
+
+def _dw_designs() -> list[tuple[str, np.ndarray, bool]]:
+    rng = np.random.default_rng(21)
+    n = 60
+    x = np.sort(rng.uniform(0, 50, n))
+    return [
+        ("sorted line", np.column_stack([np.ones(n), x]), True),
+        ("line in random order", np.column_stack([np.ones(n), rng.permutation(x)]), True),
+        # x symmetric about its middle: half the cosine coordinates of u are zero (eigenvalues a_k themselves)
+        ("evenly spaced line", np.column_stack([np.ones(n), np.arange(n, dtype=float)]), True),
+        ("intercept second", np.column_stack([x, np.ones(n)]), True),
+        ("far from zero", np.column_stack([np.ones(n), 1000 + x / 1000]), True),
+        ("no intercept", x[:, None], False),
+    ]
+
+
+@pytest.mark.parametrize("case", range(6))
+def test_durbin_watson_without_eigenvalues_agrees_with_the_eigenvalue_route(case: int) -> None:
+    # The compressed-diagonal route (one design direction in the cosine basis) against the same probability from
+    # numpy's eigenvalues of the projected matrix, over the whole range of d (p from about 1e-40 to 1).
+    _, X, constant = _dw_designs()[case]
+    q = np.linalg.qr(X)[0]
+    one = durbin_watson.one_direction(q, constant_in_span=constant)
+    assert one is not None
+    lam = durbin_watson.residual_eigenvalues(q)
+    for d in (0.05, 0.4, 1.0, 1.7, 2.0, 2.5, 3.3, 3.9):
+        want = durbin_watson.prob_below_zero(lam - d)
+        got = durbin_watson.prob_below_zero_compressed(*one, d)  # this route itself, not the fallback
+        assert got is not None
+        assert got == pytest.approx(want, rel=1e-10, abs=1e-300)
+        assert durbin_watson.exact_cdf(d, q, constant_in_span=constant) == got
+    assert durbin_watson.exact_cdf(0.5 * lam[0], q, constant_in_span=constant) == 0.0  # below every eigenvalue
+    assert durbin_watson.exact_cdf(lam[-1] + 0.01, q, constant_in_span=constant) == 1.0  # above every one
+
+
+def test_durbin_watson_without_eigenvalues_matches_imhof_in_mpmath_in_the_far_tail() -> None:
+    # Imhof's real-axis integral at 60 digits on mpmath's own eigenvalues of M A M (M from the exact design):
+    # p ≈ 1e-25, where the float64 eigenvalues' absolute error already costs the eigenvalue route digits.
+    n = 24
+    x = [float(v) for v in np.sort(np.random.default_rng(4).uniform(0, 10, n))]
+    d = 0.08
+    q = np.linalg.qr(np.column_stack([np.ones(n), x]))[0]
+    one = durbin_watson.one_direction(q, constant_in_span=True)
+    assert one is not None
+    got = durbin_watson.prob_below_zero_compressed(*one, d)
+    assert got is not None
+    with mp.workdps(60):
+        X = mp.matrix([[1, mp.mpf(v)] for v in x])
+        lam = dw_weights(mp.eye(n) - X * (X.T * X) ** -1 * X.T, 2)
+        want = float(imhof_below_zero([v - d for v in lam]))
+    assert 1e-40 < want < 1e-15
+    assert got == pytest.approx(want, rel=1e-11)
+
+
+@pytest.mark.slow
+def test_durbin_watson_far_tail_with_halved_steps_matches_imhof_in_mpmath() -> None:
+    # A 120-row line with residuals that drift (d = 0.05, p ≈ 8e-83): the integrand turns over a few times along
+    # the line, so the sums with steps h and 2h disagree and the step is halved until two sums agree (adaptive
+    # quadrature took this over before, at several ms and some 12 digits). Imhof's real-axis integral at 100
+    # digits on the same float64 eigenvalues checks the quadrature itself.
+    n = 120
+    x = np.sort(np.random.default_rng(4).uniform(0, 10, n))
+    q = np.linalg.qr(np.column_stack([np.ones(n), x]))[0]
+    d = 0.05
+    lam = durbin_watson.residual_eigenvalues(q)
+    got = durbin_watson.prob_below_zero(lam - d)
+    with mp.workdps(100):
+        want = float(imhof_below_zero([mp.mpf(float(v)) - mp.mpf(d) for v in lam]))
+    assert 1e-90 < want < 1e-75
+    assert got == pytest.approx(want, rel=1e-13)
+    one = durbin_watson.one_direction(q, constant_in_span=True)
+    assert one is not None
+    assert durbin_watson.prob_below_zero_compressed(*one, d) == pytest.approx(want, rel=1e-11)
+
+
+def test_durbin_watson_far_upper_tail_is_one_to_rounding() -> None:
+    # d far above its mean (residuals that alternate in sign, 342 rows): P(D ≤ d) is 1 less a tail that
+    # Chernoff's bound P(Q > 0) ≤ E[exp(sQ)] (common practice) puts below 1e-30, so both routes must give 1 to
+    # rounding; adaptive quadrature, which took these over before steps were halved, left errors of 1e-12 to 1e-11.
+    n = 342
+    x = np.sort(np.random.default_rng(4).uniform(0, 10, n))
+    q = np.linalg.qr(np.column_stack([np.ones(n), x]))[0]
+    lam = durbin_watson.residual_eigenvalues(q)
+    one = durbin_watson.one_direction(q, constant_in_span=True)
+    assert one is not None
+    for d in (3.6, 3.8):
+        mu = lam - d
+        s = np.linspace(0.0, 0.5 / float(mu.max()), 2001)[1:-1]
+        log_bound = min(-0.5 * float(np.sum(np.log1p(-2.0 * v * mu))) for v in s)
+        assert log_bound < math.log(1e-30)
+        assert abs(1.0 - durbin_watson.prob_below_zero(mu)) <= 4e-15
+        got = durbin_watson.prob_below_zero_compressed(*one, d)
+        assert got is not None
+        assert abs(1.0 - got) <= 4e-15
 
 
 def test_durbin_watson_beyond_the_exact_size_says_it_is_approximate() -> None:

@@ -17,6 +17,8 @@ from pathlib import Path
 import pytest
 from conftest import CliResult, tree_snapshot, write_csv, write_toml
 
+from sitegen.confine import is_inside
+
 SECRET = "TOP-SECRET-7f3a9c"  # must never appear in anything sitegen writes or prints
 
 Cli = Callable[..., CliResult]
@@ -263,3 +265,45 @@ def test_a_sandboxed_theme_still_makes_the_same_pages(run_cli: Cli, small_data: 
     assert run_cli("build", small_data, "-o", boxed, "-q").code == 0
     page = "datasets/alpha/index.html"
     assert (boxed / page).read_text("utf-8") == (plain / page).read_text("utf-8")
+
+
+def test_is_inside_agrees_with_resolving_both_paths(tmp_path: Path) -> None:
+    """confine.is_inside answers a path written below its folder through plain names with an lstat of each
+    name, and resolves the paths otherwise; the answer must be the one ``os.path.realpath`` of both gives
+    (the reference computed here), for plain names, links in and out, a linked folder, ``..``, a missing
+    file, the folder itself and a folder reached through a link."""
+    outside = tmp_path / "elsewhere"
+    outside.mkdir()
+    (outside / "secret.csv").write_text("x,y\n", encoding="utf-8")
+    data = tmp_path / "data"
+    (data / "sub").mkdir(parents=True)
+    (data / "sub" / "a.csv").write_text("x,y\n", encoding="utf-8")
+    (data / "in_link.csv").symlink_to(data / "sub" / "a.csv")
+    (data / "out_link.csv").symlink_to(outside / "secret.csv")
+    (data / "out_dir").symlink_to(outside)
+    (data / "in_dir").symlink_to(data / "sub")
+    (tmp_path / "data_link").symlink_to(data)
+    paths = [
+        data / "sub" / "a.csv",
+        data / "in_link.csv",
+        data / "out_link.csv",
+        data / "out_dir" / "secret.csv",
+        data / "in_dir" / "a.csv",
+        data / "sub" / ".." / ".." / "elsewhere" / "secret.csv",
+        data / "sub" / "gone.csv",
+        data,
+        outside / "secret.csv",
+    ]
+
+    def reference(path: Path, root: Path) -> bool:
+        real, top = os.path.realpath(path), os.path.realpath(root)
+        return real == top or real.startswith(top + os.sep)
+
+    for root in (data, tmp_path / "data_link"):
+        for path in paths:
+            for written in (path, root / path.relative_to(data) if path.is_relative_to(data) else path):
+                assert is_inside(written, root) == reference(written, root), (written, root)
+                assert is_inside(str(written), str(root)) == reference(written, root), (written, root)
+    assert not is_inside(data / "out_link.csv", data)
+    assert not is_inside(data / "sub" / ".." / ".." / "elsewhere" / "secret.csv", data)
+    assert is_inside(data / "in_dir" / "a.csv", data)

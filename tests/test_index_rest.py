@@ -9,13 +9,12 @@ opened in Debian's Chromium. The expected orders are computed here from each dat
 
 from __future__ import annotations
 
-import json
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 import pytest
-from conftest import BROWSER_MARKS
+from conftest import BROWSER_MARKS, slopes_by_title
 from nist_data import load_nist
 
 from sitegen.cli import main
@@ -50,10 +49,7 @@ def site(tmp_path_factory: pytest.TempPathFactory) -> Path:
 @pytest.fixture(scope="module")
 def slopes(site: Path) -> dict[str, float]:
     """Title → slope, from each dataset's fit.json."""
-    out = {}
-    for path in sorted((site / "datasets").glob("*/fit.json")):
-        fit = json.loads(path.read_text("utf-8"))
-        out[fit["title"]] = next(c["estimate"] for c in fit["coefficients"] if c["term"] == "x")
+    out = slopes_by_title(site)
     assert len(out) == COUNT
     return out
 

@@ -9,13 +9,12 @@ The expected orders are computed here from each dataset's fit.json, not read fro
 
 from __future__ import annotations
 
-import json
 from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
 import pytest
-from conftest import BROWSER_MARKS
+from conftest import BROWSER_MARKS, slopes_by_title
 from test_tag_summary import COUNT, _folder
 
 from sitegen.cli import main
@@ -41,11 +40,7 @@ def site(tmp_path_factory: pytest.TempPathFactory) -> Path:
 @pytest.fixture(scope="module")
 def slopes(site: Path) -> dict[str, float]:
     """Title → slope, from each dataset's fit.json."""
-    out = {}
-    for path in sorted((site / "datasets").glob("*/fit.json")):
-        fit = json.loads(path.read_text("utf-8"))
-        out[fit["title"]] = next(c["estimate"] for c in fit["coefficients"] if c["term"] == "x")
-    return out
+    return slopes_by_title(site)
 
 
 @pytest.fixture

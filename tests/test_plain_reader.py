@@ -13,7 +13,7 @@ import numpy as np
 import pytest
 
 from sitegen.errors import DatasetError
-from sitegen.load import _drop_unnamed, _parse, read_plain, read_table
+from sitegen.load import _parse, drop_unnamed, read_plain, read_table
 from sitegen.spec import DatasetSpec, Limits
 from sitegen.table import from_frame
 
@@ -38,7 +38,7 @@ def test_plain_and_general_readers_agree(path: Path) -> None:
     if plain is None or b"sep=" in raw[:8]:
         return
     frame = _parse(raw, loaded.delimiter, ".", "utf-8-sig", path.name, skip=0, max_rows=10**7)
-    frame, _ = _drop_unnamed(frame, list(frame.columns), 0, path.name)
+    frame, _ = drop_unnamed(frame, list(frame.columns), 0, path.name)
     general = from_frame(frame)
     assert plain.names == general.names
     assert len(plain) == len(general)

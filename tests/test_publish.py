@@ -49,13 +49,14 @@ def test_second_build_into_a_locked_folder_is_refused(tmp_path: Path) -> None:
     assert cli("build", data, "-o", out, "-j", "1").code == 0
     before = _digest(out)
     lock = lock_path_for(out)
-    # Another process holds the build lock (as a running build does) and has left its build folder.
+    # Another process holds the build lock with its id in it (as a running build does) and has a build folder.
     holder = subprocess.Popen(
         [
             sys.executable,
             "-c",
             f"import fcntl,os,sys,time; fd=os.open({str(lock)!r}, os.O_RDWR|os.O_CREAT); "
-            "fcntl.flock(fd, fcntl.LOCK_EX); print('held', flush=True); time.sleep(60)",
+            "fcntl.flock(fd, fcntl.LOCK_EX); os.write(fd, str(os.getpid()).encode()); print('held', flush=True); "
+            "time.sleep(60)",
         ],
         stdout=subprocess.PIPE,
         text=True,
@@ -65,7 +66,6 @@ def test_second_build_into_a_locked_folder_is_refused(tmp_path: Path) -> None:
         assert holder.stdout.readline().strip() == "held"
         work = build_dir_for(out)
         work.mkdir(exist_ok=True)
-        (work / ".owner").write_text(str(holder.pid), encoding="utf-8")
         res = cli("build", data, "-o", out, "-j", "1")
         assert res.code == 2
         assert f"another sitegen build (process {holder.pid})" in res.stream
@@ -79,6 +79,23 @@ def test_second_build_into_a_locked_folder_is_refused(tmp_path: Path) -> None:
     assert cli("build", data, "-o", out, "-j", "1").code == 0
     assert not (build_dir_for(out) / ".owner").exists()  # the build folder is kept as the spare, unowned
     assert not lock.exists()
+
+
+def test_a_build_with_nothing_to_do_touches_nothing_beside_the_site_but_its_lock(tmp_path: Path) -> None:
+    """A rebuild with nothing to do makes no build folder (on a second build there is no spare yet) and
+    leaves the spare of a later one as it was; a build refused meanwhile names the holder from the lock."""
+    data = _dataset_folder(tmp_path, 2)
+    out = tmp_path / "site"
+    assert cli("build", data, "-o", out, "-j", "1").code == 0
+    assert not build_dir_for(out).exists()  # a first build leaves no spare
+    assert cli("build", data, "-o", out, "-j", "1").code == 0
+    assert not build_dir_for(out).exists()  # nothing to do: no folder made and removed
+    assert cli("build", data, "-o", out, "-j", "1", "--refit").code == 0
+    spare = build_dir_for(out)
+    before = {p: (p.stat().st_ino, p.stat().st_mtime_ns) for p in [spare, *spare.rglob("*")]}
+    assert cli("build", data, "-o", out, "-j", "1").code == 0
+    assert {p: (p.stat().st_ino, p.stat().st_mtime_ns) for p in [spare, *spare.rglob("*")]} == before
+    assert not lock_path_for(out).exists()
 
 
 def test_builds_started_together_never_both_write(tmp_path: Path) -> None:

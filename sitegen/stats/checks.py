@@ -168,6 +168,7 @@ class _Data:
     ext: Precise
     s_ext: Ext  # √weights, extended
     ew_ext: Ext  # residuals, weighted scale, extended
+    weighted: bool
 
 
 @dataclass(frozen=True, slots=True)
@@ -298,7 +299,9 @@ def _prepare(
     elif math.sqrt(ssr) <= _ZERO * float(np.linalg.norm(yw)):
         why = "The model passes through every point, so there is no scatter to examine."
     r = np.zeros((p, p))  # not used: the condition number comes from the solver
-    return _Data(X, s, yw, ew, f, q, r, icol, tuple(terms), n, p, n - p, ssr, why, pre, s_ext, ew_ext)
+    return _Data(
+        X, s, yw, ew, f, q, r, icol, tuple(terms), n, p, n - p, ssr, why, pre, s_ext, ew_ext, weights is not None
+    )
 
 
 def _independent_columns(Z: FloatArray) -> NDArray[np.bool_]:
@@ -468,10 +471,41 @@ def dw_moments(q: FloatArray, df_resid: int) -> tuple[float, float]:
     aq = np.zeros_like(q)  # AQ = D'(DQ)
     aq[1:] += dq
     aq[:-1] -= dq
-    tr1 = 2.0 * (n - 1) - float(np.trace(b))
-    tr2 = 6.0 * n - 8.0 - 2.0 * float(np.sum(aq * aq)) + float(np.sum(b * b))
+    return dw_moments_from(n, b, float(np.sum(aq * aq)), df_resid)
+
+
+def dw_moments_from(n: int, dq_gram: FloatArray, aq_squared: float, df_resid: int) -> tuple[float, float]:
+    """:func:`dw_moments` from its sums (for rows read whole or in chunks): ``dq_gram`` = Q'AQ = (DQ)'(DQ)
+    and ``aq_squared`` = the sum of the squares of AQ."""
+    tr1 = 2.0 * (n - 1) - float(np.trace(dq_gram))
+    tr2 = 6.0 * n - 8.0 - 2.0 * aq_squared + float(np.sum(dq_gram * dq_gram))
     nu = float(df_resid)
     return tr1 / nu, 2.0 * (nu * tr2 - tr1**2) / (nu**2 * (nu + 2.0))
+
+
+def dw_beta_p(dw: float, mean: float, var: float) -> float:
+    """P(d ≤ dw) by Durbin and Watson's beta approximation: d/4 as a beta variable with d's exact mean and
+    variance (NaN when no beta distribution has them)."""
+    m, v = mean / 4.0, var / 16.0
+    if not (0 < m < 1 and 0 < v < m * (1 - m)):
+        return math.nan
+    a, b = m * (m * (1 - m) / v - 1), (1 - m) * (m * (1 - m) / v - 1)
+    return min(1.0, dist.beta_cdf(dw / 4, a, b))
+
+
+def dw_outcome(dw: float, lag1: float, p: float, *, approximate: bool) -> _Outcome:
+    """The Durbin–Watson check's figures and wording (for rows read whole or in chunks); ``approximate``: the
+    p-value is :func:`dw_beta_p`'s."""
+    if not math.isfinite(p):
+        return f"Durbin–Watson d = {_num(dw)}, but no p-value can be given for this design."
+    how = ""
+    if approximate:
+        how = (
+            f"; above {durbin_watson.EXACT_MAX_ROWS:,} rows the p-value is approximate "
+            "(a beta distribution with d's exact mean and variance)"
+        )
+    note = "; residuals alternate in sign, which is not flagged" if dw > 2 and p > 0.5 else ""
+    return dw, p, f"Durbin–Watson d = {_num(dw)}, lag-one correlation {_num(lag1)}, {_p(p)}{how}{note}"
 
 
 def _independence(d: _Data) -> _Outcome:
@@ -479,26 +513,14 @@ def _independence(d: _Data) -> _Outcome:
         return "Too few rows are left over to judge neighbouring residuals."
     dw = float(np.sum(np.diff(d.ew) ** 2)) / d.ssr
     lag1 = float(d.ew[1:] @ d.ew[:-1]) / d.ssr
-    how = ""
     if d.n <= durbin_watson.EXACT_MAX_ROWS:
         # One-sided, as the classical test: small d means neighbours agree (positive autocorrelation),
         # the pattern of drift and carry-over. Rows in arbitrary order often alternate by chance.
-        p = durbin_watson.exact_cdf(dw, d.q)
+        # An intercept without weights puts the constant itself in the design's span (the cheaper route).
+        p = durbin_watson.exact_cdf(dw, d.q, constant_in_span=d.icol is not None and not d.weighted)
     else:
-        mean, var = dw_moments(d.q, d.df)
-        m, v = mean / 4.0, var / 16.0
-        if not (0 < m < 1 and 0 < v < m * (1 - m)):
-            return f"Durbin–Watson d = {_num(dw)}, but no p-value can be given for this design."
-        a, b = m * (m * (1 - m) / v - 1), (1 - m) * (m * (1 - m) / v - 1)
-        p = min(1.0, dist.beta_cdf(dw / 4, a, b))
-        how = (
-            f"; above {durbin_watson.EXACT_MAX_ROWS:,} rows the p-value is approximate "
-            "(a beta distribution with d's exact mean and variance)"
-        )
-    if not math.isfinite(p):
-        return f"Durbin–Watson d = {_num(dw)}, but no p-value can be given for this design."
-    note = "; residuals alternate in sign, which is not flagged" if dw > 2 and p > 0.5 else ""
-    return dw, p, f"Durbin–Watson d = {_num(dw)}, lag-one correlation {_num(lag1)}, {_p(p)}{how}{note}"
+        p = dw_beta_p(dw, *dw_moments(d.q, d.df))
+    return dw_outcome(dw, lag1, p, approximate=d.n > durbin_watson.EXACT_MAX_ROWS)
 
 
 def _jarque_bera(e: FloatArray) -> tuple[float, float]:

@@ -96,9 +96,6 @@ def fit_ols(
     else:
         sol = solve(X, y, terms)
         resid_ext = sol.resid_ext
-    beta = sol.beta
-    df_resid = n - p
-    df_model = p - 1 if has_intercept else p
     # Per-row values from the refined residual (never y − Xb in float64: on NIST Filip that
     # subtraction of nearly equal numbers keeps only about seven digits).
     fitted = o.f(y - resid_ext)
@@ -119,20 +116,65 @@ def fit_ols(
         tss = float(o.f(o.dot(w * dev, dev)))
     else:
         tss = float(o.f(o.dot(w * y, y)))
+    return estimated_fit(
+        Estimates(terms, sol.beta, sol.xtx_inv, sol.xtx_root, sol.effects, sol.condition, sol.beta_ext, sol.root_ext),
+        n=n,
+        has_intercept=has_intercept,
+        level=level,
+        ssr=ssr,
+        tss=tss,
+        per_row=(fitted, resid, sol.leverage, sol.q),
+        resid_ext=resid_ext,
+        y_ext=y,
+    )
+
+
+@dataclass(frozen=True, slots=True)
+class Estimates:
+    """What a solver gives a fit: the coefficients and the pieces their inference is computed from."""
+
+    terms: tuple[str, ...]
+    beta: FloatArray
+    xtx_inv: FloatArray
+    xtx_root: FloatArray
+    effects: FloatArray
+    condition: float
+    beta_ext: Ext
+    root_ext: Ext
+
+
+def estimated_fit(
+    est: Estimates,
+    *,
+    n: int,
+    has_intercept: bool,
+    level: float,
+    ssr: float,
+    tss: float,
+    per_row: tuple[FloatArray, FloatArray, FloatArray, FloatArray] | None = None,
+    resid_ext: Ext = None,
+    y_ext: Ext = None,
+) -> OlsFit:
+    """The fit of these estimates with its inference (:func:`with_inference`): the one place that sets the
+    degrees of freedom and the derived fields, for a file read whole or in chunks. ``per_row`` holds the
+    fitted values, residuals, leverages and thin Q (None: a fit made in chunks, which keeps no rows)."""
+    p = len(est.terms)
+    fitted, resid, leverage, q = per_row if per_row is not None else (np.empty(0),) * 3 + (np.empty((0, p)),)
+    beta = est.beta
     return with_inference(
         OlsFit(
-            terms=terms,
+            terms=est.terms,
             beta=beta,
             std_error=beta,
             t_stat=beta,
             p_value=beta,
             ci_low=beta,
             ci_high=beta,
-            xtx_inv=sol.xtx_inv,
-            xtx_root=sol.xtx_root,
+            xtx_inv=est.xtx_inv,
+            xtx_root=est.xtx_root,
             n=n,
-            df_model=df_model,
-            df_resid=df_resid,
+            df_model=p - 1 if has_intercept else p,
+            df_resid=n - p,
             ssr=ssr,
             tss=tss,
             r_squared=0.0,
@@ -142,17 +184,17 @@ def fit_ols(
             f_p_value=0.0,
             fitted=fitted,
             resid=resid,
-            leverage=sol.leverage,
-            q=sol.q,
-            effects=sol.effects,
-            condition=sol.condition,
+            leverage=leverage,
+            q=q,
+            effects=est.effects,
+            condition=est.condition,
             level=level,
             t_crit=0.0,
             has_intercept=has_intercept,
-            beta_ext=sol.beta_ext,
-            root_ext=sol.root_ext,
+            beta_ext=est.beta_ext,
+            root_ext=est.root_ext,
             resid_ext=resid_ext,
-            y_ext=y,
+            y_ext=y_ext,
         )
     )
 

@@ -19,6 +19,7 @@ well-conditioned straight lines such designs are in practice.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from typing import Any
 
@@ -116,6 +117,17 @@ class Solution:
     root_ext: Ext  # W in extended precision
 
 
+def householder_vector(o: Ops, column: Ext) -> Ext | None:
+    """The unit vector v whose reflection I − 2vv' empties ``column`` below its first entry, computed in a copy
+    (None: the column is zero, and nothing is reflected)."""
+    v = column.copy()
+    alpha = o.sqrt(o.dot(v, v))
+    if float(o.f(alpha)) == 0:
+        return None
+    v[0] = v[0] + (alpha if float(o.f(v[0])) >= 0 else -alpha)
+    return v / o.sqrt(o.dot(v, v))
+
+
 def _householder(o: Ops, A: Ext) -> tuple[Ext, list[Ext]]:
     """In-place Householder QR; returns R (p×p) and the reflectors.
 
@@ -127,13 +139,10 @@ def _householder(o: Ops, A: Ext) -> tuple[Ext, list[Ext]]:
     reflectors: list[Ext] = []
     diagonal: dict[int, Any] = {}
     for k in range(p):
-        v = A[k:, k].copy()
-        alpha = o.sqrt(o.dot(v, v))
-        if float(o.f(alpha)) == 0:
-            reflectors.append(o.zeros(v.shape))
+        v = householder_vector(o, A[k:, k])
+        if v is None:
+            reflectors.append(o.zeros(A[k:, k].shape))
             continue
-        v[0] = v[0] + (alpha if float(o.f(v[0])) >= 0 else -alpha)
-        v = v / o.sqrt(o.dot(v, v))
         w = o.dot(v, A[k:, k:]) * 2
         for j in range(k, p):
             A[k:, j] -= v * w[j - k]
@@ -203,6 +212,7 @@ def _refine_augmented(  # noqa: PLR0917 - the factorisation's pieces
     """
     p = R.shape[0]
     r = y - Xs.times(b)
+    last = math.inf
     for _ in range(steps):
         f = y - r - Xs.times(b)
         g = -Xs.transposed_times(r)
@@ -212,12 +222,21 @@ def _refine_augmented(  # noqa: PLR0917 - the factorisation's pieces
         db = _back_substitute(o, R, d[:p] - h)
         top = o.concat([h, d[p:]])
         del d
-        r = r + _apply_q(o, refl, top, in_place=True)
+        dr = _apply_q(o, refl, top, in_place=True)
         del top
+        r = r + dr
         b = b + db
-        # settled: the last correction is below the arithmetic's own rounding of b
-        if float(np.max(np.abs(o.f(db)))) <= o.eps * float(np.max(np.abs(o.f(b)))):
+        # Settled: the last correction of b is below the arithmetic's own rounding of b; or it is not half the one
+        # before (b has reached the rounding noise of the computed residuals, where further steps only move it
+        # within that noise: LAPACK's rule for iterative refinement, common practice) while the residuals'
+        # correction is below their own rounding.
+        size = float(np.max(np.abs(o.f(db))))
+        if size <= o.eps * float(np.max(np.abs(o.f(b)))):
             break
+        if size > last / 2 and float(np.max(np.abs(o.f(dr)))) <= o.eps * float(np.max(np.abs(o.f(r)))):
+            break
+        del dr
+        last = size
     return b, r
 
 

@@ -37,14 +37,13 @@ from numpy.typing import NDArray
 from sitegen import derive
 from sitegen.derive import MAX_CHART_POINTS, MAX_FLAGGED_LISTED, SAMPLE_POINTS
 from sitegen.errors import DataFileError, FitError, FormulaError
-from sitegen.formula import Design, assumed_formula, design_for
+from sitegen.formula import Design, assumed_formula
 from sitegen.model import (
     ChartData,
     Chunked,
     Diagnostic,
     FitReport,
     FlaggedPoint,
-    Status,
     check_warning,
 )
 from sitegen.spec import DatasetSpec, Limits
@@ -57,16 +56,19 @@ from sitegen.stats.checks import (
     VIF_LIMIT,
     WORDING,
     breusch_pagan_triangle,
+    dw_beta_p,
+    dw_moments_from,
+    dw_outcome,
     reset_triangle,
 )
 from sitegen.stats.checks import _num as num
 from sitegen.stats.durbin_watson import EXACT_MAX_ROWS, exact_cdf
 from sitegen.stats.influence import LEVERAGE_ONE, Influence, PointFlags, influence_rows
-from sitegen.stats.ols import EXACT_FIT_RTOL, OlsFit, bands, row_bands, with_inference
+from sitegen.stats.ols import EXACT_FIT_RTOL, Estimates, OlsFit, estimated_fit, row_bands
 from sitegen.stats.rowsqr import RowsQR, Solved, refine, solve_triangle
 from sitegen.stats.shapiro import shapiro_wilk
 from sitegen.stats.solver import Ext, Ops, ops
-from sitegen.stats.soundness import RESCALE, _column_problem, figures_problem
+from sitegen.stats.soundness import RESCALE, _column_problem
 from sitegen.stats.text import p_text
 from sitegen.stream.design import ChunkDesign, Model, chunk_design, model_of
 from sitegen.stream.reader import Pass, Source, chunks
@@ -104,7 +106,7 @@ def refuse_unsupported(spec: DatasetSpec, name: str) -> None:
         keys = ", ".join(f"'{k}'" for k, _ in asked)
         raise FitError(
             f"{name} is read in chunks (it is at least stream_above_megabytes in size), and a chunked fit "
-            f"offers no {', '.join(w for _, w in asked)} (key(s) {keys})",
+            f"does not offer {', '.join(w for _, w in asked)} (key(s) {keys})",
             hint="remove those keys from the sidecar, or raise [limits] stream_above_megabytes (or the sidecar's "
             "stream_above_megabytes) above the file's size so that it is read whole",
         )
@@ -399,49 +401,17 @@ def _skeleton(model: Model, first: _First) -> Design:
 def _summary(  # noqa: PLR0917 - the triangle's pieces
     model: Model, solved: Solved, o: Ops, n: int, level: float, beta_s: Ext, ssr_ext: Ext
 ) -> OlsFit:
-    p = len(model.terms)
     beta_ext = beta_s * o.of(solved.scale)
     ssr = float(o.f(ssr_ext))
     yy = float(o.f(solved.yy))
     if math.sqrt(max(ssr, 0.0)) <= EXACT_FIT_RTOL * math.sqrt(yy):
         ssr = 0.0
     tss = float(o.f(solved.tss_centred)) if model.has_intercept and solved.tss_centred is not None else yy
-    root_f = o.f(solved.root)
-    beta = o.f(beta_ext)
-    empty = np.empty(0)
-    fit = OlsFit(
-        terms=model.terms,
-        beta=beta,
-        std_error=beta,
-        t_stat=beta,
-        p_value=beta,
-        ci_low=beta,
-        ci_high=beta,
-        xtx_inv=o.f(o.dot(solved.root, solved.root.T)),
-        xtx_root=root_f,
-        n=n,
-        df_model=p - 1 if model.has_intercept else p,
-        df_resid=n - p,
-        ssr=max(ssr, 0.0),
-        tss=tss,
-        r_squared=0.0,
-        adj_r_squared=0.0,
-        sigma=0.0,
-        f_stat=0.0,
-        f_p_value=0.0,
-        fitted=empty,
-        resid=empty,
-        leverage=empty,
-        q=np.empty((0, p)),
-        effects=o.f(solved.effects),
-        condition=solved.condition,
-        level=level,
-        t_crit=0.0,
-        has_intercept=model.has_intercept,
-        beta_ext=beta_ext,
-        root_ext=solved.root,
+    root, xtx_inv = solved.root, o.f(o.dot(solved.root, solved.root.T))
+    est = Estimates(
+        model.terms, o.f(beta_ext), xtx_inv, o.f(root), o.f(solved.effects), solved.condition, beta_ext, root
     )
-    return with_inference(fit)
+    return estimated_fit(est, n=n, has_intercept=model.has_intercept, level=level, ssr=max(ssr, 0.0), tss=tss)
 
 
 def _flags(infl: Any, cut: tuple[float, float, float, float]) -> PointFlags:
@@ -732,36 +702,22 @@ def _checks(acc: _Second, setup: _Setup, ssr: float) -> tuple[Diagnostic, ...]: 
     else:
         dw = acc.dw_num / ssr
         lag1 = acc.lag1 / ssr
-        how = ""
         if n <= EXACT_MAX_ROWS:
-            pv = exact_cdf(dw, np.vstack(acc.q_all))
+            # no weights here: an intercept puts the constant in the span, as on the whole-file path
+            pv = exact_cdf(dw, np.vstack(acc.q_all), constant_in_span=model.has_intercept)
             basis = held
         else:
             basis = streamed
             assert acc.dq_gram is not None
             assert acc.dq_first is not None
             assert acc.dq_last is not None
-            tr1 = 2.0 * (n - 1) - float(np.trace(acc.dq_gram))
             aq2 = float(acc.dq_first @ acc.dq_first) + acc.dq_diff + float(acc.dq_last @ acc.dq_last)
-            tr2 = 6.0 * n - 8.0 - 2.0 * aq2 + float(np.sum(acc.dq_gram * acc.dq_gram))
-            nu = float(df)
-            mean, var = tr1 / nu, 2.0 * (nu * tr2 - tr1**2) / (nu**2 * (nu + 2.0))
-            mm, v = mean / 4.0, var / 16.0
-            pv = math.nan
-            if 0 < mm < 1 and 0 < v < mm * (1 - mm):
-                a, bb = mm * (mm * (1 - mm) / v - 1), (1 - mm) * (mm * (1 - mm) / v - 1)
-                pv = min(1.0, dist.beta_cdf(dw / 4, a, bb))
-            how = (
-                f"; above {EXACT_MAX_ROWS:,} rows the p-value is approximate "
-                "(a beta distribution with d's exact mean and variance)"
-            )
-        if not math.isfinite(pv):
-            text = f"Durbin–Watson d = {num(dw)}, but no p-value can be given for this design."
-            out.append(_diag(name, False, text, basis))
+            pv = dw_beta_p(dw, *dw_moments_from(n, acc.dq_gram, aq2, df))
+        verdict = dw_outcome(dw, lag1, pv, approximate=n > EXACT_MAX_ROWS)
+        if isinstance(verdict, str):
+            out.append(_diag(name, False, verdict, basis))
         else:
-            note = "; residuals alternate in sign, which is not flagged" if dw > 2 and pv > 0.5 else ""
-            nums = f"Durbin–Watson d = {num(dw)}, lag-one correlation {num(lag1)}, {p_text(pv)}{how}{note}"
-            out.append(_judged(name, dw, pv, nums, alpha, basis))
+            out.append(_judged(name, verdict[0], verdict[1], verdict[2], alpha, basis))
     # bell shape: Shapiro–Wilk where the rows can be held, Jarque–Bera from running moments
     cnt, s1, s2, s3, s4 = (float(v) for v in acc.moments)
     mu = s1 / cnt
@@ -880,26 +836,13 @@ def _spread(acc: _Second) -> tuple[tuple[float, float, float, float], ...]:
     """:func:`sitegen.derive.spread_bins` from the binned counts of every row."""
     if acc.spread_n == 0:
         return ()
-    step = derive.SPREAD_BIN
-    top = min(
-        max(derive.SPREAD_REACH, math.ceil(acc.spread_top / step) * step),
-        derive.SPREAD_REACH_MAX,
-    )
-    edges = np.arange(-top, top + step / 2, step)
+    edges = derive.spread_edges(acc.spread_top)
     fine = _SPREAD_EDGES
     counts = np.zeros(len(edges) - 1)
     for i in range(len(fine) - 1):
         j = int(np.clip(np.searchsorted(edges, fine[i], side="right") - 1, 0, len(counts) - 1))
         counts[j] += acc.spread[i]
-    out = []
-    last = len(edges) - 2
-    m = acc.spread_n
-    for i in range(len(edges) - 1):
-        lo = -math.inf if i == 0 else float(edges[i])
-        hi = math.inf if i == last else float(edges[i + 1])
-        expected = m * (derive._normal_cdf(hi) - derive._normal_cdf(lo))
-        out.append((float(edges[i]), float(edges[i + 1]), float(counts[i]), expected))
-    return tuple(out)
+    return derive.spread_rows(edges, counts, acc.spread_n)
 
 
 def _chart(acc: _Second, setup: _Setup, skeleton: Design, first: _First) -> ChartData:
@@ -912,48 +855,18 @@ def _chart(acc: _Second, setup: _Setup, skeleton: Design, first: _First) -> Char
     names = tuple(sorted(c for c in _CHART_COLUMNS if c != "x" or x_col is not None))
     position = {c: _CHART_COLUMNS.index(c) for c in names}
     points = tuple(tuple(_clean(picked[i][position[c]]) for c in names) for i in order)
-    band_cols: tuple[str, ...] = ()
-    band: tuple[tuple[float | None, ...], ...] = ()
+    band: derive.ChartTable = ((), ())
     if x_col is not None:
         s = first.data[x_col]
-        grid = np.linspace(s.low, s.high, derive.BAND_STEPS)
-        try:
-            Xg: FloatArray | None = design_for(skeleton, {x_col: grid})
-        except (FormulaError, DataFileError):
-            Xg = None
-        if Xg is not None and Xg.shape[1] == len(setup.model.terms):
-            b = bands(setup.summary, Xg)
-            band_cols = ("x", "fit", "mean_low", "mean_high", "pred_low", "pred_high")
-            band = tuple(
-                zip(*(derive._clean(v) for v in (grid, b.fit, b.mean_low, b.mean_high, b.pred_low, b.pred_high)),
-                    strict=True)
-            )  # fmt: skip
-    density_cols: tuple[str, ...] = ()
-    density: tuple[tuple[float | None, ...], ...] = ()
+        band = derive.band_table(skeleton, x_col, (s.low, s.high), setup.summary, None)
+    density: derive.ChartTable = ((), ())
     if sampled and acc.density is not None and setup.density_range is not None:
         (x0, x1), (y0, y1) = setup.density_range
         xe = np.linspace(x0, x1, derive.DENSITY_BINS + 1)
         ye = np.linspace(y0, y1, derive.DENSITY_BINS + 1)
-        ii, jj = np.nonzero(acc.density)
-        density_cols = ("x0", "x1", "y0", "y1", "count")
-        density = tuple(
-            (float(xe[i]), float(xe[i + 1]), float(ye[j]), float(ye[j + 1]), float(acc.density[i, j]))
-            for i, j in zip(ii, jj, strict=True)
-        )
-    return ChartData(
-        x=x_col,
-        y=setup.model.plan.y_name,
-        point_columns=names,
-        points=points,
-        band_columns=band_cols,
-        band=band,
-        sampled=sampled,
-        n_total=setup.n,
-        density_columns=density_cols,
-        density=density,
-        spread_columns=("low", "high", "count", "expected"),
-        spread=_spread(acc),
-    )
+        density = derive.density_table(acc.density, xe, ye)
+    y_name = setup.model.plan.y_name
+    return derive.chart_data(x_col, y_name, (names, points), band, density, _spread(acc), setup.n)
 
 
 def _clean(v: float) -> float | None:
@@ -1065,7 +978,7 @@ def _report(  # noqa: PLR0917 - the pieces of one report
     limits: Limits,
     threshold: float,
 ) -> FitReport:
-    from sitegen.analyze import _spec_messages, with_fit  # noqa: PLC0415
+    from sitegen.analyze import _spec_messages, settled, with_fit  # noqa: PLC0415
 
     name = base.source
     sidecar = name[: -len(".csv")] + ".toml"
@@ -1093,13 +1006,9 @@ def _report(  # noqa: PLR0917 - the pieces of one report
             messages.append(check_warning(d))
     claims = derive.judged_claims(fit, spec, messages)
     predictions = derive._predictions(skeleton, fit, spec, messages, None)
-    status: Status = "warn" if any(m.level in ("warning", "error") for m in messages) else "ok"
-    if any(d.flag for d in diagnostics):
-        status = "warn"
     flagged = tuple(FlaggedPoint(*pay) for _, pay in second.listed.items())
     report = replace(
         with_fit(base, fit, None),
-        status=status,
         model=first.formula,
         model_assumed=first.assumed,
         response=model.plan.y_name,
@@ -1120,20 +1029,10 @@ def _report(  # noqa: PLR0917 - the pieces of one report
         ),
         predictions=predictions,
         claims=tuple(claims),
-        compare_term=spec.compare or next((t for t in model.terms if t != "Intercept"), None),
         chart=_chart(second, setup, skeleton, first),
         reading=first.layout,
         purpose=spec.purpose,
         input_sha256=first.sha256,
         chunked=Chunked(mb, threshold, limits.stream_chunk_rows, first.chunks, 2),
     )
-    coefficients = [(c.term, c.estimate, c.std_error, c.ci_low, c.ci_high) for c in report.coefficients]
-    problem = figures_problem(report.r_squared, report.residual_std_error, coefficients)
-    if problem:
-        raise FitError(f"{name}: the figures of this fit cannot be trusted: {problem}", hint=RESCALE)
-    if report.compare_term and report.coefficient(report.compare_term) is None:
-        raise FormulaError(
-            f"{sidecar}: compare = {spec.compare!r} is not a term of the model",
-            hint=f"choose one of {', '.join(model.terms)}",
-        )
-    return report
+    return settled(report, spec)

@@ -27,7 +27,7 @@ import numpy as np
 
 from sitegen.confine import OUTSIDE_HINT, open_inside
 from sitegen.errors import DataFileError, DataLimitError, OutsideFolderError
-from sitegen.load import FileLayout, pandas_errors, pandas_options, read_layout
+from sitegen.load import FileLayout, drop_unnamed, pandas_errors, pandas_options, read_layout
 from sitegen.spec import DatasetSpec, Limits
 from sitegen.table import Table, from_frame
 
@@ -124,7 +124,7 @@ def chunks(src: Source, seen: Pass) -> Iterator[Table]:
                 reader = pd.read_csv(handle, **options, chunksize=src.chunk_rows)
                 for raw in reader:
                     raw.columns = [str(c).strip() for c in raw.columns]
-                    table = from_frame(_named_columns(raw, layout, name, first))
+                    table = from_frame(drop_unnamed(raw, layout.header, layout.trailing_blank, name, first)[0])
                     table = Table(table.names, table.columns, np.arange(first, first + len(table), dtype=np.int64))
                     first += len(table)
                     if first - 1 > limits.max_rows:
@@ -152,24 +152,6 @@ def chunks(src: Source, seen: Pass) -> Iterator[Table]:
         raise DataFileError(f"{name} {exc.message}", hint=OUTSIDE_HINT) from None
     if seen.rows == 0:
         raise DataFileError(f"{name} has a header but no data rows", hint="add data rows below the header")
-
-
-def _named_columns(frame: Any, layout: FileLayout, name: str, first: int) -> Any:
-    """The frame without the unnamed empty columns that end the header (an error when one holds a value)."""
-    trailing = layout.trailing_blank
-    if not trailing or len(frame.columns) != len(layout.header):
-        return frame
-    start = len(layout.header) - trailing
-    for offset in range(trailing):
-        text = frame.iloc[:, start + offset].astype("string").str.strip()
-        filled = (text.notna() & (text != "")).to_numpy(dtype=bool)
-        if bool(filled.any()):
-            raise DataFileError(
-                f"{name}: column {start + offset + 1} has no name in the header but holds a value "
-                f"(data row {first + int(filled.argmax())})",
-                hint="give every column a name in the header line",
-            )
-    return frame.iloc[:, :start]
 
 
 def _all_empty(table: Table) -> np.ndarray[Any, np.dtype[np.bool_]]:
