@@ -174,6 +174,48 @@ def test_durbin_watson_without_eigenvalues_matches_imhof_in_mpmath_in_the_far_ta
     assert got == pytest.approx(want, rel=1e-11)
 
 
+@pytest.mark.slow
+def test_durbin_watson_far_tail_with_halved_steps_matches_imhof_in_mpmath() -> None:
+    # A 120-row line with residuals that drift (d = 0.05, p ≈ 8e-83): the integrand turns over a few times along
+    # the line, so the sums with steps h and 2h disagree and the step is halved until two sums agree (adaptive
+    # quadrature took this over before, at several ms and some 12 digits). Imhof's real-axis integral at 100
+    # digits on the same float64 eigenvalues checks the quadrature itself.
+    n = 120
+    x = np.sort(np.random.default_rng(4).uniform(0, 10, n))
+    q = np.linalg.qr(np.column_stack([np.ones(n), x]))[0]
+    d = 0.05
+    lam = durbin_watson.residual_eigenvalues(q)
+    got = durbin_watson.prob_below_zero(lam - d)
+    with mp.workdps(100):
+        want = float(imhof_below_zero([mp.mpf(float(v)) - mp.mpf(d) for v in lam]))
+    assert 1e-90 < want < 1e-75
+    assert got == pytest.approx(want, rel=1e-13)
+    one = durbin_watson.one_direction(q, constant_in_span=True)
+    assert one is not None
+    assert durbin_watson.prob_below_zero_compressed(*one, d) == pytest.approx(want, rel=1e-11)
+
+
+def test_durbin_watson_far_upper_tail_is_one_to_rounding() -> None:
+    # d far above its mean (residuals that alternate in sign, 342 rows): P(D ≤ d) is 1 less a tail that
+    # Chernoff's bound P(Q > 0) ≤ E[exp(sQ)] (common practice) puts below 1e-30, so both routes must give 1 to
+    # rounding; adaptive quadrature, which took these over before steps were halved, left errors of 1e-12 to 1e-11.
+    n = 342
+    x = np.sort(np.random.default_rng(4).uniform(0, 10, n))
+    q = np.linalg.qr(np.column_stack([np.ones(n), x]))[0]
+    lam = durbin_watson.residual_eigenvalues(q)
+    one = durbin_watson.one_direction(q, constant_in_span=True)
+    assert one is not None
+    for d in (3.6, 3.8):
+        mu = lam - d
+        s = np.linspace(0.0, 0.5 / float(mu.max()), 2001)[1:-1]
+        log_bound = min(-0.5 * float(np.sum(np.log1p(-2.0 * v * mu))) for v in s)
+        assert log_bound < math.log(1e-30)
+        assert abs(1.0 - durbin_watson.prob_below_zero(mu)) <= 4e-15
+        got = durbin_watson.prob_below_zero_compressed(*one, d)
+        assert got is not None
+        assert abs(1.0 - got) <= 4e-15
+
+
 def test_durbin_watson_beyond_the_exact_size_says_it_is_approximate() -> None:
     n = durbin_watson.EXACT_MAX_ROWS + 1
     rng = np.random.default_rng(5)

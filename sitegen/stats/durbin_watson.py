@@ -21,10 +21,16 @@ a number near ½), so the same inversion is taken here along a vertical line
 through the saddle point of the integrand, as S. O. Rice did ("Distribution of
 quadratic forms in normal random variables — evaluation by numerical
 integration", SIAM J. Sci. Stat. Comput. 1, 1980; from memory): the integrand is
-then smooth, positive near the real axis and of the size of the answer, and
-scipy's adaptive quadrature (QUADPACK) gives about twelve relative digits at any
-size of p. The tests check it against Imhof's real-axis integral in 30-digit
-mpmath arithmetic on mpmath's own eigenvalues, and against Monte Carlo draws.
+then smooth, positive near the real axis and of the size of the answer. It is summed
+by the trapezoidal rule after v = width · sinh(t), which converges geometrically:
+accepted when the sums with steps h and 2h agree to 1e-10 (the finer one is then good
+to far more), else with the step halved up to three times until two successive sums
+agree (far tails, where the integrand turns over along the line: measured on 75
+drifting 5- to 400-row lines, 0.9 ms each instead of 7.4 ms), and only then by scipy's
+adaptive quadrature (QUADPACK, about twelve relative digits at any size of p). The
+tests check it against Imhof's real-axis integral in 30- to 100-digit mpmath
+arithmetic, against Chernoff's bound in the far upper tail, and against Monte Carlo
+draws.
 
 Without eigenvalues, for the common designs. A is diagonal in the orthonormal
 cosine basis (DCT-II), with eigenvalues a_k = 4 sin²(πk / 2n), k = 0 … n − 1 (the
@@ -77,6 +83,7 @@ _T_MAX = 80.0
 _CHUNK = 64
 _TAIL = 1e-17  # stop when the integrand has fallen this far below the sum so far
 _SETTLED = 1e-10  # relative agreement of the steps h and 2h that counts as converged
+_HALVINGS = 3  # times the step may be halved before adaptive quadrature takes over
 
 
 @functools.cache
@@ -232,7 +239,11 @@ def _sinh_trapezoid(f: Callable[[FloatArray], FloatArray], width: float) -> floa
 
     The substitution turns the integrand's algebraic tail into an exponential one, where
     the trapezoidal rule converges geometrically; the sum with every second node is the
-    error estimate.
+    error estimate. Where that coarser sum is not yet close enough, the step is halved
+    (up to ``_HALVINGS`` times, over the same range: the new nodes are the midpoints of
+    the old) and each sum is judged against the one before, since an integrand that turns
+    over a few times along the line (far tails) needs a finer step than 2h to show that h
+    has settled; only then does the caller fall back to adaptive quadrature.
     """
     h = _STEP
     t = np.arange(0.0, _T_MAX, h)
@@ -249,7 +260,21 @@ def _sinh_trapezoid(f: Callable[[FloatArray], FloatArray], width: float) -> floa
         if abs(g[-1]) <= _TAIL * abs(total_fine) and abs(g[-2]) <= _TAIL * abs(total_fine):
             if abs(total_fine - total_coarse) <= _SETTLED * abs(total_fine):
                 return total_fine
-            return None
+            return _halved(f, width, total_fine, h, float(ti[-1]))
+    return None
+
+
+def _halved(f: Callable[[FloatArray], FloatArray], width: float, total: float, h: float, end: float) -> float | None:
+    """The trapezoidal sum of :func:`_sinh_trapezoid` with its step halved until two successive sums agree to
+    ``_SETTLED`` (T(h/2) = T(h)/2 + (h/2) Σ f at the midpoints, over [0, end]); None if they never do."""
+    for _ in range(_HALVINGS):
+        mid = np.arange(h / 2, end, h)
+        g = f(width * np.sinh(mid)) * width * np.cosh(mid)
+        finer = total / 2 + (h / 2) * float(np.sum(g))
+        h /= 2
+        if abs(finer - total) <= _SETTLED * abs(finer):
+            return finer
+        total = finer
     return None
 
 
