@@ -27,7 +27,7 @@ from sitegen.load import LoadedTable, read_source, read_table
 from sitegen.model import AnovaLine, Coefficient, FitReport, Message, Status
 from sitegen.purposes import choose_weights
 from sitegen.requirements import judge
-from sitegen.spec import DatasetSpec, Limits, read_sidecar
+from sitegen.spec import STREAM_ABOVE_MEGABYTES, WHOLE_WITH_KEYS_BELOW_MEGABYTES, DatasetSpec, Limits, read_sidecar
 from sitegen.stats import ext
 from sitegen.stats.ols import OlsFit, anova_table, fit_ols
 from sitegen.stats.soundness import RESCALE, data_problem, figures_problem
@@ -93,6 +93,21 @@ def _read_error(src: DatasetSource, base: FitReport, exc: OSError) -> DatasetRes
     return DatasetResult(replace(base, messages=(Message("error", msg),)), None, transient=True)
 
 
+def reads_in_chunks(size: int, spec: DatasetSpec, limits: Limits) -> bool:
+    """Whether a file of ``size`` bytes is read and fitted in chunks: from ``stream_above_megabytes`` on (the
+    sidecar's, else the site's). With the built-in threshold, a file below ``WHOLE_WITH_KEYS_BELOW_MEGABYTES``
+    whose sidecar asks for what only the whole-file fit offers (weights, groups, lines…) is read whole."""
+    from sitegen.stream.fit import unsupported  # noqa: PLC0415
+
+    threshold = limits.stream_above_megabytes
+    if spec.stream_above_megabytes is not None:
+        threshold = spec.stream_above_megabytes  # the sidecar's, for its dataset
+    if size < threshold * 1e6:
+        return False
+    chosen = spec.stream_above_megabytes is not None or threshold != STREAM_ABOVE_MEGABYTES
+    return chosen or size >= WHOLE_WITH_KEYS_BELOW_MEGABYTES * 1e6 or not unsupported(spec)
+
+
 def _in_chunks(task: FitTask, base: FitReport) -> DatasetResult | DatasetSpec | None:
     """The dataset fitted in chunks when its file is at least ``stream_above_megabytes`` (the site's, or its
     sidecar's); else the sidecar as read here, for the whole-file path to use (read once), or None (the file's
@@ -110,11 +125,11 @@ def _in_chunks(task: FitTask, base: FitReport) -> DatasetResult | DatasetSpec | 
         spec = read_sidecar(src.sidecar_path, dict(task.defaults), sidecar_name, src.root)
     except DatasetError:
         return None
+    if not reads_in_chunks(size, spec, task.limits):
+        return spec
     threshold = task.limits.stream_above_megabytes
     if spec.stream_above_megabytes is not None:
         threshold = spec.stream_above_megabytes  # the sidecar's, for its dataset
-    if size < threshold * 1e6:
-        return spec
     try:
         base = replace(
             base,

@@ -10,6 +10,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
+from sitegen.clib import TRIM_FROM_ROWS, give_back_freed_memory
 from sitegen.digest import file_sha256
 from sitegen.discover import DatasetSource
 from sitegen.publish import write_new
@@ -66,6 +67,8 @@ def fit_job(job: FitJob) -> FitDone:
     from sitegen.analyze import FitTask, analyze  # noqa: PLC0415
 
     result = analyze(FitTask(job.source, job.defaults, job.limits, job.folder))
+    if (result.report.n_rows or 0) >= TRIM_FROM_ROWS:
+        give_back_freed_memory()  # the fit's freed arrays, before the observations are written
     return _finish(job, result)
 
 
@@ -128,8 +131,8 @@ def _memory_advice(limits: Limits) -> str:
 
 
 #: The measured memory of a fit in memory (two-column ``y ~ x``, bench/large.py): the README's rule.
-FIT_BASE_MEGABYTES = 120
-FIT_BYTES_PER_ROW = 430
+FIT_BASE_MEGABYTES = 130
+FIT_BYTES_PER_ROW = 290
 
 
 def _finish(job: FitJob, result: DatasetResult) -> FitDone:

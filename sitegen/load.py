@@ -552,10 +552,13 @@ def pandas_options(delimiter: str, decimal: str, encoding: str, *, skip: int) ->
 
 
 @contextlib.contextmanager
-def pandas_errors(name: str, delimiter: str, skip: int) -> Iterator[None]:
+def pandas_errors(name: str, delimiter: str, skip: int, *, from_memory: bool = False) -> Iterator[None]:
     """Translate the exceptions of pandas' reader inside the block into :class:`DataFileError` (chained).
 
-    Inside the block pandas' warning about a line with more fields than the header is an error.
+    Inside the block pandas' warning about a line with more fields than the header is an error. With
+    ``from_memory`` (the reader's source is bytes in memory, whose reading can fail only for want of memory),
+    pandas' "read(nbytes) on source failed" is the memory bound's :class:`MemoryError`: pandas' C reader
+    drops the original exception, so the chain cannot tell.
     """
     comma_hint = (
         "; a number written with a decimal comma in a comma-separated file counts as two fields — "
@@ -580,7 +583,8 @@ def pandas_errors(name: str, delimiter: str, skip: int) -> Iterator[None]:
         ) from exc
     except pd.errors.ParserError as exc:
         detail = _parser_detail(exc)
-        if "out of memory" in detail:
+        lost = from_memory and "on source failed" in detail
+        if "out of memory" in detail or lost or _memory_in_chain(exc):
             raise MemoryError(detail) from exc  # the memory bound of this fit (see sitegen.executor)
         hint = (
             'a quotation mark (") opened there is never closed: close it or remove it'
@@ -592,12 +596,25 @@ def pandas_errors(name: str, delimiter: str, skip: int) -> Iterator[None]:
         raise DataFileError(f"{name} cannot be read: {exc}") from exc
 
 
+def _memory_in_chain(exc: BaseException) -> bool:
+    """Whether a MemoryError lies behind ``exc`` (pandas reports one raised by the source's ``read`` as
+    "Calling read(nbytes) on source failed")."""
+    seen: set[int] = set()
+    cause: BaseException | None = exc
+    while cause is not None and id(cause) not in seen:
+        if isinstance(cause, MemoryError):
+            return True
+        seen.add(id(cause))
+        cause = cause.__cause__ or cause.__context__
+    return False
+
+
 def _parse(
     raw: bytes, delimiter: str, decimal: str, encoding: str, name: str, *, skip: int, max_rows: int
 ) -> pd.DataFrame:
     import pandas as pd  # noqa: PLC0415 - only files that are not plain need it
 
-    with pandas_errors(name, delimiter, skip):
+    with pandas_errors(name, delimiter, skip, from_memory=True):
         frame: pd.DataFrame = pd.read_csv(
             io.BytesIO(raw),
             **pandas_options(delimiter, decimal, encoding, skip=skip),

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import csv
 import json
+import os
 import subprocess
 import sys
 from pathlib import Path
@@ -174,3 +175,19 @@ def test_python_dash_m_help() -> None:
     assert proc.returncode == 0, proc.stderr
     assert "build" in proc.stdout
     assert "Traceback" not in proc.stdout + proc.stderr
+
+
+@pytest.mark.parametrize(("given", "expected"), [(None, "1"), ("3", "3")])
+def test_the_program_uses_one_blas_thread_per_process_unless_told(given: str | None, expected: str) -> None:
+    """Datasets are fitted in parallel processes: each gets one BLAS thread, unless the user set the number."""
+    names = ("OPENBLAS_NUM_THREADS", "OMP_NUM_THREADS", "MKL_NUM_THREADS")
+    env = {k: v for k, v in os.environ.items() if k not in names}
+    if given is not None:
+        env["OPENBLAS_NUM_THREADS"] = given
+    code = (
+        "import atexit, os, sys; "
+        "atexit.register(lambda: print(os.environ['OPENBLAS_NUM_THREADS'], os.environ['OMP_NUM_THREADS'])); "
+        "sys.argv = ['sitegen', '--version']; from sitegen.cli import entrypoint; entrypoint()"
+    )
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, env=env, check=False)
+    assert out.stdout.split()[-2:] == [expected, "1"], out

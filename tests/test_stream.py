@@ -281,3 +281,27 @@ def test_the_threshold_keys_are_checked(tmp_path: Path, run_cli: Any) -> None:
     fit = _fit(tmp_path / "site", "a")
     assert fit["status"] == "error"
     assert "key 'stream_above_megabytes' must be a finite number" in fit["messages"][-1]["text"]
+
+
+def test_which_files_are_read_in_chunks() -> None:
+    """The built-in threshold reads large plain fits in chunks; a sidecar asking for what only the whole-file fit
+    offers keeps a file below the former threshold (200 MB) whole; a threshold that was chosen is obeyed."""
+    from sitegen.analyze import reads_in_chunks
+    from sitegen.spec import STREAM_ABOVE_MEGABYTES, WHOLE_WITH_KEYS_BELOW_MEGABYTES, DatasetSpec, Limits
+
+    mb = 1_000_000
+    plain, weighted = DatasetSpec(), DatasetSpec(weights="w")
+    assert STREAM_ABOVE_MEGABYTES < WHOLE_WITH_KEYS_BELOW_MEGABYTES
+    below, between = int(STREAM_ABOVE_MEGABYTES * mb) - 1, int(STREAM_ABOVE_MEGABYTES * mb)
+    above = int(WHOLE_WITH_KEYS_BELOW_MEGABYTES * mb)
+    site = Limits()
+    assert not reads_in_chunks(below, plain, site)
+    assert reads_in_chunks(between, plain, site)
+    assert not reads_in_chunks(between, weighted, site)  # read whole, as before the threshold was lowered
+    assert reads_in_chunks(above, weighted, site)  # refused with the keys named, as before
+    chosen = Limits(stream_above_megabytes=1.0)
+    assert reads_in_chunks(mb, weighted, chosen)  # the site chose it: the keys are refused by name
+    assert not reads_in_chunks(mb - 1, plain, chosen)
+    own = DatasetSpec(weights="w", stream_above_megabytes=0.0)
+    assert reads_in_chunks(10, own, site)
+    assert not reads_in_chunks(above, DatasetSpec(stream_above_megabytes=1e4), site)

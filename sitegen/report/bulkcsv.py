@@ -212,6 +212,8 @@ def write_rows(fh: BinaryIO, values: Sequence[np.ndarray[Any, Any]]) -> None:
         lines = pc.binary_join_element_wise(*cells, ",") if len(cells) > 1 else cells[0]
         lines = pc.binary_join_element_wise(lines, pa.scalar(""), "\n")
         fh.write(_text_bytes(lines))
+        del cells, lines
+        pa.default_memory_pool().release_unused()  # mimalloc keeps freed chunks: a chunk's text, many times over
 
 
 def _text_bytes(lines: pa.Array) -> memoryview:

@@ -60,8 +60,9 @@ from sitegen.errors import FitError
 from sitegen.stats import distributions as dist
 from sitegen.stats import durbin_watson, ext
 from sitegen.stats.influence import LEVERAGE_ONE, Influence
+from sitegen.stats.rowsqr import RowsQR
 from sitegen.stats.shapiro import shapiro_wilk
-from sitegen.stats.solver import Ext, Ops, kind_of, ops, residual_ss, solve
+from sitegen.stats.solver import Ext, Ops, _check_rank, _householder, kind_of, ops, residual_ss, solve
 from sitegen.stats.text import minus, p_text
 
 FloatArray = NDArray[np.float64]
@@ -72,6 +73,11 @@ CONDITION_LIMIT = 30.0
 RESIDUAL_LIMIT = 3.0
 _ZERO = 1e-12  # relative size below which residual scatter counts as zero
 _RANK_TOL = 1e-8  # relative size below which a column counts as dependent
+#: Above this many rows the auxiliary regressions of Breusch–Pagan and RESET are factored block by block
+#: (:mod:`sitegen.stats.rowsqr`, as for a file read in chunks) instead of as one tall matrix, so that their
+#: memory stays that of one block; their statistics then come from the new columns' effects directly.
+BLOCKS_ABOVE_ROWS = 250_000
+BLOCK_ROWS = 65_536
 
 #: name: (heading, sentence when flagged, sentence when not, advice when flagged)
 WORDING: dict[str, tuple[str, str, str, str]] = {
@@ -312,6 +318,8 @@ def _constant_variance(d: _Data) -> _Outcome:
         return "There is no predictor for the scatter to change with."
     if np.ptp(d.ew**2) == 0:
         return "All residuals have the same size, so their scatter cannot change."
+    if d.n > BLOCKS_ABOVE_ROWS:
+        return _constant_variance_in_blocks(d, pred)
     cols = [o.of(np.ones(d.n)), *(d.ext.X_ext[:, j] for j in pred)]
     try:
         lm, p = _breusch_pagan(d.ew_ext, list(cols))
@@ -347,6 +355,100 @@ def _breusch_pagan(e: Ext, cols: list[Ext]) -> tuple[float, float]:
     r2 = 1 - ssr / tss if tss > 0 else 0.0
     lm = n * r2
     return lm, dist.chi2_sf(lm, k - 1)
+
+
+def breusch_pagan_triangle(o: Ops, T: Ext, n: int, terms: tuple[str, ...]) -> tuple[float, float]:
+    """Koenker's LM from the R factor ``T`` of [Z | e²], Z's first column the constant.
+
+    R² is the predictors' effects over the centred total sum of squares (the entries of the last column
+    below the first), so no difference of nearly equal sums is formed. Raises FitError when Z is
+    rank-deficient.
+    """
+    k = len(terms)
+    _check_rank(o, T[:k, :k], terms)
+    explained = float(o.f(o.dot(T[1:k, k], T[1:k, k])))
+    tss = float(o.f(o.dot(T[1:, k], T[1:, k])))
+    lm = n * (explained / tss if tss > 0 else 0.0)
+    return lm, dist.chi2_sf(lm, k - 1)
+
+
+def reset_triangle(o: Ops, T: Ext, p: int, df: int) -> tuple[float, float] | None:
+    """RESET's F and p-value from the R factor ``T`` of [X | z² | z³ | y] (X with ``p`` columns).
+
+    Both powers are tried first, then each alone (the one the design already holds is dropped); the new
+    columns' effects give the explained part directly. None when neither power adds to the design or too
+    few rows are left.
+    """
+    for k, cols in ((2, [*range(p), p, p + 1]), (1, [*range(p), p]), (1, [*range(p), p + 1])):
+        R = _householder(o, T[:, [*cols, p + 2]].copy())[0]
+        try:
+            _check_rank(o, R[: len(cols), : len(cols)], tuple(f"c{j}" for j in cols))
+        except FitError:
+            continue
+        if df - k < 1:
+            return None
+        c = len(cols)
+        rest = max(float(o.f(R[c, c] * R[c, c])), 0.0)
+        extra = float(o.f(o.dot(R[p:c, c], R[p:c, c])))  # the new columns' effects: no cancellation
+        stat = math.inf if rest == 0 else (extra / k) / (rest / (df - k))
+        return stat, 0.0 if rest == 0 else dist.f_sf(stat, k, df - k)
+    return None
+
+
+def _in_blocks(o: Ops, n: int, width: int, block: Callable[[int, int], list[Ext]]) -> Ext:
+    """The R factor of the matrix whose rows ``block(lo, hi)`` gives as columns, BLOCK_ROWS rows at a time."""
+    acc = RowsQR(o, width)
+    for lo in range(0, n, BLOCK_ROWS):
+        acc.add(o.columns(block(lo, min(n, lo + BLOCK_ROWS))))
+    return acc.triangle()
+
+
+def _constant_variance_in_blocks(d: _Data, pred: list[int]) -> _Outcome:
+    """Breusch–Pagan for a long fit: e² on the constant and predictors, factored block by block."""
+    o = ops()
+    k = 1 + len(pred)
+
+    def block(lo: int, hi: int) -> list[Ext]:
+        e = d.ew_ext[lo:hi]
+        return [o.of(np.ones(hi - lo)), *(d.ext.X_ext[lo:hi, j] for j in pred), e * e]
+
+    T = _in_blocks(o, d.n, k + 1, block)
+    terms = tuple(f"z{j}" for j in range(k))
+    try:
+        lm, p = breusch_pagan_triangle(o, T, d.n, terms)
+    except FitError:
+        # exactly dependent predictors (possible without an intercept): keep the independent ones
+        keep = [int(j) for j in np.flatnonzero(_independent_columns(o.f(T[:k, :k])))]
+        if len(keep) < 2 or keep[0] != 0:
+            return "There is no predictor for the scatter to change with."
+        try:
+            sub = _householder(o, T[:, [*keep, k]].copy())[0]
+            lm, p = breusch_pagan_triangle(o, sub, d.n, tuple(terms[j] for j in keep))
+        except FitError as exc:
+            return f"The Breusch–Pagan test could not be computed ({exc.message})."
+    if not (math.isfinite(lm) and math.isfinite(p)):
+        return "The Breusch–Pagan test gave no usable result for these data."
+    return lm, p, f"Breusch–Pagan LM = {_num(lm)}, {_p(p)}"
+
+
+def _curvature_in_blocks(d: _Data, mean: Ext, scale: float) -> _Outcome:
+    """RESET for a long fit: [X | z² | z³ | y] on the weighted scale, factored block by block."""
+    o = ops()
+
+    def block(lo: int, hi: int) -> list[Ext]:
+        s = d.s_ext[lo:hi]
+        fe = d.ext.fitted_ext[lo:hi]
+        z = (fe - mean) / scale
+        y = (fe + d.ext.resid_ext[lo:hi]) * s
+        return [*(d.ext.X_ext[lo:hi, j] * s for j in range(d.p)), s * z * z, s * z * z * z, y]
+
+    T = _in_blocks(o, d.n, d.p + 3, block)
+    got = reset_triangle(o, T, d.p, d.df)
+    if got is None:
+        why = "too few distinct fitted values" if d.df > 2 else "too few rows"
+        return f"The curvature test needs more data than this fit has ({why})."
+    stat, p = got
+    return stat, p, f"RESET F = {_num(stat)}, {_p(p)}"
 
 
 def _stacked(o: Ops, cols: list[Ext]) -> Ext:
@@ -452,6 +554,10 @@ def _curvature(d: _Data) -> _Outcome:
     scale = float(np.max(np.abs(z)))
     if scale <= _ZERO * float(np.max(np.abs(d.fitted))):
         return "The fitted values are all equal, so there is no bend to look for."
+    if d.n > BLOCKS_ABOVE_ROWS:
+        del ze, z
+        mean = o.dot(fe, o.of(np.ones(d.n))) / d.n if d.icol is not None else o.of(np.zeros(1))
+        return _curvature_in_blocks(d, mean, scale)
     ze = ze / scale  # powers of the centred, scaled fitted values span the same space with the design
     new = [d.s_ext * ze * ze, d.s_ext * ze * ze * ze]
     del ze, z

@@ -202,7 +202,7 @@ def _back_substitute(o: Ops, R: Ext, c: Ext) -> Ext:
 
 
 def _refine_augmented(  # noqa: PLR0917 - the factorisation's pieces
-    o: Ops, Xs: Ext, y: Ext, R: Ext, refl: list[Ext], b: Ext, *, steps: int = 4
+    o: Ops, Xs: _Scaled, y: Ext, R: Ext, refl: list[Ext], b: Ext, *, steps: int = 4
 ) -> tuple[Ext, Ext]:
     """Refine the solution and residual together (Björck's augmented-system refinement).
 
@@ -211,11 +211,11 @@ def _refine_augmented(  # noqa: PLR0917 - the factorisation's pieces
     (r, b) of  [I X; X' 0][r; b] = [y; 0]  removes it. Returns (b, r).
     """
     p = R.shape[0]
-    r = y - o.dot(Xs, b)
+    r = y - Xs.times(b)
     last = math.inf
     for _ in range(steps):
-        f = y - r - o.dot(Xs, b)
-        g = -o.dot(Xs.T, r)
+        f = y - r - Xs.times(b)
+        g = -Xs.transposed_times(r)
         h = _forward_substitute_transposed(o, R, g)
         d = _apply_qt(o, refl, f, in_place=True)
         del f
@@ -238,6 +238,35 @@ def _refine_augmented(  # noqa: PLR0917 - the factorisation's pieces
         del dr
         last = size
     return b, r
+
+
+class _Scaled:
+    """The column-scaled design X·S (S diagonal, powers of two) without holding it: (X·S)b is X(Sb) and
+    (X·S)'r is S(X'r), equal bit for bit, since a product by a power of two is exact."""
+
+    def __init__(self, o: Ops, X: Ext, scale: Ext) -> None:
+        self.o, self.X, self.scale = o, X, scale
+
+    def times(self, b: Ext) -> Ext:
+        if self.X.ndim == 1:
+            return self.X * (self.scale * b)
+        return self.o.dot(self.X, self.scale * b)
+
+    def transposed_times(self, r: Ext) -> Ext:
+        return self.o.dot(self.X.T, r) * self.scale
+
+
+ROW_BLOCK = 65_536  # rows of Q squared and summed at a time, for the hat values
+
+
+def _row_sums_of_squares(o: Ops, Q: Ext) -> NDArray[np.float64]:
+    """Σ_j Q_ij² for every row, in the arithmetic of Q, a block of rows at a time (no n × p temporary)."""
+    n = Q.shape[0]
+    out = np.empty(n)
+    for lo in range(0, n, ROW_BLOCK):
+        part = Q[lo : lo + ROW_BLOCK]
+        out[lo : lo + ROW_BLOCK] = o.f(o.rowsum(part * part))
+    return out
 
 
 def _check_rank(o: Ops, R: Ext, terms: tuple[str, ...]) -> None:
@@ -286,31 +315,34 @@ def solve(X: Any, y: Any, terms: tuple[str, ...]) -> Solution:
     if not bool(np.all(norms_f > 0)):
         name = terms[int(np.flatnonzero(norms_f == 0)[0])]
         raise FitError(f"term {name!r} is zero in every row, so its coefficient cannot be estimated")
-    # Scale by powers of two near 1/‖column‖: exact in any arithmetic, so Xs carries X's digits unchanged.
+    # Scale by powers of two near 1/‖column‖: exact in any arithmetic, so X·S carries X's digits unchanged.
     scale_f = np.exp2(-np.round(np.log2(norms_f)))
     scale = o.of(scale_f)
-    Xs = X * (scale if X.ndim == 1 else _row(o, scale))
+    # X·S is formed once, for the factorisation to work on in place; elsewhere products with it are taken as
+    # products with X and S (exact, S being powers of two), so that no second scaled copy is held.
+    scaled = _Scaled(o, X, scale)
     if n * p <= EXTENDED_LIMIT:
-        R, refl = _householder(o, Xs.copy())
+        R, refl = _householder(o, X * (scale if X.ndim == 1 else _row(o, scale)))
         _check_rank(o, R, terms)
         effects = _apply_qt(o, refl, y)[:p]
-        b, r = _refine_augmented(o, Xs, y, R, refl, _back_substitute(o, R, effects))
+        b, r = _refine_augmented(o, scaled, y, R, refl, _back_substitute(o, R, effects))
         eye_n = o.zeros((n, p))
         for j in range(p):
             eye_n[j, j] = o.of(1.0)
         Q = _apply_q(o, refl, eye_n, in_place=True)
+        del refl
     else:
-        Xd = o.f(Xs)
-        Qd, Rd = np.linalg.qr(Xd)
+        Qd, Rd = np.linalg.qr(o.f(X * (scale if X.ndim == 1 else _row(o, scale))))
         R = o.of(Rd)
         _check_rank(o, R, terms)
         effects = o.of(Qd.T @ o.f(y))
         b = _back_substitute(o, R, effects)
         for _ in range(3):
-            rd = o.f(y - o.dot(Xs, b))
+            rd = o.f(y - scaled.times(b))
             b = b + _back_substitute(o, R, o.of(Qd.T @ rd))
-        r = y - o.dot(Xs, b)
+        r = y - scaled.times(b)
         Q = o.of(Qd)
+        del Qd
     eye = np.eye(p)
     R_inv = o.columns([_back_substitute(o, R, o.of(eye[:, j])) for j in range(p)])
     root = R_inv * o.of(scale_f[:, None])  # S·R⁻¹
@@ -333,7 +365,7 @@ def solve(X: Any, y: Any, terms: tuple[str, ...]) -> Solution:
         effects=o.f(effects),
         q=o.f(Q),
         condition=condition,
-        leverage=o.f(o.rowsum(Q * Q)),
+        leverage=_row_sums_of_squares(o, Q),
         beta_ext=beta,
         resid_ext=r,
         root_ext=root,
@@ -355,12 +387,10 @@ def residual_ss(X: Any, y: Any, terms: tuple[str, ...]) -> float:
     if p == 0 or not bool(np.all(norms_f > 0)):
         raise FitError("an auxiliary regression has a zero or missing column")
     scale = o.of(np.exp2(-np.round(np.log2(norms_f))))
-    Xs = X * _row(o, scale)
-    del X  # a caller that hands over its only reference (as the model checks do) frees the design here
-    R, refl = _householder(o, Xs.copy())
+    R, refl = _householder(o, X * _row(o, scale))
     _check_rank(o, R, terms)
     effects = _apply_qt(o, refl, y)[:p]
-    _, r = _refine_augmented(o, Xs, y, R, refl, _back_substitute(o, R, effects))
+    _, r = _refine_augmented(o, _Scaled(o, X, scale), y, R, refl, _back_substitute(o, R, effects))
     return float(o.f(o.dot(r, r)))
 
 

@@ -1,7 +1,7 @@
 """Fit one dataset read in chunks: two passes over the file with bounded memory.
 
 Pass 1 reads the file a chunk at a time, builds each chunk's design (:mod:`sitegen.stream.design`) and
-updates the R factor of [X | y] (:mod:`sitegen.stream.qr`); it also keeps each column's range and spread
+updates the R factor of [X | y] (:mod:`sitegen.stats.rowsqr`); it also keeps each column's range and spread
 (the soundness checks, the chart's grid and bins). The triangle gives the coefficients, (X'X)⁻¹ and the sums
 of squares. Pass 2 reads the file again and, chunk by chunk, computes every row's fitted value, residual,
 leverage (‖xᵢ'W‖², W = S·R⁻¹), studentized residual, Cook's distance, DFFITS, intervals and flags, writes
@@ -55,20 +55,22 @@ from sitegen.stats.checks import (
     SHAPIRO_MAX_ROWS,
     VIF_LIMIT,
     WORDING,
+    breusch_pagan_triangle,
     dw_beta_p,
     dw_moments_from,
     dw_outcome,
+    reset_triangle,
 )
 from sitegen.stats.checks import _num as num
 from sitegen.stats.durbin_watson import EXACT_MAX_ROWS, exact_cdf
 from sitegen.stats.influence import LEVERAGE_ONE, Influence, PointFlags, influence_rows
 from sitegen.stats.ols import EXACT_FIT_RTOL, Estimates, OlsFit, estimated_fit, row_bands
+from sitegen.stats.rowsqr import RowsQR, Solved, refine, solve_triangle
 from sitegen.stats.shapiro import shapiro_wilk
-from sitegen.stats.solver import Ext, Ops, _check_rank, ops
+from sitegen.stats.solver import Ext, Ops, ops
 from sitegen.stats.soundness import RESCALE, _column_problem
 from sitegen.stats.text import p_text
 from sitegen.stream.design import ChunkDesign, Model, chunk_design, model_of
-from sitegen.stream.qr import RowsQR, Solved, refine, solve_triangle
 from sitegen.stream.reader import Pass, Source, chunks
 from sitegen.table import Table, from_columns
 
@@ -89,11 +91,17 @@ _UNSUPPORTED = (
 OBSERVATIONS = "observations.csv"
 
 
-def refuse_unsupported(spec: DatasetSpec, name: str) -> None:
-    """A :class:`FitError` naming what a chunked fit does not offer, when the sidecar asks for it."""
+def unsupported(spec: DatasetSpec) -> list[tuple[str, str]]:
+    """The sidecar keys (and what they ask for) that a chunked fit does not offer."""
     asked = [(key, what) for key, what in _UNSUPPORTED if getattr(spec, key)]
     if spec.purpose != "relation":
         asked.append(("purpose", f"purpose = {spec.purpose!r}"))
+    return asked
+
+
+def refuse_unsupported(spec: DatasetSpec, name: str) -> None:
+    """A :class:`FitError` naming what a chunked fit does not offer, when the sidecar asks for it."""
+    asked = unsupported(spec)
     if asked:
         keys = ", ".join(f"'{k}'" for k, _ in asked)
         raise FitError(
@@ -678,14 +686,7 @@ def _checks(acc: _Second, setup: _Setup, ssr: float) -> tuple[Diagnostic, ...]: 
         out.append(_diag(name, False, "The Breusch–Pagan test is computed for models with an intercept.", streamed))
     else:
         try:
-            T = acc.bp.triangle()
-            k = p
-            _check_rank(o, T[:k, :k], model.terms)
-            # R² as explained / total sum of squares: the effects of the predictors, without cancellation
-            explained = float(o.f(o.dot(T[1:k, k], T[1:k, k])))
-            tss = float(o.f(o.dot(T[1:, k], T[1:, k])))
-            lm = n * (explained / tss if tss > 0 else 0.0)
-            pv = dist.chi2_sf(lm, p - 1)
+            lm, pv = breusch_pagan_triangle(o, acc.bp.triangle(), n, model.terms)
             if math.isfinite(lm) and math.isfinite(pv):
                 out.append(_judged(name, lm, pv, f"Breusch–Pagan LM = {num(lm)}, {p_text(pv)}", alpha, streamed))
             else:
@@ -771,34 +772,15 @@ def _checks(acc: _Second, setup: _Setup, ssr: float) -> tuple[Diagnostic, ...]: 
 
 
 def _reset(acc: _Second, setup: _Setup, alpha: float) -> Diagnostic:
-    o, p, df = setup.o, len(setup.model.terms), setup.summary.df_resid
     name = "curvature"
     assert acc.reset is not None
-    T = acc.reset.triangle()
-    for k, cols in ((2, [*range(p), p, p + 1]), (1, [*range(p), p]), (1, [*range(p), p + 1])):
-        sub = T[:, [*cols, p + 2]]
-        R, _ = _reduce(o, sub)
-        try:
-            _check_rank(o, R[: len(cols), : len(cols)], tuple(f"c{j}" for j in cols))
-        except FitError:
-            continue
-        if df - k < 1:
-            break
-        c = len(cols)
-        rest = max(float(o.f(R[c, c] * R[c, c])), 0.0)
-        extra = float(o.f(o.dot(R[p:c, c], R[p:c, c])))  # the new columns' effects: no cancellation
-        stat = math.inf if rest == 0 else (extra / k) / (rest / (df - k))
-        pv = 0.0 if rest == 0 else dist.f_sf(stat, k, df - k)
-        return _judged(name, stat, pv, f"RESET F = {num(stat)}, {p_text(pv)}", alpha, "streamed")
-    why = "too few distinct fitted values" if df > 2 else "too few rows"
-    return _diag(name, False, f"The curvature test needs more data than this fit has ({why}).", "streamed")
-
-
-def _reduce(o: Ops, A: Ext) -> tuple[Ext, None]:
-    from sitegen.stats.solver import _householder  # noqa: PLC0415
-
-    R, _ = _householder(o, A.copy())
-    return R, None
+    df = setup.summary.df_resid
+    got = reset_triangle(setup.o, acc.reset.triangle(), len(setup.model.terms), df)
+    if got is None:
+        why = "too few distinct fitted values" if df > 2 else "too few rows"
+        return _diag(name, False, f"The curvature test needs more data than this fit has ({why}).", "streamed")
+    stat, pv = got
+    return _judged(name, stat, pv, f"RESET F = {num(stat)}, {p_text(pv)}", alpha, "streamed")
 
 
 def _collinearity(setup: _Setup) -> Diagnostic:
