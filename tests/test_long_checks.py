@@ -49,7 +49,7 @@ def _reset_by_hand(X: np.ndarray, y: np.ndarray, w: np.ndarray | None = None) ->
     q = np.linalg.qr(np.column_stack([Xw, s * f**2, s * f**3]))[0][:, X.shape[1] :]
     extra = float(np.sum((q.T @ r) ** 2))
     df = len(y) - X.shape[1] - 2
-    return (extra / 2) / ((float(r @ r) - extra) / df)
+    return float((extra / 2) / ((float(r @ r) - extra) / df))
 
 
 def _data(seed: int, *, bend: float = 0.0, spread: float = 0.0) -> tuple[np.ndarray, np.ndarray]:

@@ -7,6 +7,7 @@ import json
 import os
 import re
 import signal
+import sys
 import threading
 import time
 from collections.abc import Callable, Iterator, Sequence
@@ -178,6 +179,8 @@ def _time_bound(seconds: float | None) -> Iterator[None]:
     if timer:
 
         def alarm(_signum: int, _frame: object) -> None:
+            if isinstance(sys.exc_info()[1], _Overtime):
+                return  # the bound's exception is on its way out (Jinja2 rewrites its traceback to name the line)
             raise _Overtime
 
         before = signal.signal(signal.SIGALRM, alarm)
