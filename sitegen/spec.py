@@ -585,12 +585,12 @@ def read_sidecar(path: Path | None, defaults: Mapping[str, Any], display: str, r
 
 
 #: Files from this size on are read and fitted in chunks by default (measured: see README, "Files larger than memory").
-STREAM_ABOVE_MEGABYTES = 100.0
+STREAM_ABOVE_MEGABYTES = 10.0
 #: Below this size a file whose sidecar asks for what only the whole-file fit offers (weights, groups, lines…)
 #: is read whole when the chunk threshold is the built-in one (the built-in threshold was this size before).
 WHOLE_WITH_KEYS_BELOW_MEGABYTES = 200.0
 #: Rows per chunk of the chunked reader (a chunk's working memory is about 1.2 kB per row).
-STREAM_CHUNK_ROWS = 65_536
+STREAM_CHUNK_ROWS = 16_384
 
 
 @dataclass(frozen=True, slots=True)

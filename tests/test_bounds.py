@@ -49,8 +49,9 @@ def test_a_fit_past_its_time_bound_gets_an_error_page_and_the_others_build(tmp_p
 
 def test_a_fit_past_its_memory_bound_gets_an_error_page_and_the_others_build(tmp_path: Path) -> None:
     def prepare(data: Path) -> None:
-        _large(data, 1_500_000)  # about 0.4 GB to fit in memory (30 MB: read whole, below the chunk threshold)
-        (data / "site.toml").write_text("[limits]\nmax_fit_megabytes = 100\nmax_rows = 2000000\n", encoding="utf-8")
+        _large(data, 1_500_000)  # about 0.4 GB to fit in memory (30 MB, read whole by the threshold below)
+        limits = "[limits]\nmax_fit_megabytes = 100\nmax_rows = 2000000\nstream_above_megabytes = 1000\n"
+        (data / "site.toml").write_text(limits, encoding="utf-8")
 
     result, site, rows = build_case(tmp_path, prepare)
     size = (tmp_path / "data" / "large.csv").stat().st_size / 1e6
@@ -64,7 +65,7 @@ def test_a_fit_past_its_memory_bound_gets_an_error_page_and_the_others_build(tmp
     expect(result, site, rows, "large", "error", says)
     assert "internal error" not in rows["large"]["message"]
     assert "read and fitted in chunks" in rows["large"]["message"]
-    assert "[limits] stream_above_megabytes (now 100 MB)" in rows["large"]["message"]
+    assert "[limits] stream_above_megabytes (now 1000 MB)" in rows["large"]["message"]
 
 
 def test_a_very_high_size_limit_reserves_nothing_up_front(tmp_path: Path) -> None:

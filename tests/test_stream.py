@@ -32,13 +32,16 @@ import pytest
 from nist_data import ALL_NIST, load_nist
 
 from sitegen.cli import main
+from sitegen.stats.repeats import MAX_SETTINGS
 
 DIGITS = 12
 #: Breusch–Pagan's LM and RESET's F are small differences of large sums (n·R² with R² near 1e-6 here): the
 #: whole-file path forms them as 1 − SSR/TSS and loses about five of long double's 19 digits to that
-#: cancellation, the chunked path adds up the explained part directly. They agree to 10 digits.
+#: cancellation, the chunked path adds up the explained part directly. They agree to 10 digits. So does the
+#: lack-of-fit F, SSR less pure error (pure error summed setting by setting as the chunks come, or in one sum),
+#: whose far-tail p-value (1e-79 in the replicated test) carries that difference times |log p|.
 DIFFERENCE_DIGITS = 10
-_DIFFERENCES = ("constant_variance", "curvature")
+_DIFFERENCES = ("constant_variance", "curvature", "lack_of_fit")
 
 
 def _write_line(path: Path, n: int, seed: int = 7) -> None:
@@ -109,14 +112,15 @@ def test_chunked_fit_equals_whole_file_fit(tmp_path: Path) -> None:
     assert b["status"] != "error", b["messages"]
     found: list[str] = []
     _compare(a, b, "fit", found)
-    # the one check that needs every row at once says so; the others say they used every row
+    # 200,000 distinct settings are more than a chunked fit keeps for the lack-of-fit test, and it says so;
+    # the other checks say they used every row
     bases = {d["check"]: d["basis"] for d in b["diagnostics"]}
     assert bases.pop("lack_of_fit") == "not computed"
     assert set(bases.values()) == {"streamed"}, bases
     lack = next(d for d in b["diagnostics"] if d["check"] == "lack_of_fit")
     texts = [d["text"] for d in a["diagnostics"] if d["check"] != "lack_of_fit"]
     assert [d["text"] for d in b["diagnostics"] if d["check"] != "lack_of_fit"] == texts
-    assert "needs all rows at once" in lack["text"]
+    assert f"more than {MAX_SETTINGS:,} distinct predictor settings" in lack["text"]
     assert [d["check"] for d in b["diagnostics"]] == list(CHECKS)
     assert not found, "\n".join(found[:20])
     obs_a = pd.read_csv(tmp_path / "a" / "datasets" / "line" / "observations.csv")
@@ -131,6 +135,58 @@ def test_chunked_fit_equals_whole_file_fit(tmp_path: Path) -> None:
             assert float(np.nanmax(np.abs(x - y))) <= 10.0**-DIGITS * scale, col
         else:
             assert obs_a[col].fillna("").tolist() == obs_b[col].fillna("").tolist(), col
+
+
+def _write_replicated(path: Path, seed: int = 11) -> None:
+    """Ten central settings measured 5,000 times each, two end settings 300 times (high leverage, repeated), three
+    far single rows, and a bend."""
+    rng = np.random.default_rng(seed)
+    x = np.concatenate([np.repeat(np.arange(15.0, 25.0), 5000), np.repeat([0.0, 39.0], 300), [60.0, 70.0, 80.0]])
+    rng.shuffle(x)
+    y = 2.0 + 0.5 * x + 0.002 * (x - 20.0) ** 2 + rng.normal(0.0, 1.0, len(x))
+    pd.DataFrame({"x": x, "y": y}).to_csv(path, index=False)
+
+
+def test_chunked_lack_of_fit_and_designed_rows_equal_whole_file(tmp_path: Path) -> None:
+    """Rows grouped by setting as the chunks are read (sitegen/stats/repeats.py) give the whole-file test of
+    lack of fit, and the rows of repeated settings are not flagged for their leverage alone, as read whole."""
+    whole, chunked = tmp_path / "whole", tmp_path / "chunked"
+    whole.mkdir()
+    chunked.mkdir()
+    _write_replicated(whole / "runs.csv")
+    shutil.copyfile(whole / "runs.csv", chunked / "runs.csv")
+    for folder in (whole, chunked):
+        (folder / "runs.toml").write_text('model = "y ~ x"\n', encoding="utf-8")
+    (chunked / "site.toml").write_text("[limits]\nstream_above_megabytes = 0\nstream_chunk_rows = 7000\n")
+    assert _build(whole, tmp_path / "a") in (0, 1)
+    assert _build(chunked, tmp_path / "b") in (0, 1)
+    a, b = _fit(tmp_path / "a", "runs"), _fit(tmp_path / "b", "runs")
+    assert b["chunked"]["chunks"] == 8
+    lack_a, lack_b = (next(d for d in f["diagnostics"] if d["check"] == "lack_of_fit") for f in (a, b))
+    assert lack_b["basis"] == "streamed"
+    assert lack_a["flag"]  # the bend is found both ways
+    assert lack_b["flag"]
+    assert "15 distinct settings" in lack_b["text"]
+    assert lack_b["text"] == lack_a["text"]
+    assert _digits_apart(lack_a["statistic"], lack_b["statistic"]) >= DIGITS
+    # the chart's points (residuals near zero among them) to DIGITS relative to their column's largest value
+    points_a, points_b = (np.array(f["chart"].pop("points"), dtype=float) for f in (a, b))
+    scale = np.nanmax(np.abs(points_a), axis=0)
+    assert np.all(np.abs(points_a - points_b) <= 10.0**-DIGITS * scale)
+    found: list[str] = []
+    _compare(a, b, "fit", found)
+    assert not found, "\n".join(found[:20])
+    obs = pd.read_csv(tmp_path / "a" / "datasets" / "runs" / "observations.csv")
+    flags_a = obs["flags"].fillna("")
+    flags_b = pd.read_csv(tmp_path / "b" / "datasets" / "runs" / "observations.csv")["flags"].fillna("")
+    assert flags_b.tolist() == flags_a.tolist()
+    # Repeated settings with leverage above 2p/n (the lowest ones) are not flagged for it; the far single rows are.
+    far = obs["x"] >= 60
+    high = obs["leverage"] > 2 * 2 / len(obs)
+    assert int((high & ~far).sum()) == 600
+    assert flags_a[far].str.contains("leverage above 2p/n").all()
+    repeated_flagged = flags_a[~far & (flags_a != "")]
+    assert repeated_flagged.str.contains("studentized|Cook", regex=True).all()
 
 
 def _lre(got: float | None, certified: float) -> float:

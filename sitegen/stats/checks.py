@@ -60,6 +60,7 @@ from sitegen.errors import FitError
 from sitegen.stats import distributions as dist
 from sitegen.stats import durbin_watson, ext
 from sitegen.stats.influence import LEVERAGE_ONE, Influence
+from sitegen.stats.repeats import PureError
 from sitegen.stats.rowsqr import RowsQR
 from sitegen.stats.shapiro import shapiro_wilk
 from sitegen.stats.solver import Ext, Ops, _check_rank, _householder, kind_of, ops, residual_ss, solve
@@ -601,29 +602,42 @@ def _lack_of_fit(d: _Data) -> _Outcome:
         return "There are no predictors, so there are no settings to repeat."
     order = np.lexsort(pred.T[::-1])
     step = np.any(np.diff(pred[order], axis=0) != 0, axis=1)
+    del pred
     groups = np.empty(d.n, dtype=np.intp)
     groups[order] = np.concatenate([[0], np.cumsum(step)])
+    del order, step
     m = int(groups.max()) + 1
-    df_pe, df_lof = d.n - m, m - d.p
+    counts = np.bincount(groups, minlength=m)
+    if d.n - m < 1 or m - d.p < 1:
+        return lack_of_fit_outcome(d.n, d.p, PureError(m, int(np.sum(counts > 1)), 0.0), d.ssr, 1.0)
+    means = np.bincount(groups, d.s * d.yw, m) / np.bincount(groups, d.s * d.s, m)
+    dev = d.yw - d.s * means[groups]
+    pure = PureError(m, int(np.sum(counts > 1)), float(dev @ dev))
+    return lack_of_fit_outcome(d.n, d.p, pure, d.ssr, float(np.linalg.norm(d.yw)))
+
+
+def lack_of_fit_outcome(n: int, p: int, pure: PureError, ssr: float, y_norm: float) -> _Outcome:
+    """The lack-of-fit F test from the rows grouped by setting (``y_norm``: ‖y‖ on the fit's scale), for a
+    file read whole or in chunks."""
+    m = pure.settings
+    df_pe, df_lof = n - m, m - p
     if df_pe < 1:
         return "No predictor setting is repeated, so there is no pure error to compare with."
     if df_lof < 1:
         return f"The model has as many coefficients as distinct settings ({m}), so there is nothing to test."
-    repeated = int(np.sum(np.bincount(groups, minlength=m) > 1))
+    repeated = pure.repeated
     if repeated < LOF_MIN_REPEATED or df_pe < LOF_MIN_PURE_DF:
         return (
             f"Too few repeated measurements to judge: {repeated} setting{'s' if repeated != 1 else ''} measured "
             f"more than once, {df_pe} degree{'s' if df_pe != 1 else ''} of freedom of pure error; the test needs "
             f"at least {LOF_MIN_REPEATED} repeated settings and {LOF_MIN_PURE_DF} degrees of freedom."
         )
-    means = np.bincount(groups, d.s * d.yw, m) / np.bincount(groups, d.s * d.s, m)
-    dev = d.yw - d.s * means[groups]
-    ss_pe = float(dev @ dev)
-    if math.sqrt(ss_pe) <= _ZERO * float(np.linalg.norm(d.yw)):
+    ss_pe = pure.ss
+    if math.sqrt(ss_pe) <= _ZERO * y_norm:
         return "Repeated measurements agree exactly, so there is no pure error to compare with."
-    stat = (max(d.ssr - ss_pe, 0.0) / df_lof) / (ss_pe / df_pe)
-    p = dist.f_sf(stat, df_lof, df_pe)
-    return stat, p, f"lack-of-fit F = {_num(stat)}, {_p(p)}, {m} distinct settings"
+    stat = (max(ssr - ss_pe, 0.0) / df_lof) / (ss_pe / df_pe)
+    pv = dist.f_sf(stat, df_lof, df_pe)
+    return stat, pv, f"lack-of-fit F = {_num(stat)}, {_p(pv)}, {m} distinct settings"
 
 
 def vif(

@@ -59,12 +59,14 @@ from sitegen.stats.checks import (
     dw_beta_p,
     dw_moments_from,
     dw_outcome,
+    lack_of_fit_outcome,
     reset_triangle,
 )
 from sitegen.stats.checks import _num as num
 from sitegen.stats.durbin_watson import EXACT_MAX_ROWS, exact_cdf
 from sitegen.stats.influence import LEVERAGE_ONE, Influence, PointFlags, influence_rows
 from sitegen.stats.ols import EXACT_FIT_RTOL, Estimates, OlsFit, estimated_fit, row_bands
+from sitegen.stats.repeats import MAX_SETTINGS, PureError, Repeats, setting_keys
 from sitegen.stats.rowsqr import RowsQR, Solved, refine, solve_triangle
 from sitegen.stats.shapiro import shapiro_wilk
 from sitegen.stats.solver import Ext, Ops, ops
@@ -164,6 +166,7 @@ class _First:
     sha256: str = ""
     notes: tuple[str, ...] = ()
     layout: tuple[tuple[str, str], ...] = ()
+    repeats: Repeats = field(default_factory=Repeats)  # rows grouped by predictor setting
 
 
 def _leave_out(table: Table, out: frozenset[int]) -> Table:
@@ -214,6 +217,9 @@ def _first_pass(src: Source, spec: DatasetSpec, o: Ops, out: frozenset[int]) -> 
         p = len(model.terms)
         qr.add(o.columns([cd.X_ext[:, j] for j in range(p)] + [cd.y_ext]))
         first.x_sum = first.x_sum + o.colsum(cd.X_ext)
+        settings = _settings_of(model)
+        if settings:
+            first.repeats.add(cd.X[:, settings], cd.y)
         first.y.add(cd.y)
         for j in range(p):
             first.x[j].add(cd.X[:, j])
@@ -374,6 +380,8 @@ class _Setup:
     t_cut: float
     cooks_cut: float
     sha256: str  # of the file as the first pass read it
+    pure: PureError | None  # the rows grouped by setting (None: too many settings to keep)
+    repeated: NDArray[Any] | None  # the keys of settings measured more than once, sorted (None: unknown)
 
 
 def _skeleton(model: Model, first: _First) -> Design:
@@ -414,9 +422,26 @@ def _summary(  # noqa: PLR0917 - the triangle's pieces
     return estimated_fit(est, n=n, has_intercept=model.has_intercept, level=level, ssr=max(ssr, 0.0), tss=tss)
 
 
-def _flags(infl: Any, cut: tuple[float, float, float, float]) -> PointFlags:
-    """:func:`sitegen.stats.influence.flag_points` for some rows, with the cut-offs of all rows (no row
-    counts as a designed setting)."""
+def _settings_of(model: Model) -> list[int]:
+    """The design columns that make a row's predictor setting (all but the intercept)."""
+    return [j for j, t in enumerate(model.terms) if t != "Intercept"]
+
+
+def _designed(setup: _Setup, cd: ChunkDesign) -> NDArray[np.bool_] | None:
+    """The chunk's rows whose setting was measured more than once (as the whole-file path's designed rows)."""
+    rep = setup.repeated
+    if rep is None or not len(rep):
+        return None
+    keys = setting_keys(cd.X[:, _settings_of(setup.model)])
+    at = np.minimum(np.searchsorted(rep, keys), len(rep) - 1)
+    return np.asarray(rep[at] == keys, dtype=bool)
+
+
+def _flags(
+    infl: Any, cut: tuple[float, float, float, float], designed: NDArray[np.bool_] | None, strong_cut: float
+) -> PointFlags:
+    """:func:`sitegen.stats.influence.flag_points` for some rows, with the cut-offs of all rows; ``designed``
+    marks rows of a setting measured more than once, which leverage alone does not flag."""
     lev_cut, res_cut, cooks_cut, dffits_cut = cut
     h = np.asarray(infl.leverage)
     with np.errstate(invalid="ignore"):
@@ -426,6 +451,10 @@ def _flags(infl: Any, cut: tuple[float, float, float, float]) -> PointFlags:
         cooks = infl.cooks_distance > cooks_cut
         dffits = np.abs(infl.dffits) > dffits_cut
     marked = high | one | resid | cooks | dffits
+    if designed is not None:
+        with np.errstate(invalid="ignore"):
+            strong = infl.cooks_distance > strong_cut
+        marked &= ~designed | resid | one | strong
     return PointFlags(high, one, resid, cooks, dffits, *cut, tuple(np.flatnonzero(marked).tolist()), marked)
 
 
@@ -502,7 +531,7 @@ def _second_pass(src: Source, setup: _Setup, out: frozenset[int], sink: BinaryIO
         else:
             resid, fitted = o.f(r), o.f(cd.y_ext - r)
         infl = influence_rows(h, resid, setup.summary.ssr, setup.summary.df_resid, p)
-        flags = _flags(infl, setup.cutoffs)
+        flags = _flags(infl, setup.cutoffs, _designed(setup, cd), setup.cooks_cut)
         x = cd.data[setup.x_col] if setup.x_col is not None else np.full(m, np.nan)
         index = np.arange(acc.index, acc.index + m, dtype=np.int64)
         acc.index += m
@@ -756,19 +785,31 @@ def _checks(acc: _Second, setup: _Setup, ssr: float) -> tuple[Diagnostic, ...]: 
         out.append(_diag(name, False, "The fitted values are all equal, so there is no bend to look for.", streamed))
     else:
         out.append(_reset(acc, setup, alpha))
-    # agreement with repeats: needs every row grouped by its setting
-    out.append(
-        _diag(
-            "lack_of_fit",
-            False,
-            "Not computed: the file was read in chunks, and this test groups every row by its predictor setting, "
-            "which needs all rows at once.",
-            skipped,
-        )
-    )
+    out.append(_lack_of_fit(setup, why, ssr, alpha))
     out.append(_collinearity(setup))
     out.append(_influence(acc, setup))
     return tuple(out)
+
+
+def _lack_of_fit(setup: _Setup, why: str | None, ssr: float, alpha: float) -> Diagnostic:
+    """Agreement with repeats, from the rows grouped by setting as they were read."""
+    name = "lack_of_fit"
+    if why:
+        return _diag(name, False, why, "streamed")
+    if not _settings_of(setup.model):
+        return _diag(name, False, "There are no predictors, so there are no settings to repeat.", "streamed")
+    if setup.pure is None:
+        text = (
+            f"Not computed: the file was read in chunks and has more than {MAX_SETTINGS:,} distinct predictor "
+            "settings, more than a chunked fit keeps to group its rows by setting."
+        )
+        return _diag(name, False, text, "not computed")
+    n, p = setup.n, len(setup.model.terms)
+    got = lack_of_fit_outcome(n, p, setup.pure, ssr, math.sqrt(max(float(setup.o.f(setup.solved.yy)), 0.0)))
+    if isinstance(got, str):
+        return _diag(name, False, got, "streamed")
+    stat, pv, nums = got
+    return _judged(name, stat, pv, nums, alpha, "streamed")
 
 
 def _reset(acc: _Second, setup: _Setup, alpha: float) -> Diagnostic:
@@ -926,6 +967,8 @@ def fit_in_chunks(  # noqa: PLR0917 - one dataset's inputs
         fitted_ss = max(float(o.f(solved.yy)) - summary.ssr, 0.0)
     fitted_scale = math.sqrt(fitted_ss / n)
     t_cut = max(RESIDUAL_LIMIT, dist.t_isf((1 - spec.level) / (2 * n), n - p - 1) if n - p > 1 else 0.0)
+    pure = first.repeats.pure_error()
+    repeated = first.repeats.repeated_keys()
     setup = _Setup(
         model=model,
         solved=solved,
@@ -944,6 +987,8 @@ def fit_in_chunks(  # noqa: PLR0917 - one dataset's inputs
         t_cut=t_cut,
         cooks_cut=dist.f_ppf(0.5, p, n - p),
         sha256=first.sha256,
+        pure=pure,
+        repeated=repeated,
     )
     written: tuple[str, ...] = ()
     if folder is not None:
