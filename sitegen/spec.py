@@ -589,7 +589,7 @@ STREAM_ABOVE_MEGABYTES = 10.0
 #: Below this size a file whose sidecar asks for what only the whole-file fit offers (weights, groups, lines…)
 #: is read whole when the chunk threshold is the built-in one (the built-in threshold was this size before).
 WHOLE_WITH_KEYS_BELOW_MEGABYTES = 200.0
-#: Rows per chunk of the chunked reader (a chunk's working memory is about 1.2 kB per row).
+#: Rows per chunk of the chunked reader (a chunk's working memory is about 2 kB a row: see README).
 STREAM_CHUNK_ROWS = 16_384
 
 

@@ -23,6 +23,7 @@ from __future__ import annotations
 import json
 import math
 import shutil
+from collections.abc import Callable
 from pathlib import Path
 from typing import Any
 
@@ -94,18 +95,25 @@ def _compare(whole: Any, chunked: Any, path: str, found: list[str]) -> None:
         found.append(f"{path}: {whole!r} vs {chunked!r}")
 
 
-def test_chunked_fit_equals_whole_file_fit(tmp_path: Path) -> None:
+def _built_both_ways(tmp_path: Path, write: Callable[[Path], None], slug: str, chunk_rows: int) -> tuple[Any, Any]:
+    """The fit.json of ``slug`` (its CSV made by ``write``, model y ~ x) built whole into tmp_path/a and read in
+    chunks of ``chunk_rows`` into tmp_path/b."""
     whole, chunked = tmp_path / "whole", tmp_path / "chunked"
     whole.mkdir()
     chunked.mkdir()
-    _write_line(whole / "line.csv", 200_000)
-    shutil.copyfile(whole / "line.csv", chunked / "line.csv")
+    write(whole / f"{slug}.csv")
+    shutil.copyfile(whole / f"{slug}.csv", chunked / f"{slug}.csv")
     for folder in (whole, chunked):
-        (folder / "line.toml").write_text('model = "y ~ x"\n', encoding="utf-8")
-    (chunked / "site.toml").write_text("[limits]\nstream_above_megabytes = 0\nstream_chunk_rows = 30000\n")
+        (folder / f"{slug}.toml").write_text('model = "y ~ x"\n', encoding="utf-8")
+    limits = f"[limits]\nstream_above_megabytes = 0\nstream_chunk_rows = {chunk_rows}\n"
+    (chunked / "site.toml").write_text(limits, encoding="utf-8")
     assert _build(whole, tmp_path / "a") in (0, 1)
     assert _build(chunked, tmp_path / "b") in (0, 1)
-    a, b = _fit(tmp_path / "a", "line"), _fit(tmp_path / "b", "line")
+    return _fit(tmp_path / "a", slug), _fit(tmp_path / "b", slug)
+
+
+def test_chunked_fit_equals_whole_file_fit(tmp_path: Path) -> None:
+    a, b = _built_both_ways(tmp_path, lambda path: _write_line(path, 200_000), "line", 30_000)
     assert a["chunked"] is None
     assert b["chunked"]["chunks"] == 7
     assert b["chunked"]["passes"] == 2
@@ -150,17 +158,7 @@ def _write_replicated(path: Path, seed: int = 11) -> None:
 def test_chunked_lack_of_fit_and_designed_rows_equal_whole_file(tmp_path: Path) -> None:
     """Rows grouped by setting as the chunks are read (sitegen/stats/repeats.py) give the whole-file test of
     lack of fit, and the rows of repeated settings are not flagged for their leverage alone, as read whole."""
-    whole, chunked = tmp_path / "whole", tmp_path / "chunked"
-    whole.mkdir()
-    chunked.mkdir()
-    _write_replicated(whole / "runs.csv")
-    shutil.copyfile(whole / "runs.csv", chunked / "runs.csv")
-    for folder in (whole, chunked):
-        (folder / "runs.toml").write_text('model = "y ~ x"\n', encoding="utf-8")
-    (chunked / "site.toml").write_text("[limits]\nstream_above_megabytes = 0\nstream_chunk_rows = 7000\n")
-    assert _build(whole, tmp_path / "a") in (0, 1)
-    assert _build(chunked, tmp_path / "b") in (0, 1)
-    a, b = _fit(tmp_path / "a", "runs"), _fit(tmp_path / "b", "runs")
+    a, b = _built_both_ways(tmp_path, _write_replicated, "runs", 7000)
     assert b["chunked"]["chunks"] == 8
     lack_a, lack_b = (next(d for d in f["diagnostics"] if d["check"] == "lack_of_fit") for f in (a, b))
     assert lack_b["basis"] == "streamed"
