@@ -93,10 +93,11 @@ def _read_error(src: DatasetSource, base: FitReport, exc: OSError) -> DatasetRes
     return DatasetResult(replace(base, messages=(Message("error", msg),)), None, transient=True)
 
 
-def reads_in_chunks(size: int, spec: DatasetSpec, limits: Limits) -> bool:
+def reads_in_chunks(size: int, spec: DatasetSpec, limits: Limits, *, wide: bool = False) -> bool:
     """Whether a file of ``size`` bytes is read and fitted in chunks: from ``stream_above_megabytes`` on (the
     sidecar's, else the site's). With the built-in threshold, a file below ``WHOLE_WITH_KEYS_BELOW_MEGABYTES``
-    whose sidecar asks for what only the whole-file fit offers (weights, groups, lines…) is read whole."""
+    whose sidecar asks for what only the whole-file fit offers (weights, groups, lines…), or that is UTF-16 or
+    UTF-32 text (``wide``, which only the whole-file reader converts), is read whole."""
     from sitegen.stream.fit import unsupported  # noqa: PLC0415
 
     threshold = limits.stream_above_megabytes
@@ -105,19 +106,20 @@ def reads_in_chunks(size: int, spec: DatasetSpec, limits: Limits) -> bool:
     if size < threshold * 1e6:
         return False
     chosen = spec.stream_above_megabytes is not None or threshold != STREAM_ABOVE_MEGABYTES
-    return chosen or size >= WHOLE_WITH_KEYS_BELOW_MEGABYTES * 1e6 or not unsupported(spec)
+    return chosen or size >= WHOLE_WITH_KEYS_BELOW_MEGABYTES * 1e6 or not (wide or unsupported(spec))
 
 
 def _in_chunks(task: FitTask, base: FitReport) -> DatasetResult | DatasetSpec | None:
     """The dataset fitted in chunks when its file is at least ``stream_above_megabytes`` (the site's, or its
     sidecar's); else the sidecar as read here, for the whole-file path to use (read once), or None (the file's
     size or the sidecar could not be read: the whole-file path says why)."""
-    from sitegen.stream.reader import file_size  # noqa: PLC0415
+    from sitegen.load import looks_wide  # noqa: PLC0415
+    from sitegen.stream.reader import file_head  # noqa: PLC0415
 
     src = task.source
     sidecar_name = src.relpath[: -len(".csv")] + ".toml"
     try:
-        size = file_size(src.csv_path, src.root, src.relpath)
+        size, head = file_head(src.csv_path, src.root, src.relpath)
     except (OSError, DatasetError):
         return None  # the whole-file path reports it in its words
     spec = None
@@ -125,7 +127,7 @@ def _in_chunks(task: FitTask, base: FitReport) -> DatasetResult | DatasetSpec | 
         spec = read_sidecar(src.sidecar_path, dict(task.defaults), sidecar_name, src.root)
     except DatasetError:
         return None
-    if not reads_in_chunks(size, spec, task.limits):
+    if not reads_in_chunks(size, spec, task.limits, wide=looks_wide(head, spec.encoding)):
         return spec
     threshold = task.limits.stream_above_megabytes
     if spec.stream_above_megabytes is not None:

@@ -165,6 +165,20 @@ def _looks_utf16(sample: bytes) -> str | None:
     return None
 
 
+def looks_wide(head: bytes, declared: str) -> bool:
+    """Whether a file starting with ``head`` is UTF-16/UTF-32 text, which only the whole-file reader converts:
+    the sidecar's encoding says so, or (UTF-8 declared) a byte-order mark or the pattern of its bytes does."""
+    try:
+        codec = codecs.lookup(declared).name
+    except LookupError:
+        return False  # the reader reports the unknown encoding
+    if codec.startswith(("utf-16", "utf-32")):
+        return True
+    if codec not in ("utf-8", "utf-8-sig"):
+        return False
+    return any(head.startswith(bom) for bom, _ in _WIDE_BOMS) or _looks_utf16(head[:4096]) is not None
+
+
 def _widen(raw: bytes, declared: str, name: str) -> tuple[bytes, str | None, list[str]]:
     """Convert UTF-16/UTF-32 text to UTF-8; returns (bytes, encoding it was in or None, notes)."""
     codec = _codec(declared, name)

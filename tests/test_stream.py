@@ -20,6 +20,7 @@ Checks:
 
 from __future__ import annotations
 
+import codecs
 import json
 import math
 import shutil
@@ -359,3 +360,39 @@ def test_which_files_are_read_in_chunks() -> None:
     own = DatasetSpec(weights="w", stream_above_megabytes=0.0)
     assert reads_in_chunks(10, own, site)
     assert not reads_in_chunks(above, DatasetSpec(stream_above_megabytes=1e4), site)
+    # UTF-16/UTF-32 text, which only the whole-file reader converts, is read whole below 200 MB too
+    assert not reads_in_chunks(between, plain, site, wide=True)
+    assert reads_in_chunks(above, plain, site, wide=True)  # refused with a message saying how to save it
+
+
+def test_utf16_text_is_told_from_its_start() -> None:
+    from sitegen.load import looks_wide
+
+    text = "x,y\n1.5,2.5\n" * 100
+    assert looks_wide(codecs.BOM_UTF16_LE + text.encode("utf-16-le"), "utf-8")
+    assert looks_wide(text.encode("utf-16-be"), "utf-8")  # no byte-order mark: the pattern of zero bytes
+    assert looks_wide(text.encode("utf-32"), "utf-8")
+    assert looks_wide(text.encode("ascii"), "utf-16")  # the sidecar says so
+    assert not looks_wide(text.encode("utf-8"), "utf-8")
+    assert not looks_wide(text.encode("latin-1"), "latin-1")
+    assert not looks_wide(text.encode("utf-8"), "no-such-encoding")  # the reader reports it
+
+
+def test_a_utf16_file_above_the_threshold_is_read_whole_by_default(tmp_path: Path) -> None:
+    from sitegen.spec import STREAM_ABOVE_MEGABYTES
+
+    data = tmp_path / "data"
+    data.mkdir()
+    rng = np.random.default_rng(4)
+    n = int(STREAM_ABOVE_MEGABYTES * 1e6 / 30)  # at least 17 characters a row, two bytes each
+    x = rng.uniform(0.0, 10.0, n)
+    lines = "".join(f"{a:.6f},{2 + 3 * a + b:.6f}\n" for a, b in zip(x, rng.normal(0, 1, n), strict=True))
+    (data / "wide.csv").write_bytes(codecs.BOM_UTF16_LE + ("x,y\n" + lines).encode("utf-16-le"))
+    assert (data / "wide.csv").stat().st_size >= STREAM_ABOVE_MEGABYTES * 1e6
+    (data / "site.toml").write_text(f"[limits]\nmax_rows = {n}\n", encoding="utf-8")
+    assert _build(data, tmp_path / "site") in (0, 1)
+    fit = _fit(tmp_path / "site", "wide")
+    assert fit["status"] != "error", fit["messages"]
+    assert fit["chunked"] is None
+    assert fit["n"] == n
+    assert any("is UTF-16 text" in m["text"] for m in fit["messages"])

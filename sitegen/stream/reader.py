@@ -67,11 +67,16 @@ class Source:
     chunk_rows: int
 
 
-def file_size(path: Path, root: Path | None, name: str) -> int:
-    """The size of the dataset's file, opened inside the data folder (refused outside it, unread)."""
+#: Bytes at the start of a file that tell UTF-16/UTF-32 text (a byte-order mark, or the pattern of zero bytes).
+WIDE_HEAD_BYTES = 4096
+
+
+def file_head(path: Path, root: Path | None, name: str) -> tuple[int, bytes]:
+    """The size of the dataset's file and its first WIDE_HEAD_BYTES bytes, opened inside the data folder
+    (refused outside it, unread)."""
     try:
         with open_inside(path, root) as fh:
-            return os.fstat(fh.fileno()).st_size
+            return os.fstat(fh.fileno()).st_size, fh.read(WIDE_HEAD_BYTES)
     except OutsideFolderError as exc:
         raise DataFileError(f"{name} {exc.message}", hint=OUTSIDE_HINT) from None
 
