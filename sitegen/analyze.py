@@ -21,7 +21,14 @@ from sitegen import derive
 from sitegen.derive import Observations
 from sitegen.digest import sha256_hex
 from sitegen.discover import DatasetSource
-from sitegen.errors import INTERNAL_ERROR_WORDS, DatasetError, FitError, FormulaError, SidecarUnreadableError
+from sitegen.errors import (
+    INTERNAL_ERROR_WORDS,
+    DatasetError,
+    FitError,
+    FormulaError,
+    SidecarUnreadableError,
+    WholeFileFormulaError,
+)
 from sitegen.formula import Design, assumed_formula, build_design
 from sitegen.load import LoadedTable, read_source, read_table
 from sitegen.model import AnovaLine, Coefficient, FitReport, Message, Status
@@ -105,8 +112,14 @@ def reads_in_chunks(size: int, spec: DatasetSpec, limits: Limits, *, wide: bool 
         threshold = spec.stream_above_megabytes  # the sidecar's, for its dataset
     if size < threshold * 1e6:
         return False
-    chosen = spec.stream_above_megabytes is not None or threshold != STREAM_ABOVE_MEGABYTES
-    return chosen or size >= WHOLE_WITH_KEYS_BELOW_MEGABYTES * 1e6 or not (wide or unsupported(spec))
+    return not _may_read_whole(size, spec, limits) or not (wide or unsupported(spec))
+
+
+def _may_read_whole(size: int, spec: DatasetSpec, limits: Limits) -> bool:
+    """Whether a file above the chunk threshold may still be read whole when it needs to be: the threshold is
+    the built-in one (not chosen in site.toml or the sidecar) and the file is under the former threshold."""
+    chosen = spec.stream_above_megabytes is not None or limits.stream_above_megabytes != STREAM_ABOVE_MEGABYTES
+    return not chosen and size < WHOLE_WITH_KEYS_BELOW_MEGABYTES * 1e6
 
 
 def _in_chunks(task: FitTask, base: FitReport) -> DatasetResult | DatasetSpec | None:
@@ -149,6 +162,8 @@ def _in_chunks(task: FitTask, base: FitReport) -> DatasetResult | DatasetSpec | 
     except OSError as exc:
         return _read_error(src, base, exc)
     except DatasetError as exc:
+        if isinstance(exc, WholeFileFormulaError) and _may_read_whole(size, spec, task.limits):
+            return spec  # categorical or centred terms (found in the first chunk): read whole, as before
         messages = [*_spec_messages(spec, sidecar_name), Message("error", str(exc))]
         return DatasetResult(replace(base, messages=tuple(messages)), None)
 

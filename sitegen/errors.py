@@ -18,6 +18,7 @@ exit codes.
     │   ├── DataFileError            NAME.csv cannot be read as a table
     │   ├── DataLimitError           NAME.csv is over a configured size, row or column limit
     │   ├── FormulaError             the model formula is invalid or names missing columns
+    │   │   └── WholeFileFormulaError  its terms need every row at once (a file read in chunks cannot have them)
     │   └── FitError                 the data do not support the model (too few rows, singular design, …)
     ├── PackError                    a site cannot be packed into a zip or single file
     └── OutsideFolderError           a file leads outside the folder it must stay in (confine.py); callers
@@ -89,6 +90,11 @@ class DataLimitError(DatasetError):
 
 class FormulaError(DatasetError):
     """The model formula is malformed, unsafe, or names columns the data lack."""
+
+
+class WholeFileFormulaError(FormulaError):
+    """The model formula has terms that need every row at once (categorical or centred), which a file read in
+    chunks cannot have."""
 
 
 class FitError(DatasetError):

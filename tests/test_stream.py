@@ -396,3 +396,32 @@ def test_a_utf16_file_above_the_threshold_is_read_whole_by_default(tmp_path: Pat
     assert fit["chunked"] is None
     assert fit["n"] == n
     assert any("is UTF-16 text" in m["text"] for m in fit["messages"])
+
+
+def test_a_centred_model_is_read_whole_below_the_former_threshold_and_refused_when_chosen(tmp_path: Path) -> None:
+    """Centred terms need every row at once (their mean): with the built-in threshold a file under 200 MB is
+    read whole for them (found in its first chunk); with a threshold chosen in site.toml the dataset says why
+    not."""
+    from sitegen.spec import STREAM_ABOVE_MEGABYTES
+
+    data = tmp_path / "data"
+    data.mkdir()
+    rng = np.random.default_rng(9)
+    n = int(STREAM_ABOVE_MEGABYTES * 1e6 / 17)  # at least 18 bytes a row
+    x = rng.uniform(0.0, 10.0, n)
+    y = 1.0 + 2.0 * x + 0.1 * x**2 + rng.normal(0.0, 0.5, n)
+    frame = pd.DataFrame({"x": x.round(6), "y": y.round(6)})
+    frame.to_csv(data / "lots.csv", index=False)
+    assert (data / "lots.csv").stat().st_size >= STREAM_ABOVE_MEGABYTES * 1e6
+    (data / "lots.toml").write_text('model = "y ~ center(x) + I(center(x)**2)"\n', encoding="utf-8")
+    (data / "site.toml").write_text(f"[limits]\nmax_rows = {n}\n", encoding="utf-8")
+    assert _build(data, tmp_path / "site") in (0, 1)
+    fit = _fit(tmp_path / "site", "lots")
+    assert fit["status"] != "error", fit["messages"]
+    assert fit["chunked"] is None
+    assert len(fit["terms"]) == 3
+    (data / "site.toml").write_text(f"[limits]\nmax_rows = {n}\nstream_above_megabytes = 5\n", encoding="utf-8")
+    assert _build(data, tmp_path / "site2") == 1
+    fit = _fit(tmp_path / "site2", "lots")
+    assert fit["status"] == "error"
+    assert "categorical or centred terms, which need every row at once" in fit["messages"][-1]["text"]

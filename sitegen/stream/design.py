@@ -14,7 +14,7 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from sitegen.errors import FormulaError
+from sitegen.errors import FormulaError, WholeFileFormulaError
 from sitegen.formula import (
     Plan,
     _dropped_rows,
@@ -65,7 +65,7 @@ def model_of(formula: str, columns: tuple[str, ...], name: str) -> Model:
         raise FormulaError(f"{name}: {exc.message}", hint=exc.hint) from exc
     plan = _plan(formula, used)
     if plan is None:
-        raise FormulaError(
+        raise WholeFileFormulaError(
             f"{name}: the model {formula!r} has categorical or centred terms, which need every row at once, "
             "so this file cannot be read in chunks",
             hint="use numeric terms only (such as y ~ x + I(x**2)), or raise stream_above_megabytes above the "
