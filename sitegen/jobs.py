@@ -130,7 +130,7 @@ def _memory_advice(limits: Limits) -> str:
     )
 
 
-#: The measured memory of a fit in memory (two-column ``y ~ x``, bench/large.py): the README's rule.
+#: The measured memory of a fit in memory (two-column ``y ~ x``, ``bench/large.py --whole``): the README's rule.
 FIT_BASE_MEGABYTES = 130
 FIT_BYTES_PER_ROW = 290
 
