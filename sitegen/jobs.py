@@ -62,6 +62,20 @@ class FitDone:
     transient: bool = False
 
 
+#: What fitting a dataset imports (numpy's FFT: the Durbin–Watson p-value; the chunked reader: the choice of
+#: reader), loaded by :func:`preload`.
+WORKER_MODULES = ("sitegen.analyze", "sitegen.stream.fit", "numpy.fft")
+
+
+def preload() -> None:
+    """Import what a worker fitting datasets needs, in the build's process before the workers are forked from
+    it: each then starts with the modules loaded, instead of loading them again itself."""
+    import importlib  # noqa: PLC0415
+
+    for name in WORKER_MODULES:
+        importlib.import_module(name)
+
+
 def fit_job(job: FitJob) -> FitDone:
     """Worker: fit one dataset and write its downloads."""
     from sitegen.analyze import FitTask, analyze  # noqa: PLC0415
