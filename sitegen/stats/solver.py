@@ -30,6 +30,9 @@ from sitegen.errors import FitError
 from sitegen.stats import ext
 
 EXTENDED_LIMIT = 4_000_000  # cells (n × p) solved entirely in extended precision
+#: Up to this many cells (n × p) a solution keeps its extended-precision Q (at most 16 bytes a cell), for the
+#: checks' auxiliary regressions to project on (:mod:`sitegen.stats.checks`).
+KEEP_Q_CELLS = 200_000
 #: Above this scaled condition number, float64 data carry fewer than ~3 reliable digits.
 CONDITION_LIMIT = 1e13
 LD = np.longdouble
@@ -115,6 +118,7 @@ class Solution:
     beta_ext: Ext  # the coefficients in extended precision
     resid_ext: Ext  # the refined residuals in extended precision
     root_ext: Ext  # W in extended precision
+    q_ext: Ext = None  # thin Q in extended precision, kept for designs up to KEEP_Q_CELLS cells (else None)
 
 
 def householder_vector(o: Ops, column: Ext) -> Ext | None:
@@ -369,6 +373,7 @@ def solve(X: Any, y: Any, terms: tuple[str, ...]) -> Solution:
         beta_ext=beta,
         resid_ext=r,
         root_ext=root,
+        q_ext=Q if n * p <= min(KEEP_Q_CELLS, EXTENDED_LIMIT) else None,
     )
 
 
