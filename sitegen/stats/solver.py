@@ -38,6 +38,7 @@ CONDITION_LIMIT = 1e13
 LD = np.longdouble
 
 LDArray = NDArray[np.longdouble]
+_LD_EPS = float(np.finfo(LD).eps)  # looked up once (np.finfo is not free, and ops() is called often)
 #: An array in the solver's extended arithmetic: a long-double ndarray or an :class:`ext.DD`.
 Ext = Any
 
@@ -49,7 +50,7 @@ class Ops:
         self.kind = kind
         self.dd = kind == ext.DOUBLE_DOUBLE
         #: unit roundoff of the arithmetic (double-double: about 2⁻¹⁰⁴)
-        self.eps = 2.0**-104 if self.dd else float(np.finfo(LD).eps)
+        self.eps = 2.0**-104 if self.dd else _LD_EPS
 
     def of(self, a: Any) -> Ext:
         if self.dd:
