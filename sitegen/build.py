@@ -423,7 +423,7 @@ class _Build:
         return _Ready(report, tuple(files))
 
     def execute(self, theme: Theme) -> _Executed:
-        from sitegen.jobs import FitJob, Neighbours, fit_bounds, fit_job, page_job  # noqa: PLC0415
+        from sitegen.jobs import FitJob, Neighbours, fit_bounds, fit_job, page_job, preload  # noqa: PLC0415
         from sitegen.report import assets, history, pages  # noqa: PLC0415
         from sitegen.report.files import report_from_index_entry, summary_files, summary_row  # noqa: PLC0415
         from sitegen.report.tags import tag_blocks  # noqa: PLC0415
@@ -448,6 +448,11 @@ class _Build:
         count = len(done)
         if self.progress:
             self.progress(count, total, "")
+        if jobs:
+            # Workers are forked from this process when the first job is sent: what is loaded here by then they
+            # start with, instead of each loading it again (the fitting modules, the theme's templates).
+            preload()
+            pages.load_templates(theme)
         paged: dict[str, _WorkerPage] = {}
         round_jobs = jobs
         for tries_left in range(TRANSIENT_TRIES - 1, -1, -1):

@@ -266,7 +266,9 @@ def compute(
         infl=infl,
         alpha=1 - fit.level,
         weights=weights,
-        precise=Precise(design.X_ext, fit.resid_ext, fit.y_ext - fit.resid_ext, fit.q, fit.xtx_inv, fit.condition),
+        precise=Precise(
+            design.X_ext, fit.resid_ext, fit.y_ext - fit.resid_ext, fit.q, fit.xtx_inv, fit.condition, fit.q_ext
+        ),
     )
     diagnostics = tuple(
         Diagnostic(

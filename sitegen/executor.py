@@ -56,6 +56,11 @@ def _clock_bound(seconds: float) -> float:
     return max(CLOCK_FACTOR * seconds, seconds + CLOCK_GRACE)
 
 
+def _deadline(bounded: Bounded[Any, Any] | None) -> float:
+    """When, by the monotonic clock, an item starting now is past its bound (inf without one)."""
+    return time.monotonic() + _clock_bound(bounded.seconds) if bounded else float("inf")
+
+
 @dataclass(frozen=True, slots=True)
 class Bounded(Generic[T, R]):
     """Bounds for each item of a run, and the result an item past one gets instead of its own."""
@@ -120,6 +125,9 @@ class _Busy:
     worker: _Worker
     index: int
     deadline: float  # monotonic seconds; inf without a time bound
+    # An item sent ahead, waiting in the worker's pipe: it starts as soon as the worker has sent this one's result
+    # (with several workers), instead of after the round trip to this process.
+    ahead: tuple[int, Any] | None = None
 
 
 class WorkerExecutor:
@@ -156,20 +164,33 @@ class WorkerExecutor:
     def _feed(self, work: _Run[T, R]) -> None:
         fn, queue, busy, bounded = work.fn, work.queue, work.busy, work.bounded
         taken = {b.worker.conn for b in busy.values()}
+        bounds = (bounded.seconds, bounded.megabytes) if bounded else None
         for at in range(len(self._workers)):
             if not queue:
                 return
             if self._workers[at].conn in taken:
                 continue
             i, item = queue.popleft()
-            message = (fn, item, (bounded.seconds, bounded.megabytes) if bounded else None)
+            message = (fn, item, bounds)
             try:
                 self._workers[at].conn.send(message)
             except OSError:  # the worker ended while idle (the system's out-of-memory killer): start another
                 self._replace(self._workers[at])
                 self._workers[at].conn.send(message)
-            deadline = time.monotonic() + _clock_bound(bounded.seconds) if bounded else float("inf")
-            busy[self._workers[at].conn] = _Busy(self._workers[at], i, deadline)
+            busy[self._workers[at].conn] = _Busy(self._workers[at], i, _deadline(bounded))
+        if len(self._workers) < 2:
+            return  # one worker: each item starts once the last one's result was handled (see _results)
+        for job in busy.values():  # every worker busy: each gets its next item ahead
+            if not queue:
+                return
+            if job.ahead is None:
+                i, item = queue.popleft()
+                try:
+                    job.worker.conn.send((fn, item, bounds))
+                except OSError:  # the worker ended: its item's result says so; this one waits for another worker
+                    queue.appendleft((i, item))
+                    return
+                job.ahead = (i, item)
 
     def _results(self, work: _Run[T, R]) -> Iterator[tuple[int, R]]:
         from multiprocessing.connection import wait  # noqa: PLC0415
@@ -179,28 +200,21 @@ class WorkerExecutor:
         while busy:
             soonest = min(b.deadline for b in busy.values())
             timeout = None if soonest == float("inf") else max(0.0, soonest - time.monotonic())
-            ready = wait(list(busy), timeout)
-            outcomes: list[tuple[int, Overrun | None, Any]] = []
-            for conn in ready:
-                job = busy.pop(conn)  # type: ignore[call-overload]
-                try:
-                    kind, value = job.worker.conn.recv()
-                except (EOFError, OSError):
-                    job.worker.process.join(timeout=5)
-                    out_of_time = job.worker.process.exitcode == -_SIGXCPU
-                    kind, value = ("time" if out_of_time else "ended"), None
-                if kind in ("time", "memory", "ended"):
-                    self._replace(job.worker)
-                if kind in ("done", "raised"):
-                    outcomes.append((job.index, None, value))
-                else:
-                    outcomes.append((job.index, kind, None))
+            outcomes = [self._outcome(work, conn) for conn in wait(list(busy), timeout)]
             now = time.monotonic()
             for conn, job in list(busy.items()):
                 if job.deadline <= now:
                     del busy[conn]
                     self._replace(job.worker)
+                    if job.ahead is not None:
+                        work.queue.appendleft(job.ahead)
                     outcomes.append((job.index, "time", None))
+            # With one worker the next item starts once the caller has taken these results: items run in order,
+            # one after the other's result was handled (as they would in this process). With several, the freed
+            # workers start their next items at once, rather than wait while the caller handles these results.
+            several = len(self._workers) > 1
+            if several:
+                self._feed(work)
             for index, overrun, value in outcomes:
                 if overrun is not None:
                     if bounded is None:
@@ -210,9 +224,27 @@ class WorkerExecutor:
                     raise value.exc
                 else:
                     yield index, value
-            # The next items start once the caller has taken these results: with one worker, items run in
-            # order, one after the other's result was handled (as they would in this process).
-            self._feed(work)
+            if not several:
+                self._feed(work)
+
+    def _outcome(self, work: _Run[T, R], conn: Any) -> tuple[int, Overrun | None, Any]:
+        """The result (or the bound overrun) a worker with something to say sends for its current item."""
+        job = work.busy.pop(conn)
+        try:
+            kind, value = job.worker.conn.recv()
+        except (EOFError, OSError):
+            job.worker.process.join(timeout=5)
+            out_of_time = job.worker.process.exitcode == -_SIGXCPU
+            kind, value = ("time" if out_of_time else "ended"), None
+        if kind in ("time", "memory", "ended"):
+            self._replace(job.worker)
+            if job.ahead is not None:  # lost with the worker, never started: it goes first again
+                work.queue.appendleft(job.ahead)
+        elif job.ahead is not None:  # the worker has started the item sent ahead
+            work.busy[conn] = _Busy(job.worker, job.ahead[0], _deadline(work.bounded))
+        if kind in ("done", "raised"):
+            return job.index, None, value
+        return job.index, kind, None
 
     def _grow(self, target: int) -> None:
         while len(self._workers) < target:

@@ -12,11 +12,13 @@ from __future__ import annotations
 
 import ast
 import difflib
+import functools
 import json
 import keyword
 import re
 from collections.abc import Mapping
 from dataclasses import dataclass
+from types import CodeType
 from typing import Any
 
 import numpy as np
@@ -753,10 +755,16 @@ def _is_dd(dtype: Any) -> bool:
     return isinstance(dtype, str) and dtype == ext.DOUBLE_DOUBLE
 
 
+@functools.lru_cache(maxsize=256)
+def _compiled(code: str) -> CodeType:
+    """A factor's code, compiled once per process (the same formula serves dataset after dataset)."""
+    return compile(code, "<formula>", "eval")
+
+
 def _evaluate(code: str, namespace: dict[str, Any]) -> Any:
     # The code passed _FactorChecker: only column names, numbers, arithmetic and
     # whitelisted numpy functions can appear, and builtins are withheld.
-    value = eval(compile(code, "<formula>", "eval"), {"__builtins__": {}}, namespace)  # noqa: S307
+    value = eval(_compiled(code), {"__builtins__": {}}, namespace)  # noqa: S307
     shape = (len(namespace["__rows__"]),)
     if isinstance(value, ext.DD):
         return ext.broadcast_to(value, shape)

@@ -11,7 +11,6 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from sitegen.clib import TRIM_FROM_ROWS, give_back_freed_memory
-from sitegen.digest import file_sha256
 from sitegen.discover import DatasetSource
 from sitegen.publish import write_new
 from sitegen.spec import Limits
@@ -60,6 +59,20 @@ class FitDone:
     # The failure says nothing about the input (a read error, a cluster worker lost): the build tries it again
     # and never records it as the dataset's state.
     transient: bool = False
+
+
+#: What fitting a dataset imports (numpy's FFT: the Durbin–Watson p-value; the chunked reader: the choice of
+#: reader), loaded by :func:`preload`.
+WORKER_MODULES = ("sitegen.analyze", "sitegen.stream.fit", "numpy.fft")
+
+
+def preload() -> None:
+    """Import what a worker fitting datasets needs, in the build's process before the workers are forked from
+    it: each then starts with the modules loaded, instead of loading them again itself."""
+    import importlib  # noqa: PLC0415
+
+    for name in WORKER_MODULES:
+        importlib.import_module(name)
 
 
 def fit_job(job: FitJob) -> FitDone:
@@ -155,13 +168,13 @@ def _finish(job: FitJob, result: DatasetResult) -> FitDone:
     job.folder.mkdir(parents=True, exist_ok=True)
     max_bytes = int(job.limits.max_megabytes * 1e6)
     report, obs = result.report, result.observations
-    files = tuple(dataset_files(job.folder, report, obs, job.source, job.offer_source, max_bytes=max_bytes))
-    files = tuple(sorted({*files, *result.written}))
+    written = dataset_files(job.folder, report, obs, job.source, job.offer_source, max_bytes=max_bytes)
+    files = tuple(sorted({*written.names, *result.written}))
     # Chart images run a JavaScript engine that reserves far more address space than a fit's memory bound
     # allows: such pages are written in the build's page round, outside the bound.
     page = job.page if job.page is not None and not job.page.ctx.config.static_images else None
     page_files = write_page(page, result.report, files, job.folder / "index.html") if page else ()
-    sha = file_sha256(job.folder / "fit.json")
+    sha = written.fit_sha256
     if result.report.status == "error":
         return FitDone(result.report, None, files, result.debug_trace, page, page_files, sha, result.transient)
     return FitDone(None, index_entry(result.report), files, result.debug_trace, page, page_files, sha)

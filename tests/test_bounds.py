@@ -177,3 +177,17 @@ def test_items_past_their_bounds_get_the_fallback_and_the_rest_go_on() -> None:
         got2 = dict(run_.run(_grab, [1, 400, 2], big))
         assert got2 == {0: f"held {2**20}", 1: "400: memory", 2: f"held {2 * 2**20}"}
         assert run_.workers == 2  # the workers ended by a bound were replaced
+
+
+def test_items_sent_ahead_to_a_worker_that_goes_past_a_bound_run_elsewhere() -> None:
+    """With several workers each gets its next item ahead (in its pipe, behind the one it runs): an item queued
+    behind one that is stopped by a bound is not lost with that worker but runs in another."""
+    slow: Bounded[float, str] = Bounded(1, 500, _told)
+    with WorkerExecutor(2) as run_:
+        # Worker 1 runs item 1 (past the time bound) with item 3 sent ahead behind it.
+        got = dict(run_.run(_spin, [0.0, 30.0, 0.1, 0.2], slow))
+        assert got == {0: "finished", 1: "30.0: time", 2: "finished", 3: "finished"}
+        big: Bounded[int, str] = Bounded(30, 50, _told)
+        got2 = dict(run_.run(_grab, [1, 400, 2, 3], big))
+        assert got2 == {0: f"held {2**20}", 1: "400: memory", 2: f"held {2 * 2**20}", 3: f"held {3 * 2**20}"}
+        assert run_.workers == 2

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from collections.abc import Sequence
+from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -316,6 +317,14 @@ def _source_copy(src: DatasetSource, r: FitReport, max_bytes: int | None) -> byt
     return raw if sha256_hex(raw) == r.input_sha256 else None
 
 
+@dataclass(frozen=True, slots=True)
+class Downloads:
+    """What :func:`dataset_files` wrote: the files' names, and the SHA-256 of the fit.json written."""
+
+    names: tuple[str, ...]
+    fit_sha256: str
+
+
 def dataset_files(
     folder: Path,
     r: FitReport,
@@ -324,10 +333,26 @@ def dataset_files(
     offer_source: bool,
     *,
     max_bytes: int | None = None,
+) -> Downloads:
+    """Write a dataset's downloads into its folder; returns their names and fit.json's hash (taken from the
+    bytes written, rather than by reading the file back)."""
+    text = to_json(r).encode("utf-8")  # LF line ends on every system, as the CSV files
+    (folder / "fit.json").write_bytes(text)
+    names = _downloads(folder, r, obs, src, offer_source=offer_source, max_bytes=max_bytes)
+    return Downloads(tuple(names), sha256_hex(text))
+
+
+def _downloads(
+    folder: Path,
+    r: FitReport,
+    obs: Observations | None,
+    src: DatasetSource,
+    *,
+    offer_source: bool,
+    max_bytes: int | None,
 ) -> list[str]:
-    """Write a dataset's downloads into its folder; returns their names."""
+    """Every download but fit.json (written already); returns the names, fit.json's included."""
     files = ["fit.json"]
-    (folder / "fit.json").write_text(to_json(r), encoding="utf-8")
     raw = _source_copy(src, r, max_bytes) if offer_source else None
     if raw is not None:
         # Named by slug: the original name may hold '#', '?' or bytes that are not UTF-8, which

@@ -25,6 +25,8 @@ def _finite(x: object) -> float | None:
 
 def num(x: object, digits: int = 4) -> str:
     """A number with ``digits`` significant digits; scientific notation only when very large or small."""
+    if type(x) is float and math.isfinite(x):  # the common case, first (a page formats some hundred numbers)
+        return significant(x, digits)
     if isinstance(x, float) and math.isinf(x):
         return "∞" if x > 0 else "−∞"
     v = _finite(x)

@@ -230,6 +230,12 @@ _THEME_HINT = "fix the theme's template, or remove it to use the default theme's
 def check_theme(theme: Theme) -> None:
     """Compile every template of a user theme, so that a syntax error stops the build before anything is
     written (:class:`SiteConfigError` naming the template and line)."""
+    load_templates(theme)
+
+
+def load_templates(theme: Theme) -> None:
+    """Load (compile, or read from the bytecode cache) every template of the theme into its environment; a
+    syntax error raises :class:`SiteConfigError` naming the template and line."""
     env = environment(theme)
     loader = env.loader
     if loader is None:
@@ -263,6 +269,9 @@ def environment(theme: Theme) -> jinja2.Environment:
         trim_blocks=True,
         lstrip_blocks=True,
         keep_trailing_newline=True,
+        # The default theme's templates are ours and do not change while sitegen runs: not looked at again
+        # on every use (a user's theme is, so that a long-running watch sees its edits).
+        auto_reload=sandboxed,
     )
     env.filters |= {
         "num": fmt.num,

@@ -15,8 +15,11 @@ Tests and rules (``alpha`` is the significance level for every p-value):
 
 Every auxiliary regression (Breusch–Pagan, RESET) goes through the fit's own
 solver (:mod:`sitegen.stats.solver`: scaled columns, extended-precision QR,
-refined residuals), and the variance inflation factors come from the fit's
-(X'X)⁻¹ of that factorisation, never from inverting a correlation matrix.
+refined residuals) — or, where that is as accurate as a float64 figure can show
+(:func:`_design_q`), is projected on the fit's own extended-precision Q, with the
+explained part taken directly rather than as a difference of nearly equal sums —
+and the variance inflation factors come from the fit's (X'X)⁻¹ of that
+factorisation, never from inverting a correlation matrix.
 
 - constant_variance: Breusch–Pagan in Koenker's studentized form (statsmodels
   ``het_breuschpagan``), squared residuals against a constant and the predictors.
@@ -63,7 +66,7 @@ from sitegen.stats.influence import LEVERAGE_ONE, Influence
 from sitegen.stats.repeats import PureError
 from sitegen.stats.rowsqr import RowsQR
 from sitegen.stats.shapiro import shapiro_wilk
-from sitegen.stats.solver import Ext, Ops, _check_rank, _householder, kind_of, ops, residual_ss, solve
+from sitegen.stats.solver import Ext, Ops, _apply_qt, _check_rank, _householder, kind_of, ops, residual_ss, solve
 from sitegen.stats.text import minus, p_text
 
 FloatArray = NDArray[np.float64]
@@ -182,6 +185,7 @@ class Precise:
     q: FloatArray  # thin Q of the weighted design, from the extended factorisation
     xtx_inv: FloatArray  # (X'WX)⁻¹ from the extended factorisation (NaN when not available)
     condition: float  # condition number of the weighted design with unit-length columns
+    q_ext: Ext = None  # thin Q of the weighted design in extended precision, when the solver kept it
 
 
 def precise_inputs(  # noqa: PLR0917 - the fit's arrays
@@ -199,13 +203,19 @@ def precise_inputs(  # noqa: PLR0917 - the fit's arrays
     s = o.of(np.ones(n) if weights is None else np.sqrt(np.asarray(weights, dtype=np.float64)))
     try:
         sol = solve(Xe * s[:, None], o.of(np.asarray(y, dtype=np.float64)) * s, tuple(terms))
-        q, xtx_inv, cond = sol.q, sol.xtx_inv, sol.condition
+        q, xtx_inv, cond, q_ext = sol.q, sol.xtx_inv, sol.condition, sol.q_ext
     except FitError:
         Xw = np.asarray(X, dtype=np.float64) * o.f(s)[:, None]
         q = np.linalg.qr(Xw)[0] if n and p else np.zeros((n, p))
-        xtx_inv, cond = np.full((p, p), np.nan), math.inf
+        xtx_inv, cond, q_ext = np.full((p, p), np.nan), math.inf, None
     return Precise(
-        Xe, o.of(np.asarray(resid, dtype=np.float64)), o.of(np.asarray(fitted, dtype=np.float64)), q, xtx_inv, cond
+        Xe,
+        o.of(np.asarray(resid, dtype=np.float64)),
+        o.of(np.asarray(fitted, dtype=np.float64)),
+        q,
+        xtx_inv,
+        cond,
+        q_ext,
     )
 
 
@@ -321,6 +331,13 @@ def _constant_variance(d: _Data) -> _Outcome:
         return "All residuals have the same size, so their scatter cannot change."
     if d.n > BLOCKS_ABOVE_ROWS:
         return _constant_variance_in_blocks(d, pred)
+    q = _design_q(o, d)
+    if q is not None and d.icol is not None and not d.weighted:
+        # The constant and the predictors span the design's own columns: e² is projected on the fit's Q.
+        lm, p = _breusch_pagan_on_design(o, d.ew_ext, q)
+        if not (math.isfinite(lm) and math.isfinite(p)):
+            return "The Breusch–Pagan test gave no usable result for these data."
+        return lm, p, f"Breusch–Pagan LM = {_num(lm)}, {_p(p)}"
     cols = [o.of(np.ones(d.n)), *(d.ext.X_ext[:, j] for j in pred)]
     try:
         lm, p = _breusch_pagan(d.ew_ext, list(cols))
@@ -355,6 +372,34 @@ def _breusch_pagan(e: Ext, cols: list[Ext]) -> tuple[float, float]:
     tss = float(o.f(o.dot(dev, dev)))
     r2 = 1 - ssr / tss if tss > 0 else 0.0
     lm = n * r2
+    return lm, dist.chi2_sf(lm, k - 1)
+
+
+def _design_q(o: Ops, d: _Data) -> Ext:
+    """The fit's extended-precision thin Q, where projecting on it is as accurate as a float64 figure can show;
+    else None (the auxiliary regression is then solved again, with refinement).
+
+    A Householder Q spans the columns of a design within about cond · ε of the arithmetic (backward stability,
+    common practice): below float64's unit roundoff when cond · ε ≤ 2⁻⁵³ — every design in double-double, and
+    in long double designs up to a condition number of 2¹¹ (straight lines on most data; not the NIST
+    polynomials, which keep the refined route).
+    """
+    if d.ext.q_ext is None or not d.ext.condition * o.eps <= 2.0**-53:
+        return None
+    return d.ext.q_ext
+
+
+def _breusch_pagan_on_design(o: Ops, e: Ext, q: Ext) -> tuple[float, float]:
+    """Koenker's LM when the constant and the predictors span the columns of the fit's design, whose thin Q
+    (extended precision, from the fit's factorisation) is ``q``: R² is ‖Q'(u − ū)‖² / ‖u − ū‖², u = e², the
+    explained part taken directly (no difference of nearly equal sums), with no second factorisation."""
+    u = e * e
+    n, k = q.shape
+    dev = u - o.dot(u, o.of(np.ones(n))) / n
+    effects = o.dot(q.T, dev)
+    explained = float(o.f(o.dot(effects, effects)))
+    tss = float(o.f(o.dot(dev, dev)))
+    lm = n * (explained / tss if tss > 0 else 0.0)
     return lm, dist.chi2_sf(lm, k - 1)
 
 
@@ -573,9 +618,21 @@ def _curvature(d: _Data) -> _Outcome:
     if k == 0 or d.df - k < 1:
         why = "too few distinct fitted values" if k == 0 else "too few rows"
         return f"The curvature test needs more data than this fit has ({why})."
+    # What is left of the new columns once the design is taken off, as a share of them (the least over
+    # the directions kept): the projection on the fit's Q cancels that much, the refined route does not.
+    left = float(sv[1]) if k == 2 else float(np.max(np.linalg.norm(W, axis=0)))
     if k == 1:  # keep the power that adds more
         new = [new[int(np.argmax(np.linalg.norm(W, axis=0)))]]
     del W
+    q = _design_q(o, d)
+    if q is not None and o.eps <= left * 2.0**-53:
+        got = _reset_on_design(o, q, new, d.ew_ext)
+        if got is None:
+            return "The curvature test needs more data than this fit has (too few distinct fitted values)."
+        extra, rest = got
+        stat = math.inf if rest == 0 else (extra / k) / (rest / (d.df - k))
+        p = 0.0 if rest == 0 else dist.f_sf(stat, k, d.df - k)
+        return stat, p, f"RESET F = {_num(stat)}, {_p(p)}"
     yw = (d.ext.fitted_ext + d.ext.resid_ext) * d.s_ext
     # The augmented design is handed over without a name here, so that the solver can free it once scaled
     # (column j times s equals column j of X·diag(s), element by element).
@@ -590,6 +647,27 @@ def _curvature(d: _Data) -> _Outcome:
     stat = math.inf if rest == 0 else (extra / k) / (rest / (d.df - k))
     p = 0.0 if rest == 0 else dist.f_sf(stat, k, d.df - k)
     return stat, p, f"RESET F = {_num(stat)}, {_p(p)}"
+
+
+def _reset_on_design(o: Ops, q: Ext, new: list[Ext], e: Ext) -> tuple[float, float] | None:
+    """RESET's explained and residual sums of squares from the fit's own thin Q (extended precision): the new
+    columns A are taken off the design's span (A − QQ'A, twice, in extended precision), factored, and the fit's
+    residuals ``e`` split by that factor into the part the new columns explain and the rest — both sums of
+    squares of their own components, so neither is a difference of nearly equal sums. None when the new columns
+    are dependent once the design is taken off."""
+    A = o.columns(new)
+    for _ in range(2):  # the second pass takes off what rounding left of the design's span (common practice)
+        A = A - o.dot(q, o.dot(q.T, A))
+    k = A.shape[1]
+    R, reflectors = _householder(o, A)
+    try:
+        _check_rank(o, R, tuple(f"z{j}" for j in range(k)))
+    except FitError:
+        return None
+    split = _apply_qt(o, reflectors, e)
+    extra = float(o.f(o.dot(split[:k], split[:k])))
+    rest = float(o.f(o.dot(split[k:], split[k:])))
+    return extra, rest
 
 
 LOF_MIN_REPEATED = 2  # settings measured more than once

@@ -61,6 +61,7 @@ class OlsFit:
     root_ext: Ext = None  # W in the solver's extended arithmetic
     resid_ext: Ext = None  # y − fitted in the solver's extended arithmetic (unweighted)
     y_ext: Ext = None  # the response in the solver's extended arithmetic
+    q_ext: Ext = None  # the thin Q in the solver's extended arithmetic (small designs only; see solver.KEEP_Q_CELLS)
 
 
 def _nan_div(a: float, b: float) -> float:
@@ -126,6 +127,7 @@ def fit_ols(
         per_row=(fitted, resid, sol.leverage, sol.q),
         resid_ext=resid_ext,
         y_ext=y,
+        q_ext=sol.q_ext,
     )
 
 
@@ -154,6 +156,7 @@ def estimated_fit(
     per_row: tuple[FloatArray, FloatArray, FloatArray, FloatArray] | None = None,
     resid_ext: Ext = None,
     y_ext: Ext = None,
+    q_ext: Ext = None,
 ) -> OlsFit:
     """The fit of these estimates with its inference (:func:`with_inference`): the one place that sets the
     degrees of freedom and the derived fields, for a file read whole or in chunks. ``per_row`` holds the
@@ -195,6 +198,7 @@ def estimated_fit(
             root_ext=est.root_ext,
             resid_ext=resid_ext,
             y_ext=y_ext,
+            q_ext=q_ext,
         )
     )
 

@@ -30,11 +30,15 @@ from sitegen.errors import FitError
 from sitegen.stats import ext
 
 EXTENDED_LIMIT = 4_000_000  # cells (n × p) solved entirely in extended precision
+#: Up to this many cells (n × p) a solution keeps its extended-precision Q (at most 16 bytes a cell), for the
+#: checks' auxiliary regressions to project on (:mod:`sitegen.stats.checks`).
+KEEP_Q_CELLS = 200_000
 #: Above this scaled condition number, float64 data carry fewer than ~3 reliable digits.
 CONDITION_LIMIT = 1e13
 LD = np.longdouble
 
 LDArray = NDArray[np.longdouble]
+_LD_EPS = float(np.finfo(LD).eps)  # looked up once (np.finfo is not free, and ops() is called often)
 #: An array in the solver's extended arithmetic: a long-double ndarray or an :class:`ext.DD`.
 Ext = Any
 
@@ -46,7 +50,7 @@ class Ops:
         self.kind = kind
         self.dd = kind == ext.DOUBLE_DOUBLE
         #: unit roundoff of the arithmetic (double-double: about 2⁻¹⁰⁴)
-        self.eps = 2.0**-104 if self.dd else float(np.finfo(LD).eps)
+        self.eps = 2.0**-104 if self.dd else _LD_EPS
 
     def of(self, a: Any) -> Ext:
         if self.dd:
@@ -115,6 +119,7 @@ class Solution:
     beta_ext: Ext  # the coefficients in extended precision
     resid_ext: Ext  # the refined residuals in extended precision
     root_ext: Ext  # W in extended precision
+    q_ext: Ext = None  # thin Q in extended precision, kept for designs up to KEEP_Q_CELLS cells (else None)
 
 
 def householder_vector(o: Ops, column: Ext) -> Ext | None:
@@ -369,6 +374,7 @@ def solve(X: Any, y: Any, terms: tuple[str, ...]) -> Solution:
         beta_ext=beta,
         resid_ext=r,
         root_ext=root,
+        q_ext=Q if n * p <= min(KEEP_Q_CELLS, EXTENDED_LIMIT) else None,
     )
 
 
