@@ -58,6 +58,8 @@ _HEAD_BYTES = 1 << 16
 MAX_NAME_CHARS = 300
 _PLAIN_MAX_BYTES = 2_000_000  # above this, pandas' C reader is faster than splitting lines here
 _LINE_BREAK = re.compile(r"\r\n|\r|\n")
+#: A column of cells joined by line breaks, each a number (:data:`~sitegen.table.NUMBER`) or empty.
+_NUMBERS = re.compile(rf"(?:{NUMBER.pattern})?(?:\n(?:{NUMBER.pattern})?)*", re.ASCII)
 _SEP_LINE = re.compile(r"^\ufeff?\"?sep=(.)\"?[ \t]*$")
 #: File signatures of things people save with a .csv name by mistake.
 _NOT_CSV = (
@@ -443,27 +445,28 @@ def read_plain(raw: bytes, delimiter: str, *, skip: int, width: int) -> Table | 
     body = lines[skip + 1 :]
     if len(header) != width:
         return None
-    cells: list[list[str]] = [[] for _ in range(width)]
-    for line in body:
-        fields = line.split(delimiter)
-        if len(fields) != width:
-            return None  # blank lines, short or long lines: the general reader words these
-        for column, cell in zip(cells, fields, strict=True):
-            column.append(cell)
+    rows = [line.split(delimiter) for line in body]
+    if any(len(fields) != width for fields in rows):
+        return None  # blank lines, short or long lines: the general reader words these
+    cells: list[list[str]] = [list(column) for column in zip(*rows, strict=True)] if rows else [[]] * width
+    del rows
     names = [h.strip() for h in header]
     if len(set(names)) != len(names):
         return None
     columns: dict[str, np.ndarray] = {}
     for name, column in zip(names, cells, strict=True):
-        if not all(c == "" or NUMBER.fullmatch(c) for c in column):
+        # one match over the column's cells, a line each (no cell holds a line break), not a match a cell
+        if not _NUMBERS.fullmatch("\n".join(column)):
             return None
-        if any(len(c) > 18 and integer_kind([c]) == "wide" for c in column):
+        if max(map(len, column), default=0) > 18 and any(len(c) > 18 and integer_kind([c]) == "wide" for c in column):
             return None  # a whole number beyond 64 bits: the general reader decides what the column is
         kind = integer_kind(column) if column and "" not in column else "other"
         if kind == "int":
             columns[name] = np.array([int(c) for c in column], dtype=np.int64)
-        else:
+        elif "" in column:
             columns[name] = np.array([float(c) if c else np.nan for c in column], dtype=np.float64)
+        else:
+            columns[name] = np.array(list(map(float, column)), dtype=np.float64)
     return from_columns(columns)
 
 
