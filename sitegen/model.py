@@ -18,6 +18,8 @@ import typing
 from dataclasses import dataclass, field
 from typing import Any, Literal
 
+from sitegen.jsontext import compact
+
 Status = Literal["ok", "warn", "error"]
 Level = Literal["error", "warning", "note"]
 FORMAT_VERSION = 1
@@ -448,7 +450,7 @@ def to_json(report: FitReport) -> str:
     body = _encode(report)
     assert isinstance(body, dict)
     body["format_version"] = FORMAT_VERSION
-    return json.dumps(body, sort_keys=True, ensure_ascii=False, allow_nan=False, separators=(",", ":")) + "\n"
+    return compact(body) + "\n"
 
 
 Decoder = typing.Callable[[Any], Any]

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import contextlib
-import json
 import os
 import re
 import signal
@@ -26,6 +25,7 @@ from markupsafe import Markup
 from sitegen import __version__
 from sitegen.confine import files_inside, read_inside
 from sitegen.errors import OutsideFolderError, SiteConfigError
+from sitegen.jsontext import compact
 from sitegen.model import FitReport
 from sitegen.report import charts, fmt
 from sitegen.report.dataset_view import Neighbour, unmet_words, view
@@ -76,7 +76,7 @@ def render_markdown(text: str) -> Markup:
 
 def json_for_script(value: object) -> Markup:
     """JSON that is safe inside a ``<script>`` element: no ``<``, ``>`` or ``&`` survive unescaped."""
-    text = json.dumps(value, ensure_ascii=False, allow_nan=False, separators=(",", ":"), sort_keys=True)
+    text = compact(value)
     text = text.replace("<", "\\u003c").replace(">", "\\u003e").replace("&", "\\u0026")
     text = text.replace("\u2028", "\\u2028").replace("\u2029", "\\u2029")
     return Markup(text)  # noqa: S704 - escaped above
