@@ -53,7 +53,7 @@ from sitegen.stats.calibration import (
     inverse_predict_wls,
     weighted_detection_limits,
 )
-from sitegen.stats.checks import Precise, model_checks
+from sitegen.stats.checks import Check, Precise, model_checks
 from sitegen.stats.claims import check_claims
 from sitegen.stats.groups import compare_groups
 from sitegen.stats.influence import Influence, PointFlags, flag_points, influence
@@ -249,14 +249,10 @@ def designed_rows(design: Design, spec: DatasetSpec) -> NDArray[np.bool_]:
     return replicated_settings(design)
 
 
-def compute(
-    design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray | None, *, weighting: str | None = None
-) -> Derived:
-    """Derive every requested result; problems with optional extras become warnings."""
-    messages: list[Message] = []
-    infl = influence(fit.q, fit.resid, fit.df_resid, weights=weights)
-    flags = flag_points(infl, fit.n, len(fit.terms), designed=designed_rows(design, spec))
-    checks = model_checks(
+def fit_checks(design: Design, fit: OlsFit, infl: Influence, weights: FloatArray | None = None) -> tuple[Check, ...]:
+    """Every model check of a fit read whole, on the fit's own extended-precision pieces (the one place that
+    hands them to :func:`~sitegen.stats.checks.model_checks`)."""
+    return model_checks(
         design.X,
         design.y,
         fit.resid,
@@ -270,6 +266,16 @@ def compute(
             design.X_ext, fit.resid_ext, fit.y_ext - fit.resid_ext, fit.q, fit.xtx_inv, fit.condition, fit.q_ext
         ),
     )
+
+
+def compute(
+    design: Design, fit: OlsFit, spec: DatasetSpec, weights: FloatArray | None, *, weighting: str | None = None
+) -> Derived:
+    """Derive every requested result; problems with optional extras become warnings."""
+    messages: list[Message] = []
+    infl = influence(fit.q, fit.resid, fit.df_resid, weights=weights)
+    flags = flag_points(infl, fit.n, len(fit.terms), designed=designed_rows(design, spec))
+    checks = fit_checks(design, fit, infl, weights)
     diagnostics = tuple(
         Diagnostic(
             c.check,

@@ -21,7 +21,7 @@ from sitegen.formula import build_design
 from sitegen.model import Diagnostic
 from sitegen.spec import DatasetSpec
 from sitegen.stats import ext
-from sitegen.stats.checks import Check, Precise, model_checks, vif
+from sitegen.stats.checks import Check, vif
 from sitegen.stats.influence import influence
 from sitegen.stats.ols import OlsFit, fit_ols
 
@@ -104,17 +104,7 @@ def program_figures(name: str, kind: str) -> dict[str, Any]:
 def _normality_tests(design: Any, fit: OlsFit, infl: Any) -> tuple[Check, ...]:
     """Both normality tests as the checks compute them, before the page shows them as one check
     (Shapiro–Wilk's figures are also the merged check's; Jarque–Bera's only appear in its text)."""
-    checks = model_checks(
-        design.X,
-        design.y,
-        fit.resid,
-        fit.fitted,
-        terms=fit.terms,
-        has_intercept=fit.has_intercept,
-        infl=infl,
-        alpha=1 - fit.level,
-        precise=Precise(design.X_ext, fit.resid_ext, fit.y_ext - fit.resid_ext, fit.q, fit.xtx_inv, fit.condition),
-    )
+    checks = derive.fit_checks(design, fit, infl)
     return tuple(c for c in checks if c.check.startswith("normality_"))
 
 

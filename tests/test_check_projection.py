@@ -20,9 +20,9 @@ import pandas as pd
 import pytest
 from nist_reference import _solve, _ssr
 
+from sitegen.derive import fit_checks
 from sitegen.formula import build_design
 from sitegen.stats import ext
-from sitegen.stats.checks import Precise, model_checks
 from sitegen.stats.influence import influence
 from sitegen.stats.ols import fit_ols
 
@@ -63,20 +63,7 @@ def _ours(x: np.ndarray, y: np.ndarray, kind: str) -> tuple[Any, Any]:
         design = build_design("y ~ x", frame, "line.csv")
         fit = fit_ols(design.X_ext, design.y_ext, design.terms, has_intercept=True, level=0.95)
         assert fit.q_ext is not None  # a small design keeps its extended Q
-        precise = Precise(
-            design.X_ext, fit.resid_ext, fit.y_ext - fit.resid_ext, fit.q, fit.xtx_inv, fit.condition, fit.q_ext
-        )
-        checks = model_checks(
-            design.X,
-            design.y,
-            fit.resid,
-            fit.fitted,
-            terms=fit.terms,
-            has_intercept=True,
-            infl=influence(fit.q, fit.resid, fit.df_resid),
-            alpha=0.05,
-            precise=precise,
-        )
+        checks = fit_checks(design, fit, influence(fit.q, fit.resid, fit.df_resid))
     by_name = {c.check: c for c in checks}
     return by_name["constant_variance"].statistic, by_name["curvature"].statistic
 
